@@ -1,0 +1,231 @@
+"""Command line: argument parsing and error reporting only; the work is in the library.
+
+Errors a user can cause print one line and exit with status 2; an interruption exits with 130.
+"""
+
+from __future__ import annotations
+
+import argparse
+import logging
+import signal
+import sys
+from pathlib import Path
+from typing import Any
+
+from . import __version__
+from .config import CODECS, FILLS, MODELS, OPTION_NAMES, SMOOTHERS
+from .errors import StabilizeError
+
+EXIT_OK, EXIT_USAGE, EXIT_SOME_FAILED, EXIT_INTERRUPTED = 0, 2, 3, 130
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse that reports a usage error in one line (status 2), not a usage block."""
+
+    def error(self, message: str) -> None:  # type: ignore[override]
+        self.exit(EXIT_USAGE, f"{self.prog}: error: {message}\n")
+
+
+def _add_common(p: argparse.ArgumentParser) -> None:
+    g = p.add_argument_group("options (also settable in a TOML config)")
+    g.add_argument("--config", metavar="FILE_OR_PRESET",
+                   help="TOML settings file, or the name of a preset in configs/")
+    g.add_argument("--model", choices=MODELS, help="motion model fitted per frame")
+    g.add_argument("--smoother", choices=SMOOTHERS, help="camera-path smoother")
+    g.add_argument("--window-s", metavar="SECONDS", help="smoothing time scale in seconds")
+    g.add_argument("--margin", metavar="auto|FRACTION",
+                   help="fraction cut from each side to hide moved-in borders")
+    g.add_argument("--fill", choices=FILLS, help="fill for uncovered pixels")
+    g.add_argument("--analysis-width", metavar="PX",
+                   help="width frames are reduced to for tracking (0 = full resolution)")
+    g.add_argument("--ignore", metavar="X,Y,W,H", action="append",
+                   help="region excluded from tracking, full-resolution pixels (repeatable)")
+    g.add_argument("--inlier-px", metavar="PX", help="consensus inlier threshold in pixels")
+    g.add_argument("--confidence", metavar="P",
+                   help="probability of drawing at least one all-inlier sample")
+    g.add_argument("--max-rounds", metavar="N", help="cap on hypotheses per frame")
+    g.add_argument("--seed", metavar="N", help="random seed (equal seeds, identical logs)")
+    g.add_argument("--fov-deg", metavar="DEG", help="horizontal field of view in degrees")
+    g.add_argument("--shake-above-hz", metavar="HZ",
+                   help="path motion above this frequency counts as shake")
+    g.add_argument("--crf", metavar="N", help="encoder quality (lower is better)")
+    g.add_argument("--preset", metavar="NAME", help="encoder speed preset")
+    g.add_argument("--codec", choices=CODECS, help="output video codec")
+    g.add_argument("--compare", action="store_const", const=True,
+                   help="also write a side-by-side before/after video")
+    g.add_argument("--force", action="store_const", const=True,
+                   help="allow overwriting existing outputs (never the input)")
+    g.add_argument("--quiet", action="store_const", const=True, help="no progress bars")
+    g.add_argument("--debug", action="store_true", help="show a traceback on errors")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = _Parser(
+        prog="stabilize",
+        description="Steady shaky video, measure the camera shake, write a per-frame motion log.",
+    )
+    parser.add_argument("--version", action="version", version=f"stabilize {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    sub.required = True
+
+    p = sub.add_parser("steady", help="steady a clip and write its motion log")
+    p.add_argument("clip")
+    p.add_argument("-o", "--output", metavar="OUT", help="steadied video path")
+    p.add_argument("--log", metavar="PATH.csv", help="motion log path")
+    _add_common(p)
+
+    p = sub.add_parser("measure", help="motion log and shake summary only, no video")
+    p.add_argument("clip")
+    p.add_argument("--log", metavar="OUT.csv", help="motion log path")
+    _add_common(p)
+
+    p = sub.add_parser("render", help="render a clip from an existing motion log")
+    p.add_argument("clip")
+    p.add_argument("--log", metavar="LOG", required=True, help="motion log (.csv) to use")
+    p.add_argument("-o", "--output", metavar="OUT", help="steadied video path")
+    _add_common(p)
+
+    p = sub.add_parser("report", help="shake report (not yet available)")
+    p.add_argument("clip_or_log")
+    p.add_argument("--out", metavar="DIR")
+    _add_common(p)
+
+    p = sub.add_parser("batch", help="many clips (not yet available)")
+    p.add_argument("inputs")
+    p.add_argument("--out-dir", metavar="DIR", required=True)
+    p.add_argument("--workers", metavar="N")
+    p.add_argument("--scheduler", metavar="ADDR")
+    p.add_argument("--measure-only", action="store_true")
+    _add_common(p)
+
+    p = sub.add_parser("demo", help="steady the bundled demo clip")
+    p.add_argument("--out", metavar="DIR", help="folder for the demo outputs "
+                   "(default: ./stabilize-demo)")
+    _add_common(p)
+    return parser
+
+
+def _options(args: argparse.Namespace) -> dict[str, Any]:
+    return {name: getattr(args, name) for name in OPTION_NAMES
+            if getattr(args, name, None) is not None}
+
+
+def _progress(quiet: bool):
+    if quiet:
+        return None
+    from tqdm import tqdm
+
+    def make(desc: str, total: int | None):
+        return tqdm(desc=desc, total=total, unit="frame", file=sys.stderr, leave=False,
+                    dynamic_ncols=True)
+
+    return make
+
+
+class _OneLine(logging.Formatter):
+    def format(self, record: logging.LogRecord) -> str:
+        level = "warning" if record.levelno >= logging.WARNING else "info"
+        return f"stabilize: {level}: {record.getMessage()}"
+
+
+def _setup_logging(quiet: bool) -> None:
+    logger = logging.getLogger("stabilize")
+    logger.handlers.clear()
+    handler = logging.StreamHandler(sys.stderr)
+    handler.setFormatter(_OneLine())
+    logger.addHandler(handler)
+    logger.setLevel(logging.WARNING if quiet else logging.INFO)
+    logger.propagate = False
+
+
+def _print_summary(summary: dict) -> None:
+    def fmt(v: Any, unit: str = "") -> str:
+        return "n/a" if v is None else f"{v:.3f}{unit}"
+
+    print(f"frames: {summary['frames']} (weak {summary['frames_weak']}, failed "
+          f"{summary['frames_failed']}, cuts {summary['cuts']})")
+    for axis in ("x", "y"):
+        deg = summary.get(f"jitter_rms_{axis}_deg")
+        extra = "" if deg is None else f" ({deg:.4f} deg)"
+        print(f"shake {axis}: rms {fmt(summary.get(f'jitter_rms_{axis}_px'), ' px')}{extra}, "
+              f"dominant {fmt(summary.get(f'dominant_hz_{axis}'), ' Hz')}")
+    print(f"shake rotation: rms {fmt(summary.get('jitter_rms_rot_deg'), ' deg')}, "
+          f"dominant {fmt(summary.get('dominant_hz_rot'), ' Hz')}")
+
+
+def run(args: argparse.Namespace) -> int:
+    from . import pipeline
+
+    opts = _options(args)
+    progress = _progress(bool(args.quiet))
+    if args.command == "steady":
+        motion = pipeline.steady(args.clip, args.output, log_path=args.log,
+                                 config=args.config, progress=progress, **opts)
+        _report_written(motion)
+    elif args.command == "measure":
+        clip = Path(args.clip)
+        settings = pipeline._settings(args.config, dict(opts))
+        outputs = pipeline.plan_outputs(clip, video_out=None, log_out=args.log,
+                                        with_video=False, compare=False)
+        pipeline.check_outputs(clip, outputs, settings.force)
+        motion = pipeline.measure(clip, progress=progress, settings=settings)
+        csv_path, json_path = motion.save(outputs.log_csv)
+        _print_summary(motion.summary)
+        print(f"motion log: {csv_path}")
+        print(f"motion log: {json_path}")
+    elif args.command == "render":
+        motion = pipeline.render(args.clip, args.log, args.output, config=args.config,
+                                 progress=progress, **opts)
+        _report_written(motion)
+    elif args.command in ("report", "batch"):
+        raise StabilizeError(f"'{args.command}' is not available in this version yet")
+    elif args.command == "demo":
+        from .demo import run_demo
+
+        motion = run_demo(args.out, config=args.config, progress=progress, **opts)
+        _report_written(motion)
+        print("demo done: the clip is an invented, procedurally drawn scene")
+    return EXIT_OK
+
+
+def _report_written(motion) -> None:
+    labels = {"video": "video", "compare": "compare", "log_csv": "motion log",
+              "log_json": "motion log"}
+    for key, path in motion.extra.get("outputs", {}).items():
+        print(f"{labels.get(key, key)}: {path}")
+
+
+def _on_sigterm(signum, frame) -> None:
+    raise KeyboardInterrupt
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    _setup_logging(bool(getattr(args, "quiet", False)))
+    debug = bool(getattr(args, "debug", False))
+    previous = signal.signal(signal.SIGTERM, _on_sigterm)
+    try:
+        return run(args)
+    except StabilizeError as exc:
+        if debug:
+            raise
+        print(f"stabilize: error: {exc}", file=sys.stderr)
+        return EXIT_USAGE
+    except KeyboardInterrupt:
+        print("stabilize: interrupted; no partial outputs were left", file=sys.stderr)
+        return EXIT_INTERRUPTED
+    except BrokenPipeError:
+        return EXIT_OK
+    except Exception as exc:  # an unexpected fault: still one line unless --debug
+        if debug:
+            raise
+        print(f"stabilize: internal error: {type(exc).__name__}: {exc} "
+              "(run again with --debug for details)", file=sys.stderr)
+        return 1
+    finally:
+        signal.signal(signal.SIGTERM, previous)
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,240 @@
+"""Settings: one frozen dataclass for every option, TOML presets and files, validation.
+
+Precedence is fixed: command-line flags win over a config file (or preset), which wins over
+the built-in defaults. Every value is validated here, so the stages can trust what they get.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+import sys
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from .errors import StabilizeError
+
+MODELS = ("translation", "similarity", "affine", "homography")
+SMOOTHERS = ("gaussian", "kalman", "l1", "lockoff")
+FILLS = ("black", "reflect", "replicate")
+CODECS = ("h264", "h265", "ffv1")
+PRESETS_X264 = (
+    "ultrafast", "superfast", "veryfast", "faster", "fast",
+    "medium", "slow", "slower", "veryslow", "placebo",
+)
+MAX_MARGIN = 0.45
+AUTO_MARGIN_CAP = 0.25
+
+Region = tuple[int, int, int, int]
+
+
+@dataclass(frozen=True)
+class Settings:
+    """Every effective option of a run.
+
+    Units are in the names: ``window_s`` seconds, ``inlier_px`` full-resolution pixels,
+    ``fov_deg`` degrees, ``shake_above_hz`` hertz. ``margin`` is ``"auto"`` or the fraction of
+    the frame width and height cut from each side. ``ignore`` holds (x, y, w, h) rectangles in
+    full-resolution pixels.
+    """
+
+    model: str = "similarity"
+    smoother: str = "gaussian"
+    window_s: float = 1.0
+    margin: str | float = "auto"
+    fill: str = "black"
+    analysis_width: int = 960
+    ignore: tuple[Region, ...] = field(default_factory=tuple)
+    inlier_px: float = 1.5
+    confidence: float = 0.999
+    max_rounds: int = 2000
+    seed: int = 0
+    fov_deg: float | None = None
+    shake_above_hz: float = 1.0
+    crf: int = 18
+    preset: str = "medium"
+    codec: str = "h264"
+    compare: bool = False
+    force: bool = False
+    quiet: bool = False
+
+    def __post_init__(self) -> None:
+        validate(self)
+
+    def to_dict(self) -> dict[str, Any]:
+        """Plain JSON-ready mapping of every option."""
+        out = dataclasses.asdict(self)
+        out["ignore"] = [list(r) for r in self.ignore]
+        return out
+
+    def replace(self, **changes: Any) -> Settings:
+        """A copy with some options changed (validated again)."""
+        return dataclasses.replace(self, **coerce(changes, "option"))
+
+
+OPTION_NAMES = tuple(f.name for f in dataclasses.fields(Settings))
+
+
+def _flag(name: str) -> str:
+    return "--" + name.replace("_", "-")
+
+
+def _bad(name: str, value: Any, allowed: str) -> StabilizeError:
+    return StabilizeError(f"option {_flag(name)}: {value!r} is not allowed; use {allowed}")
+
+
+def validate(s: Settings) -> None:
+    """Raise StabilizeError naming the first bad option and the values it allows."""
+    choices = {
+        "model": MODELS, "smoother": SMOOTHERS, "fill": FILLS, "codec": CODECS,
+        "preset": PRESETS_X264,
+    }
+    for name, allowed in choices.items():
+        if getattr(s, name) not in allowed:
+            raise _bad(name, getattr(s, name), "one of " + ", ".join(allowed))
+    positive = {"window_s": s.window_s, "inlier_px": s.inlier_px,
+                "shake_above_hz": s.shake_above_hz}
+    for name, value in positive.items():
+        if not (isinstance(value, int | float) and math.isfinite(value) and value > 0):
+            raise _bad(name, value, "a positive number")
+    if s.margin != "auto" and not (
+        isinstance(s.margin, int | float) and 0.0 <= s.margin <= MAX_MARGIN
+    ):
+        raise _bad("margin", s.margin, f"'auto' or a fraction from 0 to {MAX_MARGIN}")
+    if not (isinstance(s.confidence, float | int) and 0.0 < s.confidence < 1.0):
+        raise _bad("confidence", s.confidence, "a probability strictly between 0 and 1")
+    if not (isinstance(s.max_rounds, int) and s.max_rounds >= 1):
+        raise _bad("max_rounds", s.max_rounds, "a whole number of at least 1")
+    if not (isinstance(s.analysis_width, int) and (s.analysis_width == 0
+                                                   or s.analysis_width >= 32)):
+        raise _bad("analysis_width", s.analysis_width, "0 (full resolution) or at least 32")
+    if not isinstance(s.seed, int) or s.seed < 0:
+        raise _bad("seed", s.seed, "a whole number of 0 or more")
+    if s.fov_deg is not None and not (0.0 < s.fov_deg < 180.0):
+        raise _bad("fov_deg", s.fov_deg, "an angle between 0 and 180 degrees")
+    if not (isinstance(s.crf, int) and 0 <= s.crf <= 51):
+        raise _bad("crf", s.crf, "a whole number from 0 to 51")
+    for r in s.ignore:
+        if len(r) != 4 or r[2] <= 0 or r[3] <= 0:
+            raise _bad("ignore", r, "X,Y,W,H with positive width and height")
+
+
+def parse_region(text: str) -> Region:
+    """Parse ``X,Y,W,H`` (full-resolution pixels) into a tuple of ints."""
+    parts = [p.strip() for p in str(text).split(",")]
+    try:
+        values = tuple(int(round(float(p))) for p in parts)
+    except ValueError:
+        raise _bad("ignore", text, "X,Y,W,H in pixels, e.g. 0,980,1920,100") from None
+    if len(values) != 4 or values[2] <= 0 or values[3] <= 0:
+        raise _bad("ignore", text, "X,Y,W,H with positive width and height")
+    return values  # type: ignore[return-value]
+
+
+def _to_number(name: str, value: Any, kind: type) -> Any:
+    if isinstance(value, bool):
+        raise _bad(name, value, "a number")
+    try:
+        number = kind(value)
+    except (TypeError, ValueError):
+        raise _bad(name, value, "a number") from None
+    if kind is int and isinstance(value, float) and not value.is_integer():
+        raise _bad(name, value, "a whole number")
+    return number
+
+
+_FLOATS = {"window_s", "inlier_px", "confidence", "shake_above_hz"}
+_INTS = {"analysis_width", "max_rounds", "seed", "crf"}
+_BOOLS = {"compare", "force", "quiet"}
+
+
+def coerce(values: dict[str, Any], where: str) -> dict[str, Any]:
+    """Turn raw values (strings from flags, TOML values) into typed option values.
+
+    ``where`` names the source (a file path or "option") for error messages about unknown keys.
+    """
+    out: dict[str, Any] = {}
+    for name, value in values.items():
+        if name not in OPTION_NAMES:
+            raise StabilizeError(
+                f"{where}: unknown option {name!r}; known options: {', '.join(OPTION_NAMES)}"
+            )
+        if name in _FLOATS:
+            value = _to_number(name, value, float)
+        elif name in _INTS:
+            value = _to_number(name, value, int)
+        elif name in _BOOLS:
+            if not isinstance(value, bool):
+                raise _bad(name, value, "true or false")
+        elif name == "margin":
+            if value != "auto":
+                value = _to_number(name, value, float)
+        elif name == "fov_deg":
+            value = None if value is None else _to_number(name, value, float)
+        elif name == "ignore":
+            if isinstance(value, str):
+                value = [value]
+            value = tuple(
+                parse_region(",".join(map(str, r)) if isinstance(r, list | tuple) else r)
+                for r in value
+            )
+        out[name] = value
+    return out
+
+
+def preset_dirs() -> list[Path]:
+    """Folders searched for preset names: the source tree's configs/, then the installed copy."""
+    here = Path(__file__).resolve().parent
+    return [here.parent / "configs", Path(sys.prefix) / "share" / "stabilize" / "configs"]
+
+
+def preset_names() -> list[str]:
+    names: set[str] = set()
+    for d in preset_dirs():
+        if d.is_dir():
+            names.update(p.stem for p in d.glob("*.toml"))
+    return sorted(names)
+
+
+def resolve_config(name_or_path: str) -> Path:
+    """A config file path, or a preset name looked up in the preset folders."""
+    path = Path(name_or_path)
+    if path.suffix == ".toml" or path.exists():
+        if not path.is_file():
+            raise StabilizeError(f"{path}: config file not found")
+        return path
+    for d in preset_dirs():
+        candidate = d / f"{name_or_path}.toml"
+        if candidate.is_file():
+            return candidate
+    raise StabilizeError(
+        f"option --config: no preset named {name_or_path!r}; "
+        f"presets: {', '.join(preset_names()) or 'none found'}, or give a .toml file"
+    )
+
+
+def read_config(name_or_path: str) -> dict[str, Any]:
+    """Read a TOML config (flat keys named like the options, ``-`` or ``_``)."""
+    path = resolve_config(name_or_path)
+    try:
+        raw = tomllib.loads(path.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError) as exc:
+        raise StabilizeError(f"{path}: cannot read config ({exc})") from None
+    except tomllib.TOMLDecodeError as exc:
+        raise StabilizeError(f"{path}: not valid TOML ({exc})") from None
+    flat = {k.replace("-", "_"): v for k, v in raw.items()}
+    return coerce(flat, str(path))
+
+
+def build_settings(
+    config: str | None = None, overrides: dict[str, Any] | None = None
+) -> Settings:
+    """Defaults, then the config file or preset, then explicit overrides (flags or keywords)."""
+    values: dict[str, Any] = {}
+    if config:
+        values.update(read_config(config))
+    if overrides:
+        values.update(coerce({k: v for k, v in overrides.items() if v is not None}, "option"))
+    return Settings(**values)

@@ -1,0 +1,213 @@
+"""Degeneracy and sanity checks: point sets, motion bounds, inlier spread.
+
+Sample-level degeneracy (coincident, collinear, orientation-flipping samples) is
+tested inside each minimal solver in :mod:`stabilize.consensus.models`, where the
+determinants are already at hand. This module holds the checks on whole point sets,
+on candidate models (plausible frame-to-frame motion) and on the final inlier set.
+
+References
+----------
+.. [1] R. Raguram, O. Chum, M. Pollefeys, J. Matas and J.-M. Frahm, "USAC: A Universal
+   Framework for Random Sample Consensus", IEEE TPAMI, 2013 (model and degeneracy
+   verification stages).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import NDArray
+
+__all__ = ["MotionBounds", "Frame", "frame_box", "plausible", "point_set_problem", "weakness"]
+
+#: A fit is weak below this many inliers ...
+WEAK_MIN_INLIERS = 12
+#: ... or below this share of all correspondences ...
+WEAK_MIN_SHARE = 0.2
+#: ... or when its inliers occupy fewer than WEAK_MIN_CELLS of SPREAD_GRID x SPREAD_GRID
+#: cells of the frame (i.e. they sit in about one quarter of it or less).
+SPREAD_GRID = 4
+WEAK_MIN_CELLS = 5
+
+
+@dataclass(frozen=True)
+class MotionBounds:
+    """Plausible limits of frame-to-frame motion; hypotheses outside are rejected.
+
+    All quantities are measured on the model expressed about the frame centre.
+
+    Parameters
+    ----------
+    max_shift_frac : float
+        Largest displacement of the frame centre, as a fraction of the frame diagonal.
+    max_rotation_deg : float
+        Largest rotation, degrees (angle of the nearest similarity of the local
+        Jacobian at the frame centre).
+    min_scale, max_scale : float
+        Range of the isotropic scale ``sqrt(det J)`` at the frame centre.
+    max_shear : float
+        Largest non-similar part of the local Jacobian, ``(s1 - s2) / (s1 + s2)`` with
+        ``s1 >= s2`` its singular values (0 for a similarity).
+    max_perspective : float
+        Largest change of projective depth from the frame centre to its corners,
+        ``|(h31, h32)| * diagonal / 2`` with ``h33 = 1``.
+
+    Notes
+    -----
+    Always enforced regardless of these limits: no reflection (``det J > 0``), a
+    non-singular Jacobian, and positive projective depth over the whole frame (no
+    part of the frame is mapped through the line at infinity).
+    """
+
+    max_shift_frac: float = 0.3
+    max_rotation_deg: float = 20.0
+    min_scale: float = 0.7
+    max_scale: float = 1.0 / 0.7
+    max_shear: float = 0.25
+    max_perspective: float = 0.3
+
+    def __post_init__(self) -> None:
+        if not (0 < self.min_scale <= 1.0 <= self.max_scale):
+            raise ValueError("need 0 < min_scale <= 1 <= max_scale")
+        for name in ("max_shift_frac", "max_rotation_deg", "max_shear", "max_perspective"):
+            if not getattr(self, name) >= 0:
+                raise ValueError(f"{name} must be >= 0")
+
+    @classmethod
+    def unbounded(cls) -> MotionBounds:
+        """Limits that accept any orientation-preserving, non-singular motion."""
+        inf = math.inf
+        return cls(inf, inf, 1e-12, 1e12, inf, inf)
+
+
+DEFAULT_BOUNDS = MotionBounds()
+
+
+@dataclass(frozen=True)
+class Frame:
+    """Frame rectangle in pixels: top-left corner, size, centre, diagonal."""
+
+    x0: float
+    y0: float
+    width: float
+    height: float
+
+    @property
+    def centre(self) -> tuple[float, float]:
+        return self.x0 + 0.5 * self.width, self.y0 + 0.5 * self.height
+
+    @property
+    def diagonal(self) -> float:
+        return math.hypot(self.width, self.height)
+
+
+def frame_box(frame_size: tuple[float, float] | None, src: NDArray[np.float64]) -> Frame:
+    """The frame, or without ``frame_size`` the bounding box of the src points.
+
+    Pixel centres sit at integer coordinates, so a ``(w, h)`` frame spans
+    ``[-0.5, w - 0.5] x [-0.5, h - 0.5]``.
+    """
+    if frame_size is not None:
+        return Frame(-0.5, -0.5, float(frame_size[0]), float(frame_size[1]))
+    lo = src.min(axis=0)
+    hi = src.max(axis=0)
+    w = max(float(hi[0] - lo[0]), 1.0)
+    h = max(float(hi[1] - lo[1]), 1.0)
+    return Frame(float(lo[0]), float(lo[1]), w, h)
+
+
+def plausible(m: list[float], bounds: MotionBounds, frame: Frame) -> bool:
+    """Whether a model is a plausible frame-to-frame motion.
+
+    Parameters
+    ----------
+    m : list of 9 float
+        Row-major 3x3 model in frame-centred pixel coordinates (any scale).
+    bounds : MotionBounds
+    frame : Frame
+
+    Returns
+    -------
+    bool
+    """
+    m22 = m[8]
+    if not abs(m22) > 1e-12:
+        return False
+    k = 1.0 / m22
+    a, b, tx, c, d, ty, g, h = (v * k for v in m[:8])
+    if not math.isfinite(a + b + tx + c + d + ty + g + h):
+        return False
+    hw = 0.5 * frame.width
+    hh = 0.5 * frame.height
+    # Depth 1 + g x + h y must stay positive on every corner of the frame.
+    if abs(g) * hw + abs(h) * hh >= 0.999:
+        return False
+    if math.hypot(g, h) * 0.5 * frame.diagonal > bounds.max_perspective:
+        return False
+    if math.hypot(tx, ty) > bounds.max_shift_frac * frame.diagonal:
+        return False
+    # Local Jacobian at the centre: J = A - t (g, h)^T.
+    j00, j01, j10, j11 = a - tx * g, b - tx * h, c - ty * g, d - ty * h
+    det = j00 * j11 - j01 * j10
+    if not det > 0:
+        return False
+    scale = math.sqrt(det)
+    if not bounds.min_scale <= scale <= bounds.max_scale:
+        return False
+    sim = math.hypot(j00 + j11, j10 - j01)
+    anti = math.hypot(j00 - j11, j01 + j10)
+    shear = anti / sim
+    if shear > min(bounds.max_shear, 0.999):
+        return False
+    rot = math.degrees(math.atan2(j10 - j01, j00 + j11))
+    return abs(rot) <= bounds.max_rotation_deg
+
+
+def point_set_problem(src_n: NDArray[np.float64], dst_n: NDArray[np.float64], model: str) -> str:
+    """Reason why no model of this family can be fitted to the whole set, or "".
+
+    Parameters
+    ----------
+    src_n, dst_n : ndarray, shape (n, 2)
+        Centred (normalised) points.
+    model : str
+        Model name.
+    """
+    if model == "translation":
+        return ""
+    worst = "non-collinear" if model in ("affine", "homography") else "distinct"
+    for pts in (src_n, dst_n):
+        cov = (pts.T @ pts).tolist()
+        sxx, sxy, syy = cov[0][0], cov[0][1], cov[1][1]
+        tr = sxx + syy
+        root = math.sqrt(max(0.25 * (sxx - syy) ** 2 + sxy * sxy, 0.0))
+        lmax = 0.5 * tr + root
+        lmin = max(0.5 * tr - root, 0.0)
+        if lmax <= 1e-20 * len(pts):
+            return "degenerate: all points coincident"
+        if worst == "non-collinear" and lmin <= 1e-12 * lmax:
+            return "degenerate: all points collinear"
+    return ""
+
+
+def occupied_cells(pts: NDArray[np.float64], frame: Frame, grid: int = SPREAD_GRID) -> int:
+    """Number of cells of a ``grid x grid`` partition of the frame holding a point."""
+    if len(pts) == 0:
+        return 0
+    cell = np.floor((pts - (frame.x0, frame.y0)) * (grid / frame.width, grid / frame.height))
+    cell = np.clip(cell, 0, grid - 1).astype(np.intp)
+    return int(np.count_nonzero(np.bincount(cell[:, 1] * grid + cell[:, 0], minlength=1)))
+
+
+def weakness(n_inliers: int, n: int, cells: int) -> str:
+    """Why a fit is weak (few or bunched inliers), or "" when it is not."""
+    if n_inliers < WEAK_MIN_INLIERS or n_inliers < WEAK_MIN_SHARE * n:
+        return f"weak: few inliers ({n_inliers} of {n})"
+    if cells < WEAK_MIN_CELLS:
+        return (
+            f"weak: inliers bunched in one part of the frame "
+            f"({cells} of {SPREAD_GRID * SPREAD_GRID} grid cells)"
+        )
+    return ""

@@ -1,0 +1,332 @@
+"""The estimator: USAC-style hypothesise-and-verify loop over the stage modules.
+
+References
+----------
+.. [1] R. Raguram, O. Chum, M. Pollefeys, J. Matas and J.-M. Frahm, "USAC: A Universal
+   Framework for Random Sample Consensus", IEEE TPAMI, 2013.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+
+import numpy as np
+from numpy.typing import ArrayLike, NDArray
+
+from .degeneracy import (
+    DEFAULT_BOUNDS,
+    MotionBounds,
+    frame_box,
+    occupied_cells,
+    plausible,
+    point_set_problem,
+    weakness,
+)
+from .local_opt import Candidate, evaluate, local_optimise
+from .models import MODELS, Model, normalisation
+from .sampling import canonical_order, draw_samples
+from .scoring import inlier_mask, msac_costs
+from .termination import FIRST_GUESS_OUTLIERS, next_batch_size, rounds_needed
+
+__all__ = ["Fit", "estimate"]
+
+
+@dataclass(frozen=True, eq=False)
+class Fit:
+    """Result of :func:`estimate`.
+
+    Attributes
+    ----------
+    matrix : ndarray, shape (3, 3)
+        Model mapping src to dst pixels, ``h33 = 1``; identity on failure.
+    inliers : ndarray of bool, shape (n,)
+        Correspondences with transfer error below the threshold (input order).
+    rounds : int
+        Hypotheses tried: random minimal samples drawn plus the prior if given.
+    rms_px : float
+        RMS transfer error of the inliers, pixels (nan when there are none).
+    score : float
+        MSAC cost ``sum_i min(r_i^2, t^2)`` over all correspondences, pixels^2; lower
+        is better (inf on failure).
+    ok : bool
+        A trustworthy fit was found: a plausible model supported by at least
+        ``2 * sample_size + 2`` inliers.
+    weak : bool
+        Few inliers (< 12 or < 20 % of n) or inliers bunched in about a quarter of
+        the frame or less.
+    reason : str
+        Why the fit failed or is weak; "" when fine.
+    model : str
+        Model name.
+    """
+
+    matrix: NDArray[np.float64]
+    inliers: NDArray[np.bool_]
+    rounds: int
+    rms_px: float
+    score: float
+    ok: bool
+    weak: bool
+    reason: str
+    model: str = field(default="")
+
+    @property
+    def n_inliers(self) -> int:
+        """Number of inliers."""
+        return int(np.count_nonzero(self.inliers))
+
+
+def _failure(n: int, rounds: int, reason: str, model: str) -> Fit:
+    return Fit(np.eye(3), np.zeros(n, dtype=bool), rounds, float("nan"), float("inf"),
+               False, True, reason, model)
+
+
+def _check(
+    src: ArrayLike, dst: ArrayLike, model: str, inlier_px: float, confidence: float,
+    max_rounds: int, prior: ArrayLike | None,
+) -> tuple[Model, NDArray[np.float64], NDArray[np.float64], NDArray[np.float64] | None]:
+    spec = MODELS.get(model)
+    if spec is None:
+        raise ValueError(f"unknown model {model!r}; expected one of {sorted(MODELS)}")
+    s = np.asarray(src, dtype=np.float64)
+    d = np.asarray(dst, dtype=np.float64)
+    if s.ndim != 2 or s.shape[1] != 2 or d.shape != s.shape:
+        raise ValueError(f"src and dst must both have shape (n, 2), got {s.shape} and {d.shape}")
+    if not inlier_px > 0:
+        raise ValueError(f"inlier_px must be > 0, got {inlier_px!r}")
+    if not 0.0 < confidence < 1.0:
+        raise ValueError(f"confidence must be in (0, 1), got {confidence!r}")
+    if int(max_rounds) != max_rounds or max_rounds < 0:
+        raise ValueError(f"max_rounds must be a non-negative integer, got {max_rounds!r}")
+    p = None
+    if prior is not None:
+        p = np.asarray(prior, dtype=np.float64)
+        if p.shape != (3, 3):
+            raise ValueError(f"prior must be a 3x3 matrix, got shape {p.shape}")
+    return spec, s, d, p
+
+
+def estimate(
+    src: ArrayLike,
+    dst: ArrayLike,
+    model: str = "homography",
+    inlier_px: float = 1.5,
+    confidence: float = 0.999,
+    max_rounds: int = 2000,
+    seed: int | Sequence[int] | np.random.Generator | None = 0,
+    prior: ArrayLike | None = None,
+    bounds: MotionBounds | None = None,
+    frame_size: tuple[float, float] | None = None,
+) -> Fit:
+    """Robustly fit a 2-D motion model to matched points.
+
+    Hypothesise-and-verify along the USAC stages: uniform minimal samples drawn in
+    batches, closed-form minimal solvers with sample degeneracy and orientation
+    checks, MSAC scoring, motion-bounds verification, LO-RANSAC refinement of each
+    new best model, adaptive termination, then a final least-squares (and, for
+    homographies, Levenberg-Marquardt) refit on the inliers.
+
+    Parameters
+    ----------
+    src, dst : array_like, shape (n, 2)
+        Matched points ``(x, y)`` in pixels, origin at the centre of the top-left pixel.
+        Rows with non-finite values are ignored (never inliers).
+    model : {"translation", "similarity", "affine", "homography"}
+        Motion model; minimal samples of 1, 2, 3 and 4 correspondences.
+    inlier_px : float
+        Inlier threshold on the transfer error ``|dst - H(src)|``, pixels (> 0).
+    confidence : float
+        Probability in (0, 1) of having drawn at least one outlier-free sample.
+    max_rounds : int
+        Cap on random hypotheses (>= 0; 0 tries the prior alone).
+    seed : int, sequence of int, numpy.random.Generator or None
+        Randomness; passed to :func:`numpy.random.default_rng`. A fixed seed gives an
+        identical result bit for bit, whatever the order of the correspondences.
+    prior : array_like, shape (3, 3), optional
+        A likely model (e.g. the previous frame's motion), scored first as a free
+        hypothesis; projected onto ``model``'s family.
+    bounds : MotionBounds, optional
+        Plausible frame-to-frame motion; defaults to ``MotionBounds()``. Use
+        ``MotionBounds.unbounded()`` to keep only the always-on sanity checks.
+    frame_size : (width, height), optional
+        Frame size in pixels for the bounds and the spread check; without it the
+        bounding box of the src points stands in for the frame.
+
+    Returns
+    -------
+    Fit
+        Never raises for too few or degenerate points: returns ``ok=False``, the
+        identity and all-False inliers with a ``reason``.
+
+    Raises
+    ------
+    ValueError
+        Unknown model, wrong shapes, ``inlier_px <= 0``, confidence outside (0, 1),
+        negative ``max_rounds``.
+
+    References
+    ----------
+    .. [1] Raguram et al., "USAC: A Universal Framework for Random Sample Consensus",
+       IEEE TPAMI, 2013.
+    .. [2] M. A. Fischler and R. C. Bolles, "Random sample consensus", CACM, 1981.
+    .. [3] P. H. S. Torr and A. Zisserman, "MLESAC: A new robust estimator with
+       application to estimating image geometry", CVIU, 2000.
+    .. [4] O. Chum, J. Matas and J. Kittler, "Locally optimized RANSAC", DAGM, 2003.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> rng = np.random.default_rng(1)
+    >>> src = rng.uniform(0, [1920, 1080], size=(200, 2))
+    >>> dst = src + (12.0, -3.0)
+    >>> dst[:50] = rng.uniform(0, [1920, 1080], size=(50, 2))  # outliers
+    >>> fit = estimate(src, dst, model="translation", frame_size=(1920, 1080))
+    >>> fit.ok, fit.weak, int(fit.inliers.sum())
+    (True, False, 150)
+    >>> np.round(fit.matrix[:2, 2], 6)
+    array([12., -3.])
+    """
+    spec, src_a, dst_a, prior_a = _check(src, dst, model, inlier_px, confidence,
+                                         max_rounds, prior)
+    with np.errstate(all="ignore"):
+        return _estimate(spec, src_a, dst_a, float(inlier_px), float(confidence),
+                         int(max_rounds), seed, prior_a, bounds or DEFAULT_BOUNDS, frame_size)
+
+
+def _estimate(
+    spec: Model, src: NDArray[np.float64], dst: NDArray[np.float64], t_px: float,
+    confidence: float, max_rounds: int, seed: int | Sequence[int] | np.random.Generator | None,
+    prior: NDArray[np.float64] | None, bounds: MotionBounds,
+    frame_size: tuple[float, float] | None,
+) -> Fit:
+    n_all = len(src)
+    s = spec.sample_size
+    pts = np.hstack((src, dst))
+    keep = None
+    if not np.isfinite(pts).all():
+        keep = np.flatnonzero(np.isfinite(pts).all(axis=1))
+        pts = pts[keep]
+    n = len(pts)
+    if n < s:
+        return _failure(n_all, 0, f"too few points ({n} < {s})", spec.name)
+
+    order = canonical_order(pts)
+    pts = pts[order]
+    src = pts[:, :2]
+    dst = pts[:, 2:]
+    norm, src_n, dst_n = normalisation(src, dst)
+    problem = point_set_problem(src_n, dst_n, spec.name)
+    if problem:
+        return _failure(n_all, 0, problem, spec.name)
+
+    frame = frame_box(frame_size, src)
+    t2 = (t_px * norm.scale) ** 2
+    t1 = norm.t_src()
+    t2_inv = norm.t_dst_inv()
+    cx, cy = frame.centre
+    to_centre = np.array([[1.0, 0.0, -cx], [0.0, 1.0, -cy], [0.0, 0.0, 1.0]])
+    from_centre = np.array([[1.0, 0.0, cx], [0.0, 1.0, cy], [0.0, 0.0, 1.0]])
+    left = to_centre @ t2_inv
+    right = t1 @ from_centre
+
+    def ok_motion(h: NDArray[np.float64]) -> bool:
+        return plausible((left @ h @ right).ravel().tolist(), bounds, frame)
+
+    feat = spec.features(src_n, dst_n)
+    nd = np.hstack((src_n, dst_n))
+    rng = np.random.default_rng(seed)
+
+    best: Candidate | None = None
+    rounds = 0
+    n_valid = 0
+    n_implausible = 0
+    needed: int | float = max_rounds
+
+    def adopt(c: Candidate) -> None:
+        nonlocal best, needed
+        lo = local_optimise(spec, feat, src_n, dst_n, c, t2)
+        if lo is not c and not ok_motion(lo.h):
+            lo = c
+        best = lo
+        w = np.count_nonzero(inlier_mask(lo.sq_res, t2)) / n
+        needed = min(rounds_needed(1.0 - w, s, confidence), max_rounds)
+
+    if prior is not None:
+        rounds += 1
+        hp = None
+        if np.all(np.isfinite(prior)) and abs(np.linalg.det(prior)) > 1e-300:
+            hp = spec.project(norm.t_dst() @ prior @ np.linalg.inv(t1))
+        if hp is not None and ok_motion(hp):
+            n_valid += 1
+            adopt(evaluate(spec, feat, hp, t2))
+
+    first = rounds_needed(FIRST_GUESS_OUTLIERS, s, confidence)
+    while True:
+        if best is None:
+            batch = next_batch_size(rounds, first, max_rounds, False)
+        else:
+            batch = next_batch_size(rounds, needed, max_rounds, True)
+        if batch <= 0:
+            break
+        idx = draw_samples(rng, n, s, batch)
+        rounds += batch
+        sample = nd[idx]
+        hyp, valid = spec.solve(sample[..., :2], sample[..., 2:])
+        nv = int(np.count_nonzero(valid))
+        if nv == 0:
+            continue
+        n_valid += nv
+        if nv < batch:
+            hyp = hyp[valid]
+        r2 = spec.sq_residuals(feat, hyp)
+        costs = msac_costs(r2, t2)
+        bound = np.inf if best is None else best.cost
+        # Best first; a candidate is verified against the motion bounds only when it
+        # would become the new best, which is equivalent to rejecting every
+        # implausible hypothesis before scoring but far cheaper.
+        for j in np.argsort(costs).tolist():
+            cj = float(costs[j])
+            if not cj < bound:
+                break
+            if ok_motion(hyp[j]):
+                adopt(Candidate(hyp[j], r2[j], cj))
+                break
+            n_implausible += 1
+
+    if best is None:
+        if n_valid == 0:
+            reason = "degenerate: no valid minimal sample (coincident or collinear points)"
+        elif n_implausible:
+            reason = "no hypothesis within the motion bounds"
+        else:
+            reason = "no hypothesis found"
+        return _failure(n_all, rounds, reason, spec.name)
+
+    final = best
+    if spec.polish is not None:
+        mask = inlier_mask(final.sq_res, t2)
+        hp = spec.polish(src_n, dst_n, final.h, mask)
+        cand = evaluate(spec, feat, hp, t2)
+        if cand.cost <= final.cost and ok_motion(hp):
+            final = cand
+
+    mask = inlier_mask(final.sq_res, t2)
+    k = int(np.count_nonzero(mask))
+    h_px = t2_inv @ final.h @ t1
+    h_px /= h_px[2, 2]
+    inl = np.zeros(n, dtype=bool)
+    inl[order] = mask
+    if keep is not None:
+        full = np.zeros(n_all, dtype=bool)
+        full[keep] = inl
+        inl = full
+    scale2 = norm.scale * norm.scale
+    rms = float(np.sqrt(final.sq_res[mask].mean() / scale2)) if k else float("nan")
+    min_support = 2 * s + 2
+    ok = k >= min_support
+    weak_reason = weakness(k, n, occupied_cells(src[mask], frame))
+    reason = "" if ok else f"too few inliers ({k}, need {min_support})"
+    reason = reason or weak_reason
+    return Fit(h_px, inl, rounds, rms, final.cost / scale2, ok, bool(weak_reason) or not ok,
+               reason, spec.name)

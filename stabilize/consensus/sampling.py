@@ -1,0 +1,58 @@
+"""Sampling stage: canonical ordering of the correspondences and minimal samples.
+
+Sampling is uniform (plain RANSAC, Fischler and Bolles 1981). The data are first put
+in a canonical order that depends only on the coordinate values, so that the whole
+estimate - samples, sums, refits - is identical bit for bit whatever order the caller
+passed the correspondences in.
+
+References
+----------
+.. [1] M. A. Fischler and R. C. Bolles, "Random sample consensus", CACM, 1981.
+.. [2] Raguram et al., "USAC: A Universal Framework for Random Sample Consensus",
+   IEEE TPAMI, 2013 (sampling stage).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numpy.typing import NDArray
+
+__all__ = ["canonical_order", "draw_samples"]
+
+# Weights of a scalar sort key; irrational-looking so that distinct rows tie only by
+# accident (ties fall back to an exact lexicographic sort).
+_KEY = np.array([1.0, 0.7548776662466927, 0.5698402909980532, 0.4301597090019468])
+
+
+def canonical_order(pts: NDArray[np.float64]) -> NDArray[np.intp]:
+    """Order of rows that depends only on their values.
+
+    Parameters
+    ----------
+    pts : ndarray, shape (n, 4)
+        Rows ``(x, y, u, v)`` of src and dst coordinates.
+
+    Returns
+    -------
+    ndarray of intp, shape (n,)
+        Permutation sorting the rows; identical rows are interchangeable.
+    """
+    key = pts @ _KEY
+    order = np.argsort(key)
+    k = key[order]
+    if np.any(k[1:] == k[:-1]):
+        # Equal keys: sort exactly by (x, y, u, v) so that only identical rows tie.
+        order = np.lexsort(pts.T[::-1])
+    return order
+
+
+def draw_samples(
+    rng: np.random.Generator, n: int, sample_size: int, batch: int
+) -> NDArray[np.int64]:
+    """Draw ``batch`` minimal samples of ``sample_size`` indices from ``range(n)``.
+
+    Indices are drawn with replacement: a repeated index is a pair of coincident
+    points, which every minimal solver already rejects as degenerate, so no per-sample
+    rejection loop is needed. Repeats are rare unless ``n`` is tiny.
+    """
+    return rng.integers(0, n, size=(batch, sample_size))

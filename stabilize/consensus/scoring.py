@@ -1,0 +1,41 @@
+"""Scoring stage: MSAC truncated quadratic cost.
+
+Each correspondence contributes ``min(r^2, t^2)``: inliers by their squared transfer
+error, outliers by a constant. Unlike bare inlier counting (RANSAC) this prefers,
+among models with similar support, the one that fits its inliers best.
+
+References
+----------
+.. [1] P. H. S. Torr and A. Zisserman, "MLESAC: A new robust estimator with application
+   to estimating image geometry", Computer Vision and Image Understanding, 2000.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numpy.typing import NDArray
+
+__all__ = ["msac_costs", "inlier_mask"]
+
+
+def msac_costs(sq_res: NDArray[np.float64], t2: float) -> NDArray[np.float64]:
+    """MSAC cost of each hypothesis.
+
+    Parameters
+    ----------
+    sq_res : ndarray, shape (B, n)
+        Squared transfer errors.
+    t2 : float
+        Squared inlier threshold, same units.
+
+    Returns
+    -------
+    ndarray, shape (B,)
+        ``sum_i min(r_i^2, t^2)``; lower is better.
+    """
+    return np.minimum(sq_res, t2).sum(axis=-1)
+
+
+def inlier_mask(sq_res: NDArray[np.float64], t2: float) -> NDArray[np.bool_]:
+    """Inliers are strictly below the threshold (a truncated cost equals ``t2``)."""
+    return sq_res < t2

@@ -1,0 +1,116 @@
+"""Framing: the margin, the crop window and the per-frame correction transforms.
+
+The output frame t is ``warpPerspective(source_t, C_t)`` with
+
+    C_t = Z · S_t⁻¹ · P_t
+
+where P_t is the raw path, S_t the smoothed path (see :mod:`stabilize.path`) and Z a zoom about
+the frame centre by k = 1 / (1 − 2·margin), which hides the borders the correction moves in.
+The margin is a budget: where a frame's correction would still uncover output pixels, the
+smoothed path is pulled toward the raw one for that stretch until the crop window fits.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .log import frame_centre
+from .path import apply, blend, frame_corners, gaussian_smooth
+
+
+def zoom(margin: float, width: int, height: int) -> np.ndarray:
+    """Zoom about the frame centre that crops ``margin`` of the width and height per side."""
+    k = 1.0 / (1.0 - 2.0 * margin)
+    cx, cy = frame_centre(width, height)
+    return np.array([[k, 0.0, cx * (1 - k)], [0.0, k, cy * (1 - k)], [0.0, 0.0, 1.0]])
+
+
+def stabilising_warps(p: np.ndarray, s: np.ndarray) -> np.ndarray:
+    """D_t = S_t⁻¹ · P_t: source frame t to the virtual camera, before the zoom."""
+    d = np.linalg.solve(s, p)
+    return d / d[:, 2:3, 2:3]
+
+
+def corrections(p: np.ndarray, s: np.ndarray, margin: float, width: int,
+                height: int) -> np.ndarray:
+    """C_t = Z · S_t⁻¹ · P_t for every frame, (n, 3, 3)."""
+    c = zoom(margin, width, height) @ stabilising_warps(p, s)
+    return c / c[:, 2:3, 2:3]
+
+
+def covered(c: np.ndarray, width: int, height: int, tol_px: float = 1e-6) -> np.ndarray:
+    """Per frame, whether every output pixel of ``warpPerspective(src, C_t)`` samples inside
+    the source frame (its corners map inside [0, w−1] × [0, h−1]; the window is convex)."""
+    inv = np.linalg.inv(c)
+    q = apply(inv, frame_corners(width, height))
+    x, y = q[..., 0], q[..., 1]
+    inside = ((x >= -tol_px) & (x <= width - 1 + tol_px)
+              & (y >= -tol_px) & (y <= height - 1 + tol_px))
+    positive = (inv[:, 2, :2] @ frame_corners(width, height).T + inv[:, 2:3, 2]) > 0
+    return inside.all(axis=1) & positive.all(axis=1)
+
+
+def needed_margin(d: np.ndarray, width: int, height: int, cap: float) -> np.ndarray:
+    """Per frame, the smallest margin (≤ ``cap``) whose zoom hides every moved-in border.
+
+    Frames that need more than ``cap`` get ``cap`` + a small excess marker (cap + 1e-3).
+    """
+    lo = np.zeros(len(d))
+    hi = np.full(len(d), cap)
+    ok_hi = covered(zoom(cap, width, height) @ d, width, height)
+    for _ in range(30):
+        mid = 0.5 * (lo + hi)
+        zooms = np.stack([zoom(m, width, height) for m in mid])
+        ok = covered(zooms @ d, width, height)
+        hi = np.where(ok, mid, hi)
+        lo = np.where(ok, lo, mid)
+    ok0 = covered(d, width, height)
+    return np.where(ok0, 0.0, np.where(ok_hi, hi, cap + 1e-3))
+
+
+def choose_margin(p: np.ndarray, s: np.ndarray, width: int, height: int, cap: float) -> float:
+    """``--margin auto``: the smallest constant margin, up to ``cap``, that leaves no uncovered
+    pixel with this smoothed path (``cap`` when even that is not enough)."""
+    need = needed_margin(stabilising_warps(p, s), width, height, cap)
+    return float(min(cap, need.max(initial=0.0)))
+
+
+def fit_to_margin(
+    p: np.ndarray, s: np.ndarray, margin: float, *, model: str, width: int, height: int,
+    fps: float, window_s: float,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Pull S toward P where the crop window at ``margin`` would leave the source frame.
+
+    Returns the adjusted path and the per-frame share of the correction kept (1 = all).
+    The share is found per frame by bisection, then eased in time so the pull does not jerk.
+    """
+    n = len(p)
+    z = zoom(margin, width, height)
+
+    def fits(alpha: np.ndarray) -> np.ndarray:
+        sa = blend(p, s, alpha, model, width, height)
+        return covered(z @ stabilising_warps(p, sa), width, height)
+
+    alpha = np.ones(n)
+    bad = ~fits(alpha)
+    if not bad.any():
+        return s, alpha
+    lo, hi = np.zeros(n), np.ones(n)
+    for _ in range(25):
+        mid = 0.5 * (lo + hi)
+        ok = fits(np.where(bad, mid, 1.0))
+        lo = np.where(bad & ok, mid, lo)
+        hi = np.where(bad & ~ok, mid, hi)
+    alpha = np.where(bad, lo, 1.0)
+    # Ease: a running minimum over half a window, then a light smoothing that can only lower
+    # the share further where it matters (verified and repaired below).
+    half = max(1, int(round(0.25 * window_s * fps)))
+    padded = np.pad(alpha, half, mode="edge")
+    windows = np.lib.stride_tricks.sliding_window_view(padded, 2 * half + 1)
+    eased = gaussian_smooth(windows.min(axis=1)[:, None], fps, 0.5 * window_s)[:, 0]
+    eased = np.clip(np.minimum(eased, 1.0), 0.0, 1.0)
+    still_bad = ~fits(eased)
+    if still_bad.any():
+        eased = np.where(still_bad, np.minimum(eased, alpha), eased)
+        eased = np.where(~fits(eased), 0.0, eased)
+    return blend(p, s, eased, model, width, height), eased

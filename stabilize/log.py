@@ -1,0 +1,318 @@
+"""The motion log: its schema, its coordinate convention, and CSV/JSON reading and writing.
+
+Coordinate convention (stated here once; every stage uses it)
+--------------------------------------------------------------
+Pixel coordinates are (x, y) in full-resolution source pixels, x to the right and y down, with
+the origin at the *centre* of the top-left pixel: pixel column j, row i has its centre at
+(j, i). This is OpenCV's convention for ``warpPerspective`` and ``remap``.
+
+A 3×3 matrix M acts on homogeneous column vectors (x, y, 1) and is normalised so m33 = 1.
+
+* ``H_t`` (the ``h11 … h33`` columns) maps pixel coordinates of frame t−1 to frame t: a scene
+  point seen at p in frame t−1 is seen at H_t·p in frame t, so
+  ``cv2.warpPerspective(frame[t-1], H_t, (w, h))`` reproduces frame t where both see the scene.
+  Frame 0's matrix is the identity.
+* The raw camera path is ``P_t = A_t⁻¹`` with ``A_t = H_t ⋯ H_1``: P_t maps pixels of frame t
+  to where they lie in frame 0. A pan to the right makes ``path_x`` grow.
+* The smoothed path ``S_t`` is the same for the virtual (steady) camera.
+* The correction ``C_t`` (``c11 … c33``) maps pixels of source frame t to pixels of output
+  frame t: the output is ``cv2.warpPerspective(frame[t], C_t, (w, h))``.
+
+Any such matrix is read as a similarity about the frame centre c = ((w−1)/2, (h−1)/2):
+``dx, dy`` = M(c) − c, rotation ``atan2(m21 − m12, m11 + m22)`` in degrees, and scale
+``sqrt(|m11·m22 − m12·m21|)`` (see :func:`similarity_readout`).
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from .errors import StabilizeError
+from .files import write_text_atomic
+
+FORMAT = "stabilize-motion-log"
+VERSION = 1
+STATUSES = ("ok", "weak", "failed", "cut")
+
+_H = [f"h{r}{c}" for r in (1, 2, 3) for c in (1, 2, 3)]
+_C = [f"c{r}{c}" for r in (1, 2, 3) for c in (1, 2, 3)]
+COLUMNS = (
+    ["frame", "time_s", *_H, "dx", "dy", "rotation_deg", "scale",
+     "tracked", "inliers", "inlier_ratio", "rms_px", "rounds", "status",
+     "path_x", "path_y", "path_deg", "path_scale",
+     "smooth_x", "smooth_y", "smooth_deg", "smooth_scale", *_C]
+)
+
+
+def frame_centre(width: int, height: int) -> np.ndarray:
+    """Centre of a width × height frame under the pixel-centre convention, (x, y) pixels."""
+    return np.array([(width - 1) / 2.0, (height - 1) / 2.0])
+
+
+def similarity_readout(m: np.ndarray, centre: np.ndarray) -> np.ndarray:
+    """Read 3×3 matrices as similarities about ``centre``.
+
+    Parameters
+    ----------
+    m : (..., 3, 3) matrices.
+    centre : (2,) the frame centre in pixels.
+
+    Returns
+    -------
+    (..., 4) array of dx, dy (pixels: where the centre moves to, minus the centre),
+    rotation in degrees, and scale (sqrt of |det| of the 2×2 part).
+    """
+    m = np.asarray(m, dtype=np.float64)
+    cx, cy = float(centre[0]), float(centre[1])
+    w = m[..., 2, 0] * cx + m[..., 2, 1] * cy + m[..., 2, 2]
+    x = (m[..., 0, 0] * cx + m[..., 0, 1] * cy + m[..., 0, 2]) / w
+    y = (m[..., 1, 0] * cx + m[..., 1, 1] * cy + m[..., 1, 2]) / w
+    a, b, c, d = m[..., 0, 0], m[..., 0, 1], m[..., 1, 0], m[..., 1, 1]
+    rot = np.degrees(np.arctan2(c - b, a + d))
+    scale = np.sqrt(np.abs(a * d - b * c))
+    return np.stack([x - cx, y - cy, rot, scale], axis=-1)
+
+
+def normalise(m: np.ndarray) -> np.ndarray:
+    """Scale (..., 3, 3) matrices so their bottom-right element is 1."""
+    m = np.asarray(m, dtype=np.float64)
+    return m / m[..., 2:3, 2:3]
+
+
+@dataclass
+class MotionLog:
+    """Per-frame camera motion of one clip, with diagnostics, path and (after steady) corrections.
+
+    Arrays have one row per decoded frame. ``matrices`` are the inter-frame transforms H_t,
+    ``corrections`` the C_t (None before smoothing), ``smooth_values`` the smoothed path S_t
+    read as (x, y, degrees, scale) per frame (None before smoothing); see the module docstring
+    for the convention.
+    """
+
+    time_s: np.ndarray
+    matrices: np.ndarray
+    tracked: np.ndarray
+    inliers: np.ndarray
+    inlier_ratio: np.ndarray
+    rms_px: np.ndarray
+    rounds: np.ndarray
+    status: np.ndarray
+    source: dict[str, Any] = field(default_factory=dict)
+    settings: dict[str, Any] = field(default_factory=dict)
+    summary: dict[str, Any] = field(default_factory=dict)
+    smooth_values: np.ndarray | None = None
+    corrections: np.ndarray | None = None
+    extra: dict[str, Any] = field(default_factory=dict)
+
+    @property
+    def frames(self) -> int:
+        return len(self.time_s)
+
+    @property
+    def size(self) -> tuple[int, int]:
+        return int(self.source["width"]), int(self.source["height"])
+
+    @property
+    def centre(self) -> np.ndarray:
+        return frame_centre(*self.size)
+
+    @property
+    def path(self) -> np.ndarray:
+        """Raw camera path P_t, (frames, 3, 3), restarting at scene cuts."""
+        from .path import accumulate
+
+        return accumulate(self.matrices, self.status == "cut")
+
+    def readouts(self) -> dict[str, np.ndarray]:
+        """The derived columns: per-frame motion and path read as similarities."""
+        c = self.centre
+        out = {"motion": similarity_readout(self.matrices, c),
+               "path": similarity_readout(self.path, c)}
+        if self.smooth_values is not None:
+            out["smooth"] = np.asarray(self.smooth_values, dtype=np.float64)
+        return out
+
+    # ----------------------------------------------------------------- writing
+    def to_csv(self) -> str:
+        r = self.readouts()
+        buf = io.StringIO()
+        writer = csv.writer(buf, lineterminator="\n")
+        writer.writerow(COLUMNS)
+        h = normalise(self.matrices).reshape(-1, 9)
+        cm = None if self.corrections is None else normalise(self.corrections).reshape(-1, 9)
+        for t in range(self.frames):
+            row: list[Any] = [t, _num(self.time_s[t])]
+            row += [_num(v) for v in h[t]]
+            row += [_num(v) for v in r["motion"][t]]
+            row += [int(self.tracked[t]), int(self.inliers[t]), _num(self.inlier_ratio[t]),
+                    _num(self.rms_px[t]), int(self.rounds[t]), str(self.status[t])]
+            row += [_num(v) for v in r["path"][t]]
+            row += [_num(v) for v in r["smooth"][t]] if "smooth" in r else [""] * 4
+            row += [_num(v) for v in cm[t]] if cm is not None else [""] * 9
+            writer.writerow(row)
+        return buf.getvalue()
+
+    def to_json(self) -> dict[str, Any]:
+        from . import __version__
+
+        doc = {
+            "format": FORMAT, "version": VERSION, "source": self.source,
+            "settings": self.settings, "summary": _jsonable(self.summary),
+            "tool_version": __version__,
+        }
+        doc.update(_jsonable(self.extra))
+        return doc
+
+    def save(self, csv_path: str | Path) -> tuple[Path, Path]:
+        """Write ``NAME.motion.csv`` and its JSON beside it; returns both paths."""
+        csv_path = Path(csv_path)
+        json_path = json_path_for(csv_path)
+        write_text_atomic(csv_path, self.to_csv())
+        write_text_atomic(json_path, json.dumps(self.to_json(), indent=2, allow_nan=False) + "\n")
+        return csv_path, json_path
+
+
+def json_path_for(csv_path: Path) -> Path:
+    """``NAME.motion.csv`` -> ``NAME.motion.json`` (any ``.csv`` -> ``.json``)."""
+    return csv_path.with_suffix(".json")
+
+
+def _num(v: float) -> str:
+    v = float(v)
+    if not math.isfinite(v):
+        return "nan"
+    return repr(v)
+
+
+def _jsonable(obj: Any) -> Any:
+    if isinstance(obj, dict):
+        return {str(k): _jsonable(v) for k, v in obj.items()}
+    if isinstance(obj, list | tuple):
+        return [_jsonable(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return _jsonable(obj.tolist())
+    if isinstance(obj, np.integer):
+        return int(obj)
+    if isinstance(obj, float | np.floating):
+        f = float(obj)
+        return f if math.isfinite(f) else None
+    return obj
+
+
+# --------------------------------------------------------------------- reading
+def read_log(csv_path: str | Path) -> MotionLog:
+    """Read a motion log written by this major version (the CSV and the JSON beside it).
+
+    Raises StabilizeError naming the file and line of the first problem found.
+    """
+    csv_path = Path(csv_path)
+    if csv_path.suffix == ".json":
+        csv_path = csv_path.with_suffix(".csv")
+    json_path = json_path_for(csv_path)
+    for p in (csv_path, json_path):
+        if not p.is_file():
+            raise StabilizeError(f"{p}: motion log file not found")
+    try:
+        meta = json.loads(json_path.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError) as exc:
+        raise StabilizeError(f"{json_path}: cannot read ({exc})") from None
+    except json.JSONDecodeError as exc:
+        raise StabilizeError(
+            f"{json_path}: not valid JSON at line {exc.lineno}: {exc.msg}"
+        ) from None
+    if not isinstance(meta, dict) or meta.get("format") != FORMAT:
+        raise StabilizeError(f"{json_path}: not a stabilize motion log (format field missing)")
+    if meta.get("version") != VERSION:
+        raise StabilizeError(
+            f"{json_path}: log version {meta.get('version')!r} is not supported (need {VERSION})"
+        )
+    source = meta.get("source")
+    if not isinstance(source, dict) or not all(
+        isinstance(source.get(k), int) and source[k] > 0 for k in ("width", "height")
+    ):
+        raise StabilizeError(f"{json_path}: source width and height missing or invalid")
+    try:
+        text = csv_path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as exc:
+        raise StabilizeError(f"{csv_path}: cannot read ({exc})") from None
+    rows = list(csv.reader(io.StringIO(text)))
+    if not rows or rows[0][: len(COLUMNS)] != COLUMNS:
+        raise StabilizeError(f"{csv_path}: line 1: header does not match the motion log columns")
+    header = rows[0]
+    idx = {name: i for i, name in enumerate(header)}
+    body = rows[1:]
+    if not body:
+        raise StabilizeError(f"{csv_path}: line 2: the log has no frames")
+    n = len(body)
+    numeric = np.empty((n, len(COLUMNS)), dtype=np.float64)
+    status = np.empty(n, dtype=object)
+    has_smooth = has_corr = True
+    for t, row in enumerate(body):
+        line = t + 2
+        if len(row) != len(header):
+            raise StabilizeError(
+                f"{csv_path}: line {line}: {len(row)} fields, expected {len(header)}"
+            )
+        for j, name in enumerate(COLUMNS):
+            cell = row[idx[name]]
+            if name == "status":
+                if cell not in STATUSES:
+                    raise StabilizeError(
+                        f"{csv_path}: line {line}: status {cell!r} is not one of "
+                        + ", ".join(STATUSES)
+                    )
+                status[t] = cell
+                numeric[t, j] = 0.0
+                continue
+            if cell == "" and (name.startswith("smooth_") or name in _C):
+                numeric[t, j] = np.nan
+                if name.startswith("smooth_"):
+                    has_smooth = False
+                else:
+                    has_corr = False
+                continue
+            try:
+                numeric[t, j] = float(cell)
+            except ValueError:
+                raise StabilizeError(
+                    f"{csv_path}: line {line}: column {name}: {cell!r} is not a number"
+                ) from None
+        if int(numeric[t, 0]) != t:
+            raise StabilizeError(f"{csv_path}: line {line}: frame {row[0]} out of order")
+    col = {name: j for j, name in enumerate(COLUMNS)}
+    h = numeric[:, [col[c] for c in _H]].reshape(n, 3, 3)
+    if not np.all(np.isfinite(h)):
+        bad = int(np.argwhere(~np.isfinite(h).reshape(n, -1).all(axis=1))[0][0])
+        raise StabilizeError(f"{csv_path}: line {bad + 2}: transform has a non-finite value")
+    corrections = smooth_values = None
+    if has_corr:
+        corrections = numeric[:, [col[c] for c in _C]].reshape(n, 3, 3)
+    if has_smooth:
+        smooth_values = numeric[:, [col[c] for c in
+                                    ("smooth_x", "smooth_y", "smooth_deg", "smooth_scale")]]
+    return MotionLog(
+        time_s=numeric[:, col["time_s"]],
+        matrices=h,
+        tracked=numeric[:, col["tracked"]].astype(int),
+        inliers=numeric[:, col["inliers"]].astype(int),
+        inlier_ratio=numeric[:, col["inlier_ratio"]],
+        rms_px=numeric[:, col["rms_px"]],
+        rounds=numeric[:, col["rounds"]].astype(int),
+        status=status.astype(str),
+        source=source,
+        settings=meta.get("settings") or {},
+        summary=meta.get("summary") or {},
+        corrections=corrections,
+        smooth_values=smooth_values,
+        extra={k: v for k, v in meta.items()
+               if k not in {"format", "version", "source", "settings", "summary",
+                            "tool_version"}},
+    )

@@ -1,0 +1,343 @@
+"""The jobs: measure a clip, steady it, render from a saved log. The Python API lives here.
+
+Two streaming passes over the clip: an analysis pass over a reduced grey copy (ffmpeg scales
+and converts it), then a render pass at full resolution. Nothing holds the whole clip.
+"""
+
+from __future__ import annotations
+
+import logging
+import os
+import shutil
+from collections.abc import Callable
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from . import framing, shake
+from .config import AUTO_MARGIN_CAP, Settings, build_settings
+from .errors import StabilizeError
+from .files import check_writable_folder, publish, temp_path_for
+from .log import MotionLog, json_path_for, read_log, similarity_readout
+from .motion import analyse, measurable
+from .path import smooth_path
+from .render import compare_size
+from .render import render as render_frames
+from .video import VideoInfo, VideoWriter, analysis_size, iter_frames, probe
+
+log = logging.getLogger("stabilize")
+
+ProgressFactory = Callable[[str, int | None], Any]
+
+
+class _NoBar:
+    def update(self, n: int = 1) -> None:
+        pass
+
+    def close(self) -> None:
+        pass
+
+
+def _bar(progress: ProgressFactory | None, desc: str, total: int | None):
+    return progress(desc, total) if progress else _NoBar()
+
+
+def _settings(config: str | None, options: dict[str, Any]) -> Settings:
+    if isinstance(options.get("settings"), Settings):
+        base = options.pop("settings")
+        return base.replace(**{k: v for k, v in options.items() if v is not None})
+    return build_settings(config, options)
+
+
+# ------------------------------------------------------------------ outputs
+@dataclass(frozen=True)
+class Outputs:
+    """Where a job writes: the video (None for measure) and the log CSV (its JSON beside it)."""
+
+    video: Path | None
+    log_csv: Path
+    compare: Path | None = None
+
+    @property
+    def log_json(self) -> Path:
+        return json_path_for(self.log_csv)
+
+    def all(self) -> list[Path]:
+        return [p for p in (self.video, self.log_csv, self.log_json, self.compare) if p]
+
+
+def clip_name(clip: Path) -> str:
+    """NAME of the outputs: the input's file name without its extension."""
+    return clip.stem
+
+
+def plan_outputs(clip: Path, *, video_out: str | Path | None, log_out: str | Path | None,
+                 with_video: bool, compare: bool) -> Outputs:
+    """Default outputs sit beside the input; ``-o OUT`` moves the logs to OUT's folder."""
+    name = clip_name(clip)
+    video = None
+    if with_video:
+        video = Path(video_out) if video_out else clip.with_name(f"{name}.steady.mp4")
+    if log_out:
+        log_csv = Path(log_out)
+        if log_csv.suffix.lower() != ".csv":
+            raise StabilizeError(f"{log_csv}: the motion log must be named *.csv")
+    elif video is not None:
+        log_csv = video.parent / f"{name}.motion.csv"
+    else:
+        log_csv = clip.with_name(f"{name}.motion.csv")
+    comp = None
+    if compare and video is not None:
+        comp = video.with_name(f"{video.stem}.compare{video.suffix or '.mp4'}")
+    return Outputs(video, log_csv, comp)
+
+
+def check_outputs(clip: Path, outputs: Outputs, force: bool) -> None:
+    """Refuse, before any work, outputs that equal the input, exist (without --force) or
+    cannot be written."""
+    src = clip.resolve()
+    seen: set[Path] = set()
+    for p in outputs.all():
+        rp = p.resolve()
+        if rp == src or (p.exists() and clip.exists() and os.path.samefile(p, clip)):
+            raise StabilizeError(f"{p}: output would overwrite the input clip; choose another name")
+        if rp in seen:
+            raise StabilizeError(f"{p}: two outputs would share this name")
+        seen.add(rp)
+        if p.is_dir():
+            raise StabilizeError(f"{p}: output name is an existing folder")
+        if p.exists() and not force:
+            raise StabilizeError(f"{p}: already exists (use --force to overwrite)")
+        check_writable_folder(p)
+
+
+# ------------------------------------------------------------------ passes
+def _source_dict(info: VideoInfo, frames: int, time_s: np.ndarray) -> dict[str, Any]:
+    d = info.to_dict()
+    d["frames"] = int(frames)
+    if len(time_s) > 1:
+        d["duration_s"] = float(time_s[-1] - time_s[0] + 1.0 / info.fps)
+    return d
+
+
+def effective_fps(info: VideoInfo, time_s: np.ndarray) -> float:
+    """Frame rate for time scales: from the timestamps when they are regular, else nominal."""
+    if len(time_s) > 2:
+        dt = np.diff(time_s)
+        med = float(np.median(dt))
+        if med > 0 and np.all(np.abs(dt - med) < 0.25 * med):
+            return 1.0 / med
+    return info.fps
+
+
+def _analyse(clip: Path, info: VideoInfo, settings: Settings,
+             progress: ProgressFactory | None) -> MotionLog:
+    size = analysis_size(info, settings.analysis_width)
+    bar = _bar(progress, "analyse", info.frames_estimate)
+    try:
+        track = analyse(
+            iter_frames(clip, size=size, gray=True, info=info),
+            full_size=(info.width, info.height), analysis_size=size, settings=settings,
+            on_frame=bar.update,
+        )
+    finally:
+        bar.close()
+    if not measurable(info.width, info.height) or len(track.time_s) < 2:
+        log.warning("%s: too short or too small to measure (%d frames of %dx%d); passed "
+                    "through unchanged, frames marked failed", clip, len(track.time_s),
+                    info.width, info.height)
+    n_failed = int(np.count_nonzero(track.status == "failed"))
+    if n_failed and len(track.time_s) >= 2 and measurable(info.width, info.height):
+        log.warning("%s: %d of %d frames had no trustworthy motion fit (status failed)",
+                    clip, n_failed, len(track.time_s))
+    n_weak = int(np.count_nonzero(track.status == "weak"))
+    if n_weak:
+        log.warning("%s: %d frames have weak fits (few or bunched inliers)", clip, n_weak)
+    return MotionLog(
+        time_s=track.time_s, matrices=track.matrices, tracked=track.tracked,
+        inliers=track.inliers, inlier_ratio=track.inlier_ratio, rms_px=track.rms_px,
+        rounds=track.rounds, status=track.status,
+        source=_source_dict(info, len(track.time_s), track.time_s),
+        settings=settings.to_dict(),
+    )
+
+
+def _summarise(motion: MotionLog, settings: Settings, fps: float) -> None:
+    w, h = motion.size
+    motion.summary = shake.summarise(
+        matrices=motion.matrices, path=motion.path, status=motion.status, fps=fps,
+        width=w, height=h, above_hz=settings.shake_above_hz, fov_deg=settings.fov_deg,
+        smooth_readout=motion.smooth_values, corrections=motion.corrections,
+    ) | motion.summary
+
+
+def plan_corrections(motion: MotionLog, settings: Settings, fps: float) -> None:
+    """Smooth the path, settle the margin, and store S_t and C_t in the log."""
+    w, h = motion.size
+    p = motion.path
+    cuts = motion.status == "cut"
+    s = smooth_path(p, fps=fps, window_s=settings.window_s, model=settings.model,
+                    width=w, height=h, cuts=cuts, smoother=settings.smoother)
+    if settings.margin == "auto":
+        margin = framing.choose_margin(p, s, w, h, AUTO_MARGIN_CAP)
+        log.info("margin: auto chose %.4f", margin)
+    else:
+        margin = float(settings.margin)
+    s, kept = framing.fit_to_margin(p, s, margin, model=settings.model, width=w, height=h,
+                                    fps=fps, window_s=settings.window_s)
+    if np.any(kept < 1.0):
+        log.warning("margin %.3f too small for the full correction in %d frames; the "
+                    "correction was eased there", margin, int(np.count_nonzero(kept < 1.0)))
+    motion.corrections = framing.corrections(p, s, margin, w, h)
+    motion.smooth_values = similarity_readout(s, motion.centre)
+    motion.summary = {"margin": margin,
+                      "frames_correction_eased": int(np.count_nonzero(kept < 1.0))}
+
+
+def _render_video(clip: Path, info: VideoInfo, motion: MotionLog, settings: Settings,
+                  outputs: Outputs, progress: ProgressFactory | None) -> None:
+    writer_args = dict(codec=settings.codec, crf=settings.crf, preset=settings.preset)
+    video = VideoWriter(outputs.video, info.width, info.height, info.fps_text,
+                        audio_from=clip if info.has_audio else None,
+                        audio_codec=info.audio_codec, **writer_args)
+    compare = None
+    if outputs.compare is not None:
+        cw, ch = compare_size(info.width, info.height)
+        compare = VideoWriter(outputs.compare, cw, ch, info.fps_text, **writer_args)
+    bar = _bar(progress, "render", motion.frames)
+    try:
+        with video:
+            if compare is None:
+                n = render_frames(iter_frames(clip, info=info), motion.corrections, video,
+                                  fill=settings.fill, on_frame=bar.update)
+            else:
+                with compare:
+                    n = render_frames(iter_frames(clip, info=info), motion.corrections, video,
+                                      fill=settings.fill, compare=compare, on_frame=bar.update)
+    finally:
+        bar.close()
+    if n != motion.frames:
+        log.warning("%s: rendered %d frames but the log has %d", clip, n, motion.frames)
+
+
+def _copy_unchanged(clip: Path, dest: Path) -> None:
+    tmp = temp_path_for(dest)
+    try:
+        shutil.copyfile(clip, tmp)
+        publish(tmp, dest)
+    finally:
+        if tmp.exists():
+            tmp.unlink()
+
+
+def _record_outputs(motion: MotionLog, outputs: Outputs) -> None:
+    pairs = (("video", outputs.video), ("compare", outputs.compare),
+             ("log_csv", outputs.log_csv), ("log_json", outputs.log_json))
+    motion.extra["outputs"] = {k: str(v) for k, v in pairs if v is not None}
+
+
+# --------------------------------------------------------------------- API
+def measure(clip: str | os.PathLike, *, config: str | None = None,
+            progress: ProgressFactory | None = None, **options: Any) -> MotionLog:
+    """Analyse a clip: per-frame motion, raw path and shake summary; nothing is written.
+
+    Keyword options are those of the command line (``model``, ``inlier_px``, ``seed`` …);
+    ``config`` names a TOML file or preset. Save the result with ``log.save(path)``.
+    """
+    clip = Path(clip)
+    settings = _settings(config, options)
+    info = probe(clip)
+    motion = _analyse(clip, info, settings, progress)
+    _summarise(motion, settings, effective_fps(info, motion.time_s))
+    return motion
+
+
+def steady(clip: str | os.PathLike, out: str | os.PathLike | None = None, *,
+           log_path: str | os.PathLike | None = None, config: str | None = None,
+           progress: ProgressFactory | None = None, **options: Any) -> MotionLog:
+    """The main job: measure, smooth, render the steadied video and write the motion log.
+
+    ``out`` defaults to ``NAME.steady.mp4`` beside the input; the log goes to
+    ``NAME.motion.csv`` (and ``.json``) in the video's folder unless ``log_path`` is given.
+    Returns the saved log; ``log.extra["outputs"]`` lists the files written.
+    """
+    clip = Path(clip)
+    settings = _settings(config, options)
+    outputs = plan_outputs(clip, video_out=out, log_out=log_path, with_video=True,
+                           compare=settings.compare)
+    check_outputs(clip, outputs, settings.force)
+    info = probe(clip)
+    motion = _analyse(clip, info, settings, progress)
+    fps = effective_fps(info, motion.time_s)
+    if motion.frames < 2 or not measurable(info.width, info.height):
+        motion.corrections = np.repeat(np.eye(3)[None], motion.frames, axis=0)
+        motion.smooth_values = similarity_readout(motion.path, motion.centre)
+        _copy_unchanged(clip, outputs.video)
+        if outputs.compare is not None:
+            _copy_unchanged(clip, outputs.compare)
+    else:
+        plan_corrections(motion, settings, fps)
+        _render_video(clip, info, motion, settings, outputs, progress)
+    _summarise(motion, settings, fps)
+    _record_outputs(motion, outputs)
+    motion.save(outputs.log_csv)
+    return motion
+
+
+def _rescale(matrices: np.ndarray, from_size: tuple[int, int],
+             to_size: tuple[int, int]) -> np.ndarray:
+    """Transforms logged at one resolution expressed at another (pixel-centre convention)."""
+    sx, sy = from_size[0] / to_size[0], from_size[1] / to_size[1]
+    d = np.array([[sx, 0.0, 0.5 * sx - 0.5], [0.0, sy, 0.5 * sy - 0.5], [0.0, 0.0, 1.0]])
+    m = np.linalg.inv(d) @ matrices @ d
+    return m / m[:, 2:3, 2:3]
+
+
+def render(clip: str | os.PathLike, log_file: str | os.PathLike | MotionLog,
+           out: str | os.PathLike | None = None, *, config: str | None = None,
+           progress: ProgressFactory | None = None, **options: Any) -> MotionLog:
+    """Render a clip from an existing motion log: the path is smoothed again with the given
+    settings (smoother, window, margin, fill, encoding). A log made on a smaller proxy of the
+    clip is scaled to the clip's resolution. Writes the video and a new log beside it."""
+    clip = Path(clip)
+    saved = log_file if isinstance(log_file, MotionLog) else read_log(log_file)
+    base = {k: v for k, v in saved.settings.items() if k in Settings.__dataclass_fields__}
+    base["ignore"] = tuple(tuple(r) for r in base.get("ignore", ()))
+    try:
+        logged = Settings(**base)
+    except (TypeError, StabilizeError):
+        logged = Settings()
+    settings = (_settings(config, options) if config
+                else logged.replace(**{k: v for k, v in options.items() if v is not None}))
+    outputs = plan_outputs(clip, video_out=out, log_out=None, with_video=True,
+                           compare=settings.compare)
+    if not isinstance(log_file, MotionLog) and Path(log_file).resolve() == \
+            outputs.log_csv.resolve():
+        outputs = Outputs(outputs.video, outputs.log_csv.with_name(
+            f"{clip_name(clip)}.render.motion.csv"), outputs.compare)
+    check_outputs(clip, outputs, settings.force)
+    info = probe(clip)
+    matrices = saved.matrices
+    if saved.size != (info.width, info.height):
+        log.info("log made at %dx%d, rendering at %dx%d", *saved.size, info.width, info.height)
+        matrices = _rescale(matrices, saved.size, (info.width, info.height))
+    motion = MotionLog(
+        time_s=saved.time_s, matrices=matrices, tracked=saved.tracked, inliers=saved.inliers,
+        inlier_ratio=saved.inlier_ratio, rms_px=saved.rms_px, rounds=saved.rounds,
+        status=saved.status, source=_source_dict(info, saved.frames, saved.time_s),
+        settings=settings.to_dict(),
+    )
+    fps = effective_fps(info, motion.time_s)
+    if motion.frames < 2 or not measurable(info.width, info.height):
+        motion.corrections = np.repeat(np.eye(3)[None], motion.frames, axis=0)
+        motion.smooth_values = similarity_readout(motion.path, motion.centre)
+        _copy_unchanged(clip, outputs.video)
+    else:
+        plan_corrections(motion, settings, fps)
+        _render_video(clip, info, motion, settings, outputs, progress)
+    _summarise(motion, settings, fps)
+    _record_outputs(motion, outputs)
+    motion.save(outputs.log_csv)
+    return motion

@@ -1,0 +1,107 @@
+"""Motion log schema: columns, conventions, CSV/JSON round trip, malformed input."""
+
+import json
+
+import numpy as np
+import pytest
+
+from stabilize.errors import StabilizeError
+from stabilize.log import COLUMNS, MotionLog, frame_centre, read_log, similarity_readout
+
+
+def _log(n=6, with_corrections=True):
+    rng = np.random.default_rng(0)
+    h = np.repeat(np.eye(3)[None], n, axis=0)
+    h[1:, :2, 2] = rng.normal(0, 2, (n - 1, 2))
+    h[1:, :2, :2] += rng.normal(0, 1e-3, (n - 1, 2, 2))
+    h[1:, 2, :2] = rng.normal(0, 1e-6, (n - 1, 2))
+    status = np.array(["ok", "ok", "weak", "failed", "ok", "cut"][:n])
+    log = MotionLog(
+        time_s=np.arange(n) / 29.97, matrices=h, tracked=np.full(n, 500),
+        inliers=np.full(n, 400), inlier_ratio=np.full(n, 0.8), rms_px=np.full(n, 0.31),
+        rounds=np.full(n, 12), status=status,
+        source={"path": "x.mp4", "width": 640, "height": 360, "fps": 29.97, "frames": n},
+        settings={"model": "homography"}, summary={"frames": n, "jitter_rms_x_px": 1.25},
+    )
+    if with_corrections:
+        log.corrections = h.copy()
+        log.smooth_values = rng.normal(0, 1, (n, 4))
+    return log
+
+
+def test_header_is_the_contract():
+    h = [f"h{r}{c}" for r in (1, 2, 3) for c in (1, 2, 3)]
+    c = [f"c{r}{c}" for r in (1, 2, 3) for c in (1, 2, 3)]
+    assert COLUMNS == ["frame", "time_s", *h, "dx", "dy", "rotation_deg", "scale", "tracked",
+                       "inliers", "inlier_ratio", "rms_px", "rounds", "status", "path_x",
+                       "path_y", "path_deg", "path_scale", "smooth_x", "smooth_y",
+                       "smooth_deg", "smooth_scale", *c]
+
+
+def test_similarity_readout_about_the_centre():
+    c = frame_centre(101, 51)
+    assert tuple(c) == (50.0, 25.0)
+    theta = np.radians(3.0)
+    rot = np.array([[np.cos(theta), -np.sin(theta)], [np.sin(theta), np.cos(theta)]]) * 1.02
+    m = np.eye(3)
+    m[:2, :2] = rot
+    m[:2, 2] = c - rot @ c + [4.0, -2.0]
+    dx, dy, deg, scale = similarity_readout(m, c)
+    assert dx == pytest.approx(4.0) and dy == pytest.approx(-2.0)
+    assert deg == pytest.approx(3.0) and scale == pytest.approx(1.02)
+
+
+@pytest.mark.parametrize("with_corrections", [True, False])
+def test_csv_json_round_trip_is_exact(tmp_path, with_corrections):
+    log = _log(with_corrections=with_corrections)
+    csv_path, json_path = log.save(tmp_path / "clip.motion.csv")
+    back = read_log(csv_path)
+    np.testing.assert_array_equal(back.matrices, log.matrices / log.matrices[:, 2:3, 2:3])
+    np.testing.assert_array_equal(back.time_s, log.time_s)
+    np.testing.assert_array_equal(back.status, log.status)
+    assert back.to_csv() == log.to_csv()
+    doc = json.loads(json_path.read_text())
+    assert doc["format"] == "stabilize-motion-log" and doc["version"] == 1
+    assert set(doc) >= {"source", "settings", "summary", "tool_version"}
+    lines = csv_path.read_text().splitlines()
+    assert len(lines) == log.frames + 1
+    if not with_corrections:
+        assert lines[1].endswith("," * 13)
+    # No temporaries are left beside the outputs.
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["clip.motion.csv", "clip.motion.json"]
+
+
+def test_numbers_keep_at_least_nine_significant_digits(tmp_path):
+    log = _log()
+    log.matrices[1, 0, 2] = 1.0 / 3.0
+    csv_path, _ = log.save(tmp_path / "a.motion.csv")
+    row = csv_path.read_text().splitlines()[2].split(",")
+    assert len(row[COLUMNS.index("h13")].replace("0.", "")) >= 9
+
+
+@pytest.mark.parametrize(
+    "mutate, message",
+    [
+        (lambda t: t.replace("frame,time_s", "frame,time"), "line 1"),
+        (lambda t: t.replace(",ok,", ",good,", 1), "line 2"),
+        (lambda t: "\n".join(t.splitlines()[:3] + [t.splitlines()[3][:-5]]), "line 4"),
+        (lambda t: t.replace(t.splitlines()[2].split(",")[2], "abc", 1), "line 3"),
+    ],
+)
+def test_malformed_csv_names_the_line(tmp_path, mutate, message):
+    csv_path, _ = _log().save(tmp_path / "m.motion.csv")
+    csv_path.write_text(mutate(csv_path.read_text()))
+    with pytest.raises(StabilizeError, match=message):
+        read_log(csv_path)
+
+
+def test_malformed_json_is_reported(tmp_path):
+    csv_path, json_path = _log().save(tmp_path / "m.motion.csv")
+    json_path.write_text("{not json")
+    with pytest.raises(StabilizeError, match="not valid JSON"):
+        read_log(csv_path)
+    json_path.write_text(json.dumps({"format": "other"}))
+    with pytest.raises(StabilizeError, match="not a stabilize motion log"):
+        read_log(csv_path)
+    with pytest.raises(StabilizeError, match="not found"):
+        read_log(tmp_path / "none.motion.csv")
