@@ -128,7 +128,8 @@ def effective_fps(info: VideoInfo, time_s: np.ndarray) -> float:
         dt = np.diff(time_s)
         med = float(np.median(dt))
         if med > 0 and np.all(np.abs(dt - med) < 0.25 * med):
-            return 1.0 / med
+            fps = 1.0 / med
+            return info.fps if abs(fps - info.fps) < 1e-3 * info.fps else fps
     return info.fps
 
 
@@ -145,6 +146,7 @@ def _analyse(clip: Path, info: VideoInfo, settings: Settings,
     finally:
         bar.close()
     if not measurable(info.width, info.height) or len(track.time_s) < 2:
+        track.status[:] = "failed"
         log.warning("%s: too short or too small to measure (%d frames of %dx%d); passed "
                     "through unchanged, frames marked failed", clip, len(track.time_s),
                     info.width, info.height)

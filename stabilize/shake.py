@@ -24,15 +24,19 @@ from .path import segments
 def shake_component(x: np.ndarray, fps: float, above_hz: float) -> np.ndarray | None:
     """The series minus its zero-phase 4th-order Butterworth low-pass at ``above_hz``.
 
-    Returns None when the cut-off is not below the Nyquist frequency or the series is too short
-    to filter.
+    A straight line through the series is taken out first (its high-pass is zero anyway), so
+    a steady pan does not leave filter start-up transients at the clip ends. Returns None when
+    the cut-off is not below the Nyquist frequency or the series is too short to filter.
     """
     x = np.asarray(x, dtype=np.float64)
-    if len(x) < 8 or not (0 < above_hz < 0.5 * fps):
+    n = len(x)
+    if n < 8 or not (0 < above_hz < 0.5 * fps):
         return None
+    t = np.arange(n, dtype=np.float64)
+    residual = x - np.polyval(np.polyfit(t, x, 1), t)
     sos = signal.butter(4, above_hz, btype="low", fs=fps, output="sos")
-    pad = min(len(x) - 1, 3 * (2 * len(sos) + 1))
-    return x - signal.sosfiltfilt(sos, x, padlen=pad)
+    pad = min(n - 1, max(3 * (2 * len(sos) + 1), int(round(3.0 * fps / above_hz))))
+    return residual - signal.sosfiltfilt(sos, residual, padlen=pad)
 
 
 def dominant_hz(shake: np.ndarray, fps: float, above_hz: float) -> float | None:

@@ -973,8 +973,20 @@ class SyntheticClip:
                                                       self._offset, view)
             k = self.spec.supersample
             # Soften sub-pixel detail so bilinear sampling does not alias.
-            self._worlds[shot] = cv2.GaussianBlur(img, (0, 0), 0.5 * k)
+            self._worlds[shot] = cv2.GaussianBlur(img, (0, 0), 0.7 * k)
         return self._worlds[shot]
+
+    def set_world(self, image: np.ndarray, shot: int = 0) -> None:
+        """Use ``image`` (uint8 RGB, ``supersample``× the nominal ``world_size``) as a shot's world.
+
+        For example a photograph of the ground instead of a drawn canvas; the ground truth is
+        unchanged because it depends only on the camera.
+        """
+        k = self.spec.supersample
+        want = (self.world_size[1] * k, self.world_size[0] * k, 3)
+        if image.shape != want or image.dtype != np.uint8:
+            raise ValueError(f"world image must be uint8 with shape {want}")
+        self._worlds[shot] = np.ascontiguousarray(image)
 
     def _sky(self) -> np.ndarray:
         if self._sky_world is None:

@@ -144,6 +144,7 @@ class Frame:
 
 
 _SHOWINFO = re.compile(r"\bn:\s*(\d+)\s+pts:\s*(-?\d+)\s+pts_time:\s*(-?[0-9.eE+-]+)")
+_TIME_BASE = re.compile(r"config in time_base:\s*(\d+)/(\d+)")
 
 
 class _StderrReader(threading.Thread):
@@ -156,15 +157,23 @@ class _StderrReader(threading.Thread):
         self.tail: deque[str] = deque(maxlen=20)
         self.cond = threading.Condition()
         self.finished = False
+        self.time_base: Fraction | None = None
 
     def run(self) -> None:
         for raw in iter(self.stream.readline, b""):
             line = raw.decode("utf-8", "replace").rstrip()
             m = _SHOWINFO.search(line)
             if m:
+                # pts × time base is exact; the printed pts_time is rounded to 6 digits.
+                tb = self.time_base
+                t = float(int(m.group(2)) * tb) if tb else float(m.group(3))
                 with self.cond:
-                    self.times[int(m.group(1))] = float(m.group(3))
+                    self.times[int(m.group(1))] = t
                     self.cond.notify_all()
+                continue
+            tb_match = _TIME_BASE.search(line)
+            if tb_match and int(tb_match.group(2)) > 0:
+                self.time_base = Fraction(int(tb_match.group(1)), int(tb_match.group(2)))
             elif line:
                 self.tail.append(line)
         with self.cond:

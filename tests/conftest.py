@@ -24,15 +24,13 @@ def tone(path: Path, seconds: float) -> Path:
 def write_clip(path: Path, frames, fps: float, *, audio: bool = False, crf: int = 12,
                codec: str = "h264") -> Path:
     """Encode an iterable of RGB frames (optionally with a tone as audio) to ``path``."""
-    frames = iter(frames)
-    first = next(frames)
-    h, w = first.shape[:2]
+    frames = list(frames)
+    h, w = frames[0].shape[:2]
     audio_from = None
     if audio:
-        audio_from = tone(path.with_suffix(".tone.m4a"), 10.0)
+        audio_from = tone(path.with_suffix(".tone.m4a"), len(frames) / fps)
     with VideoWriter(path, w, h, fps, crf=crf, preset="veryfast", codec=codec,
                      audio_from=audio_from, audio_codec="aac" if audio else None) as wr:
-        wr.write(first)
         for f in frames:
             wr.write(f)
     return path

@@ -42,8 +42,10 @@ EPS_LEN = 1e-4
 #: are collinear.
 EPS_AREA = 1e-6
 
-# Upper-triangle monomials z_i z_j of z = (x, y, 1, u, v); off-diagonal ones are
-# doubled so that a symmetric form O gives r^2 = F @ O[TRI].
+# Points are stored transposed: z = (x, y, u, v, 1) as rows of a (5, n) array, so that
+# every per-point quantity is a contiguous row. The upper-triangle monomials z_i z_j
+# (i <= j) are the linear-family features; a symmetric form O gives
+# r^2 = (FAC * O[TRI]) @ F.
 _TI, _TJ = np.triu_indices(5)
 _TRI = _TI * 5 + _TJ
 _FAC = np.where(_TI == _TJ, 1.0, 2.0)
@@ -51,6 +53,11 @@ _COL = {(int(i), int(j)): k for k, (i, j) in enumerate(zip(_TI, _TJ))}
 _NEG_I2 = -np.eye(2)
 _E33 = np.zeros(9)
 _E33[8] = 1.0
+# Moment positions used by the closed-form refits (z index: x 0, y 1, u 2, v 3, 1 4).
+_M = {name: _COL[ij] for name, ij in {
+    "n": (4, 4), "x": (0, 4), "y": (1, 4), "u": (2, 4), "v": (3, 4),
+    "xx": (0, 0), "xy": (0, 1), "yy": (1, 1),
+    "xu": (0, 2), "xv": (0, 3), "yu": (1, 2), "yv": (1, 3)}.items()}
 
 # Similarity parameters (a_re, a_im, b_re, b_im) -> flattened 3x3.
 _SIM_SEL = np.zeros((4, 9))
@@ -59,8 +66,8 @@ _SIM_SEL[1, 1], _SIM_SEL[1, 3] = -1.0, 1.0
 _SIM_SEL[2, 2] = 1.0
 _SIM_SEL[3, 5] = 1.0
 
-# Flattened homography (9,) -> coefficients on g for (numerator x, numerator y, depth),
-# laid out component-major so each component is a contiguous (B, n) block.
+# Flattened homography (9,) -> coefficients on g = (x, y, 1, ux, uy, u, vx, vy, v) for
+# (numerator x, numerator y, depth), component-major so each is a contiguous block.
 _HOM_SEL = np.zeros((9, 3, 9))
 for _c in range(3):
     _HOM_SEL[_c, 0, _c] = 1.0  # h0 . (x, y, 1)
@@ -106,54 +113,54 @@ def _norm_matrix(centre: tuple[float, float], scale: float) -> Array:
     return np.array([[scale, 0.0, -scale * cx], [0.0, scale, -scale * cy], [0.0, 0.0, 1.0]])
 
 
-def normalisation(src: Array, dst: Array) -> tuple[Normalisation, Array, Array]:
+def normalisation(src: Array, dst: Array) -> tuple[Normalisation, Array]:
     """Centre both point sets and scale them to an RMS distance of sqrt(2) (Hartley 1997).
 
     Parameters
     ----------
-    src, dst : ndarray, shape (n, 2)
-        Matched points in pixels.
+    src, dst : ndarray, shape (2, n)
+        Matched points in pixels, stored transposed (rows x and y).
 
     Returns
     -------
     norm : Normalisation
-    src_n, dst_n : ndarray, shape (n, 2)
-        Normalised points.
+    z : ndarray, shape (5, n)
+        Rows ``(x, y, u, v, 1)``: normalised src ``(x, y)`` and dst ``(u, v)``.
 
     References
     ----------
     .. [1] R. I. Hartley, "In defense of the eight-point algorithm", IEEE TPAMI, 1997.
     """
-    cs = src.mean(axis=0)
-    cd = dst.mean(axis=0)
-    src_c = src - cs
-    dst_c = dst - cd
-    ms = float(np.vdot(src_c, src_c) + np.vdot(dst_c, dst_c)) / (2 * len(src))
+    n = src.shape[1]
+    z = np.empty((5, n))
+    z[:2] = src
+    z[2:4] = dst
+    z[4] = 1.0
+    mean = (z[:4] @ z[4]) / n
+    z[:4] -= mean[:, None]
+    ms = float(np.vdot(z[:4], z[:4])) / (2 * n)
     # Coincident data has no spread to normalise; scale 1 keeps the arithmetic finite.
     scale = float(np.sqrt(2.0 / ms)) if ms > 1e-300 else 1.0
-    norm = Normalisation((float(cs[0]), float(cs[1])), (float(cd[0]), float(cd[1])), scale)
-    return norm, src_c * scale, dst_c * scale
+    z[:4] *= scale
+    m = mean.tolist()
+    return Normalisation((m[0], m[1]), (m[2], m[3]), scale), z
 
 
 # --------------------------------------------------------------------------- features
 
 
-def _linear_features(src: Array, dst: Array) -> Array:
-    """Monomials z_i z_j (i <= j, off-diagonal doubled) of z = (x, y, 1, u, v), (n, 15)."""
-    z = np.empty((len(src), 5))
-    z[:, :2] = src
-    z[:, 2] = 1.0
-    z[:, 3:] = dst
-    return z[:, _TI] * z[:, _TJ] * _FAC
+def _linear_features(z: Array) -> Array:
+    """Monomials z_i z_j (i <= j) of z = (x, y, u, v, 1), shape (15, n)."""
+    return np.take(z, _TI, axis=0) * np.take(z, _TJ, axis=0)
 
 
-def _homography_features(src: Array, dst: Array) -> Array:
-    """g = (x, y, 1, ux, uy, u, vx, vy, v) per point, (n, 9)."""
-    g = np.empty((len(src), 9))
-    g[:, :2] = src
-    g[:, 2] = 1.0
-    g[:, 3:6] = g[:, :3] * dst[:, :1]
-    g[:, 6:] = g[:, :3] * dst[:, 1:]
+def _homography_features(z: Array) -> Array:
+    """g = (x, y, 1, ux, uy, u, vx, vy, v) per point, shape (9, n)."""
+    g = np.empty((9, z.shape[1]))
+    g[:2] = z[:2]
+    g[2] = 1.0
+    g[3:6] = g[:3] * z[2]
+    g[6:] = g[:3] * z[3]
     return g
 
 
@@ -164,87 +171,113 @@ def _linear_sq_residuals(feat: Array, h: Array) -> Array:
     """Squared transfer errors of affine-family hypotheses h (B, 3, 3) -> (B, n)."""
     b = h.shape[0]
     r = np.empty((b, 2, 5))
-    r[:, :, :3] = h[:, :2]
-    r[:, :, 3:] = _NEG_I2
+    r[:, :, :2] = h[:, :2, :2]
+    r[:, :, 2:4] = _NEG_I2
+    r[:, :, 4] = h[:, :2, 2]
     form = np.matmul(r.transpose(0, 2, 1), r).reshape(b, 25)[:, _TRI]
-    return form @ feat.T
+    form *= _FAC
+    return form @ feat
+
+
+def _linear_sq_residuals_one(feat: Array, h: Array) -> Array:
+    """Squared transfer errors of one affine-family model, shape (n,)."""
+    a, b, c, d, e, f = h[:2].ravel().tolist()
+    mx = (a, b, -1.0, 0.0, c)
+    my = (d, e, 0.0, -1.0, f)
+    form = [
+        (mx[i] * mx[j] + my[i] * my[j]) * (1.0 if i == j else 2.0)
+        for i in range(5) for j in range(i, 5)
+    ]
+    return np.array(form) @ feat
 
 
 def _homography_sq_residuals(feat: Array, h: Array) -> Array:
     """Squared transfer errors of homographies h (B, 3, 3) -> (B, n)."""
     b = h.shape[0]
     coef = (h.reshape(b, 9) @ _HOM_SEL).reshape(b, 3, 9).transpose(1, 0, 2).reshape(3 * b, 9)
-    out = (coef @ feat.T).reshape(3, b, -1)
+    out = (coef @ feat).reshape(3, b, -1)
     nx, ny, w = out[0], out[1], out[2]
-    num = nx * nx
-    num += ny * ny
+    nx *= nx
+    ny *= ny
+    nx += ny
     w *= w
-    num /= w
-    return num
+    nx /= w
+    return nx
+
+
+def _homography_sq_residuals_one(feat: Array, h: Array) -> Array:
+    return _homography_sq_residuals(feat, h[None])[0]
 
 
 # --------------------------------------------------------------------------- minimal solvers
+# Samples arrive as (4, B, s): rows x, y (src) and u, v (dst) of B samples of s points.
 
 
-def _translation_solve(s: Array, d: Array) -> tuple[Array, NDArray[np.bool_]]:
-    """Translation from one correspondence per hypothesis: s, d (B, 1, 2)."""
-    b = s.shape[0]
+def _translation_solve(smp: Array) -> tuple[Array, NDArray[np.bool_]]:
+    """Translation from one correspondence per hypothesis."""
+    b = smp.shape[1]
     h = np.zeros((b, 9))
     h[:, [0, 4, 8]] = 1.0
-    h[:, [2, 5]] = d[:, 0] - s[:, 0]
+    h[:, [2, 5]] = (smp[2:, :, 0] - smp[:2, :, 0]).T
     return h.reshape(b, 3, 3), np.ones(b, dtype=bool)
 
 
-def _similarity_solve(s: Array, d: Array) -> tuple[Array, NDArray[np.bool_]]:
-    """Similarity from two correspondences, closed form in complex numbers.
+def _similarity_solve(smp: Array) -> tuple[Array, NDArray[np.bool_]]:
+    """Similarity from two correspondences, closed form.
 
-    With points as complex numbers a similarity is ``q = a p + b``; two points give
-    ``a = (q1 - q0) / (p1 - p0)`` and ``b = q0 - a p0``.
+    With points as complex numbers a similarity is ``q = a p + t``; two points give
+    ``a = (q1 - q0) / (p1 - p0)`` and ``t = q0 - a p0``, written out in reals here.
     """
-    zs = s.view(np.complex128)[..., 0]
-    zd = d.view(np.complex128)[..., 0]
-    dp = zs[:, 1] - zs[:, 0]
-    dq = zd[:, 1] - zd[:, 0]
-    valid = (np.abs(dp) > EPS_LEN) & (np.abs(dq) > EPS_LEN)
-    a = dq / dp
-    bb = zd[:, 0] - a * zs[:, 0]
-    params = np.stack((a, bb), axis=1).view(np.float64)
-    return (params @ _SIM_SEL + _E33).reshape(-1, 3, 3), valid
+    dx, dy, du, dv = smp[:, :, 1] - smp[:, :, 0]
+    x0, y0, u0, v0 = smp[:, :, 0]
+    den = dx * dx + dy * dy
+    valid = (den > EPS_LEN * EPS_LEN) & (du * du + dv * dv > EPS_LEN * EPS_LEN)
+    den = np.where(valid, den, 1.0)
+    a = (dx * du + dy * dv) / den
+    c = (dx * dv - dy * du) / den
+    tx = u0 - a * x0 + c * y0
+    ty = v0 - c * x0 - a * y0
+    one = np.ones_like(a)
+    zero = np.zeros_like(a)
+    h = np.stack((a, -c, tx, c, a, ty, zero, zero, one), axis=1)
+    return h.reshape(-1, 3, 3), valid
 
 
-def _affine_solve(s: Array, d: Array) -> tuple[Array, NDArray[np.bool_]]:
+def _affine_solve(smp: Array) -> tuple[Array, NDArray[np.bool_]]:
     """Affine map from three correspondences via a closed-form 2x2 inverse."""
-    sd = s[:, 1:] - s[:, :1]  # rows: edge vectors of the src triangle
-    ed = d[:, 1:] - d[:, :1]
-    det_s = sd[:, 0, 0] * sd[:, 1, 1] - sd[:, 0, 1] * sd[:, 1, 0]
-    det_d = ed[:, 0, 0] * ed[:, 1, 1] - ed[:, 0, 1] * ed[:, 1, 0]
+    d = smp[:, :, 1:] - smp[:, :, :1]  # (4, B, 2): edge vectors of both triangles
+    dx1, dx2 = d[0, :, 0], d[0, :, 1]
+    dy1, dy2 = d[1, :, 0], d[1, :, 1]
+    det_s = dx1 * dy2 - dx2 * dy1
+    det_d = d[2, :, 0] * d[3, :, 1] - d[2, :, 1] * d[3, :, 0]
     # Same orientation in both images: a reflection is not camera motion.
     valid = (det_s * np.sign(det_d) > EPS_AREA) & (det_d * np.sign(det_s) > EPS_AREA)
-    adj = sd[:, ::-1, ::-1].transpose(0, 2, 1) * _ADJ_SIGN
-    det_s = np.where(valid, det_s, 1.0)
-    at = np.matmul(adj, ed) / det_s[:, None, None]  # A^T
-    b = s.shape[0]
+    inv = 1.0 / np.where(valid, det_s, 1.0)
+    r = d[2:]  # (2, B, 2): u and v edges
+    col0 = (r[:, :, 0] * dy2 - r[:, :, 1] * dy1) * inv
+    col1 = (r[:, :, 1] * dx1 - r[:, :, 0] * dx2) * inv
+    t = smp[2:, :, 0] - col0 * smp[0, :, 0] - col1 * smp[1, :, 0]
+    b = smp.shape[1]
     h = np.empty((b, 3, 3))
-    h[:, :2, :2] = at.transpose(0, 2, 1)
-    h[:, :2, 2] = d[:, 0] - np.matmul(s[:, :1], at)[:, 0]
+    h[:, :2] = np.stack((col0, col1, t), axis=-1).transpose(1, 0, 2)
     h[:, 2] = (0.0, 0.0, 1.0)
     return h, valid
 
 
 def _triple_dets(ph: Array) -> tuple[Array, Array]:
     """For homogeneous 4-point samples ph (B, 4, 3) return the rows b x c, c x a, a x b
-    (B, 3, 3) and the four triple determinants (B, 4)."""
+    (B, 3, 3) and the four triple determinants (B, 4): |d b c|, |a d c|, |a b d|, |a b c|."""
     abc = ph[:, :3]
     u = abc[:, _ROT1]
     v = abc[:, _ROT2]
     cross = u[:, :, _ROT1] * v[:, :, _ROT2] - u[:, :, _ROT2] * v[:, :, _ROT1]
     dets = np.empty((ph.shape[0], 4))
     dets[:, :3] = np.matmul(cross, ph[:, 3, :, None])[..., 0]
-    dets[:, 3] = np.einsum("bi,bi->b", abc[:, 0], cross[:, 0])
+    dets[:, 3] = (abc[:, 0] * cross[:, 0]).sum(axis=1)
     return cross, dets
 
 
-def _homography_solve(s: Array, d: Array) -> tuple[Array, NDArray[np.bool_]]:
+def _homography_solve(smp: Array) -> tuple[Array, NDArray[np.bool_]]:
     """Homography from four correspondences by mapping both to the projective basis.
 
     ``H1 = [a b c] diag(l)`` with ``l = [a b c]^-1 d`` takes the canonical basis to the
@@ -252,96 +285,104 @@ def _homography_solve(s: Array, d: Array) -> tuple[Array, NDArray[np.bool_]]:
     cross products so that no division (and no linear solve) is needed; the four
     triple determinants come for free and drive the degeneracy and orientation checks.
     """
-    b = s.shape[0]
+    b = smp.shape[1]
     ph = np.empty((2, b, 4, 3))
-    ph[0, :, :, :2] = s
-    ph[1, :, :, :2] = d
-    ph[:, :, :, 2] = 1.0
-    cs, ls = _triple_dets(ph[0])
-    _, ld = _triple_dets(ph[1])
+    ph[..., :2] = smp.reshape(2, 2, b, 4).transpose(0, 2, 3, 1)
+    ph[..., 2] = 1.0
+    cross, dets = _triple_dets(ph.reshape(2 * b, 4, 3))
+    ls, ld = dets[:b], dets[b:]
     # General position and consistent orientation of every triple (no fold-over).
     valid = ((ls * np.sign(ld) > EPS_AREA) & (ld * np.sign(ls) > EPS_AREA)).all(axis=1)
     lam = ld[:, :3] * ls[:, [1, 0, 0]] * ls[:, [2, 2, 1]]
     m2 = ph[1, :, :3].transpose(0, 2, 1)  # columns a', b', c'
-    h = np.matmul(m2 * lam[:, None, :], cs)
+    h = np.matmul(m2 * lam[:, None, :], cross[:b])
     return h, valid
 
 
 # --------------------------------------------------------------------------- refits
 
 
-def _moments(feat: Array, mask: NDArray[np.bool_]) -> dict[tuple[int, int], float]:
-    vals = ((mask @ feat) / _FAC).tolist()
-    return {ij: vals[k] for ij, k in _COL.items()}
+def _moments(feat: Array, mask: NDArray[np.bool_]) -> list[float]:
+    return (feat @ mask.astype(np.float64)).tolist()
 
 
-def _translation_refit(feat: Array, src: Array, dst: Array, mask: NDArray[np.bool_]):
-    m = _moments(feat, mask)
-    cnt = m[2, 2]
+def _centred(mom: list[float]) -> tuple[float, list[float], dict[str, float]]:
+    """Count, means (x, y, u, v) and centred second moments of the masked points."""
+    cnt = mom[_M["n"]]
+    mean = [mom[_M[k]] / cnt for k in ("x", "y", "u", "v")]
+    mx, my, mu, mv = mean
+    c = {
+        "xx": mom[_M["xx"]] - cnt * mx * mx,
+        "xy": mom[_M["xy"]] - cnt * mx * my,
+        "yy": mom[_M["yy"]] - cnt * my * my,
+        "xu": mom[_M["xu"]] - cnt * mx * mu,
+        "xv": mom[_M["xv"]] - cnt * mx * mv,
+        "yu": mom[_M["yu"]] - cnt * my * mu,
+        "yv": mom[_M["yv"]] - cnt * my * mv,
+    }
+    return cnt, mean, c
+
+
+def _translation_refit(feat: Array, z: Array, mask: NDArray[np.bool_]) -> Array | None:
+    mom = _moments(feat, mask)
+    cnt = mom[_M["n"]]
     if cnt < 1:
         return None
-    tx = (m[2, 3] - m[0, 2]) / cnt
-    ty = (m[2, 4] - m[1, 2]) / cnt
+    tx = (mom[_M["u"]] - mom[_M["x"]]) / cnt
+    ty = (mom[_M["v"]] - mom[_M["y"]]) / cnt
     return np.array([[1.0, 0.0, tx], [0.0, 1.0, ty], [0.0, 0.0, 1.0]])
 
 
-def _centred(m: dict[tuple[int, int], float]):
-    cnt = m[2, 2]
-    mean = [m[min(i, 2), max(i, 2)] / cnt for i in range(5)]
-
-    def cov(i: int, j: int) -> float:
-        return m[min(i, j), max(i, j)] - cnt * mean[i] * mean[j]
-
-    return cnt, mean, cov
-
-
-def _similarity_refit(feat: Array, src: Array, dst: Array, mask: NDArray[np.bool_]):
+def _similarity_refit(feat: Array, z: Array, mask: NDArray[np.bool_]) -> Array | None:
     """Least-squares similarity (Umeyama 1991) from inlier moments.
 
-    In 2-D the rotation-and-scale part of Umeyama's solution equals the complex
-    least-squares ratio ``a = sum(q~ conj(p~)) / sum(|p~|^2)`` of centred points.
+    In 2-D, with the rotation kept proper, Umeyama's rotation and scale reduce to the
+    complex least-squares ratio ``a = sum(q~ conj(p~)) / sum(|p~|^2)`` of the centred
+    points, which is what the moments give here.
     """
-    cnt, mu, cov = _centred(_moments(feat, mask))
-    if cnt < 2:
+    mom = _moments(feat, mask)
+    if mom[_M["n"]] < 2:
         return None
-    den = cov(0, 0) + cov(1, 1)
+    cnt, (mx, my, mu, mv), c = _centred(mom)
+    den = c["xx"] + c["yy"]
     if den <= EPS_LEN * EPS_LEN * cnt:
         return None
-    a = (cov(0, 3) + cov(1, 4)) / den
-    b = (cov(0, 4) - cov(1, 3)) / den
-    tx = mu[3] - a * mu[0] + b * mu[1]
-    ty = mu[4] - b * mu[0] - a * mu[1]
+    a = (c["xu"] + c["yv"]) / den
+    b = (c["xv"] - c["yu"]) / den
+    tx = mu - a * mx + b * my
+    ty = mv - b * mx - a * my
     return np.array([[a, -b, tx], [b, a, ty], [0.0, 0.0, 1.0]])
 
 
-def _affine_refit(feat: Array, src: Array, dst: Array, mask: NDArray[np.bool_]):
+def _affine_refit(feat: Array, z: Array, mask: NDArray[np.bool_]) -> Array | None:
     """Least-squares affine map ``A = C_qp C_pp^-1`` from inlier moments."""
-    cnt, mu, cov = _centred(_moments(feat, mask))
-    if cnt < 3:
+    mom = _moments(feat, mask)
+    if mom[_M["n"]] < 3:
         return None
-    sxx, sxy, syy = cov(0, 0), cov(0, 1), cov(1, 1)
+    cnt, (mx, my, mu, mv), c = _centred(mom)
+    sxx, sxy, syy = c["xx"], c["xy"], c["yy"]
     det = sxx * syy - sxy * sxy
     if det <= EPS_AREA * EPS_AREA * cnt * cnt:
         return None
     ixx, ixy, iyy = syy / det, -sxy / det, sxx / det
-    sux, suy, svx, svy = cov(0, 3), cov(1, 3), cov(0, 4), cov(1, 4)
+    sux, suy, svx, svy = c["xu"], c["yu"], c["xv"], c["yv"]
     a00, a01 = sux * ixx + suy * ixy, sux * ixy + suy * iyy
     a10, a11 = svx * ixx + svy * ixy, svx * ixy + svy * iyy
-    tx = mu[3] - a00 * mu[0] - a01 * mu[1]
-    ty = mu[4] - a10 * mu[0] - a11 * mu[1]
+    tx = mu - a00 * mx - a01 * my
+    ty = mv - a10 * mx - a11 * my
     return np.array([[a00, a01, tx], [a10, a11, ty], [0.0, 0.0, 1.0]])
 
 
-def _homography_refit(feat: Array, src: Array, dst: Array, mask: NDArray[np.bool_]):
+def _homography_refit(feat: Array, z: Array, mask: NDArray[np.bool_]) -> Array | None:
     """Normalised DLT on the inliers (Hartley 1997), via the 9x9 normal matrix.
 
-    ``A^T A`` of the DLT system is assembled from the moments ``g^T g`` so that the
-    2m x 9 design matrix is never built; inputs are already normalised.
+    ``A^T A`` of the DLT system is assembled from the moments ``g g^T`` so that the
+    2m x 9 design matrix is never built; the points are already normalised.
     """
     if np.count_nonzero(mask) < 4:
         return None
-    g = feat[mask]
-    m = g.T @ g
+    gm = feat * mask
+    m = gm @ feat.T
     ata = np.zeros((9, 9))
     zz = m[:3, :3]
     ata[:3, :3] = zz
@@ -358,59 +399,64 @@ def _homography_refit(feat: Array, src: Array, dst: Array, mask: NDArray[np.bool
     return h / h[2, 2]
 
 
-def _homography_polish(
-    src: Array, dst: Array, h: Array, mask: NDArray[np.bool_], iters: int = 4
-) -> Array:
+def _homography_polish(z: Array, h: Array, mask: NDArray[np.bool_], iters: int = 3) -> Array:
     """Levenberg-Marquardt on the transfer error of the inliers, h33 fixed to 1.
 
     The DLT minimises an algebraic error; a few LM steps reach the maximum-likelihood
     estimate under Gaussian noise in dst (Hartley and Zisserman 2004, A6).
     """
-    p = src[mask]
-    q = dst[mask]
-    m = len(p)
+    zi = np.compress(mask, z, axis=1)
+    m = zi.shape[1]
     if m < 5:
         return h
-    x = (h / h[2, 2]).ravel()[:8].copy()
-    jac = np.zeros((2 * m, 8))
+    x, y, u, v = zi[0], zi[1], zi[2], zi[3]
+    par = (h / h[2, 2]).ravel()[:8].copy()
+    jac = np.zeros((8, 2 * m))  # transposed Jacobian: one row per parameter
 
-    def resid(par: Array) -> tuple[Array, Array, Array, Array]:
-        w = p[:, 0] * par[6] + p[:, 1] * par[7] + 1.0
-        iw = 1.0 / w
-        px = (p[:, 0] * par[0] + p[:, 1] * par[1] + par[2]) * iw
-        py = (p[:, 0] * par[3] + p[:, 1] * par[4] + par[5]) * iw
-        r = np.concatenate((px - q[:, 0], py - q[:, 1]))
-        return r, iw, px, py
+    def resid(p: Array) -> tuple[Array, Array, Array, Array]:
+        iw = 1.0 / (x * p[6] + y * p[7] + 1.0)
+        px = (x * p[0] + y * p[1] + p[2]) * iw
+        py = (x * p[3] + y * p[4] + p[5]) * iw
+        return np.concatenate((px - u, py - v)), iw, px, py
 
-    r, iw, px, py = resid(x)
+    r, iw, px, py = resid(par)
     sse = float(r @ r)
     mu = 1e-3
     for _ in range(iters):
-        zw = p * iw[:, None]
-        jac[:m, 0:2] = zw
-        jac[:m, 2] = iw
-        jac[m:, 3:5] = zw
-        jac[m:, 5] = iw
-        jac[:m, 6:] = -px[:, None] * zw
-        jac[m:, 6:] = -py[:, None] * zw
-        jtj = jac.T @ jac
-        grad = jac.T @ r
+        xw = x * iw
+        yw = y * iw
+        jac[0, :m] = xw
+        jac[1, :m] = yw
+        jac[2, :m] = iw
+        jac[3, m:] = xw
+        jac[4, m:] = yw
+        jac[5, m:] = iw
+        jac[6, :m] = -px * xw
+        jac[7, :m] = -px * yw
+        jac[6, m:] = -py * xw
+        jac[7, m:] = -py * yw
+        jtj = jac @ jac.T
+        grad = jac @ r
         while True:
             try:
                 step = np.linalg.solve(jtj + mu * np.diag(np.diag(jtj)), -grad)
             except np.linalg.LinAlgError:
-                return _unflat(x)
-            cand = x + step
+                return _unflat(par)
+            cand = par + step
             rc, iwc, pxc, pyc = resid(cand)
             sc = float(rc @ rc)
-            if np.isfinite(sc) and sc < sse:
-                x, r, iw, px, py, sse = cand, rc, iwc, pxc, pyc, sc
+            if sc < sse:
+                par, r, iw, px, py = cand, rc, iwc, pxc, pyc
+                converged = sse - sc <= 1e-12 * sse
+                sse = sc
                 mu = max(mu * 0.1, 1e-9)
                 break
             mu *= 10.0
             if mu > 1e6:
-                return _unflat(x)
-    return _unflat(x)
+                return _unflat(par)
+        if converged:
+            break
+    return _unflat(par)
 
 
 def _unflat(x: Array) -> Array:
@@ -461,6 +507,9 @@ def _affine_project(h: Array) -> Array | None:
 class Model:
     """One motion model, the same protocol for every family.
 
+    All arrays are in normalised coordinates; ``z`` is the (5, n) array of rows
+    ``(x, y, u, v, 1)`` from :func:`normalisation`.
+
     Attributes
     ----------
     name : str
@@ -470,47 +519,45 @@ class Model:
     dof : int
         Degrees of freedom.
     features : callable
-        ``features(src_n, dst_n) -> (n, k)`` per-point features for residuals and refits.
+        ``features(z) -> (k, n)`` per-point features for residuals and refits.
     solve : callable
-        ``solve(s, d) -> (h, valid)``: batched minimal solver, ``s, d`` of shape
-        ``(B, sample_size, 2)``; ``h`` (B, 3, 3), ``valid`` (B,) bool (non-degenerate,
-        orientation preserving sample).
+        ``solve(smp) -> (h, valid)``: batched minimal solver on samples ``smp`` of
+        shape (4, B, sample_size) (rows x, y, u, v); ``h`` (B, 3, 3), ``valid`` (B,)
+        bool: the sample is non-degenerate and orientation preserving.
     sq_residuals : callable
-        ``sq_residuals(feat, h) -> (B, n)`` squared transfer errors (normalised units).
+        ``sq_residuals(feat, h) -> (B, n)`` squared transfer errors of ``h`` (B, 3, 3).
+    sq_residuals_one : callable
+        ``sq_residuals_one(feat, h) -> (n,)`` for a single (3, 3) model.
     refit : callable
-        ``refit(feat, src_n, dst_n, mask) -> h or None``: least squares on ``mask``.
+        ``refit(feat, z, mask) -> h or None``: least squares on the points in ``mask``.
     project : callable
         ``project(h) -> h or None``: nearest member of the family (used for a prior).
     polish : callable or None
-        ``polish(src_n, dst_n, h, mask) -> h``: non-linear refinement of the final fit.
+        ``polish(z, h, mask) -> h``: non-linear refinement of the final fit.
     """
 
     name: str
     sample_size: int
     dof: int
-    features: Callable[[Array, Array], Array]
-    solve: Callable[[Array, Array], tuple[Array, NDArray[np.bool_]]]
+    features: Callable[[Array], Array]
+    solve: Callable[[Array], tuple[Array, NDArray[np.bool_]]]
     sq_residuals: Callable[[Array, Array], Array]
-    refit: Callable[..., Array | None]
+    sq_residuals_one: Callable[[Array, Array], Array]
+    refit: Callable[[Array, Array, NDArray[np.bool_]], Array | None]
     project: Callable[[Array], Array | None]
-    polish: Callable[..., Array] | None = None
+    polish: Callable[[Array, Array, NDArray[np.bool_]], Array] | None = None
 
+
+_LIN = (_linear_features, _linear_sq_residuals, _linear_sq_residuals_one)
 
 MODELS: dict[str, Model] = {
-    "translation": Model(
-        "translation", 1, 2, _linear_features, _translation_solve, _linear_sq_residuals,
-        _translation_refit, _translation_project,
-    ),
-    "similarity": Model(
-        "similarity", 2, 4, _linear_features, _similarity_solve, _linear_sq_residuals,
-        _similarity_refit, _similarity_project,
-    ),
-    "affine": Model(
-        "affine", 3, 6, _linear_features, _affine_solve, _linear_sq_residuals,
-        _affine_refit, _affine_project,
-    ),
-    "homography": Model(
-        "homography", 4, 8, _homography_features, _homography_solve,
-        _homography_sq_residuals, _homography_refit, _normalise_h, _homography_polish,
-    ),
+    "translation": Model("translation", 1, 2, _LIN[0], _translation_solve, _LIN[1], _LIN[2],
+                         _translation_refit, _translation_project),
+    "similarity": Model("similarity", 2, 4, _LIN[0], _similarity_solve, _LIN[1], _LIN[2],
+                        _similarity_refit, _similarity_project),
+    "affine": Model("affine", 3, 6, _LIN[0], _affine_solve, _LIN[1], _LIN[2],
+                    _affine_refit, _affine_project),
+    "homography": Model("homography", 4, 8, _homography_features, _homography_solve,
+                        _homography_sq_residuals, _homography_sq_residuals_one,
+                        _homography_refit, _normalise_h, _homography_polish),
 }

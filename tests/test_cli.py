@@ -1,0 +1,118 @@
+"""The command line as users script it: outputs, exit status, one-line errors."""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from .conftest import noise_frames, write_clip
+
+
+def run(*args: str, cwd: Path | None = None) -> subprocess.CompletedProcess:
+    return subprocess.run([sys.executable, "-m", "stabilize", *args], capture_output=True,
+                          text=True, cwd=cwd, timeout=300)
+
+
+def _one_line_error(proc: subprocess.CompletedProcess, *fragments: str) -> None:
+    assert proc.returncode == 2, proc.stderr
+    lines = [ln for ln in proc.stderr.splitlines() if ln.strip()]
+    assert len(lines) == 1, proc.stderr
+    assert "Traceback" not in proc.stderr
+    for f in fragments:
+        assert f in lines[0], lines[0]
+
+
+@pytest.fixture(scope="module")
+def clip(tmp_path_factory) -> Path:
+    tmp = tmp_path_factory.mktemp("cli")
+    return write_clip(tmp / "pan.mp4", noise_frames(24, 192, 144, shift_px=1.2), 24.0,
+                      audio=True)
+
+
+def test_steady_writes_video_and_logs_beside_the_input(clip):
+    proc = run("steady", str(clip), "--quiet")
+    assert proc.returncode == 0, proc.stderr
+    for name in ("pan.steady.mp4", "pan.motion.csv", "pan.motion.json"):
+        assert (clip.parent / name).is_file()
+        assert str(clip.parent / name) in proc.stdout
+    doc = json.loads((clip.parent / "pan.motion.json").read_text())
+    assert doc["settings"]["model"] == "similarity"
+    assert doc["source"]["frames"] == 24
+    # A second run refuses to overwrite, --force allows it.
+    again = run("steady", str(clip), "--quiet")
+    _one_line_error(again, "already exists", "--force")
+    assert run("steady", str(clip), "--quiet", "--force").returncode == 0
+
+
+def test_measure_prints_a_summary_and_writes_the_log(clip, tmp_path):
+    out = tmp_path / "m.csv"
+    proc = run("measure", str(clip), "--log", str(out), "--quiet", "--fov-deg", "80")
+    assert proc.returncode == 0, proc.stderr
+    assert "shake x" in proc.stdout and "deg" in proc.stdout
+    assert out.is_file() and out.with_suffix(".json").is_file()
+    header = out.read_text().splitlines()[0]
+    assert header.startswith("frame,time_s,h11")
+    row = out.read_text().splitlines()[2].split(",")
+    assert row[-1] == ""  # measure leaves the correction empty
+
+
+def test_render_from_log_and_config_precedence(clip, tmp_path):
+    log = tmp_path / "pan.motion.csv"
+    assert run("measure", str(clip), "--log", str(log), "--quiet").returncode == 0
+    cfg = tmp_path / "my.toml"
+    cfg.write_text('margin = 0.2\nwindow_s = 2.0\n')
+    out = tmp_path / "out" / "r.mp4"
+    out.parent.mkdir()
+    proc = run("render", str(clip), "--log", str(log), "-o", str(out), "--config", str(cfg),
+               "--margin", "0.05", "--quiet")
+    assert proc.returncode == 0, proc.stderr
+    doc = json.loads((out.parent / "pan.motion.json").read_text())
+    assert doc["settings"]["margin"] == 0.05 and doc["settings"]["window_s"] == 2.0
+    assert doc["summary"]["margin"] == 0.05
+
+
+def test_bad_input_gives_one_line_and_status_2(clip, tmp_path):
+    _one_line_error(run("steady", str(tmp_path / "nope.mp4")), "nope.mp4", "no such file")
+    text = tmp_path / "notes.mp4"
+    text.write_text("not a video at all\n")
+    _one_line_error(run("steady", str(text)), "notes.mp4")
+    _one_line_error(run("steady", str(clip), "-o", str(clip)), "overwrite the input")
+    _one_line_error(run("steady", str(clip), "--model", "spline"), "--model")
+    _one_line_error(run("steady", str(clip), "--margin", "0.7"), "--margin", "0.45")
+    _one_line_error(run("steady", str(clip), "--inlier-px", "-2"), "--inlier-px")
+    _one_line_error(run("steady", str(clip), "--config", "no-such-preset"), "preset")
+    _one_line_error(run("steady", str(clip), "-o", str(tmp_path / "no" / "dir" / "x.mp4")),
+                    "does not exist")
+    _one_line_error(run("render", str(clip), "--log", str(tmp_path / "missing.csv")),
+                    "missing.csv")
+    assert not list(tmp_path.glob("*.partial*"))
+
+
+def test_input_is_never_touched(clip):
+    before = hashlib.sha256(clip.read_bytes()).hexdigest()
+    run("steady", str(clip), "-o", str(clip), "--force")
+    run("steady", str(clip), "--log", str(clip), "--force")
+    assert hashlib.sha256(clip.read_bytes()).hexdigest() == before
+
+
+def test_reserved_commands_say_so(clip, tmp_path):
+    _one_line_error(run("report", str(clip)), "report")
+    _one_line_error(run("batch", str(clip.parent), "--out-dir", str(tmp_path)), "batch")
+
+
+def test_demo_runs_and_says_where_the_outputs_are(tmp_path):
+    proc = run("demo", "--out", str(tmp_path / "demo"), "--quiet")
+    assert proc.returncode == 0, proc.stderr
+    outs = [Path(line.split(": ", 1)[1]) for line in proc.stdout.splitlines()
+            if line.startswith(("video:", "motion log:"))]
+    assert len(outs) == 3 and all(p.is_file() for p in outs)
+    assert any(p.suffix == ".mp4" for p in outs)
+    summary = json.loads(next(p for p in outs if p.suffix == ".json").read_text())["summary"]
+    assert summary["frames_failed"] == 0
+    assert np.isfinite(summary["jitter_rms_x_px"])

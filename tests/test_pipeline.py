@@ -1,0 +1,146 @@
+"""End-to-end: steady, measure and render on small synthetic clips with known camera motion."""
+
+from __future__ import annotations
+
+import hashlib
+from pathlib import Path
+
+import cv2
+import numpy as np
+import pytest
+
+import stabilize
+from stabilize.framing import covered
+from stabilize.log import read_log
+from stabilize.synth import SceneSpec, SyntheticClip, grid_transfer_error
+from stabilize.video import iter_frames, probe
+
+from .conftest import write_clip
+
+
+@pytest.fixture(scope="module")
+def truss(tmp_path_factory):
+    tmp = tmp_path_factory.mktemp("truss")
+    clip = SyntheticClip(SceneSpec(style="truss", width=480, height=270, fps=30.0,
+                                   duration_s=2.0, seed=3, noise_sigma=1.0))
+    path = write_clip(tmp / "truss pass.mp4", (f for _, f in clip.frames()), 30.0, audio=True)
+    return path, clip
+
+
+def _sha(path: Path) -> str:
+    return hashlib.sha256(path.read_bytes()).hexdigest()
+
+
+def test_logged_motion_matches_ground_truth(truss):
+    path, clip = truss
+    log = stabilize.measure(path)
+    gt = clip.ground_truth()["inter_frame"]
+    err = grid_transfer_error(gt[1:], log.matrices[1:], clip.width, clip.height)
+    # Ground truth is exact (synthetic camera); the H.264 round trip and sensor noise are what
+    # the estimate has to see through.
+    assert np.median(err) < 0.05
+    assert err.max() < 0.3
+    assert (log.status == "ok").all()
+    assert log.corrections is None and log.smooth_values is None
+
+
+def test_warping_by_the_logged_matrix_reproduces_the_next_frame(truss):
+    """The log's convention checked with OpenCV's warpPerspective as the reference."""
+    path, clip = truss
+    log = stabilize.measure(path)
+    frames = [f.image.astype(np.float32) for f in iter_frames(path)]
+    for t in (5, 20, 40):
+        h = log.matrices[t]
+        warped = cv2.warpPerspective(frames[t - 1], h, (clip.width, clip.height),
+                                     flags=cv2.INTER_LINEAR, borderValue=(-1, -1, -1))
+        valid = (warped >= 0).all(axis=2)
+        valid[:8], valid[-8:], valid[:, :8], valid[:, -8:] = False, False, False, False
+        diff = np.abs(warped - frames[t])[valid].mean()
+        still = np.abs(frames[t - 1] - frames[t])[valid].mean()
+        inverse = cv2.warpPerspective(frames[t - 1], np.linalg.inv(h),
+                                      (clip.width, clip.height), flags=cv2.INTER_LINEAR)
+        wrong_way = np.abs(inverse - frames[t])[valid].mean()
+        assert diff < 3.0, diff
+        assert diff < 0.3 * still and diff < 0.3 * wrong_way
+
+
+def test_steady_keeps_audio_frames_fps_and_size(truss, tmp_path):
+    path, clip = truss
+    out = tmp_path / "out" / "steadied.mp4"
+    out.parent.mkdir()
+    before = _sha(path)
+    log = stabilize.steady(path, out, margin=0.1)
+    info_in, info_out = probe(path), probe(out)
+    assert (info_out.width, info_out.height) == (info_in.width, info_in.height)
+    assert info_out.fps == info_in.fps
+    assert info_out.audio_codec == "aac"
+    assert sum(1 for _ in iter_frames(out)) == clip.n_frames == log.frames
+    # The logs go to the video's folder, named after the input.
+    assert (out.parent / "truss pass.motion.csv").is_file()
+    assert (out.parent / "truss pass.motion.json").is_file()
+    assert _sha(path) == before
+    assert log.corrections.shape == (clip.n_frames, 3, 3)
+    assert covered(log.corrections, clip.width, clip.height).all()
+    s = log.summary
+    assert s["margin"] == 0.1
+    assert s["cropping_ratio"] == pytest.approx(0.8, abs=0.02)
+    assert s["distortion"] > 0.99
+    # The smoothed path keeps little of the input's shake.
+    assert s["jitter_rms_x_px_out"] < 0.2 * s["jitter_rms_x_px"]
+    assert sorted(p.name for p in out.parent.iterdir()) == [
+        "steadied.mp4", "truss pass.motion.csv", "truss pass.motion.json"]
+
+
+def test_steadied_video_is_steadier(truss, tmp_path):
+    path, clip = truss
+    out = tmp_path / "s.mp4"
+    stabilize.steady(path, out, margin=0.1)
+    measured = stabilize.measure(out)
+    raw = stabilize.measure(path)
+    assert (measured.summary["jitter_rms_x_px"]
+            < 0.35 * raw.summary["jitter_rms_x_px"])
+
+
+def test_equal_seeds_give_identical_logs(truss, tmp_path):
+    path, _ = truss
+    a = stabilize.measure(path, seed=7, model="homography")
+    b = stabilize.measure(path, seed=7, model="homography")
+    assert a.to_csv() == b.to_csv()
+
+
+def test_render_from_a_saved_log_and_from_a_proxy(truss, tmp_path):
+    path, clip = truss
+    first = stabilize.measure(path)
+    csv_path, _ = first.save(tmp_path / "truss.motion.csv")
+    out = tmp_path / "rendered.mp4"
+    log = stabilize.render(path, csv_path, out, margin=0.05)
+    assert sum(1 for _ in iter_frames(out)) == clip.n_frames
+    np.testing.assert_array_equal(log.matrices, read_log(csv_path).matrices)
+    assert log.summary["margin"] == 0.05
+
+    # A half-size proxy: its log renders the full-size clip with the motion scaled up.
+    proxy = write_clip(tmp_path / "proxy.mp4",
+                       (cv2.resize(f.image, (240, 136), interpolation=cv2.INTER_AREA)
+                        for f in iter_frames(path)), 30.0)
+    proxy_log = stabilize.measure(proxy)
+    proxy_csv, _ = proxy_log.save(tmp_path / "proxy.motion.csv")
+    (tmp_path / "full").mkdir()
+    full = stabilize.render(path, proxy_csv, tmp_path / "full" / "from_proxy.mp4")
+    gt = clip.ground_truth()["inter_frame"]
+    err = grid_transfer_error(gt[1:], full.matrices[1:], clip.width, clip.height)
+    assert np.median(err) < 0.25
+
+
+def test_one_frame_clip_passes_through(tmp_path):
+    one = write_clip(tmp_path / "one.mp4", [np.full((90, 160, 3), 128, np.uint8)], 25.0)
+    log = stabilize.steady(one, tmp_path / "one.out.mp4")
+    assert list(log.status) == ["failed"]
+    assert _sha(tmp_path / "one.out.mp4") == _sha(one)
+
+
+def test_tiny_clip_passes_through(tmp_path):
+    frames = [np.full((16, 16, 3), 10 * i, np.uint8) for i in range(6)]
+    tiny = write_clip(tmp_path / "tiny.mp4", frames, 25.0)
+    log = stabilize.steady(tiny)
+    assert (log.status == "failed").all() and log.frames == 6
+    assert (tmp_path / "tiny.steady.mp4").is_file()
