@@ -103,19 +103,17 @@ class Frame:
         return math.hypot(self.width, self.height)
 
 
-def frame_box(frame_size: tuple[float, float] | None, src: NDArray[np.float64]) -> Frame:
+def frame_box(frame_size: tuple[float, float] | None, pts: NDArray[np.float64]) -> Frame:
     """The frame, or without ``frame_size`` the bounding box of the src points.
 
     Pixel centres sit at integer coordinates, so a ``(w, h)`` frame spans
-    ``[-0.5, w - 0.5] x [-0.5, h - 0.5]``.
+    ``[-0.5, w - 0.5] x [-0.5, h - 0.5]``. ``pts`` is (4, n) with src x, y in rows 0, 1.
     """
     if frame_size is not None:
         return Frame(-0.5, -0.5, float(frame_size[0]), float(frame_size[1]))
-    lo = src.min(axis=0)
-    hi = src.max(axis=0)
-    w = max(float(hi[0] - lo[0]), 1.0)
-    h = max(float(hi[1] - lo[1]), 1.0)
-    return Frame(float(lo[0]), float(lo[1]), w, h)
+    x0, y0 = pts[:2].min(axis=1).tolist()
+    x1, y1 = pts[:2].max(axis=1).tolist()
+    return Frame(x0, y0, max(x1 - x0, 1.0), max(y1 - y0, 1.0))
 
 
 def plausible(m: list[float], bounds: MotionBounds, frame: Frame) -> bool:
@@ -165,40 +163,42 @@ def plausible(m: list[float], bounds: MotionBounds, frame: Frame) -> bool:
     return abs(rot) <= bounds.max_rotation_deg
 
 
-def point_set_problem(src_n: NDArray[np.float64], dst_n: NDArray[np.float64], model: str) -> str:
+def point_set_problem(z: NDArray[np.float64], model: str) -> str:
     """Reason why no model of this family can be fitted to the whole set, or "".
 
     Parameters
     ----------
-    src_n, dst_n : ndarray, shape (n, 2)
-        Centred (normalised) points.
+    z : ndarray, shape (5, n)
+        Centred (normalised) points, rows (x, y, u, v, 1).
     model : str
         Model name.
     """
     if model == "translation":
         return ""
-    worst = "non-collinear" if model in ("affine", "homography") else "distinct"
-    for pts in (src_n, dst_n):
-        cov = (pts.T @ pts).tolist()
-        sxx, sxy, syy = cov[0][0], cov[0][1], cov[1][1]
+    cov = (z[:4] @ z[:4].T).tolist()
+    n = z.shape[1]
+    for i in (0, 2):
+        sxx, sxy, syy = cov[i][i], cov[i][i + 1], cov[i + 1][i + 1]
         tr = sxx + syy
         root = math.sqrt(max(0.25 * (sxx - syy) ** 2 + sxy * sxy, 0.0))
         lmax = 0.5 * tr + root
         lmin = max(0.5 * tr - root, 0.0)
-        if lmax <= 1e-20 * len(pts):
+        if lmax <= 1e-20 * n:
             return "degenerate: all points coincident"
-        if worst == "non-collinear" and lmin <= 1e-12 * lmax:
+        if model != "similarity" and lmin <= 1e-12 * lmax:
             return "degenerate: all points collinear"
     return ""
 
 
-def occupied_cells(pts: NDArray[np.float64], frame: Frame, grid: int = SPREAD_GRID) -> int:
+def occupied_cells(
+    x: NDArray[np.float64], y: NDArray[np.float64], frame: Frame, grid: int = SPREAD_GRID
+) -> int:
     """Number of cells of a ``grid x grid`` partition of the frame holding a point."""
-    if len(pts) == 0:
+    if len(x) == 0:
         return 0
-    cell = np.floor((pts - (frame.x0, frame.y0)) * (grid / frame.width, grid / frame.height))
-    cell = np.clip(cell, 0, grid - 1).astype(np.intp)
-    return int(np.count_nonzero(np.bincount(cell[:, 1] * grid + cell[:, 0], minlength=1)))
+    cx = np.clip(((x - frame.x0) * (grid / frame.width)).astype(np.intp), 0, grid - 1)
+    cy = np.clip(((y - frame.y0) * (grid / frame.height)).astype(np.intp), 0, grid - 1)
+    return int(np.count_nonzero(np.bincount(cy * grid + cx)))
 
 
 def weakness(n_inliers: int, n: int, cells: int) -> str:

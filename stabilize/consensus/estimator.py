@@ -202,25 +202,25 @@ def _estimate(
 ) -> Fit:
     n_all = len(src)
     s = spec.sample_size
-    pts = np.hstack((src, dst))
+    pts = np.empty((4, n_all))
+    pts[:2] = src.T
+    pts[2:] = dst.T
     keep = None
-    if not np.isfinite(pts).all():
-        keep = np.flatnonzero(np.isfinite(pts).all(axis=1))
-        pts = pts[keep]
-    n = len(pts)
+    if not np.isfinite(pts @ np.ones(n_all)).all():
+        keep = np.flatnonzero(np.isfinite(pts).all(axis=0))
+        pts = np.take(pts, keep, axis=1)
+    n = pts.shape[1]
     if n < s:
         return _failure(n_all, 0, f"too few points ({n} < {s})", spec.name)
 
     order = canonical_order(pts)
-    pts = pts[order]
-    src = pts[:, :2]
-    dst = pts[:, 2:]
-    norm, src_n, dst_n = normalisation(src, dst)
-    problem = point_set_problem(src_n, dst_n, spec.name)
+    pts = np.take(pts, order, axis=1)
+    norm, z = normalisation(pts[:2], pts[2:])
+    problem = point_set_problem(z, spec.name)
     if problem:
         return _failure(n_all, 0, problem, spec.name)
 
-    frame = frame_box(frame_size, src)
+    frame = frame_box(frame_size, pts)
     t2 = (t_px * norm.scale) ** 2
     t1 = norm.t_src()
     t2_inv = norm.t_dst_inv()
@@ -233,8 +233,8 @@ def _estimate(
     def ok_motion(h: NDArray[np.float64]) -> bool:
         return plausible((left @ h @ right).ravel().tolist(), bounds, frame)
 
-    feat = spec.features(src_n, dst_n)
-    nd = np.hstack((src_n, dst_n))
+    feat = spec.features(z)
+    zs = z[:4]
     rng = np.random.default_rng(seed)
 
     best: Candidate | None = None
@@ -245,7 +245,7 @@ def _estimate(
 
     def adopt(c: Candidate) -> None:
         nonlocal best, needed
-        lo = local_optimise(spec, feat, src_n, dst_n, c, t2)
+        lo = local_optimise(spec, feat, z, c, t2)
         if lo is not c and not ok_motion(lo.h):
             lo = c
         best = lo
@@ -271,8 +271,7 @@ def _estimate(
             break
         idx = draw_samples(rng, n, s, batch)
         rounds += batch
-        sample = nd[idx]
-        hyp, valid = spec.solve(sample[..., :2], sample[..., 2:])
+        hyp, valid = spec.solve(np.take(zs, idx, axis=1))
         nv = int(np.count_nonzero(valid))
         if nv == 0:
             continue
@@ -305,8 +304,7 @@ def _estimate(
 
     final = best
     if spec.polish is not None:
-        mask = inlier_mask(final.sq_res, t2)
-        hp = spec.polish(src_n, dst_n, final.h, mask)
+        hp = spec.polish(z, final.h, inlier_mask(final.sq_res, t2))
         cand = evaluate(spec, feat, hp, t2)
         if cand.cost <= final.cost and ok_motion(hp):
             final = cand
@@ -315,17 +313,18 @@ def _estimate(
     k = int(np.count_nonzero(mask))
     h_px = t2_inv @ final.h @ t1
     h_px /= h_px[2, 2]
-    inl = np.zeros(n, dtype=bool)
+    inl = np.empty(n, dtype=bool)
     inl[order] = mask
     if keep is not None:
         full = np.zeros(n_all, dtype=bool)
         full[keep] = inl
         inl = full
     scale2 = norm.scale * norm.scale
-    rms = float(np.sqrt(final.sq_res[mask].mean() / scale2)) if k else float("nan")
+    rms = float(np.sqrt((final.sq_res @ mask) / (k * scale2))) if k else float("nan")
     min_support = 2 * s + 2
     ok = k >= min_support
-    weak_reason = weakness(k, n, occupied_cells(src[mask], frame))
+    inl_pts = np.compress(mask, pts[:2], axis=1)
+    weak_reason = weakness(k, n, occupied_cells(inl_pts[0], inl_pts[1], frame))
     reason = "" if ok else f"too few inliers ({k}, need {min_support})"
     reason = reason or weak_reason
     return Fit(h_px, inl, rounds, rms, final.cost / scale2, ok, bool(weak_reason) or not ok,

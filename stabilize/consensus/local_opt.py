@@ -15,7 +15,7 @@ References
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from typing import NamedTuple
 
 import numpy as np
 from numpy.typing import NDArray
@@ -29,8 +29,7 @@ __all__ = ["LO_FACTORS", "Candidate", "local_optimise"]
 LO_FACTORS = (3.0, 2.0, 1.0, 1.0)
 
 
-@dataclass(frozen=True)
-class Candidate:
+class Candidate(NamedTuple):
     """A model with its squared residuals (n,) and MSAC cost (normalised units)."""
 
     h: NDArray[np.float64]
@@ -40,15 +39,14 @@ class Candidate:
 
 def evaluate(model: Model, feat: NDArray[np.float64], h: NDArray[np.float64], t2: float) -> Candidate:
     """Score one model."""
-    r2 = model.sq_residuals(feat, h[None])[0]
+    r2 = model.sq_residuals_one(feat, h)
     return Candidate(h, r2, float(msac_costs(r2, t2)))
 
 
 def local_optimise(
     model: Model,
     feat: NDArray[np.float64],
-    src: NDArray[np.float64],
-    dst: NDArray[np.float64],
+    z: NDArray[np.float64],
     start: Candidate,
     t2: float,
     factors: tuple[float, ...] = LO_FACTORS,
@@ -60,8 +58,8 @@ def local_optimise(
     model : Model
     feat : ndarray, shape (n, k)
         Model features of the normalised points.
-    src, dst : ndarray, shape (n, 2)
-        Normalised points.
+    z : ndarray, shape (5, n)
+        Normalised points, rows (x, y, u, v, 1).
     start : Candidate
         Hypothesis to refine.
     t2 : float
@@ -76,11 +74,15 @@ def local_optimise(
     """
     best = cur = start
     need = model.sample_size
+    prev = None
     for k in factors:
         mask = inlier_mask(cur.sq_res, k * k * t2)
         if np.count_nonzero(mask) < need:
             break
-        h = model.refit(feat, src, dst, mask)
+        if prev is not None and np.array_equal(mask, prev):
+            break  # converged: the same inliers would give the same refit
+        prev = mask if k == factors[-1] else None
+        h = model.refit(feat, z, mask)
         if h is None:
             break
         cur = evaluate(model, feat, h, t2)

@@ -51,20 +51,11 @@ _TRI = _TI * 5 + _TJ
 _FAC = np.where(_TI == _TJ, 1.0, 2.0)
 _COL = {(int(i), int(j)): k for k, (i, j) in enumerate(zip(_TI, _TJ))}
 _NEG_I2 = -np.eye(2)
-_E33 = np.zeros(9)
-_E33[8] = 1.0
 # Moment positions used by the closed-form refits (z index: x 0, y 1, u 2, v 3, 1 4).
 _M = {name: _COL[ij] for name, ij in {
     "n": (4, 4), "x": (0, 4), "y": (1, 4), "u": (2, 4), "v": (3, 4),
     "xx": (0, 0), "xy": (0, 1), "yy": (1, 1),
     "xu": (0, 2), "xv": (0, 3), "yu": (1, 2), "yv": (1, 3)}.items()}
-
-# Similarity parameters (a_re, a_im, b_re, b_im) -> flattened 3x3.
-_SIM_SEL = np.zeros((4, 9))
-_SIM_SEL[0, [0, 4]] = 1.0
-_SIM_SEL[1, 1], _SIM_SEL[1, 3] = -1.0, 1.0
-_SIM_SEL[2, 2] = 1.0
-_SIM_SEL[3, 5] = 1.0
 
 # Flattened homography (9,) -> coefficients on g = (x, y, 1, ux, uy, u, vx, vy, v) for
 # (numerator x, numerator y, depth), component-major so each is a contiguous block.

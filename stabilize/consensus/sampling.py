@@ -29,20 +29,20 @@ def canonical_order(pts: NDArray[np.float64]) -> NDArray[np.intp]:
 
     Parameters
     ----------
-    pts : ndarray, shape (n, 4)
-        Rows ``(x, y, u, v)`` of src and dst coordinates.
+    pts : ndarray, shape (4, n)
+        Rows ``x, y, u, v``: src and dst coordinates of each correspondence (column).
 
     Returns
     -------
     ndarray of intp, shape (n,)
-        Permutation sorting the rows; identical rows are interchangeable.
+        Permutation sorting the columns; identical columns are interchangeable.
     """
-    key = pts @ _KEY
+    key = _KEY @ pts
     order = np.argsort(key)
-    k = key[order]
+    k = np.take(key, order)
     if np.any(k[1:] == k[:-1]):
-        # Equal keys: sort exactly by (x, y, u, v) so that only identical rows tie.
-        order = np.lexsort(pts.T[::-1])
+        # Equal keys: sort exactly by (x, y, u, v) so that only identical columns tie.
+        order = np.lexsort(pts[::-1])
     return order
 
 
