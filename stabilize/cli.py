@@ -85,9 +85,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("-o", "--output", metavar="OUT", help="steadied video path")
     _add_common(p)
 
-    p = sub.add_parser("report", help="shake report (not yet available)")
-    p.add_argument("clip_or_log")
-    p.add_argument("--out", metavar="DIR")
+    p = sub.add_parser("report", help="shake report: figures JSON, PNG plots, one HTML page")
+    p.add_argument("clip_or_log", help="a motion log (.csv or its .json), or a clip")
+    p.add_argument("--out", metavar="DIR", help="folder for the report (default: beside "
+                   "the input)")
     _add_common(p)
 
     p = sub.add_parser("batch", help="many clips (not yet available)")
@@ -139,18 +140,42 @@ def _setup_logging(quiet: bool) -> None:
 
 
 def _print_summary(summary: dict) -> None:
-    def fmt(v: Any, unit: str = "") -> str:
-        return "n/a" if v is None else f"{v:.3f}{unit}"
+    """The shake figures as a short table, three significant digits (no false precision)."""
+    from .report_page import fmt_sig
 
-    print(f"frames: {summary['frames']} (weak {summary['frames_weak']}, failed "
-          f"{summary['frames_failed']}, cuts {summary['cuts']})")
-    for axis in ("x", "y"):
-        deg = summary.get(f"jitter_rms_{axis}_deg")
-        extra = "" if deg is None else f" ({deg:.4f} deg)"
-        print(f"shake {axis}: rms {fmt(summary.get(f'jitter_rms_{axis}_px'), ' px')}{extra}, "
-              f"dominant {fmt(summary.get(f'dominant_hz_{axis}'), ' Hz')}")
-    print(f"shake rotation: rms {fmt(summary.get('jitter_rms_rot_deg'), ' deg')}, "
-          f"dominant {fmt(summary.get('dominant_hz_rot'), ' Hz')}")
+    def cell(v: Any, unit: str) -> str:
+        text = fmt_sig(v)
+        return text if text == "n/a" else f"{text} {unit}"
+
+    n = summary.get("frames", 0)
+    weak, failed = summary.get("frames_weak", 0), summary.get("frames_failed", 0)
+    fps, nyquist = summary.get("fps"), summary.get("nyquist_hz")
+    rate = "" if fps is None else f" at {fmt_sig(fps)} fps"
+    share = "" if not n else f", {100.0 * (weak + failed) / n:.1f} % weak or failed"
+    print(f"frames: {n}{rate} (weak {weak}, failed {failed}, cuts {summary.get('cuts', 0)}"
+          f"{share})")
+    above = summary.get("shake_above_hz")
+    if above is not None and nyquist is not None:
+        print(f"shake: motion above {fmt_sig(above)} Hz; nothing faster than "
+              f"{fmt_sig(nyquist)} Hz (Nyquist) can be measured")
+    rows = [("", "rms", "angle", "peak-to-peak", "dominant")]
+    for axis, label in (("x", "shake x"), ("y", "shake y"), ("rot", "shake rotation")):
+        unit = "deg" if axis == "rot" else "px"
+        angle = "" if axis == "rot" else cell(summary.get(f"jitter_rms_{axis}_deg"), "deg")
+        rows.append((label, cell(summary.get(f"jitter_rms_{axis}_{unit}"), unit), angle,
+                     cell(summary.get(f"jitter_p2p_{axis}_{unit}"), unit),
+                     cell(summary.get(f"dominant_hz_{axis}"), "Hz")))
+    widths = [max(len(r[k]) for r in rows) for k in range(5)]
+    for r in rows:
+        print("  ".join([r[0].ljust(widths[0])] + [c.rjust(w) for c, w in
+                                                     zip(r[1:], widths[1:], strict=True)])
+              .rstrip())
+    for suffix, label in (("", "as shot"), ("_in", "as shot"), ("_out", "steadied")):
+        tr = summary.get(f"stability_translation{suffix}")
+        rot = summary.get(f"stability_rotation{suffix}")
+        if tr is not None or rot is not None:
+            print(f"stability ({label}, 1 = steady): translation {fmt_sig(tr)}, "
+                  f"rotation {fmt_sig(rot)}")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -177,7 +202,19 @@ def run(args: argparse.Namespace) -> int:
         motion = pipeline.render(args.clip, args.log, args.output, config=args.config,
                                  progress=progress, **opts)
         _report_written(motion)
-    elif args.command in ("report", "batch"):
+    elif args.command == "report":
+        from .report import make_report
+
+        report = make_report(args.clip_or_log, args.out, config=args.config,
+                             progress=progress, **opts)
+        _print_summary(report.summary)
+        for note in report.notes:
+            print(f"note: {note}")
+        labels = {"json": "figures", "html": "report", "log_csv": "motion log",
+                  "log_json": "motion log"}
+        for role, path in report.outputs.items():
+            print(f"{labels.get(role, 'plot')}: {path}")
+    elif args.command == "batch":
         raise StabilizeError(f"'{args.command}' is not available in this version yet")
     elif args.command == "demo":
         from .demo import run_demo

@@ -17,6 +17,10 @@ import numpy as np
 from .log import frame_centre
 from .path import apply, blend, frame_corners, gaussian_smooth
 
+#: Smallest σ_min / σ_max of its 2×2 part a correction may have before it is eased: a bound on
+#: the shear and perspective stretch it adds (similarity corrections always have 1). Our choice.
+MIN_DISTORTION = 0.9
+
 
 def zoom(margin: float, width: int, height: int) -> np.ndarray:
     """Zoom about the frame centre that crops ``margin`` of the width and height per side."""
@@ -75,21 +79,37 @@ def choose_margin(p: np.ndarray, s: np.ndarray, width: int, height: int, cap: fl
     return float(min(cap, need.max(initial=0.0)))
 
 
+def distortion(c: np.ndarray) -> np.ndarray:
+    """Per frame, σ_min / σ_max of the 2×2 part of C_t (1 = no anisotropic stretch), after
+    Liu, Yuan, Tan and Sun, "Bundled camera paths for video stabilization", SIGGRAPH 2013."""
+    sv = np.linalg.svd(c[:, :2, :2], compute_uv=False)
+    return sv[:, 1] / sv[:, 0]
+
+
 def fit_to_margin(
     p: np.ndarray, s: np.ndarray, margin: float, *, model: str, width: int, height: int,
-    fps: float, window_s: float,
+    fps: float, window_s: float, toward: np.ndarray | None = None,
+    min_distortion: float = 0.0,
 ) -> tuple[np.ndarray, np.ndarray]:
-    """Pull S toward P where the crop window at ``margin`` would leave the source frame.
+    """Pull S toward P (or toward ``toward``) where the crop window at ``margin`` would leave
+    the source frame, or where the correction would stretch the picture more than
+    ``min_distortion`` allows (σ_min / σ_max of its 2×2 part; 0 = no limit).
 
-    Returns the adjusted path and the per-frame share of the correction kept (1 = all).
+    Returns the adjusted path and the per-frame share of S kept (1 = all, 0 = ``toward``).
     The share is found per frame by bisection, then eased in time so the pull does not jerk.
+    With the default target P, every frame can be made to fit (share 0 is no correction).
     """
     n = len(p)
     z = zoom(margin, width, height)
+    target = p if toward is None else toward
 
     def fits(alpha: np.ndarray) -> np.ndarray:
-        sa = blend(p, s, alpha, model, width, height)
-        return covered(z @ stabilising_warps(p, sa), width, height)
+        sa = blend(target, s, alpha, model, width, height)
+        c = z @ stabilising_warps(p, sa)
+        ok = covered(c, width, height)
+        if min_distortion > 0.0:
+            ok &= distortion(c) >= min_distortion
+        return ok
 
     alpha = np.ones(n)
     bad = ~fits(alpha)
@@ -113,4 +133,4 @@ def fit_to_margin(
     if still_bad.any():
         eased = np.where(still_bad, np.minimum(eased, alpha), eased)
         eased = np.where(~fits(eased), 0.0, eased)
-    return blend(p, s, eased, model, width, height), eased
+    return blend(target, s, eased, model, width, height), eased

@@ -11,9 +11,13 @@ affine and homography the trajectories of the four frame corners, so no matrix e
 
 from __future__ import annotations
 
+import logging
+
 import numpy as np
 
 from .log import frame_centre
+
+_log = logging.getLogger("stabilize")
 
 
 def accumulate(matrices: np.ndarray, cuts: np.ndarray | None = None) -> np.ndarray:
@@ -177,6 +181,9 @@ def gaussian_smooth(values: np.ndarray, fps: float, window_s: float) -> np.ndarr
     return out
 
 
+SMOOTHERS = ("gaussian", "kalman", "l1", "lockoff")
+
+
 def smooth_path(
     p: np.ndarray,
     *,
@@ -187,16 +194,55 @@ def smooth_path(
     height: int,
     cuts: np.ndarray | None = None,
     smoother: str = "gaussian",
+    margin: float | None = None,
 ) -> np.ndarray:
-    """Smoothed camera path S_t (n, 3, 3) of a raw path P_t, segment by segment between cuts."""
-    if smoother != "gaussian":
-        raise NotImplementedError(smoother)
+    """Smoothed camera path S_t (n, 3, 3) of a raw path P_t, segment by segment between cuts.
+
+    Parameters
+    ----------
+    p : (n, 3, 3) raw path (:func:`accumulate`).
+    fps : frames per second. window_s : smoothing time scale, seconds.
+    model : motion model; fixes the parameterisation (:func:`encode`).
+    width, height : frame size, pixels.
+    cuts : (n,) bool, frames that start a new shot; every shot is smoothed on its own.
+    smoother : ``gaussian`` (zero-phase Gaussian, σ = window_s / 2), ``kalman``
+        (constant-velocity Kalman filter + RTS pass), ``l1`` (L1-optimal path with the
+        framing constraint; needs ``margin``) or ``lockoff`` (one held pose per shot; with a
+        ``margin`` it eases toward a heavy smoothing where the margin cannot hold it).
+    margin : crop budget, fraction per side, for the smoothers that respect it in their own
+        solve (``l1``, ``lockoff``); the others ignore it (:func:`stabilize.framing.fit_to_margin`
+        applies the budget to every smoother afterwards).
+    """
+    if smoother not in SMOOTHERS:
+        raise ValueError(f"unknown smoother {smoother!r}")
+    if smoother == "l1" and margin is None:
+        raise ValueError("the l1 smoother needs a margin")
+    # Imported here: the smoothers use this module's parameterisations (and framing's
+    # coverage test), so importing them at the top would be circular.
+    from .smoothers import kalman_smooth, l1_smooth, lockoff_path
+
     n = len(p)
     cuts = np.zeros(n, bool) if cuts is None else np.asarray(cuts, bool)
     out = np.empty_like(p)
     for seg in segments(cuts):
-        q = encode(p[seg], model, width, height)
-        out[seg] = decode(gaussian_smooth(q, fps, window_s), model, width, height)
+        ps = p[seg]
+        if smoother == "lockoff":
+            out[seg] = lockoff_path(ps, fps=fps, window_s=window_s, margin=margin, model=model,
+                                    width=width, height=height)
+            continue
+        q = encode(ps, model, width, height)
+        if smoother == "kalman":
+            qs = kalman_smooth(q, fps, window_s)
+        elif smoother == "l1":
+            qs = l1_smooth(q, ps, fps=fps, window_s=window_s, margin=float(margin),
+                           model=model, width=width, height=height)
+            if qs is None:
+                _log.warning("l1: the linear programme could not be solved for frames %d-%d; "
+                             "used the Gaussian path there", seg.start, seg.stop - 1)
+                qs = gaussian_smooth(q, fps, window_s)
+        else:
+            qs = gaussian_smooth(q, fps, window_s)
+        out[seg] = decode(qs, model, width, height)
     return out
 
 

@@ -163,6 +163,7 @@ def _analyse(clip: Path, info: VideoInfo, settings: Settings,
         rounds=track.rounds, status=track.status,
         source=_source_dict(info, len(track.time_s), track.time_s),
         settings=settings.to_dict(),
+        extra={"excluded": track.excluded},
     )
 
 
@@ -176,19 +177,35 @@ def _summarise(motion: MotionLog, settings: Settings, fps: float) -> None:
 
 
 def plan_corrections(motion: MotionLog, settings: Settings, fps: float) -> None:
-    """Smooth the path, settle the margin, and store S_t and C_t in the log."""
+    """Smooth the path, settle the margin, and store S_t and C_t in the log.
+
+    ``--margin auto`` takes the smallest constant margin, up to the cap, that the smoother's
+    unconstrained path needs: its own path for ``gaussian``, ``kalman`` and ``lockoff`` (the
+    held pose), and the Gaussian path at the same time scale for ``l1`` (whose path, being
+    constrained by the margin, would otherwise fit any margin by doing nothing). The budget is
+    then enforced on every smoother by :func:`framing.fit_to_margin`.
+    """
     w, h = motion.size
     p = motion.path
     cuts = motion.status == "cut"
-    s = smooth_path(p, fps=fps, window_s=settings.window_s, model=settings.model,
-                    width=w, height=h, cuts=cuts, smoother=settings.smoother)
+    common = dict(fps=fps, window_s=settings.window_s, model=settings.model, width=w, height=h,
+                  cuts=cuts)
+    smoother = settings.smoother
+    s = None
     if settings.margin == "auto":
-        margin = framing.choose_margin(p, s, w, h, AUTO_MARGIN_CAP)
-        log.info("margin: auto chose %.4f", margin)
+        reference = "gaussian" if smoother == "l1" else smoother
+        s_ref = smooth_path(p, smoother=reference, margin=None, **common)
+        margin = framing.choose_margin(p, s_ref, w, h, AUTO_MARGIN_CAP)
+        log.info("margin: auto chose %.4f (%.1f%% cut from each side)", margin, 100.0 * margin)
+        if smoother in ("gaussian", "kalman"):
+            s = s_ref
     else:
         margin = float(settings.margin)
+    if s is None:
+        s = smooth_path(p, smoother=smoother, margin=margin, **common)
     s, kept = framing.fit_to_margin(p, s, margin, model=settings.model, width=w, height=h,
-                                    fps=fps, window_s=settings.window_s)
+                                    fps=fps, window_s=settings.window_s,
+                                    min_distortion=framing.MIN_DISTORTION)
     if np.any(kept < 1.0):
         log.warning("margin %.3f too small for the full correction in %d frames; the "
                     "correction was eased there", margin, int(np.count_nonzero(kept < 1.0)))

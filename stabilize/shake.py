@@ -39,24 +39,142 @@ def shake_component(x: np.ndarray, fps: float, above_hz: float) -> np.ndarray | 
     return residual - signal.sosfiltfilt(sos, residual, padlen=pad)
 
 
-def dominant_hz(shake: np.ndarray, fps: float, above_hz: float) -> float | None:
-    """Frequency (Hz) of the largest peak of the shake's Welch power spectral density above
-    ``above_hz``, refined by a parabola through the peak bin and its neighbours (log power)."""
+#: Frequency bands (hertz) in which the shake power is reported, the last one reaching up to
+#: the Nyquist frequency. The split is this project's own plain choice, not a standard; it
+#: follows common practice in reading flight footage (from memory): slow drift and deliberate
+#: motion below about 1 Hz, wind buffeting of small multirotors at 1–3 Hz, gimbal hunting and
+#: airframe sway at 3–6 Hz, mount and frame resonances at 6–12 Hz, and what is left above.
+SHAKE_BANDS_HZ: tuple[tuple[float, float | None], ...] = (
+    (0.0, 1.0), (1.0, 3.0), (3.0, 6.0), (6.0, 12.0), (12.0, None),
+)
+AXES: tuple[str, ...] = ("x", "y", "rot")
+
+
+def axis_unit(axis: str) -> str:
+    """Unit of a path axis: ``deg`` for the rotation, ``px`` for x and y."""
+    return "deg" if axis == "rot" else "px"
+
+
+def band_key(axis: str, lo_hz: float, hi_hz: float | None) -> str:
+    """Summary key of one shake band, e.g. ``shake_power_x_1_3hz_px2`` or
+    ``shake_power_rot_above_12hz_deg2`` (power in pixels² or degrees²)."""
+    unit = axis_unit(axis) + "2"
+    if hi_hz is None:
+        return f"shake_power_{axis}_above_{lo_hz:g}hz_{unit}"
+    return f"shake_power_{axis}_{lo_hz:g}_{hi_hz:g}hz_{unit}"
+
+
+def welch_segment(n: int, fps: float) -> int:
+    """Welch segment length (frames) for a series of ``n`` frames: 8 s where the clip allows,
+    at least 16 frames. Longer segments resolve frequency finer (fps / segment Hz); 8 s is a
+    compromise of this project between resolution and averaging for clips of tens of seconds."""
+    return int(min(n, max(16, round(8.0 * fps))))
+
+
+def shake_spectrum(shake: np.ndarray, fps: float) -> tuple[np.ndarray, np.ndarray] | None:
+    """One-sided Welch power spectral density of a shake series.
+
+    Welch, "The use of fast Fourier transform for the estimation of power spectra", IEEE
+    Trans. Audio and Electroacoustics, 1967; ``scipy.signal.welch`` with a Hann window and
+    half-overlapping segments of :func:`welch_segment` frames.
+
+    Parameters
+    ----------
+    shake : (n,) shake series, pixels or degrees, one value per frame.
+    fps : frame rate, frames per second (the sampling rate).
+
+    Returns
+    -------
+    (f, pxx) : frequencies in Hz from 0 to fps / 2, and the density in unit² per Hz; or None
+    when the series is too short (fewer than 16 frames) or all zero.
+    """
+    shake = np.asarray(shake, dtype=np.float64)
     n = len(shake)
     if n < 16 or not np.any(shake):
         return None
-    nperseg = int(min(n, max(16, round(8.0 * fps))))
-    f, pxx = signal.welch(shake, fs=fps, nperseg=nperseg, detrend="constant")
+    f, pxx = signal.welch(shake, fs=fps, nperseg=welch_segment(n, fps), detrend="constant")
+    return f, pxx
+
+
+def dominant_hz(shake: np.ndarray, fps: float, above_hz: float) -> float | None:
+    """Frequency (Hz) of the largest peak of the shake's Welch power spectral density above
+    ``above_hz``, refined by a parabola through the peak bin and its neighbours (log power)."""
+    spec = shake_spectrum(shake, fps)
+    if spec is None:
+        return None
+    f, pxx = spec
     band = f >= above_hz
     if not band.any() or not np.any(pxx[band] > 0):
         return None
     i = int(np.flatnonzero(band)[np.argmax(pxx[band])])
+    return _refine_peak(f, pxx, i)
+
+
+def _refine_peak(f: np.ndarray, pxx: np.ndarray, i: int) -> float:
+    # A parabola through the log power of three bins places a peak between bins; common
+    # practice in spectral peak picking.
     if 0 < i < len(f) - 1 and np.all(pxx[i - 1:i + 2] > 0):
         a, b, c = np.log(pxx[i - 1:i + 2])
         denom = a - 2 * b + c
         offset = 0.5 * (a - c) / denom if denom < 0 else 0.0
         return float(f[i] + np.clip(offset, -0.5, 0.5) * (f[1] - f[0]))
     return float(f[i])
+
+
+def spectrum_peaks(f: np.ndarray, pxx: np.ndarray, above_hz: float,
+                   count: int = 3) -> list[tuple[float, float]]:
+    """The ``count`` most prominent peaks of a power spectral density above ``above_hz``.
+
+    Parameters
+    ----------
+    f, pxx : frequencies (Hz) and density (unit² per Hz), as from :func:`shake_spectrum`.
+    above_hz : peaks below this frequency are left out (motion there is not shake).
+    count : at most this many peaks.
+
+    Returns
+    -------
+    list of (frequency in Hz, density) pairs, strongest first. A peak must stand out by at
+    least a tenth of the largest density (a rule of thumb of this project) so that the
+    ripple of the estimate is not labelled.
+    """
+    band = f >= above_hz
+    if not band.any() or not np.any(pxx[band] > 0):
+        return []
+    top = float(pxx[band].max())
+    idx, props = signal.find_peaks(pxx, prominence=0.1 * top)
+    keep = [(int(i), float(p)) for i, p in zip(idx, props["prominences"], strict=True)
+            if f[i] >= above_hz]
+    # A peak on the first or last bin is not found by find_peaks; the largest bin always is.
+    best = int(np.flatnonzero(band)[np.argmax(pxx[band])])
+    if best not in {i for i, _ in keep}:
+        keep.append((best, top))
+    keep.sort(key=lambda ip: -pxx[ip[0]])
+    return [(_refine_peak(f, pxx, i), float(pxx[i])) for i, _ in keep[:count]]
+
+
+def band_powers(shake: np.ndarray | None, fps: float) -> list[float | None]:
+    """Shake power (unit²) in each of :data:`SHAKE_BANDS_HZ`, from the Welch density.
+
+    The density is summed over the bins with lo ≤ f < hi (the last band up to and including
+    the Nyquist frequency fps / 2) times the bin width, so the bands add up to the shake's
+    variance, about its RMS squared. A band that starts at or above the Nyquist frequency
+    cannot be measured from the frames and is None, as is every band of a series too short.
+    """
+    nyquist = 0.5 * fps
+    spec = None if shake is None else shake_spectrum(shake, fps)
+    out: list[float | None] = []
+    for lo, hi in SHAKE_BANDS_HZ:
+        if lo >= nyquist or shake is None:
+            out.append(None)
+            continue
+        if spec is None:  # a series that is all zero has no power anywhere
+            out.append(0.0 if len(shake) >= 16 else None)
+            continue
+        f, pxx = spec
+        df = float(f[1] - f[0])
+        upper = f <= nyquist if hi is None or hi >= nyquist else f < hi
+        out.append(float(pxx[(f >= lo) & upper].sum() * df))
+    return out
 
 
 def stability(series: np.ndarray) -> float | None:
@@ -91,23 +209,47 @@ def _segmented_shake(values: np.ndarray, cuts: np.ndarray, fps: float,
 
 
 def path_figures(path_xyd: np.ndarray, cuts: np.ndarray, *, fps: float, above_hz: float,
-                 width: int, fov_deg: float | None, suffix: str = "") -> dict:
-    """RMS, peak-to-peak and dominant frequency of the shake in a path readout (n, 3+)
-    of x, y (pixels) and angle (degrees)."""
+                 width: int, fov_deg: float | None, suffix: str = "",
+                 bands: bool = False) -> dict:
+    """Shake figures of a path readout (n, 3+) of x, y (pixels) and angle (degrees).
+
+    Per axis: RMS and peak-to-peak of the shake (x and y also in degrees when ``fov_deg`` is
+    known, else None) and the dominant frequency (Hz). With ``bands``, also the shake power
+    per band of :data:`SHAKE_BANDS_HZ` (keys from :func:`band_key`) and the frequency
+    resolution of the spectrum, ``spectrum_resolution_hz``. Keys end with ``suffix``.
+    """
     out: dict = {}
-    for j, axis in enumerate(("x", "y", "rot")):
+    n_total = 0
+    for j, axis in enumerate(AXES):
         shake = _segmented_shake(path_xyd[:, j], cuts, fps, above_hz)
-        unit = "deg" if axis == "rot" else "px"
+        unit = axis_unit(axis)
         rms = None if shake is None else float(np.sqrt(np.mean(shake**2)))
         p2p = None if shake is None else float(np.ptp(shake))
         out[f"jitter_rms_{axis}_{unit}{suffix}"] = rms
         out[f"jitter_p2p_{axis}_{unit}{suffix}"] = p2p
         if axis != "rot":
             out[f"jitter_rms_{axis}_deg{suffix}"] = _pixels_to_deg(rms, width, fov_deg)
+            out[f"jitter_p2p_{axis}_deg{suffix}"] = _pixels_to_deg(p2p, width, fov_deg)
         out[f"dominant_hz_{axis}{suffix}"] = (
             None if shake is None else dominant_hz(shake, fps, above_hz)
         )
+        if bands:
+            for (lo, hi), power in zip(SHAKE_BANDS_HZ, band_powers(shake, fps), strict=True):
+                out[band_key(axis, lo, hi) + suffix] = power
+            n_total = max(n_total, 0 if shake is None else len(shake))
+    if bands:
+        out[f"spectrum_resolution_hz{suffix}"] = (
+            float(fps / welch_segment(n_total, fps)) if n_total >= 16 else None
+        )
     return out
+
+
+def axis_shake(path_xyd: np.ndarray, cuts: np.ndarray, *, fps: float,
+               above_hz: float) -> dict[str, np.ndarray | None]:
+    """The shake series of each axis (``x``, ``y`` pixels, ``rot`` degrees) of a path readout,
+    per shot between scene cuts and joined; None for an axis too short to filter."""
+    return {axis: _segmented_shake(path_xyd[:, j], cuts, fps, above_hz)
+            for j, axis in enumerate(AXES)}
 
 
 def stability_figures(motion_readout: np.ndarray, suffix: str) -> dict:
@@ -164,8 +306,13 @@ def summarise(
         "shake_above_hz": float(above_hz),
         "nyquist_hz": 0.5 * float(fps),
     }
+    n = max(1, len(status))
+    # The shares say how far the figures can be trusted: weak frames are measured poorly,
+    # failed frames carry a stand-in motion interpolated from their neighbours.
+    summary["frames_weak_share"] = summary["frames_weak"] / n
+    summary["frames_failed_share"] = summary["frames_failed"] / n
     summary.update(path_figures(similarity_readout(path, centre), cuts, fps=fps,
-                                above_hz=above_hz, width=width, fov_deg=fov_deg))
+                                above_hz=above_hz, width=width, fov_deg=fov_deg, bands=True))
     has_out = corrections is not None
     summary.update(stability_figures(motion, "_in" if has_out else ""))
     if has_out:
@@ -176,3 +323,56 @@ def summarise(
             summary.update(path_figures(smooth_readout, cuts, fps=fps, above_hz=above_hz,
                                         width=width, fov_deg=fov_deg, suffix="_out"))
     return summary
+
+
+#: Shares of weak-or-failed frames above which the figures are called rough, and unreliable.
+#: Rules of thumb of this project, not from the literature.
+ROUGH_SHARE, UNRELIABLE_SHARE = 0.10, 0.30
+
+
+def uncertainty_notes(summary: dict) -> list[str]:
+    """Plain-language notes on how far one clip's figures can be trusted.
+
+    Parameters
+    ----------
+    summary : a summary as from :func:`summarise`.
+
+    Returns
+    -------
+    list of one-sentence notes (possibly empty): many weak or failed frames, scene cuts, a
+    shake peak close to the Nyquist frequency (possibly aliased faster vibration), a clip too
+    short to resolve frequency finely, no field of view for figures in degrees.
+    """
+    notes: list[str] = []
+    n = max(1, int(summary.get("frames") or 0))
+    weak, failed = int(summary.get("frames_weak") or 0), int(summary.get("frames_failed") or 0)
+    share = (weak + failed) / n
+    if share > UNRELIABLE_SHARE:
+        notes.append(f"{share:.0%} of frames were weak or failed: these figures are not "
+                     "reliable; check the per-frame strip and the original footage.")
+    elif share > ROUGH_SHARE:
+        notes.append(f"{share:.0%} of frames were weak or failed: treat these figures as "
+                     "rough estimates.")
+    if failed:
+        notes.append(f"{failed} frame(s) had no trustworthy motion fit; their motion is a "
+                     "stand-in interpolated from the neighbouring frames.")
+    if summary.get("cuts"):
+        notes.append(f"{summary['cuts']} scene cut(s): the figures are computed per shot and "
+                     "pooled; motion across a cut is not counted.")
+    nyquist = summary.get("nyquist_hz")
+    if nyquist:
+        for axis in AXES:
+            hz = summary.get(f"dominant_hz_{axis}")
+            # Within the top fifth of the measurable range a peak may well be a faster
+            # vibration folded down (aliased); a rule of thumb of this project.
+            if hz is not None and hz > 0.8 * nyquist:
+                notes.append(f"The {axis} shake peaks at {hz:.1f} Hz, close to the Nyquist "
+                             f"frequency of {nyquist:.1f} Hz: it may be faster vibration "
+                             "aliased down, not a real motion at that frequency.")
+    res = summary.get("spectrum_resolution_hz")
+    if res is not None and res > 0.25:
+        notes.append(f"The clip is short: frequencies are resolved only to about {res:.2f} Hz.")
+    if summary.get("jitter_rms_x_px") is not None and summary.get("jitter_rms_x_deg") is None:
+        notes.append("No field of view was given (--fov-deg): figures in degrees are not "
+                     "available.")
+    return notes

@@ -196,7 +196,8 @@ class Mover:
     """An independently moving textured object (an outlier to the camera motion).
 
     ``kind``: ``"vehicle"`` (side view, faces its direction of travel), ``"person"`` or
-    ``"box"`` (a generic textured crate). ``size_px``: (width, height) in pixels.
+    ``"box"`` (a generic textured crate) or ``"panel"`` (a board with dense texture, held up
+    to the lens). ``size_px``: (width, height) in pixels.
     ``start_px``: centre at t = 0 in pixel coordinates of the shake-free frame 0.
     ``velocity_px_s``: px/s.
     ``anchor="frame"``: moves in frame coordinates, bouncing off the frame edges so the covered
@@ -205,7 +206,7 @@ class Mover:
     ``seed``: texture variation.
     """
 
-    kind: Literal["vehicle", "person", "box"] = "vehicle"
+    kind: Literal["vehicle", "person", "box", "panel"] = "vehicle"
     size_px: tuple[float, float] = (48.0, 24.0)
     start_px: tuple[float, float] = (100.0, 100.0)
     velocity_px_s: tuple[float, float] = (60.0, 0.0)
@@ -787,6 +788,15 @@ def _mover_patch(m: Mover) -> tuple[np.ndarray, np.ndarray]:
         both("line", (0.22 * w, 0.3 * h), (0.1 * w, 0.62 * h), width=0.12 * w, color=shirt)
         both("line", (0.78 * w, 0.3 * h), (0.9 * w, 0.62 * h), width=0.12 * w, color=shirt)
         cr.rect(0.3 * w, 0.42 * h, 0.7 * w, 0.47 * h, (230, 230, 230))  # reflective band
+    elif m.kind == "panel":
+        # A richly textured board held up to the lens: more corners than most backgrounds,
+        # the hardest case for a consensus that only counts inliers.
+        noise = rng.uniform(0, 255, (max(2, h // 6), max(2, w // 6), 3)).astype(np.float32)
+        rgb[:] = np.clip(cv2.resize(noise, (w, h), interpolation=cv2.INTER_CUBIC), 0, 255)
+        a[:] = 255
+        for _ in range(40):
+            cr.circle(rng.uniform(0, 1, 2) * (w, h), rng.uniform(0.01, 0.05) * min(w, h),
+                      rng.uniform(0, 255, 3))
     else:
         base = rng.uniform(60, 200, 3)
         both("rect", 0, 0, w - 1, h - 1, color=base)

@@ -1,13 +1,16 @@
 """Feature tracking between consecutive frames of the reduced analysis copy.
 
-Shi–Tomasi corners (Shi and Tomasi, "Good features to track", CVPR 1994) spread over the frame
-are followed into the next frame with pyramidal Lucas–Kanade (Bouguet's pyramidal form of Lucas
-and Kanade 1981, as implemented by OpenCV) and kept only if tracking back lands where they
-started (forward–backward error, Kalal, Mikolajczyk and Matas, "Forward-backward error:
-automatic detection of tracking failures", ICPR 2010).
+Shi–Tomasi corners (Shi and Tomasi, "Good features to track", CVPR 1994), spread over the frame
+by bucketing into a grid with a minimum spacing, are followed from frame to frame with
+pyramidal Lucas–Kanade (Bouguet's pyramidal form of Lucas and Kanade 1981, as implemented by
+OpenCV). A track is kept only if tracking back lands where it started (forward–backward error,
+Kalal, Mikolajczyk and Matas, "Forward-backward error: automatic detection of tracking
+failures", ICPR 2010) and its patch still looks the same (photometric check). Tracks persist
+across frames, carry a history of whether they moved with the camera, and are re-seeded where
+they thin out.
 
-Points are returned in analysis-frame pixels; :func:`to_full_resolution` maps them to full
-resolution under the pixel-centre convention of :mod:`stabilize.log`.
+Points are in analysis-frame pixels; :func:`to_full_resolution` maps them to full resolution
+under the pixel-centre convention of :mod:`stabilize.log`.
 """
 
 from __future__ import annotations
@@ -22,17 +25,29 @@ import numpy as np
 class TrackSettings:
     """Tracking parameters, in analysis-frame pixels unless named otherwise.
 
-    ``max_corners`` caps corners per frame; ``min_distance_frac`` is their minimum spacing as a
-    share of the frame width; ``fb_max_px`` the largest forward–backward error kept.
+    ``max_corners`` is the number of live tracks aimed for; ``grid`` the (columns, rows) of
+    the bucketing grid; ``quality_floor`` the weakest corner considered, as a share of the
+    strongest (each cell then keeps its own strongest); ``min_distance_frac`` the minimum corner spacing as a share of the frame
+    width; ``fb_max_px`` the largest forward–backward error kept; ``photo_max`` the largest mean
+    absolute patch difference (grey levels) kept; ``reseed_share`` re-seeds when live tracks
+    fall below this share of ``max_corners``, ``empty_cells_share`` when more than this share
+    of the grid cells that had corners lost them all.
     """
 
     max_corners: int = 1500
-    quality: float = 0.005
-    min_distance_frac: float = 1.0 / 120.0
+    quality_floor: float = 0.001
+    min_distance_frac: float = 1.0 / 160.0
     block_size: int = 7
     win_size: int = 21
     levels: int = 3
-    fb_max_px: float = 0.5
+    fb_max_px: float = 0.3
+    photo_max: float = 12.0
+    grid: tuple[int, int] = (16, 9)
+    reseed_share: float = 0.8
+    empty_cells_share: float = 0.15
+    lk_iterations: int = 40
+    lk_epsilon: float = 0.003
+    min_eig: float = 1e-4
 
 
 def ignore_mask(
@@ -59,54 +74,218 @@ def ignore_mask(
     return mask
 
 
-def detect(gray: np.ndarray, settings: TrackSettings, mask: np.ndarray | None) -> np.ndarray:
-    """Corners (k, 2) float32 in pixel coordinates of ``gray``."""
+def cell_index(pts: np.ndarray, size: tuple[int, int], grid: tuple[int, int]) -> np.ndarray:
+    """Grid cell of each point (k,), row-major over ``grid`` = (columns, rows)."""
+    w, h = size
+    gx, gy = grid
+    cx = np.clip((pts[:, 0] * gx / w).astype(int), 0, gx - 1)
+    cy = np.clip((pts[:, 1] * gy / h).astype(int), 0, gy - 1)
+    return cy * gx + cx
+
+
+def bucket(pts: np.ndarray, size: tuple[int, int], grid: tuple[int, int],
+           per_cell: int) -> np.ndarray:
+    """Keep at most ``per_cell`` points in each grid cell, the first (strongest) ones.
+
+    ``pts`` must be sorted by decreasing corner quality, as goodFeaturesToTrack returns them.
+    """
+    if len(pts) == 0:
+        return pts
+    cells = cell_index(pts, size, grid)
+    order = np.argsort(cells, kind="stable")
+    sorted_cells = cells[order]
+    starts = np.searchsorted(sorted_cells, sorted_cells, side="left")
+    rank = np.empty(len(pts), int)
+    rank[order] = np.arange(len(pts)) - starts
+    return pts[rank < per_cell]
+
+
+def detect(gray: np.ndarray, settings: TrackSettings, mask: np.ndarray | None,
+           count: int) -> np.ndarray:
+    """Up to ``count`` corners (k, 2) float32, bucketed over the grid."""
+    if count <= 0:
+        return np.empty((0, 2), np.float32)
     min_dist = max(2.0, settings.min_distance_frac * gray.shape[1])
+    # No cap on the number here: a cap keeps the strongest corners of the whole frame, which
+    # can all lie on one busy object; bucketing below spreads them instead.
     pts = cv2.goodFeaturesToTrack(
-        gray, maxCorners=settings.max_corners, qualityLevel=settings.quality,
+        gray, maxCorners=0, qualityLevel=settings.quality_floor,
         minDistance=min_dist, mask=mask, blockSize=settings.block_size,
     )
     if pts is None:
         return np.empty((0, 2), np.float32)
-    return pts.reshape(-1, 2).astype(np.float32)
+    pts = pts.reshape(-1, 2).astype(np.float32)
+    n_cells = settings.grid[0] * settings.grid[1]
+    per_cell = max(2, int(np.ceil(1.5 * settings.max_corners / n_cells)))
+    size = (gray.shape[1], gray.shape[0])
+    return bucket(pts, size, settings.grid, per_cell)[:count]
+
+
+@dataclass
+class Pairs:
+    """Correspondences between the previous frame and this one, analysis pixels.
+
+    ``src``, ``dst`` (k, 2); ``ids`` (k,) track identities; ``background`` (k,) the track's
+    history of moving with the camera (1 = always did, 0 = never, 0.5 = new).
+    """
+
+    src: np.ndarray
+    dst: np.ndarray
+    ids: np.ndarray
+    background: np.ndarray
+
+    def __len__(self) -> int:
+        return len(self.src)
+
+
+def _empty_pairs() -> Pairs:
+    z = np.empty((0, 2))
+    return Pairs(z, z.copy(), np.empty(0, np.int64), np.empty(0))
 
 
 class Tracker:
-    """Feeds consecutive analysis frames; each step returns the matched points of the pair."""
+    """Feeds consecutive analysis frames; keeps tracks alive across frames.
+
+    Call :meth:`step` with each frame (and optionally a predicted motion for it) to get the
+    pairs, then :meth:`update` with which of them moved with the camera.
+    """
 
     def __init__(self, settings: TrackSettings | None = None,
                  mask: np.ndarray | None = None) -> None:
         self.settings = settings or TrackSettings()
         self.mask = mask
-        self._prev: np.ndarray | None = None
+        self._pyr: np.ndarray | None = None
+        self._gray: np.ndarray | None = None
+        self._prev_pyr: np.ndarray | None = None
+        self._prev_gray: np.ndarray | None = None
+        self._pts = np.empty((0, 2), np.float32)
+        self._ids = np.empty(0, np.int64)
+        self._bg = np.empty(0)
+        self._next_id = 0
+        self._pending: tuple[np.ndarray, np.ndarray] | None = None
+        self._had_cells: np.ndarray | None = None
 
     def reset(self) -> None:
-        self._prev = None
+        """Forget every track (after a scene cut)."""
+        self._pts = np.empty((0, 2), np.float32)
+        self._ids = np.empty(0, np.int64)
+        self._bg = np.empty(0)
+        self._had_cells = None
 
-    def step(self, gray: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """Track corners of the previous frame into ``gray``.
+    def set_mask(self, mask: np.ndarray | None) -> None:
+        """Change where new corners may be seeded, and drop tracks now outside it."""
+        self.mask = mask
+        if mask is not None and len(self._pts):
+            xi = np.clip(np.rint(self._pts[:, 0]).astype(int), 0, mask.shape[1] - 1)
+            yi = np.clip(np.rint(self._pts[:, 1]).astype(int), 0, mask.shape[0] - 1)
+            keep = mask[yi, xi] > 0
+            self._pts, self._ids, self._bg = self._pts[keep], self._ids[keep], self._bg[keep]
 
-        Returns (src, dst), each (k, 2) float64 in analysis pixels: corner positions in the
-        previous frame and in this one. Empty for the first frame.
+    def step(self, gray: np.ndarray, predicted: np.ndarray | None = None) -> Pairs:
+        """Track the live corners of the previous frame into ``gray``.
+
+        ``predicted`` is an optional 3×3 motion (analysis pixels, previous -> this frame) used
+        as the starting guess for every track, so fast but steady motion is followed.
+        Returns an empty set for the first frame.
         """
-        prev, self._prev = self._prev, gray
-        empty = np.empty((0, 2))
-        if prev is None:
-            return empty, empty
+        if self._pending is not None:
+            self.update(None)
+        # OpenCV 5's Python binding takes images, not prebuilt pyramids, for the flow.
+        pyr = gray
+        self._prev_pyr, self._prev_gray = self._pyr, self._gray
+        self._pyr, self._gray = pyr, gray
+        if self._prev_pyr is None:
+            self._reseed(gray)
+            return _empty_pairs()
+        self._reseed(self._prev_gray)
+        return self.retry(predicted)
+
+    def retry(self, predicted: np.ndarray | None) -> Pairs:
+        """Track the same pair of frames again from another starting guess."""
+        self._pending = None
+        if self._prev_pyr is None or len(self._pts) == 0:
+            return _empty_pairs()
+        src = self._pts
         s = self.settings
-        src = detect(prev, s, self.mask)
-        if len(src) == 0:
-            return empty, empty
         lk = dict(winSize=(s.win_size, s.win_size), maxLevel=s.levels,
-                  criteria=(cv2.TERM_CRITERIA_EPS | cv2.TERM_CRITERIA_COUNT, 30, 0.01))
-        dst, st, _ = cv2.calcOpticalFlowPyrLK(prev, gray, src, None, **lk)
-        back, st_back, _ = cv2.calcOpticalFlowPyrLK(gray, prev, dst, None, **lk)
+                  criteria=(cv2.TERM_CRITERIA_EPS | cv2.TERM_CRITERIA_COUNT, s.lk_iterations,
+                            s.lk_epsilon), minEigThreshold=s.min_eig)
+        prev_pyr, pyr = self._prev_pyr, self._pyr
+        if predicted is not None:
+            guess = cv2.perspectiveTransform(src.reshape(-1, 1, 2).astype(np.float64),
+                                             predicted).reshape(-1, 2).astype(np.float32)
+            dst, st, err = cv2.calcOpticalFlowPyrLK(prev_pyr, pyr, src, guess,
+                                                    flags=cv2.OPTFLOW_USE_INITIAL_FLOW, **lk)
+        else:
+            dst, st, err = cv2.calcOpticalFlowPyrLK(prev_pyr, pyr, src, None, **lk)
+        back, st_back, _ = cv2.calcOpticalFlowPyrLK(pyr, prev_pyr, dst, src.copy(),
+                                                    flags=cv2.OPTFLOW_USE_INITIAL_FLOW, **lk)
         fb = np.linalg.norm(back - src, axis=1)
+        h, w = self._gray.shape
+        err = err.ravel()
         keep = (st.ravel() == 1) & (st_back.ravel() == 1) & (fb < s.fb_max_px)
+        keep &= (dst[:, 0] >= 0) & (dst[:, 0] <= w - 1) & (dst[:, 1] >= 0) & (dst[:, 1] <= h - 1)
+        if keep.any():
+            # Photometric check: a patch that changed much (occlusion, a reflection, a
+            # blinking light) is not a trustworthy match even when the flow converged.
+            med = float(np.median(err[keep]))
+            mad = float(np.median(np.abs(err[keep] - med))) + 1e-6
+            keep &= err <= max(s.photo_max, med + 5.0 * 1.4826 * mad)
+        self._pending = (dst, keep)
+        return Pairs(src[keep].astype(np.float64), dst[keep].astype(np.float64),
+                     self._ids[keep], self._bg[keep])
+
+    @property
+    def live(self) -> int:
+        """Tracks offered for the current pair (before the checks)."""
+        return len(self._pts)
+
+    @property
+    def frames(self) -> tuple[np.ndarray | None, np.ndarray | None]:
+        """The previous and current analysis frames."""
+        return self._prev_gray, self._gray
+
+    def update(self, moved_with_camera: np.ndarray | None) -> None:
+        """Advance the tracks to this frame, with which kept pairs fitted the camera motion.
+
+        ``None`` means the fit was not trustworthy: histories are left as they are.
+        """
+        if self._pending is None:
+            return
+        dst, keep = self._pending
+        self._pending = None
+        bg = self._bg[keep]
+        if moved_with_camera is not None and len(bg):
+            bg = 0.7 * bg + 0.3 * moved_with_camera.astype(np.float64)
+        self._pts = dst[keep]
+        self._ids = self._ids[keep]
+        self._bg = bg
+
+    def _reseed(self, gray: np.ndarray) -> None:
+        """Add corners where tracks have thinned out (few overall, or cells emptied)."""
+        s = self.settings
         h, w = gray.shape
-        d = dst[keep]
-        inside = (d[:, 0] >= 0) & (d[:, 0] <= w - 1) & (d[:, 1] >= 0) & (d[:, 1] <= h - 1)
-        return src[keep][inside].astype(np.float64), d[inside].astype(np.float64)
+        n_cells = s.grid[0] * s.grid[1]
+        counts = np.bincount(cell_index(self._pts, (w, h), s.grid), minlength=n_cells)
+        few = len(self._pts) < s.reseed_share * s.max_corners
+        gaps = False
+        if self._had_cells is not None:
+            lost = self._had_cells & (counts == 0)
+            gaps = lost.sum() > s.empty_cells_share * max(1, self._had_cells.sum())
+        if not (few or gaps):
+            return
+        mask = np.full((h, w), 255, np.uint8) if self.mask is None else self.mask.copy()
+        radius = int(max(2.0, s.min_distance_frac * w))
+        for x, y in np.rint(self._pts).astype(int):
+            cv2.circle(mask, (int(x), int(y)), radius, 0, -1)
+        new = detect(gray, s, mask, s.max_corners - len(self._pts))
+        if len(new):
+            self._pts = np.concatenate([self._pts, new]).astype(np.float32)
+            self._ids = np.concatenate([self._ids, self._next_id + np.arange(len(new))])
+            self._bg = np.concatenate([self._bg, np.full(len(new), 0.5)])
+            self._next_id += len(new)
+        counts = np.bincount(cell_index(self._pts, (w, h), s.grid), minlength=n_cells)
+        self._had_cells = counts > 0
 
 
 def to_full_resolution(pts: np.ndarray, scale: tuple[float, float]) -> np.ndarray:
@@ -116,3 +295,29 @@ def to_full_resolution(pts: np.ndarray, scale: tuple[float, float]) -> np.ndarra
     out[:, 0] = (pts[:, 0] + 0.5) / sx - 0.5
     out[:, 1] = (pts[:, 1] + 0.5) / sy - 0.5
     return out
+
+
+def to_analysis(m: np.ndarray, scale: tuple[float, float]) -> np.ndarray:
+    """A full-resolution 3×3 motion expressed in analysis pixels: D · M · D⁻¹."""
+    sx, sy = scale
+    d = np.array([[sx, 0.0, 0.5 * sx - 0.5], [0.0, sy, 0.5 * sy - 0.5], [0.0, 0.0, 1.0]])
+    out = d @ m @ np.linalg.inv(d)
+    return out / out[2, 2]
+
+
+def global_shift(prev: np.ndarray, cur: np.ndarray, max_side: int = 320) -> tuple[float, float,
+                                                                                    float]:
+    """Whole-frame shift (dx, dy) from ``prev`` to ``cur`` in their pixels, by phase
+    correlation (Kuglin and Hines, "The phase correlation image alignment method", 1975) on a
+    copy at most ``max_side`` wide, and the correlation peak's response (0 to 1).
+
+    Used to restart tracking when the motion was too fast for the pyramid to follow.
+    """
+    h, w = prev.shape
+    f = min(1.0, max_side / w)
+    size = (max(16, int(round(w * f))), max(16, int(round(h * f))))
+    a = cv2.resize(prev, size, interpolation=cv2.INTER_AREA).astype(np.float32)
+    b = cv2.resize(cur, size, interpolation=cv2.INTER_AREA).astype(np.float32)
+    window = cv2.createHanningWindow(size, cv2.CV_32F)
+    (dx, dy), response = cv2.phaseCorrelate(a, b, window)
+    return dx * w / size[0], dy * h / size[1], float(response)

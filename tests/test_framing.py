@@ -7,6 +7,7 @@ from stabilize.framing import (
     choose_margin,
     corrections,
     covered,
+    distortion,
     fit_to_margin,
     zoom,
 )
@@ -56,3 +57,28 @@ def test_fit_to_margin_eases_corrections_that_do_not_fit():
                              window_s=1.0)
     assert covered(corrections(p, s2, 0.02, W, H), W, H).all()
     assert kept[30] < 1.0 and kept[0] == pytest.approx(1.0)
+
+
+def test_fit_to_margin_can_ease_toward_another_path():
+    n = 40
+    c = frame_centre(W, H)
+    x = np.where(np.arange(n) >= 20, 80.0, 0.0)
+    p = from_similarity(np.stack([x, 0 * x, 0 * x, 0 * x], axis=1), c)
+    held = np.repeat(np.eye(3)[None], n, axis=0)
+    target = from_similarity(np.stack([0.9 * x, 0 * x, 0 * x, 0 * x], axis=1), c)
+    s, kept = fit_to_margin(p, held, 0.05, model="similarity", width=W, height=H, fps=30.0,
+                            window_s=1.0, toward=target)
+    assert covered(corrections(p, s, 0.05, W, H), W, H).all()
+    assert kept[0] == pytest.approx(1.0) and kept[-1] < 1.0
+
+
+def test_distortion_limit_eases_stretching_corrections():
+    p = np.repeat(np.eye(3)[None], 3, axis=0)
+    s = p.copy()
+    s[1, 0, 1] = 0.3  # a sheared virtual camera: its correction would shear the picture
+    c0 = corrections(p, s, 0.2, W, H)
+    assert distortion(c0)[1] < 0.9 and distortion(c0)[0] == pytest.approx(1.0)
+    s2, kept = fit_to_margin(p, s, 0.2, model="affine", width=W, height=H, fps=30.0,
+                             window_s=1.0, min_distortion=0.9)
+    assert distortion(corrections(p, s2, 0.2, W, H)).min() >= 0.9
+    assert kept[1] < 1.0

@@ -1,9 +1,11 @@
-"""Camera path accumulation, parameterisations and the Gaussian smoother."""
+"""Camera path accumulation, parameterisations and the smoothers' dispatch."""
 
 import numpy as np
+import pytest
 
 from stabilize.log import frame_centre, similarity_readout
 from stabilize.path import (
+    SMOOTHERS,
     accumulate,
     blend,
     decode,
@@ -109,3 +111,17 @@ def test_blend_goes_from_raw_to_smooth():
                                atol=1e-12)
     half = to_similarity(blend(p, s, np.array([0.5]), "similarity", 320, 240), c)
     np.testing.assert_allclose(half, [[5.0, 2.5, 0.1, 0.005]], atol=1e-12)
+
+
+@pytest.mark.parametrize("smoother", SMOOTHERS)
+def test_every_smoother_restarts_at_cuts_and_keeps_a_still_camera_still(smoother):
+    n = 90
+    c = frame_centre(320, 240)
+    x = np.where(np.arange(n) < 45, 0.0, 30.0)
+    p = from_similarity(np.stack([x, 0 * x, 0 * x, 0 * x], axis=1), c)
+    cuts = np.zeros(n, bool)
+    cuts[45] = True
+    s = smooth_path(p, fps=30.0, window_s=1.0, model="similarity", width=320, height=240,
+                    cuts=cuts, smoother=smoother, margin=0.1)
+    # Each shot is still on its own: nothing of the jump across the cut leaks in.
+    np.testing.assert_allclose(to_similarity(s, c), to_similarity(p, c), atol=1e-6)

@@ -42,6 +42,8 @@ class MotionBounds:
     ----------
     max_shift_frac : float
         Largest displacement of the frame centre, as a fraction of the frame diagonal.
+        Applied only when the frame size is known: the bounding box of the points is
+        no guide to how far the camera may move.
     max_rotation_deg : float
         Largest rotation, degrees (angle of the nearest similarity of the local
         Jacobian at the frame centre).
@@ -93,6 +95,7 @@ class Frame:
     y0: float
     width: float
     height: float
+    known: bool = True
 
     @property
     def centre(self) -> tuple[float, float]:
@@ -113,7 +116,32 @@ def frame_box(frame_size: tuple[float, float] | None, pts: NDArray[np.float64]) 
         return Frame(-0.5, -0.5, float(frame_size[0]), float(frame_size[1]))
     x0, y0 = pts[:2].min(axis=1).tolist()
     x1, y1 = pts[:2].max(axis=1).tolist()
-    return Frame(x0, y0, max(x1 - x0, 1.0), max(y1 - y0, 1.0))
+    return Frame(x0, y0, max(x1 - x0, 1.0), max(y1 - y0, 1.0), known=False)
+
+
+def to_frame_centred(
+    h: list[float], scale: float, src_off: tuple[float, float], dst_off: tuple[float, float]
+) -> list[float]:
+    """Re-express a model on normalised points about the frame centre, in pixels.
+
+    ``h`` (row-major 3x3) maps ``scale * (p - c_src)`` to ``scale * (q - c_dst)``; the
+    result maps ``p - f`` to ``q - f`` (``f`` the frame centre), up to scale. The
+    offsets are ``f - c_src`` and ``c_dst - f``. Written out because the conjugation
+    by two scale-and-shift matrices is a handful of products.
+    """
+    h0, h1, h2, h3, h4, h5, h6, h7, h8 = h
+    ox, oy = dst_off
+    inv = 1.0 / scale
+    # L h with L = [[1/s, 0, ox], [0, 1/s, oy], [0, 0, 1]]
+    r = (h0 * inv + ox * h6, h1 * inv + ox * h7, h2 * inv + ox * h8,
+         h3 * inv + oy * h6, h4 * inv + oy * h7, h5 * inv + oy * h8, h6, h7, h8)
+    ax, ay = src_off
+    # (L h) R with R = [[s, 0, s ax], [0, s, s ay], [0, 0, 1]]
+    out = []
+    for i in (0, 3, 6):
+        a, b, c = r[i], r[i + 1], r[i + 2]
+        out += (scale * a, scale * b, scale * (a * ax + b * ay) + c)
+    return out
 
 
 def plausible(m: list[float], bounds: MotionBounds, frame: Frame) -> bool:
@@ -122,7 +150,8 @@ def plausible(m: list[float], bounds: MotionBounds, frame: Frame) -> bool:
     Parameters
     ----------
     m : list of 9 float
-        Row-major 3x3 model in frame-centred pixel coordinates (any scale).
+        Row-major 3x3 model in frame-centred pixel coordinates (any scale), see
+        :func:`to_frame_centred`.
     bounds : MotionBounds
     frame : Frame
 
@@ -144,7 +173,7 @@ def plausible(m: list[float], bounds: MotionBounds, frame: Frame) -> bool:
         return False
     if math.hypot(g, h) * 0.5 * frame.diagonal > bounds.max_perspective:
         return False
-    if math.hypot(tx, ty) > bounds.max_shift_frac * frame.diagonal:
+    if frame.known and math.hypot(tx, ty) > bounds.max_shift_frac * frame.diagonal:
         return False
     # Local Jacobian at the centre: J = A - t (g, h)^T.
     j00, j01, j10, j11 = a - tx * g, b - tx * h, c - ty * g, d - ty * h
@@ -163,20 +192,21 @@ def plausible(m: list[float], bounds: MotionBounds, frame: Frame) -> bool:
     return abs(rot) <= bounds.max_rotation_deg
 
 
-def point_set_problem(z: NDArray[np.float64], model: str) -> str:
+def point_set_problem(gram: NDArray[np.float64], n: int, model: str) -> str:
     """Reason why no model of this family can be fitted to the whole set, or "".
 
     Parameters
     ----------
-    z : ndarray, shape (5, n)
-        Centred (normalised) points, rows (x, y, u, v, 1).
+    gram : ndarray, shape (4, 4)
+        Scatter matrix of the centred (normalised) points, order (x, y, u, v).
+    n : int
+        Number of points.
     model : str
         Model name.
     """
     if model == "translation":
         return ""
-    cov = (z[:4] @ z[:4].T).tolist()
-    n = z.shape[1]
+    cov = gram.tolist()
     for i in (0, 2):
         sxx, sxy, syy = cov[i][i], cov[i][i + 1], cov[i + 1][i + 1]
         tr = sxx + syy
@@ -190,15 +220,21 @@ def point_set_problem(z: NDArray[np.float64], model: str) -> str:
     return ""
 
 
-def occupied_cells(
-    x: NDArray[np.float64], y: NDArray[np.float64], frame: Frame, grid: int = SPREAD_GRID
-) -> int:
-    """Number of cells of a ``grid x grid`` partition of the frame holding a point."""
-    if len(x) == 0:
+def occupied_cells(xy: NDArray[np.float64], frame: Frame, grid: int = SPREAD_GRID) -> int:
+    """Number of cells of a ``grid x grid`` partition of the frame holding a point.
+
+    ``xy`` is (2, m): rows x and y in pixels.
+    """
+    if xy.shape[1] == 0:
         return 0
-    cx = np.clip(((x - frame.x0) * (grid / frame.width)).astype(np.intp), 0, grid - 1)
-    cy = np.clip(((y - frame.y0) * (grid / frame.height)).astype(np.intp), 0, grid - 1)
-    return int(np.count_nonzero(np.bincount(cy * grid + cx)))
+    c = xy - ((frame.x0,), (frame.y0,))
+    c *= ((grid / frame.width,), (grid * grid / frame.height,))
+    # Row y is pre-multiplied by grid: cell = grid * floor(y') + floor(x').
+    np.maximum(c, 0.0, out=c)
+    np.minimum(c, ((grid - 0.5,), (grid * (grid - 0.5),)), out=c)
+    ci = c.astype(np.intp)
+    ci[1] -= ci[1] % grid
+    return int(np.count_nonzero(np.bincount(ci[0] + ci[1])))
 
 
 def weakness(n_inliers: int, n: int, cells: int) -> str:

@@ -21,6 +21,7 @@ from .degeneracy import (
     occupied_cells,
     plausible,
     point_set_problem,
+    to_frame_centred,
     weakness,
 )
 from .local_opt import Candidate, evaluate, local_optimise
@@ -215,23 +216,21 @@ def _estimate(
 
     order = canonical_order(pts)
     pts = np.take(pts, order, axis=1)
-    norm, z = normalisation(pts[:2], pts[2:])
-    problem = point_set_problem(z, spec.name)
+    norm, z, gram = normalisation(pts[:2], pts[2:])
+    problem = point_set_problem(gram, n, spec.name)
     if problem:
         return _failure(n_all, 0, problem, spec.name)
 
     frame = frame_box(frame_size, pts)
     t2 = (t_px * norm.scale) ** 2
-    t1 = norm.t_src()
-    t2_inv = norm.t_dst_inv()
     cx, cy = frame.centre
-    to_centre = np.array([[1.0, 0.0, -cx], [0.0, 1.0, -cy], [0.0, 0.0, 1.0]])
-    from_centre = np.array([[1.0, 0.0, cx], [0.0, 1.0, cy], [0.0, 0.0, 1.0]])
-    left = to_centre @ t2_inv
-    right = t1 @ from_centre
+    src_off = (cx - norm.src_centre[0], cy - norm.src_centre[1])
+    dst_off = (norm.dst_centre[0] - cx, norm.dst_centre[1] - cy)
+    scale = norm.scale
 
     def ok_motion(h: NDArray[np.float64]) -> bool:
-        return plausible((left @ h @ right).ravel().tolist(), bounds, frame)
+        m = to_frame_centred(h.ravel().tolist(), scale, src_off, dst_off)
+        return plausible(m, bounds, frame)
 
     feat = spec.features(z)
     zs = z[:4]
@@ -256,7 +255,7 @@ def _estimate(
         rounds += 1
         hp = None
         if np.all(np.isfinite(prior)) and abs(np.linalg.det(prior)) > 1e-300:
-            hp = spec.project(norm.t_dst() @ prior @ np.linalg.inv(t1))
+            hp = spec.project(norm.t_dst() @ prior @ np.linalg.inv(norm.t_src()))
         if hp is not None and ok_motion(hp):
             n_valid += 1
             adopt(evaluate(spec, feat, hp, t2))
@@ -311,7 +310,7 @@ def _estimate(
 
     mask = inlier_mask(final.sq_res, t2)
     k = int(np.count_nonzero(mask))
-    h_px = t2_inv @ final.h @ t1
+    h_px = norm.t_dst_inv() @ final.h @ norm.t_src()
     h_px /= h_px[2, 2]
     inl = np.empty(n, dtype=bool)
     inl[order] = mask
@@ -323,8 +322,7 @@ def _estimate(
     rms = float(np.sqrt((final.sq_res @ mask) / (k * scale2))) if k else float("nan")
     min_support = 2 * s + 2
     ok = k >= min_support
-    inl_pts = np.compress(mask, pts[:2], axis=1)
-    weak_reason = weakness(k, n, occupied_cells(inl_pts[0], inl_pts[1], frame))
+    weak_reason = weakness(k, n, occupied_cells(np.compress(mask, pts[:2], axis=1), frame))
     reason = "" if ok else f"too few inliers ({k}, need {min_support})"
     reason = reason or weak_reason
     return Fit(h_px, inl, rounds, rms, final.cost / scale2, ok, bool(weak_reason) or not ok,

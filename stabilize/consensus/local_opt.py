@@ -26,7 +26,7 @@ from .scoring import inlier_mask, msac_costs
 __all__ = ["LO_FACTORS", "Candidate", "local_optimise"]
 
 #: Threshold multipliers of the successive refits (last ones at the inlier threshold).
-LO_FACTORS = (3.0, 2.0, 1.0, 1.0)
+LO_FACTORS = (2.0, 1.0, 1.0)
 
 
 class Candidate(NamedTuple):
@@ -37,7 +37,9 @@ class Candidate(NamedTuple):
     cost: float
 
 
-def evaluate(model: Model, feat: NDArray[np.float64], h: NDArray[np.float64], t2: float) -> Candidate:
+def evaluate(
+    model: Model, feat: NDArray[np.float64], h: NDArray[np.float64], t2: float
+) -> Candidate:
     """Score one model."""
     r2 = model.sq_residuals_one(feat, h)
     return Candidate(h, r2, float(msac_costs(r2, t2)))

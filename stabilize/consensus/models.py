@@ -49,7 +49,7 @@ EPS_AREA = 1e-6
 _TI, _TJ = np.triu_indices(5)
 _TRI = _TI * 5 + _TJ
 _FAC = np.where(_TI == _TJ, 1.0, 2.0)
-_COL = {(int(i), int(j)): k for k, (i, j) in enumerate(zip(_TI, _TJ))}
+_COL = {(int(i), int(j)): k for k, (i, j) in enumerate(zip(_TI, _TJ, strict=True))}
 _NEG_I2 = -np.eye(2)
 # Moment positions used by the closed-form refits (z index: x 0, y 1, u 2, v 3, 1 4).
 _M = {name: _COL[ij] for name, ij in {
@@ -104,7 +104,7 @@ def _norm_matrix(centre: tuple[float, float], scale: float) -> Array:
     return np.array([[scale, 0.0, -scale * cx], [0.0, scale, -scale * cy], [0.0, 0.0, 1.0]])
 
 
-def normalisation(src: Array, dst: Array) -> tuple[Normalisation, Array]:
+def normalisation(src: Array, dst: Array) -> tuple[Normalisation, Array, Array]:
     """Centre both point sets and scale them to an RMS distance of sqrt(2) (Hartley 1997).
 
     Parameters
@@ -117,6 +117,8 @@ def normalisation(src: Array, dst: Array) -> tuple[Normalisation, Array]:
     norm : Normalisation
     z : ndarray, shape (5, n)
         Rows ``(x, y, u, v, 1)``: normalised src ``(x, y)`` and dst ``(u, v)``.
+    gram : ndarray, shape (4, 4)
+        ``z[:4] @ z[:4].T``, the scatter of the normalised points (for degeneracy).
 
     References
     ----------
@@ -129,12 +131,14 @@ def normalisation(src: Array, dst: Array) -> tuple[Normalisation, Array]:
     z[4] = 1.0
     mean = (z[:4] @ z[4]) / n
     z[:4] -= mean[:, None]
-    ms = float(np.vdot(z[:4], z[:4])) / (2 * n)
+    gram = z[:4] @ z[:4].T
+    ms = float(np.trace(gram)) / (2 * n)
     # Coincident data has no spread to normalise; scale 1 keeps the arithmetic finite.
     scale = float(np.sqrt(2.0 / ms)) if ms > 1e-300 else 1.0
     z[:4] *= scale
+    gram *= scale * scale
     m = mean.tolist()
-    return Normalisation((m[0], m[1]), (m[2], m[3]), scale), z
+    return Normalisation((m[0], m[1]), (m[2], m[3]), scale), z, gram
 
 
 # --------------------------------------------------------------------------- features
@@ -165,20 +169,25 @@ def _linear_sq_residuals(feat: Array, h: Array) -> Array:
     r[:, :, :2] = h[:, :2, :2]
     r[:, :, 2:4] = _NEG_I2
     r[:, :, 4] = h[:, :2, 2]
-    form = np.matmul(r.transpose(0, 2, 1), r).reshape(b, 25)[:, _TRI]
+    form = np.take(np.matmul(r.transpose(0, 2, 1), r).reshape(b, 25), _TRI, axis=1)
     form *= _FAC
     return form @ feat
 
 
 def _linear_sq_residuals_one(feat: Array, h: Array) -> Array:
-    """Squared transfer errors of one affine-family model, shape (n,)."""
+    """Squared transfer errors of one affine-family model, shape (n,).
+
+    The 15 form coefficients of ``(a x + b y + c - u)^2 + (d x + e y + f - v)^2`` are
+    written out, in the monomial order of :func:`_linear_features`.
+    """
     a, b, c, d, e, f = h[:2].ravel().tolist()
-    mx = (a, b, -1.0, 0.0, c)
-    my = (d, e, 0.0, -1.0, f)
-    form = [
-        (mx[i] * mx[j] + my[i] * my[j]) * (1.0 if i == j else 2.0)
-        for i in range(5) for j in range(i, 5)
-    ]
+    form = (
+        a * a + d * d, 2 * (a * b + d * e), -2 * a, -2 * d, 2 * (a * c + d * f),
+        b * b + e * e, -2 * b, -2 * e, 2 * (b * c + e * f),
+        1.0, 0.0, -2 * c,
+        1.0, -2 * f,
+        c * c + f * f,
+    )
     return np.array(form) @ feat
 
 
@@ -214,24 +223,27 @@ def _translation_solve(smp: Array) -> tuple[Array, NDArray[np.bool_]]:
 
 
 def _similarity_solve(smp: Array) -> tuple[Array, NDArray[np.bool_]]:
-    """Similarity from two correspondences, closed form.
+    """Similarity from two correspondences, closed form in complex numbers.
 
     With points as complex numbers a similarity is ``q = a p + t``; two points give
-    ``a = (q1 - q0) / (p1 - p0)`` and ``t = q0 - a p0``, written out in reals here.
+    ``a = (q1 - q0) / (p1 - p0)`` and ``t = q0 - a p0``.
     """
-    dx, dy, du, dv = smp[:, :, 1] - smp[:, :, 0]
-    x0, y0, u0, v0 = smp[:, :, 0]
-    den = dx * dx + dy * dy
-    valid = (den > EPS_LEN * EPS_LEN) & (du * du + dv * dv > EPS_LEN * EPS_LEN)
-    den = np.where(valid, den, 1.0)
-    a = (dx * du + dy * dv) / den
-    c = (dx * dv - dy * du) / den
-    tx = u0 - a * x0 + c * y0
-    ty = v0 - c * x0 - a * y0
-    one = np.ones_like(a)
-    zero = np.zeros_like(a)
-    h = np.stack((a, -c, tx, c, a, ty, zero, zero, one), axis=1)
-    return h.reshape(-1, 3, 3), valid
+    p = smp[0] + 1j * smp[1]
+    q = smp[2] + 1j * smp[3]
+    dp = p[:, 1] - p[:, 0]
+    dq = q[:, 1] - q[:, 0]
+    valid = (np.abs(dp) > EPS_LEN) & (np.abs(dq) > EPS_LEN)
+    a = dq / np.where(valid, dp, 1.0)
+    t = q[:, 0] - a * p[:, 0]
+    b = len(a)
+    h = np.empty((b, 3, 3))
+    h[:, 0, 0] = h[:, 1, 1] = a.real
+    h[:, 1, 0] = a.imag
+    h[:, 0, 1] = -a.imag
+    h[:, 0, 2] = t.real
+    h[:, 1, 2] = t.imag
+    h[:, 2] = (0.0, 0.0, 1.0)
+    return h, valid
 
 
 def _affine_solve(smp: Array) -> tuple[Array, NDArray[np.bool_]]:
@@ -390,56 +402,96 @@ def _homography_refit(feat: Array, z: Array, mask: NDArray[np.bool_]) -> Array |
     return h / h[2, 2]
 
 
+def _lm_index() -> tuple[NDArray[np.intp], Array, NDArray[np.intp]]:
+    """Where each entry of the 8x8 normal matrix and the gradient of the transfer-error
+    least squares lives in the (6 monomials x 7 weights) moment table."""
+    mono = {(0, 0): 0, (0, 1): 1, (1, 1): 2, (0, 2): 3, (1, 2): 4, (2, 2): 5}
+
+    def mi(i: int, j: int) -> int:
+        return mono[min(i, j), max(i, j)]
+
+    zero = 42  # index of an appended 0
+    idx = np.full((8, 8), zero, dtype=np.intp)
+    sgn = np.ones((8, 8))
+    for p in range(8):
+        for q in range(8):
+            bp, bq = p // 3 if p < 6 else 2, q // 3 if q < 6 else 2
+            ip, iq = p % 3 if p < 6 else p - 6, q % 3 if q < 6 else q - 6
+            if bp < 2 and bp == bq:
+                idx[p, q] = mi(ip, iq) * 7 + 0
+            elif bp < 2 and bq == 2 or bq < 2 and bp == 2:
+                blk, i, j = (bp, ip, iq) if bq == 2 else (bq, iq, ip)
+                idx[p, q] = mi(i, j) * 7 + (1 if blk == 0 else 2)
+                sgn[p, q] = -1.0
+            elif bp == 2 and bq == 2:
+                idx[p, q] = mi(ip, iq) * 7 + 3
+    gidx = np.array([mi(i, 2) * 7 + 4 for i in range(3)] + [mi(i, 2) * 7 + 5 for i in range(3)]
+                    + [mi(i, 2) * 7 + 6 for i in range(2)])
+    return idx, sgn, gidx
+
+
+_LM_IDX, _LM_SGN, _LM_GIDX = _lm_index()
+
+
 def _homography_polish(z: Array, h: Array, mask: NDArray[np.bool_], iters: int = 3) -> Array:
     """Levenberg-Marquardt on the transfer error of the inliers, h33 fixed to 1.
 
     The DLT minimises an algebraic error; a few LM steps reach the maximum-likelihood
-    estimate under Gaussian noise in dst (Hartley and Zisserman 2004, A6).
+    estimate under Gaussian noise in dst (Hartley and Zisserman 2004, A6). The normal
+    matrix ``J^T J`` and gradient ``J^T r`` are sums over points of weights times the
+    monomials ``(x^2, xy, y^2, x, y, 1)``, so each iteration is one 6 x m x 7 product
+    instead of building the 2m x 8 Jacobian.
     """
     zi = np.compress(mask, z, axis=1)
     m = zi.shape[1]
     if m < 5:
         return h
     x, y, u, v = zi[0], zi[1], zi[2], zi[3]
+    mono = np.empty((6, m))
+    mono[0] = x * x
+    mono[1] = x * y
+    mono[2] = y * y
+    mono[3] = x
+    mono[4] = y
+    mono[5] = 1.0
+    wts = np.empty((7, m))
     par = (h / h[2, 2]).ravel()[:8].copy()
-    jac = np.zeros((8, 2 * m))  # transposed Jacobian: one row per parameter
 
-    def resid(p: Array) -> tuple[Array, Array, Array, Array]:
+    def resid(p: Array) -> tuple[float, Array, Array, Array, Array, Array]:
         iw = 1.0 / (x * p[6] + y * p[7] + 1.0)
         px = (x * p[0] + y * p[1] + p[2]) * iw
         py = (x * p[3] + y * p[4] + p[5]) * iw
-        return np.concatenate((px - u, py - v)), iw, px, py
+        rx = px - u
+        ry = py - v
+        return float(rx @ rx + ry @ ry), iw, px, py, rx, ry
 
-    r, iw, px, py = resid(par)
-    sse = float(r @ r)
+    sse, iw, px, py, rx, ry = resid(par)
     mu = 1e-3
     for _ in range(iters):
-        xw = x * iw
-        yw = y * iw
-        jac[0, :m] = xw
-        jac[1, :m] = yw
-        jac[2, :m] = iw
-        jac[3, m:] = xw
-        jac[4, m:] = yw
-        jac[5, m:] = iw
-        jac[6, :m] = -px * xw
-        jac[7, :m] = -px * yw
-        jac[6, m:] = -py * xw
-        jac[7, m:] = -py * yw
-        jtj = jac @ jac.T
-        grad = jac @ r
+        a = iw * iw
+        wts[0] = a
+        wts[1] = px * a
+        wts[2] = py * a
+        wts[3] = (px * px + py * py) * a
+        wts[4] = rx * iw
+        wts[5] = ry * iw
+        wts[6] = -(px * rx + py * ry) * iw
+        tab = np.append((mono @ wts.T).ravel(), 0.0)
+        jtj = np.take(tab, _LM_IDX) * _LM_SGN
+        grad = np.take(tab, _LM_GIDX)
+        damp = np.diag(np.diag(jtj))
+        converged = False
         while True:
             try:
-                step = np.linalg.solve(jtj + mu * np.diag(np.diag(jtj)), -grad)
+                step = np.linalg.solve(jtj + mu * damp, -grad)
             except np.linalg.LinAlgError:
                 return _unflat(par)
             cand = par + step
-            rc, iwc, pxc, pyc = resid(cand)
-            sc = float(rc @ rc)
-            if sc < sse:
-                par, r, iw, px, py = cand, rc, iwc, pxc, pyc
-                converged = sse - sc <= 1e-12 * sse
-                sse = sc
+            res = resid(cand)
+            if res[0] < sse:
+                converged = sse - res[0] <= 1e-10 * sse
+                par = cand
+                sse, iw, px, py, rx, ry = res
                 mu = max(mu * 0.1, 1e-9)
                 break
             mu *= 10.0

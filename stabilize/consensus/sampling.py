@@ -40,7 +40,7 @@ def canonical_order(pts: NDArray[np.float64]) -> NDArray[np.intp]:
     key = _KEY @ pts
     order = np.argsort(key)
     k = np.take(key, order)
-    if np.any(k[1:] == k[:-1]):
+    if (k[1:] == k[:-1]).any():
         # Equal keys: sort exactly by (x, y, u, v) so that only identical columns tie.
         order = np.lexsort(pts[::-1])
     return order
@@ -53,6 +53,10 @@ def draw_samples(
 
     Indices are drawn with replacement: a repeated index is a pair of coincident
     points, which every minimal solver already rejects as degenerate, so no per-sample
-    rejection loop is needed. Repeats are rare unless ``n`` is tiny.
+    rejection loop is needed. Repeats are rare unless ``n`` is tiny. ``floor(n U)``
+    of uniform doubles is used as it is several times cheaper per call than
+    ``Generator.integers``; its bias (about ``n / 2**53``) is immaterial.
     """
-    return rng.integers(0, n, size=(batch, sample_size))
+    idx = (rng.random((batch, sample_size)) * n).astype(np.intp)
+    # U < 1 but n * U can round up to n for huge n; keep indices in range.
+    return np.minimum(idx, n - 1, out=idx)

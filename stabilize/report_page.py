@@ -1,0 +1,304 @@
+"""The shake report's HTML page: one self-contained file (inline CSS, images as data URIs, no
+scripts, no fonts or anything else fetched from the network), laid out to read on a phone."""
+
+from __future__ import annotations
+
+import base64
+import math
+from html import escape
+from typing import Any
+
+from . import shake
+
+_CSS = """
+:root { --ink: #24323f; --muted: #5f6b76; --line: #dde2e6; --paper: #f6f7f4;
+        --card: #ffffff; --accent: #1f6f8b; --warm: #e07b39; --warn-bg: #fff6e0;
+        --warn-line: #f2c14e; }
+* { box-sizing: border-box; }
+html { -webkit-text-size-adjust: 100%; }
+body { margin: 0; background: var(--paper); color: var(--ink);
+       font: 16px/1.5 system-ui, -apple-system, "Segoe UI", Roboto, "Helvetica Neue", Arial,
+             sans-serif; }
+main { max-width: 62rem; margin: 0 auto; padding: 1rem; }
+header { border-bottom: 3px solid var(--accent); margin-bottom: 1rem; }
+h1 { font-size: 1.6rem; margin: 0.5rem 0 0.25rem; }
+h2 { font-size: 1.2rem; margin: 1.75rem 0 0.5rem; color: var(--accent); }
+p.sub { margin: 0 0 0.75rem; color: var(--muted); }
+.cards { display: grid; grid-template-columns: repeat(auto-fit, minmax(10.5rem, 1fr));
+         gap: 0.6rem; }
+.card { background: var(--card); border: 1px solid var(--line); border-radius: 8px;
+        padding: 0.6rem 0.8rem; }
+.card .label { font-size: 0.8rem; color: var(--muted); }
+.card .value { font-size: 1.35rem; font-weight: 650; font-variant-numeric: tabular-nums; }
+.card .more { font-size: 0.85rem; color: var(--muted); }
+.scroll { overflow-x: auto; background: var(--card); border: 1px solid var(--line);
+          border-radius: 8px; }
+table { border-collapse: collapse; width: 100%; font-variant-numeric: tabular-nums; }
+th, td { padding: 0.4rem 0.7rem; text-align: right; border-bottom: 1px solid var(--line);
+         white-space: nowrap; }
+th:first-child, td:first-child { text-align: left; white-space: normal; }
+thead th { background: #eef3f5; font-weight: 600; }
+tbody tr:last-child td { border-bottom: none; }
+.notes { background: var(--warn-bg); border-left: 4px solid var(--warn-line);
+         padding: 0.5rem 1rem; border-radius: 4px; }
+.notes li, .cautions li { margin: 0.3rem 0; }
+figure { margin: 1rem 0; background: var(--card); border: 1px solid var(--line);
+         border-radius: 8px; padding: 0.5rem; }
+figure img { display: block; width: 100%; height: auto; }
+figcaption { font-size: 0.9rem; color: var(--muted); padding: 0.4rem 0.2rem 0; }
+footer { margin: 2rem 0 1rem; font-size: 0.85rem; color: var(--muted); }
+code { font-size: 0.9em; }
+@media (max-width: 30rem) {
+  body { font-size: 15px; }
+  main { padding: 0.6rem; }
+  table { font-size: 0.8rem; }
+  th, td { padding: 0.3rem 0.35rem; white-space: normal; }
+  .card .value { font-size: 1.2rem; }
+}
+"""
+
+_PLOT_CAPTIONS = {
+    "path_plot": "Camera path against time (where each frame's centre lies relative to the "
+                 "first frame) and, under each, its shake: the path minus its slow part.",
+    "spectrum_plot": "Shake spectrum (Welch power spectral density) per axis; the three "
+                     "strongest peaks are labelled. The grey range lies below the shake "
+                     "cut-off; thin lines mark the band edges.",
+    "fit_plot": "Per-frame motion fit: the share of tracked points that agree with the fitted "
+                "motion, and each frame's status.",
+    "frames_plot": "A few frames where the shake moved the picture furthest, as shot and (when "
+                   "the steadied video was found) steadied. The thin white grid sits at the "
+                   "same place in both.",
+}
+
+
+def fmt_sig(v: Any, digits: int = 3) -> str:
+    """A figure to ``digits`` significant digits (no false precision); ``n/a`` when unknown."""
+    if v is None or isinstance(v, bool) or not isinstance(v, int | float):
+        return "n/a"
+    if not math.isfinite(v):
+        return "n/a"
+    if v == 0:
+        return "0"
+    mag = math.floor(math.log10(abs(v)))
+    if mag >= 6 or mag < -4:
+        return f"{v:.{digits - 1}e}"
+    return f"{v:.{max(0, digits - 1 - mag)}f}"
+
+
+def _with(v: Any, unit: str, digits: int = 3) -> str:
+    text = fmt_sig(v, digits)
+    # A no-break space keeps a figure and its unit together when a narrow screen wraps.
+    return text if text == "n/a" else f"{text}\u00a0{unit}"
+
+
+def _hz(v: Any, resolution_hz: Any) -> str:
+    """A frequency with as many decimals as the spectrum resolves (half a bin)."""
+    if not isinstance(v, int | float) or not math.isfinite(v):
+        return "n/a"
+    res = resolution_hz if isinstance(resolution_hz, int | float) and resolution_hz > 0 else 0.1
+    decimals = min(3, max(0, math.ceil(-math.log10(res / 2.0))))
+    return f"{v:.{decimals}f}\u00a0Hz"
+
+
+def _share(count: Any, total: Any) -> str:
+    if not isinstance(count, int) or not isinstance(total, int) or total <= 0:
+        return "n/a"
+    return f"{count} ({100.0 * count / total:.1f} %)"
+
+
+def _table(head: list[str], rows: list[list[str]]) -> str:
+    th = "".join(f"<th>{escape(h)}</th>" for h in head)
+    body = "".join("<tr>" + "".join(f"<td>{escape(c)}</td>" for c in r) + "</tr>" for r in rows)
+    return f'<div class="scroll"><table><thead><tr>{th}</tr></thead><tbody>{body}</tbody>' \
+           f"</table></div>"
+
+
+def _card(label: str, value: str, more: str = "") -> str:
+    extra = f'<div class="more">{escape(more)}</div>' if more else ""
+    return (f'<div class="card"><div class="label">{escape(label)}</div>'
+            f'<div class="value">{escape(value)}</div>{extra}</div>')
+
+
+def _band_label(lo: float, hi: float | None, nyquist: float) -> str:
+    if hi is None or hi >= nyquist:
+        return f"{lo:g} Hz to Nyquist ({nyquist:g} Hz)"
+    return f"{lo:g}–{hi:g} Hz"
+
+
+def _figures_section(s: dict[str, Any]) -> str:
+    res = s.get("spectrum_resolution_hz")
+    rows = [
+        ["RMS", _with(s.get("jitter_rms_x_px"), "px"), _with(s.get("jitter_rms_y_px"), "px"),
+         _with(s.get("jitter_rms_rot_deg"), "deg")],
+        ["RMS, angle", _with(s.get("jitter_rms_x_deg"), "deg"),
+         _with(s.get("jitter_rms_y_deg"), "deg"), "—"],
+        ["peak-to-peak", _with(s.get("jitter_p2p_x_px"), "px"),
+         _with(s.get("jitter_p2p_y_px"), "px"), _with(s.get("jitter_p2p_rot_deg"), "deg")],
+        ["peak-to-peak, angle", _with(s.get("jitter_p2p_x_deg"), "deg"),
+         _with(s.get("jitter_p2p_y_deg"), "deg"), "—"],
+        ["dominant", _hz(s.get("dominant_hz_x"), res), _hz(s.get("dominant_hz_y"), res),
+         _hz(s.get("dominant_hz_rot"), res)],
+    ]
+    if s.get("jitter_rms_x_px_out") is not None or s.get("jitter_rms_rot_deg_out") is not None:
+        rows.append(["RMS after steadying", _with(s.get("jitter_rms_x_px_out"), "px"),
+                     _with(s.get("jitter_rms_y_px_out"), "px"),
+                     _with(s.get("jitter_rms_rot_deg_out"), "deg")])
+    return _table(["shake", "x", "y", "rotation"], rows)
+
+
+def _bands_section(s: dict[str, Any]) -> str:
+    nyquist = float(s.get("nyquist_hz") or 0.0)
+    totals = {}
+    for axis in shake.AXES:
+        vals = [s.get(shake.band_key(axis, lo, hi)) for lo, hi in shake.SHAKE_BANDS_HZ]
+        totals[axis] = sum(v for v in vals if isinstance(v, int | float)) or None
+    rows = []
+    for lo, hi in shake.SHAKE_BANDS_HZ:
+        if lo >= nyquist:
+            rows.append([f"{lo:g} Hz and up", "not measurable", "not measurable",
+                         "not measurable"])
+            continue
+        row = [_band_label(lo, hi, nyquist)]
+        for axis in shake.AXES:
+            v = s.get(shake.band_key(axis, lo, hi))
+            unit = shake.axis_unit(axis) + "²"
+            share = ("" if not totals[axis] or v is None
+                     else f" ({100.0 * v / totals[axis]:.0f}\u00a0%)")
+            row.append(_with(v, unit, 2) + share)
+        rows.append(row)
+    return _table(["band", "x", "y", "rotation"], rows)
+
+
+def _steady_section(s: dict[str, Any]) -> str:
+    if "cropping_ratio" not in s:
+        return ("<p>The log holds no steadied path (it was written by <code>measure</code>); "
+                "run <code>stabilize steady</code> for the figures of the output.</p>"
+                + _table(["figure", "value"], [
+                    ["stability, translation (1 = steady)",
+                     fmt_sig(s.get("stability_translation"))],
+                    ["stability, rotation (1 = steady)", fmt_sig(s.get("stability_rotation"))],
+                ]))
+    rows = [
+        ["stability, translation (1 = steady)", fmt_sig(s.get("stability_translation_in")),
+         fmt_sig(s.get("stability_translation_out"))],
+        ["stability, rotation (1 = steady)", fmt_sig(s.get("stability_rotation_in")),
+         fmt_sig(s.get("stability_rotation_out"))],
+    ]
+    extra = [
+        ["cropping ratio (1 = nothing cut)", fmt_sig(s.get("cropping_ratio"))],
+        ["distortion (1 = no stretch)", fmt_sig(s.get("distortion"))],
+        ["margin cut from each side", fmt_sig(s.get("margin"))],
+        ["frames whose correction was eased", str(s.get("frames_correction_eased", "n/a"))],
+    ]
+    return (_table(["figure", "as shot", "steadied"], rows) + "<p></p>"
+            + _table(["after steadying", "value"], extra))
+
+
+def _uncertainty_section(s: dict[str, Any], notes: list[str]) -> str:
+    n = s.get("frames")
+    rows = [
+        ["frames", str(n)],
+        ["weak (few or bunched inliers)", _share(s.get("frames_weak"), n)],
+        ["failed (stand-in motion)", _share(s.get("frames_failed"), n)],
+        ["scene cuts", str(s.get("cuts", "n/a"))],
+        ["median inlier share", fmt_sig(s.get("inlier_ratio_median"))],
+        ["median fit residual", _with(s.get("fit_rms_px_median"), "px")],
+        ["frequency resolution", _with(s.get("spectrum_resolution_hz"), "Hz")],
+        ["highest measurable frequency (Nyquist)", _with(s.get("nyquist_hz"), "Hz")],
+    ]
+    body = _table(["measurement", "value"], rows)
+    if notes:
+        items = "".join(f"<li>{escape(t)}</li>" for t in notes)
+        body += f'<div class="notes"><strong>Notes on this clip</strong><ul>{items}</ul></div>'
+    return body
+
+
+def render_page(*, name: str, source: dict[str, Any], summary: dict[str, Any], notes: list[str],
+                settings: dict[str, Any], cautions: tuple[str, ...], images: dict[str, bytes],
+                log_name: str | None, tool_version: str) -> str:
+    """The report page as one HTML string.
+
+    Parameters
+    ----------
+    name : the clip's NAME.
+    source, summary, settings : as in the motion log's JSON (summary with the report's extra
+        figures).
+    notes : notes on this clip's uncertainty; cautions : the standing cautions.
+    images : PNG bytes by plot role (``path_plot`` …), embedded as base64 data URIs.
+    log_name : file name of the motion log the figures come from.
+    tool_version : the version that wrote the report.
+    """
+    s = summary
+    res = s.get("spectrum_resolution_hz")
+    w, h = source.get("width"), source.get("height")
+    fps = s.get("fps") or source.get("fps")
+    duration = source.get("duration_s")
+    sub = (f"{w}×{h} px, {fmt_sig(fps, 4)} frames per second, {s.get('frames')} frames"
+           + (f", {fmt_sig(duration)} s" if duration else "")
+           + (f" — figures from {log_name}" if log_name else ""))
+    x_deg = s.get("jitter_rms_x_deg")
+    fov = settings.get("fov_deg")
+    fov_text = ("No field of view was given (--fov-deg), so there are no figures in degrees."
+                if fov is None else
+                f"Figures in degrees use the horizontal field of view of {fmt_sig(fov)} deg.")
+    uncertain = (s.get("frames_weak_share") or 0.0) + (s.get("frames_failed_share") or 0.0)
+    cards = "".join([
+        _card("horizontal shake (RMS)", _with(s.get("jitter_rms_x_px"), "px"),
+              "" if x_deg is None else f"{fmt_sig(x_deg)} deg"),
+        _card("vertical shake (RMS)", _with(s.get("jitter_rms_y_px"), "px"),
+              "" if s.get("jitter_rms_y_deg") is None else f"{fmt_sig(s['jitter_rms_y_deg'])} deg"),
+        _card("rotation shake (RMS)", _with(s.get("jitter_rms_rot_deg"), "deg")),
+        _card("dominant shake frequency", _hz(s.get("dominant_hz_x"), res),
+              f"horizontal; vertical {_hz(s.get('dominant_hz_y'), res)}, rotation "
+              f"{_hz(s.get('dominant_hz_rot'), res)}"),
+        _card("weak or failed frames", f"{100.0 * uncertain:.1f} %",
+              f"{s.get('frames_weak', 0)} weak, {s.get('frames_failed', 0)} failed"),
+    ])
+    plots = "".join(
+        f'<figure><img alt="{escape(role.replace("_", " "))}" '
+        f'src="data:image/png;base64,{base64.b64encode(data).decode("ascii")}">'
+        f"<figcaption>{escape(_PLOT_CAPTIONS.get(role, ''))}</figcaption></figure>"
+        for role, data in images.items()
+    )
+    settings_rows = [[k, "—" if v is None else str(v)] for k, v in settings.items()]
+    caution_items = "".join(f"<li>{escape(c)}</li>" for c in cautions)
+    return f"""<!DOCTYPE html>
+<html lang="en">
+<head>
+<meta charset="utf-8">
+<meta name="viewport" content="width=device-width, initial-scale=1">
+<meta http-equiv="Content-Security-Policy"
+ content="default-src 'none'; img-src data:; style-src 'unsafe-inline'">
+<title>Shake report: {escape(name)}</title>
+<style>{_CSS}</style>
+</head>
+<body>
+<main>
+<header>
+<h1>Shake report: {escape(name)}</h1>
+<p class="sub">{escape(sub)}</p>
+</header>
+<section><h2>Key figures</h2><div class="cards">{cards}</div></section>
+<section><h2>How certain these figures are</h2>{_uncertainty_section(s, notes)}</section>
+<section><h2>Shake per axis</h2>
+<p>Shake is the camera path's motion above {_with(s.get("shake_above_hz"), "Hz")}: the path minus
+its slow, deliberate part; x is horizontal, y vertical. {fov_text}</p>
+{_figures_section(s)}</section>
+<section><h2>Shake power by frequency band</h2>
+<p>Power in each band (its share of the axis's total in brackets); the bands add up to the
+shake RMS squared. Motion below the shake cut-off is not counted, so the lowest band is small
+unless the cut-off is lowered.</p>
+{_bands_section(s)}</section>
+<section><h2>Steadiness</h2>
+<p>Stability: the share of the per-frame motion's spectral energy at the lowest frequencies
+(after Liu, Yuan, Tan and Sun, SIGGRAPH 2013); 1 means steady.</p>
+{_steady_section(s)}</section>
+<section><h2>Plots</h2>{plots}</section>
+<section><h2>Settings used</h2>{_table(["setting", "value"], settings_rows)}</section>
+<section class="cautions"><h2>Cautions</h2><ul>{caution_items}</ul></section>
+<footer>Written by stabilize {escape(tool_version)}. This page needs no network: every image
+is inside the file.</footer>
+</main>
+</body>
+</html>
+"""

@@ -1,0 +1,83 @@
+import numpy as np
+import pytest
+from consensus_data import HEIGHT, WIDTH, apply, random_motion
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from stabilize.consensus import MODELS, estimate, grid_transfer_error
+from stabilize.consensus.models import normalisation
+
+NAMES = ("translation", "similarity", "affine", "homography")
+
+
+def test_minimal_sample_sizes():
+    # Minimal samples: 1 point (2 dof), 2 (4 dof), 3 (6 dof), 4 (8 dof).
+    assert {k: m.sample_size for k, m in MODELS.items()} == {
+        "translation": 1, "similarity": 2, "affine": 3, "homography": 4}
+    assert {k: m.dof for k, m in MODELS.items()} == {
+        "translation": 2, "similarity": 4, "affine": 6, "homography": 8}
+
+
+def _well_spread(rng: np.random.Generator, s: int) -> np.ndarray:
+    """s points, one per quadrant-ish region, so no three are nearly collinear."""
+    anchors = np.array([[0.2, 0.2], [0.8, 0.25], [0.75, 0.8], [0.25, 0.75]])[:s]
+    return (anchors + rng.uniform(-0.1, 0.1, (s, 2))) * (WIDTH, HEIGHT)
+
+
+def _solve_pixels(model: str, src: np.ndarray, dst: np.ndarray):
+    """Minimal solver on normalised points, result mapped back to pixels."""
+    norm, z, _ = normalisation(src.T, dst.T)
+    h, valid = MODELS[model].solve(z[:4, None, :])
+    h_px = norm.t_dst_inv() @ h[0] @ norm.t_src()
+    with np.errstate(all="ignore"):  # degenerate samples may give h33 = 0
+        return h_px / h_px[2, 2], bool(valid[0])
+
+
+@pytest.mark.parametrize("model", NAMES)
+@settings(max_examples=25, deadline=None)
+@given(seed=st.integers(0, 2**32 - 1))
+def test_minimal_sample_recovered_exactly(model, seed):
+    rng = np.random.default_rng(seed)
+    h = random_motion(rng, model)
+    s = MODELS[model].sample_size
+    src = _well_spread(rng, s)
+    dst = apply(h, src)
+    h_est, valid = _solve_pixels(model, src, dst)
+    assert valid
+    assert grid_transfer_error(h, h_est, WIDTH, HEIGHT) < 1e-6
+    np.testing.assert_allclose(h_est, h, rtol=1e-7, atol=1e-9)
+
+
+@pytest.mark.parametrize("model", NAMES)
+@settings(max_examples=10, deadline=None)
+@given(seed=st.integers(0, 2**32 - 1))
+def test_noise_free_points_recovered_exactly_by_estimate(model, seed):
+    rng = np.random.default_rng(seed)
+    h = random_motion(rng, model)
+    src = rng.uniform((0, 0), (WIDTH - 1, HEIGHT - 1), (30, 2))
+    fit = estimate(src, apply(h, src), model=model, seed=seed, frame_size=(WIDTH, HEIGHT))
+    assert fit.ok and fit.inliers.all()
+    assert grid_transfer_error(h, fit.matrix, WIDTH, HEIGHT) < 1e-6
+
+
+@pytest.mark.parametrize("model", ("affine", "homography"))
+def test_collinear_sample_rejected(model):
+    s = MODELS[model].sample_size
+    src = np.stack([np.linspace(0, 1000, s), np.linspace(0, 500, s)], axis=1)
+    _, valid = _solve_pixels(model, src, src + 3.0)
+    assert not valid
+
+
+def test_reflected_sample_rejected():
+    src = _well_spread(np.random.default_rng(0), 4)
+    mirrored = src * (-1.0, 1.0) + (WIDTH, 0.0)
+    for model in ("affine", "homography"):
+        s = MODELS[model].sample_size
+        _, valid = _solve_pixels(model, src[:s], mirrored[:s])
+        assert not valid
+
+
+def test_coincident_sample_rejected():
+    src = np.array([[100.0, 100.0], [100.0, 100.0]])
+    _, valid = _solve_pixels("similarity", src, src + 1.0)
+    assert not valid

@@ -1,0 +1,207 @@
+"""The shake report: its files, its figures, and the page as a real browser shows it."""
+
+from __future__ import annotations
+
+import json
+import os
+import re
+import shutil
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from stabilize import shake
+from stabilize.config import Settings
+from stabilize.errors import StabilizeError
+from stabilize.log import MotionLog, frame_centre
+from stabilize.path import from_similarity
+from stabilize.report import make_report, report_name
+
+from .conftest import noise_frames, write_clip
+
+W, H, FPS = 640, 360, 30.0
+
+
+def _sine_log(folder: Path, f_hz: float = 3.5, seconds: float = 10.0,
+              fov_deg: float | None = 70.0) -> Path:
+    """A motion log of a camera panning with sinusoidal shake, written without any video."""
+    n = int(FPS * seconds)
+    t = np.arange(n) / FPS
+    x = 4.0 * np.sin(2 * np.pi * f_hz * t) + 12.0 * t
+    y = 2.0 * np.sin(2 * np.pi * f_hz * t + 1.0)
+    rot = np.radians(0.2) * np.sin(2 * np.pi * f_hz * t)
+    path = from_similarity(np.stack([x, y, rot, 0 * t], axis=1), frame_centre(W, H))
+    a = np.linalg.inv(path)  # A_t: frame 0 -> frame t
+    h = np.repeat(np.eye(3)[None], n, axis=0)
+    h[1:] = a[1:] @ np.linalg.inv(a[:-1])
+    h /= h[:, 2:3, 2:3]
+    status = np.array(["ok"] * n, dtype=object)
+    status[40:46] = "weak"
+    status[200] = "failed"
+    status = status.astype(str)
+    tracked = np.full(n, 200)
+    inliers = np.where(status == "ok", 180, 40)
+    settings = Settings(fov_deg=fov_deg).to_dict()
+    summary = shake.summarise(matrices=h, path=path, status=status, fps=FPS, width=W, height=H,
+                              above_hz=1.0, fov_deg=fov_deg)
+    log = MotionLog(time_s=t, matrices=h, tracked=tracked, inliers=inliers,
+                    inlier_ratio=inliers / tracked, rms_px=np.full(n, 0.3),
+                    rounds=np.full(n, 20), status=status,
+                    source={"path": str(folder / "not-here.mp4"), "width": W, "height": H,
+                            "fps": FPS, "frames": n, "duration_s": seconds},
+                    settings=settings, summary=summary)
+    csv_path, _ = log.save(folder / "sine pass.motion.csv")
+    return csv_path
+
+
+@pytest.fixture(scope="module")
+def sine_report(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("report")
+    log = _sine_log(folder)
+    return log, make_report(log, folder / "out")
+
+
+def test_report_writes_its_files_with_the_figures(sine_report):
+    log, rep = sine_report
+    out = log.parent / "out"
+    names = sorted(p.name for p in out.iterdir())
+    assert names == ["sine pass.fit.png", "sine pass.path.png", "sine pass.report.html",
+                     "sine pass.shake.json", "sine pass.spectrum.png"]
+    doc = json.loads((out / "sine pass.shake.json").read_text())
+    s = doc["summary"]
+    assert doc["format"] == "stabilize-shake-report"
+    assert doc["settings"]["fov_deg"] == 70.0 and doc["settings"]["shake_above_hz"] == 1.0
+    assert s["dominant_hz_x"] == pytest.approx(3.5, abs=0.1)
+    assert s["jitter_rms_x_px"] == pytest.approx(4.0 / np.sqrt(2), rel=0.05)
+    assert s["jitter_rms_x_deg"] is not None
+    assert s["shake_power_x_3_6hz_px2"] > 0.9 * s["jitter_rms_x_px"] ** 2
+    assert s["frames_weak"] == 6 and s["frames_failed"] == 1
+    assert any("stand-in" in n for n in doc["notes"])
+    assert any("half the frame rate" in c for c in doc["cautions"])
+    for png in out.glob("*.png"):
+        assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    assert not list(out.glob(".*partial*"))
+    assert rep.outputs["html"] == out / "sine pass.report.html"
+
+
+def test_the_page_is_self_contained(sine_report):
+    log, _ = sine_report
+    html = (log.parent / "out" / "sine pass.report.html").read_text()
+    assert html.count('src="data:image/png;base64,') == 3
+    assert not re.search(r"""(src|href)\s*=\s*["']?(https?:|//)""", html)
+    assert "<script" not in html and "<link" not in html and "@import" not in html
+    assert 'name="viewport"' in html and "@media" in html
+    for words in ("Nyquist", "qualified people", "aviation rules", "weak or failed"):
+        assert words in html
+
+
+def test_existing_outputs_are_kept_without_force(sine_report):
+    log, _ = sine_report
+    out = log.parent / "out"
+    before = (out / "sine pass.report.html").stat().st_mtime_ns
+    with pytest.raises(StabilizeError, match="already exists.*--force"):
+        make_report(log, out)
+    assert (out / "sine pass.report.html").stat().st_mtime_ns == before
+    wide = json.loads((out / "sine pass.shake.json").read_text())["summary"]
+    rep = make_report(log.with_suffix(".json"), out, force=True, fov_deg=40.0)
+    # A narrower field of view (a longer lens) makes the same pixels a smaller angle.
+    ratio = np.tan(np.radians(35.0)) / np.tan(np.radians(20.0))
+    assert rep.summary["jitter_rms_x_deg"] == pytest.approx(wide["jitter_rms_x_deg"] / ratio,
+                                                            rel=0.01)
+    assert rep.summary["jitter_rms_x_px"] == pytest.approx(wide["jitter_rms_x_px"])
+    assert rep.settings["fov_deg"] == 40.0
+    make_report(log, out, force=True)  # as before, for the other tests
+
+
+def test_report_names():
+    assert report_name(Path("a/flight 2.motion.csv")) == "flight 2"
+    assert report_name(Path("flight.motion.json")) == "flight"
+    assert report_name(Path("flight.mp4")) == "flight"
+
+
+def _run(*args: str) -> subprocess.CompletedProcess:
+    return subprocess.run([sys.executable, "-m", "stabilize", *args], capture_output=True,
+                          text=True, timeout=300)
+
+
+def test_cli_report_of_a_clip_measures_it_first_and_shows_frames(tmp_path):
+    clip = write_clip(tmp_path / "pan.mp4", noise_frames(36, 192, 144, shift_px=1.2), 24.0)
+    proc = _run("report", str(clip), "--quiet", "--fov-deg", "80")
+    assert proc.returncode == 0, proc.stderr
+    for name in ("pan.motion.csv", "pan.motion.json", "pan.shake.json", "pan.report.html",
+                 "pan.path.png", "pan.spectrum.png", "pan.fit.png", "pan.frames.png"):
+        assert (tmp_path / name).is_file(), name
+        assert str(tmp_path / name) in proc.stdout
+    assert "shake x" in proc.stdout
+    doc = json.loads((tmp_path / "pan.shake.json").read_text())
+    assert doc["source"]["fps"] == pytest.approx(24.0)
+    assert doc["summary"]["nyquist_hz"] == pytest.approx(12.0)
+    # The second time the log beside the clip is read; the report itself is not replaced.
+    again = _run("report", str(clip), "--quiet")
+    assert again.returncode == 2 and "already exists" in again.stderr
+    assert len([ln for ln in again.stderr.splitlines() if ln.strip()]) == 1
+    other = tmp_path / "elsewhere"
+    proc = _run("report", str(clip), "--quiet", "--out", str(other))
+    assert proc.returncode == 0, proc.stderr
+    assert (other / "pan.report.html").is_file() and not (other / "pan.motion.csv").exists()
+
+
+def test_cli_report_errors_are_one_line(tmp_path):
+    proc = _run("report", str(tmp_path / "missing.motion.csv"))
+    assert proc.returncode == 2 and "missing.motion.csv" in proc.stderr
+    assert "Traceback" not in proc.stderr
+    bad = tmp_path / "bad.motion.csv"
+    bad.write_text("frame,time_s\n0,0\n")
+    proc = _run("report", str(bad))
+    assert proc.returncode == 2 and "bad.motion" in proc.stderr
+    assert len([ln for ln in proc.stderr.splitlines() if ln.strip()]) == 1
+
+
+# ------------------------------------------------------------------ in a browser
+def _chromium() -> str:
+    exe = shutil.which("chromium") or ("/usr/bin/chromium" if Path("/usr/bin/chromium").is_file()
+                                       else None)
+    if exe is None:
+        if os.environ.get("CI"):
+            pytest.fail("chromium is missing; .ci/run installs Debian's chromium package")
+        pytest.skip("chromium is not installed (CI installs it)")
+    return exe
+
+
+def _browser(exe: str, profile: Path, *args: str) -> subprocess.CompletedProcess:
+    flags = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
+             "--disable-background-networking", "--disable-component-update", "--disable-sync",
+             f"--user-data-dir={profile}", "--hide-scrollbars"]
+    return subprocess.run([exe, *flags, *args], capture_output=True, text=True, timeout=120)
+
+
+def test_the_page_in_a_real_browser(sine_report, tmp_path):
+    exe = _chromium()
+    log, rep = sine_report
+    url = rep.outputs["html"].resolve().as_uri()
+    dom = _browser(exe, tmp_path / "profile-dom", "--dump-dom", url)
+    assert dom.returncode == 0, dom.stderr[-2000:]
+    text = dom.stdout.replace("&nbsp;", " ").replace("\u00a0", " ")
+    s = rep.summary
+    assert "Shake report: sine pass" in text
+    assert f"{s['jitter_rms_x_px']:.2f} px" in text  # 3 significant digits of 2.83 px
+    assert "3.50 Hz" in text  # the dominant frequency, to the spectrum's resolution
+    assert text.count("data:image/png;base64,") == 3
+    assert "Nyquist" in text and "aviation rules" in text
+    shot = tmp_path / "page.png"
+    for width, height in ((1200, 3000), (390, 3000)):  # a laptop and a phone
+        proc = _browser(exe, tmp_path / f"profile-{width}", f"--window-size={width},{height}",
+                        f"--screenshot={shot}", url)
+        assert proc.returncode == 0 and shot.is_file(), proc.stderr[-2000:]
+        import cv2
+
+        img = cv2.imread(str(shot))
+        assert img.shape[:2] == (height, width)
+        not_white = np.mean(np.any(img < 235, axis=2))
+        colours = len(np.unique(img.reshape(-1, 3), axis=0))
+        assert not_white > 0.05, not_white  # text, cards and plots, not a blank page
+        assert colours > 500, colours  # the plots' anti-aliased lines, not flat fills
+        shot.unlink()
