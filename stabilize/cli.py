@@ -208,21 +208,26 @@ def run(args: argparse.Namespace) -> int:
         report = make_report(args.clip_or_log, args.out, config=args.config,
                              progress=progress, **opts)
         _print_summary(report.summary)
-        for note in report.notes:
-            print(f"note: {note}")
-        labels = {"json": "figures", "html": "report", "log_csv": "motion log",
-                  "log_json": "motion log"}
-        for role, path in report.outputs.items():
-            print(f"{labels.get(role, 'plot')}: {path}")
+        _report_files(report)
     elif args.command == "batch":
         raise StabilizeError(f"'{args.command}' is not available in this version yet")
     elif args.command == "demo":
         from .demo import run_demo
 
-        motion = run_demo(args.out, config=args.config, progress=progress, **opts)
+        motion, report = run_demo(args.out, config=args.config, progress=progress, **opts)
         _report_written(motion)
+        _report_files(report)
         print("demo done: the clip is an invented, procedurally drawn scene")
     return EXIT_OK
+
+
+def _report_files(report) -> None:
+    for note in report.notes:
+        print(f"note: {note}")
+    labels = {"json": "figures", "html": "report", "log_csv": "motion log",
+              "log_json": "motion log"}
+    for role, path in report.outputs.items():
+        print(f"{labels.get(role, 'plot')}: {path}")
 
 
 def _report_written(motion) -> None:

@@ -28,13 +28,18 @@ def demo_clip(out_dir: Path) -> Path:
 
 
 def run_demo(out: str | Path | None = None, *, config: str | None = None,
-             progress: Any = None, **options: Any) -> MotionLog:
-    """Steady the demo clip into ``out`` (default ``./stabilize-demo``); returns its log."""
+             progress: Any = None, **options: Any) -> tuple[MotionLog, Any]:
+    """Steady the demo clip into ``out`` (default ``./stabilize-demo``) and write its shake
+    report there; returns the log and the report."""
     from .pipeline import steady
+    from .report import make_report
 
     out_dir = Path(out) if out else Path("stabilize-demo")
     out_dir.mkdir(parents=True, exist_ok=True)
     clip = demo_clip(out_dir)
     options.setdefault("force", True)
     video = out_dir / f"{clip.stem}.steady.mp4"
-    return steady(clip, video, config=config, progress=progress, **options)
+    motion = steady(clip, video, config=config, progress=progress, **options)
+    report = make_report(motion.extra["outputs"]["log_csv"], out_dir, config=config,
+                         **options)
+    return motion, report

@@ -320,7 +320,7 @@ def _figure(width_in: float, height_in: float):
         from matplotlib.figure import Figure
     except ImportError:  # an optional dependency: say how to get it
         raise StabilizeError(
-            "the report needs matplotlib: pip install 'stabilize[plots]'") from None
+            "the report needs matplotlib: pip install matplotlib") from None
     fig = Figure(figsize=(width_in, height_in), dpi=110, layout="constrained")
     FigureCanvasAgg(fig)
     return fig

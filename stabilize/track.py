@@ -27,15 +27,16 @@ class TrackSettings:
 
     ``max_corners`` is the number of live tracks aimed for; ``grid`` the (columns, rows) of
     the bucketing grid; ``quality_floor`` the weakest corner considered, as a share of the
-    strongest (each cell then keeps its own strongest); ``min_distance_frac`` the minimum corner spacing as a share of the frame
-    width; ``fb_max_px`` the largest forward–backward error kept; ``photo_max`` the largest mean
-    absolute patch difference (grey levels) kept; ``reseed_share`` re-seeds when live tracks
-    fall below this share of ``max_corners``, ``empty_cells_share`` when more than this share
-    of the grid cells that had corners lost them all.
+    strongest (each cell then keeps its own strongest); ``min_distance_frac`` the minimum
+    corner spacing as a share of the frame width; ``fb_max_px`` the largest forward–backward
+    error kept; ``photo_max`` the largest mean absolute patch difference (grey levels) kept;
+    ``reseed_share``: re-seed when live tracks fall below this share of ``max_corners``;
+    ``empty_cells_share``: re-seed when more than this share of the grid cells that had
+    corners lost them all; ``min_eig``: Lucas–Kanade's minimum eigenvalue threshold.
     """
 
     max_corners: int = 1500
-    quality_floor: float = 0.001
+    quality_floor: float = 0.003
     min_distance_frac: float = 1.0 / 160.0
     block_size: int = 7
     win_size: int = 21

@@ -102,7 +102,6 @@ def test_input_is_never_touched(clip):
 
 
 def test_reserved_commands_say_so(clip, tmp_path):
-    _one_line_error(run("report", str(clip)), "report")
     _one_line_error(run("batch", str(clip.parent), "--out-dir", str(tmp_path)), "batch")
 
 
@@ -112,6 +111,9 @@ def test_demo_runs_and_says_where_the_outputs_are(tmp_path):
     outs = [Path(line.split(": ", 1)[1]) for line in proc.stdout.splitlines()
             if line.startswith(("video:", "motion log:"))]
     assert len(outs) == 3 and all(p.is_file() for p in outs)
+    report = [Path(line.split(": ", 1)[1]) for line in proc.stdout.splitlines()
+              if line.startswith("report:")]
+    assert len(report) == 1 and report[0].suffix == ".html" and report[0].is_file()
     assert any(p.suffix == ".mp4" for p in outs)
     summary = json.loads(next(p for p in outs if p.suffix == ".json").read_text())["summary"]
     assert summary["frames_failed"] == 0
