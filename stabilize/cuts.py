@@ -1,9 +1,14 @@
 """Scene cuts: consecutive frames that do not show the same scene.
 
-A cut is declared when two independent signs agree: the grey-level histograms of the two
-frames differ strongly (Bhattacharyya distance), and tracking between them collapsed. Either
-sign alone is common without a cut (a pan into the sky changes the histogram slowly; motion
-blur loses tracks), so both are required.
+A cut is declared when tracking between two frames collapsed *and* the pictures differ: their
+grey-level histograms are far apart (Bhattacharyya distance), or they are moderately apart and
+whole-frame phase correlation finds no shift that maps one onto the other. Either sign alone is
+common without a cut (a pan into the sky changes the histogram slowly; motion blur loses
+tracks), so both kinds are required.
+
+Textureless frames (plain sky, water, fog, a lens cap) are told apart from cuts by their corner
+strength: the 99th percentile of the Shi–Tomasi minimum eigenvalue falls far below what the
+clip's textured frames showed.
 """
 
 from __future__ import annotations
@@ -23,6 +28,10 @@ class CutSettings:
     histogram_distance: float = 0.35
     survival_share: float = 0.25
     bins: int = 32
+    weak_histogram_distance: float = 0.1
+    min_phase_response: float = 0.1
+    textureless_ratio: float = 0.05
+    textureless_floor: float = 1e-4
 
 
 def grey_histogram(gray: np.ndarray, bins: int = 32) -> np.ndarray:
@@ -36,8 +45,31 @@ def histogram_distance(a: np.ndarray, b: np.ndarray) -> float:
     return float(cv2.compareHist(a, b, cv2.HISTCMP_BHATTACHARYYA))
 
 
-def is_cut(distance: float, survived: int, offered: int, settings: CutSettings) -> bool:
-    """Whether a frame starts a new scene, from its histogram distance to the previous frame
-    and how many of the offered tracks survived."""
-    collapsed = offered == 0 or survived < settings.survival_share * offered
-    return distance > settings.histogram_distance and collapsed
+def collapsed(survived: int, offered: int, settings: CutSettings) -> bool:
+    """Whether tracking between two frames collapsed (few of the offered tracks survived)."""
+    return offered == 0 or survived < settings.survival_share * offered
+
+
+def is_cut(distance: float, phase_response: float | None, settings: CutSettings) -> bool:
+    """Whether a frame whose tracking collapsed starts a new scene, from its histogram
+    distance to the previous frame and the phase-correlation peak response between them
+    (None when not measured)."""
+    if distance > settings.histogram_distance:
+        return True
+    return (phase_response is not None and phase_response < settings.min_phase_response
+            and distance > settings.weak_histogram_distance)
+
+
+def corner_strength(gray: np.ndarray) -> float:
+    """99th percentile of the Shi–Tomasi minimum eigenvalue on a half-size copy: how much
+    trackable texture a frame has (larger is more)."""
+    small = cv2.pyrDown(gray)
+    return float(np.percentile(cv2.cornerMinEigenVal(small, 5), 99))
+
+
+def is_textureless(strength: float, reference: float | None, settings: CutSettings) -> bool:
+    """Whether a frame has too little texture to measure motion, relative to the clip's
+    textured frames (``reference``) or, before any, an absolute floor."""
+    if reference is None:
+        return strength < settings.textureless_floor
+    return strength < settings.textureless_ratio * reference

@@ -20,7 +20,15 @@ import numpy as np
 
 from .config import Settings
 from .consensus import estimate
-from .cuts import CutSettings, grey_histogram, histogram_distance, is_cut
+from .cuts import (
+    CutSettings,
+    collapsed,
+    corner_strength,
+    grey_histogram,
+    histogram_distance,
+    is_cut,
+    is_textureless,
+)
 from .log import frame_centre
 from .overlays import OverlayFinder
 from .path import from_similarity, to_similarity
@@ -38,6 +46,11 @@ from .video import Frame
 MIN_SIDE_PX = 24
 # A track whose history says it moved with the camera at least this often is "background".
 BACKGROUND_HISTORY = 0.65
+# Tight threshold in units of the tracking noise σ: sqrt(5.99), the 95% point of a χ² with
+# two degrees of freedom, the usual choice for a transfer error (Hartley and Zisserman,
+# Multiple View Geometry, 2nd ed., 2004, Sec. 4.7.1, t² = 5.99 σ²; value from memory, equal to
+# scipy.stats.chi2.ppf(0.95, 2)).
+TIGHT_K = 2.447
 
 
 @dataclass
@@ -143,12 +156,22 @@ def fit_frame(src: np.ndarray, dst: np.ndarray, background: np.ndarray, *,
                     float(fit.rms_px), int(fit.rounds), bool(fit.ok), bool(fit.weak))
     if not best.ok:
         return best
+    # Two motions less than the threshold apart are both inliers of a compromise between
+    # them, and a least-squares refit settles on that compromise. A second consensus at a
+    # third of the threshold finds the dominant one of the two instead.
+    mode = estimate(src, dst, seed=[*seed, 5], prior=best.matrix,
+                    **{**kw, "inlier_px": settings.inlier_px / 3.0})
+    if mode.ok and mode.inliers.sum() >= 0.3 * best.inliers.sum():
+        found = _candidate(mode, src, dst, settings.inlier_px)
+        if found is not None:
+            best = dataclasses.replace(found, rounds=best.rounds + found.rounds,
+                                       weak=best.weak or found.weak)
     best = _noise_adaptive_refit(src, dst, best, kw, seed)
     n = len(src)
     # Rivals are sought at the noise scale of the first fit: two motions a pixel apart both
     # pass a 1.5 px threshold, but not a threshold of a few tenths.
     err = transfer_error(best.matrix, src, dst)
-    noise_px = min(settings.inlier_px, max(0.05, 3.03 * float(np.median(err[best.support]))
+    noise_px = min(settings.inlier_px, max(0.05, TIGHT_K * float(np.median(err[best.support]))
                                            / 1.1774))
     kw_rival = {**kw, "inlier_px": noise_px}
     rivals: list[FrameFit | None] = []
@@ -184,10 +207,8 @@ def _noise_adaptive_refit(src: np.ndarray, dst: np.ndarray, fit: FrameFit, kw: d
     errors several times the real tracking noise (edges of moving objects, compression
     artefacts); they bias the least-squares refit. The noise σ is estimated from the median
     residual of the current tight set (for 2-D Gaussian errors the median distance is
-    1.1774 σ), and the refit keeps residuals below 3.03 σ: the 99% point of a χ² with two
-    degrees of freedom (t² = 9.21 σ², Hartley and Zisserman, Multiple View Geometry, 2nd ed.,
-    2004, Sec. 4.7.1; the value is from memory and equals scipy.stats.chi2.ppf(0.99, 2)).
-    A few passes let σ settle once the worst matches are gone.
+    1.1774 σ), and the refit keeps residuals below ``TIGHT_K`` σ. A few passes let σ settle
+    once the worst matches are gone.
     """
     if fit.inliers.sum() < 12:
         return fit
@@ -197,7 +218,7 @@ def _noise_adaptive_refit(src: np.ndarray, dst: np.ndarray, fit: FrameFit, kw: d
     for k in range(passes):
         err = transfer_error(m, src, dst)
         sigma = float(np.median(err[tight_set])) / 1.1774
-        tight = min(kw["inlier_px"], max(3.03 * sigma, 0.05))
+        tight = min(kw["inlier_px"], max(TIGHT_K * sigma, 0.05))
         if tight >= kw["inlier_px"] * 0.999:
             break
         again = estimate(src, dst, seed=[*seed, 2, k], prior=m,
@@ -249,6 +270,7 @@ def analyse(
     status: list[str] = []
     prior: np.ndarray | None = None
     prev_hist: np.ndarray | None = None
+    texture_ref: float | None = None
     for frame in frames:
         t = len(times)
         times.append(frame.time_s)
@@ -268,18 +290,37 @@ def analyse(
         predicted = None if prior is None else to_analysis(prior, scale)
         pairs = tracker.step(frame.image, predicted)
         offered = tracker.live
-        if offered and len(pairs) < cuts_cfg.survival_share * offered:
-            pairs = _restart_fast_motion(tracker, pairs)
-        if is_cut(distance, len(pairs), offered, cuts_cfg):
-            mats.append(np.eye(3))
-            diag.append((len(pairs), 0, 0.0, 0.0, 0))
-            status.append("cut")
-            tracker.update(None)
-            tracker.reset()
-            prior = None
-            if on_frame:
-                on_frame(1)
-            continue
+        strength = None
+        if t % 15 == 1:
+            strength = corner_strength(frame.image)
+            if texture_ref is None or not is_textureless(strength, texture_ref, cuts_cfg):
+                texture_ref = strength if texture_ref is None else (
+                    0.8 * texture_ref + 0.2 * strength)
+        if collapsed(len(pairs), offered, cuts_cfg):
+            response = None
+            if offered:
+                pairs, response = _restart_fast_motion(tracker, pairs)
+            if collapsed(len(pairs), offered, cuts_cfg) and is_cut(distance, response, cuts_cfg):
+                mats.append(np.eye(3))
+                diag.append((len(pairs), 0, 0.0, 0.0, 0))
+                status.append("cut")
+                tracker.update(None)
+                tracker.reset()
+                prior = None
+                if on_frame:
+                    on_frame(1)
+                continue
+        if len(pairs) < 0.3 * tracker.settings.max_corners:
+            strength = corner_strength(frame.image) if strength is None else strength
+            if is_textureless(strength, texture_ref, cuts_cfg):
+                mats.append(np.eye(3))
+                diag.append((len(pairs), 0, 0.0, 0.0, 0))
+                status.append("failed")
+                tracker.update(None)
+                prior = None
+                if on_frame:
+                    on_frame(1)
+                continue
         src = to_full_resolution(pairs.src, scale)
         dst = to_full_resolution(pairs.dst, scale)
         fit = fit_frame(src, dst, pairs.background, settings=settings,
@@ -314,18 +355,19 @@ def analyse(
     return track
 
 
-def _restart_fast_motion(tracker: Tracker, pairs: Pairs) -> Pairs:
+def _restart_fast_motion(tracker: Tracker, pairs: Pairs) -> tuple[Pairs, float]:
     """Most tracks were lost: guess the whole-frame shift by phase correlation and track
-    again from there, keeping whichever attempt kept more tracks."""
+    again from there, keeping whichever attempt kept more tracks. Also returns the phase
+    correlation's peak response (near 0 when the two frames share no picture)."""
     prev, cur = tracker.frames
     dx, dy, response = global_shift(prev, cur)
     if response < 0.05:
-        return pairs
+        return pairs, response
     guess = np.array([[1.0, 0.0, dx], [0.0, 1.0, dy], [0.0, 0.0, 1.0]])
     again = tracker.retry(guess)
     if len(again) >= len(pairs):
-        return again
-    return tracker.retry(None)
+        return again, response
+    return tracker.retry(None), response
 
 
 def fill_failed(matrices: np.ndarray, status: np.ndarray,

@@ -134,15 +134,22 @@ def effective_fps(info: VideoInfo, time_s: np.ndarray) -> float:
 
 
 def _analyse(clip: Path, info: VideoInfo, settings: Settings,
-             progress: ProgressFactory | None) -> MotionLog:
+             progress: ProgressFactory | None, parallel: dict[str, Any] | None = None
+             ) -> MotionLog:
     size = analysis_size(info, settings.analysis_width)
     bar = _bar(progress, "analyse", info.frames_estimate)
     try:
-        track = analyse(
-            iter_frames(clip, size=size, gray=True, info=info),
-            full_size=(info.width, info.height), analysis_size=size, settings=settings,
-            on_frame=bar.update,
-        )
+        if parallel:
+            from .segments import analyse_segments
+
+            track = analyse_segments(clip, info, size, settings, on_frame=bar.update,
+                                     **parallel)
+        else:
+            track = analyse(
+                iter_frames(clip, size=size, gray=True, info=info),
+                full_size=(info.width, info.height), analysis_size=size, settings=settings,
+                on_frame=bar.update,
+            )
     finally:
         bar.close()
     if not measurable(info.width, info.height) or len(track.time_s) < 2:
@@ -259,16 +266,27 @@ def _record_outputs(motion: MotionLog, outputs: Outputs) -> None:
 
 # --------------------------------------------------------------------- API
 def measure(clip: str | os.PathLike, *, config: str | None = None,
-            progress: ProgressFactory | None = None, **options: Any) -> MotionLog:
+            progress: ProgressFactory | None = None, workers: int | None = None,
+            scheduler: str | None = None, keyframe_every: int | None = None,
+            **options: Any) -> MotionLog:
     """Analyse a clip: per-frame motion, raw path and shake summary; nothing is written.
 
     Keyword options are those of the command line (``model``, ``inlier_px``, ``seed`` …);
     ``config`` names a TOML file or preset. Save the result with ``log.save(path)``.
+
+    ``workers`` or ``scheduler`` split the clip into segments analysed in parallel (see
+    :mod:`stabilize.segments`): ``workers`` local processes, or a Dask cluster
+    (``scheduler="local"`` starts one here, else ``"tcp://host:port"``). The analysis then
+    restarts its state every ``keyframe_every`` frames (default: 10 s of frames), so the log
+    is the same for any number of workers.
     """
     clip = Path(clip)
     settings = _settings(config, options)
     info = probe(clip)
-    motion = _analyse(clip, info, settings, progress)
+    parallel = None
+    if workers is not None or scheduler is not None or keyframe_every is not None:
+        parallel = dict(workers=workers, scheduler=scheduler, keyframe_every=keyframe_every)
+    motion = _analyse(clip, info, settings, progress, parallel)
     _summarise(motion, settings, effective_fps(info, motion.time_s))
     return motion
 

@@ -6,6 +6,11 @@ never through a shell.
 
 Frames are numpy arrays, ``(height, width, 3)`` uint8 RGB or ``(height, width)`` uint8 grey,
 upright (ffmpeg applies a container rotation flag while decoding).
+
+Every ffmpeg child runs in its own process group, so a Ctrl-C at the terminal reaches only
+this process, which stops its children itself (:func:`stop_children`) and removes what they
+were writing. Paths are handed to ffmpeg as ``file:`` URLs, so names with a leading dash or a
+colon (``12:30 flight.mp4``) are never read as options or protocols.
 """
 
 from __future__ import annotations
@@ -15,15 +20,15 @@ import re
 import subprocess
 import threading
 from collections import deque
-from collections.abc import Iterator
-from dataclasses import dataclass
+from collections.abc import Iterator, Sequence
+from dataclasses import dataclass, field
 from fractions import Fraction
 from pathlib import Path
 
 import numpy as np
 
 from .errors import StabilizeError
-from .files import publish, temp_path_for
+from .files import discard, publish, temp_path_for
 
 # Audio codecs an MP4 file can carry as they are; others are re-encoded to AAC (with a warning).
 MP4_AUDIO = {"aac", "mp3", "ac3", "eac3", "opus", "alac", "flac", "mp2"}
@@ -35,6 +40,49 @@ def ffmpeg_exe() -> str:
     import imageio_ffmpeg
 
     return imageio_ffmpeg.get_ffmpeg_exe()
+
+
+def ffmpeg_path(path: str | os.PathLike) -> str:
+    """``path`` as ffmpeg must be given it: an absolute ``file:`` URL, never an option."""
+    return "file:" + os.fspath(Path(path).absolute())
+
+
+_children_lock = threading.Lock()
+_children: set[subprocess.Popen] = set()
+
+
+def _spawn(cmd: list[str], **kwargs) -> subprocess.Popen:
+    """Start ffmpeg (argument list, no shell) in its own process group and remember it."""
+    proc = subprocess.Popen(cmd, process_group=0, **kwargs)
+    with _children_lock:
+        _children.add(proc)
+    return proc
+
+
+def _reap(proc: subprocess.Popen) -> None:
+    """Stop ``proc`` if it still runs, wait for it, and forget it."""
+    try:
+        if proc.poll() is None:
+            proc.kill()
+        proc.wait()
+    finally:
+        with _children_lock:
+            _children.discard(proc)
+
+
+def stop_children() -> int:
+    """Kill and wait for every ffmpeg this process started that is still running.
+
+    The command line calls this when a run fails or is interrupted, so no encoder or decoder
+    outlives it; returns how many were still running.
+    """
+    with _children_lock:
+        procs = list(_children)
+    running = 0
+    for proc in procs:
+        running += proc.poll() is None
+        _reap(proc)
+    return running
 
 
 @dataclass(frozen=True)
@@ -57,6 +105,8 @@ class VideoInfo:
     codec: str
     rotation_deg: float
     audio_codec: str | None
+    #: ticks per second of the stream's time base (0 when the container does not say)
+    time_base: int = 0
 
     @property
     def has_audio(self) -> bool:
@@ -75,7 +125,10 @@ _VIDEO = re.compile(r"Stream #0:(\d+)[^:]*: Video: (\w+)(.*)")
 _AUDIO = re.compile(r"Stream #0:\d+[^:]*: Audio: (\w+)")
 _SIZE = re.compile(r"\b(\d{1,5})x(\d{1,5})\b")
 _FPS = re.compile(r"([\d.]+)(k?) (?:fps|tbr)")
+_TBN = re.compile(r"([\d.]+)(k?) tbn")
 _ROTATION = re.compile(r"rotation of (-?[\d.]+) degrees")
+_DEMUXER = re.compile(r"Input #0, (\S+), from")
+_STILL_CODECS = {"png", "mjpeg", "bmp", "tiff", "webp", "gif", "jpegxl", "jpeg2000", "qoi"}
 
 
 def _fps_fraction(fps: float) -> str:
@@ -95,17 +148,24 @@ def probe(path: str | os.PathLike) -> VideoInfo:
     if p.stat().st_size == 0:
         raise StabilizeError(f"{p}: is empty (0 bytes), not a video")
     proc = subprocess.run(
-        [ffmpeg_exe(), "-hide_banner", "-nostdin", "-i", str(p)],
-        capture_output=True, text=True, errors="replace", check=False,
+        [ffmpeg_exe(), "-hide_banner", "-nostdin", "-i", ffmpeg_path(p)],
+        capture_output=True, text=True, errors="replace", check=False, process_group=0,
     )
     text = proc.stderr
     video = _VIDEO.search(text)
     if video is None:
+        if "moov atom not found" in text:
+            # An MP4 whose index is written last: a recording cut short leaves it unreadable.
+            raise StabilizeError(f"{p}: the file is incomplete (its index is missing, as when "
+                                 "a recording is cut short) and cannot be read")
         if "Invalid data found" in text or "Input #0" not in text:
             raise StabilizeError(f"{p}: not a video file ffmpeg can read")
         raise StabilizeError(f"{p}: has no video stream")
     codec, rest = video.group(2), video.group(3)
-    if codec in {"png", "mjpeg", "bmp", "tiff", "webp", "gif"} and "Duration: N/A" in text:
+    demuxer = _DEMUXER.search(text)
+    image_demuxer = demuxer is not None and (
+        demuxer.group(1) == "image2" or demuxer.group(1).endswith("_pipe"))
+    if codec in _STILL_CODECS and ("Duration: N/A" in text or image_demuxer):
         raise StabilizeError(f"{p}: is a still image, not a video")
     size = _SIZE.search(rest)
     if size is None:
@@ -127,10 +187,13 @@ def probe(path: str | os.PathLike) -> VideoInfo:
     if round(abs(rotation)) % 180 == 90:
         width, height = height, width
     audio = _AUDIO.search(text)
+    tbn = _TBN.search(rest)
+    time_base = int(float(tbn.group(1)) * (1000 if tbn.group(2) else 1)) if tbn else 0
     return VideoInfo(
         path=str(p), width=width, height=height, fps=fps, fps_text=_fps_fraction(fps),
         duration_s=duration, frames_estimate=max(1, int(round(duration * fps))), codec=codec,
         rotation_deg=rotation, audio_codec=audio.group(1) if audio else None,
+        time_base=time_base,
     )
 
 
@@ -143,8 +206,57 @@ class Frame:
     image: np.ndarray
 
 
+@dataclass
+class DecodeStats:
+    """What one decoding pass saw, filled in by :func:`iter_frames` as it goes.
+
+    ``frames`` decoded so far; ``last_time_s`` the last one's presentation time in seconds;
+    ``errors`` how many complaints the decoder or demuxer printed (``last_error`` the last);
+    ``finished`` is True once the stream ran to its end (not stopped early by the caller).
+    """
+
+    frames: int = 0
+    last_time_s: float | None = None
+    errors: int = 0
+    last_error: str | None = None
+    finished: bool = False
+    messages: list[str] = field(default_factory=list)
+
+
+def looks_truncated(info: VideoInfo, stats: DecodeStats) -> bool:
+    """Whether a finished decoding pass stopped well short of what the container announced.
+
+    A clip is taken as cut short when fewer frames decoded than its header implies
+    (duration × frame rate, with a tolerance of 2 % or one frame) and either the decoder
+    complained (``partial file``, invalid data) or the last frame ends more than half a second
+    and 10 % before the container's duration. Asking for both guards against variable frame
+    rate clips, whose nominal rate only approximates the count, and against containers whose
+    audio runs a little longer than the video.
+    """
+    if not stats.finished or stats.frames == 0:
+        return False
+    if stats.frames >= info.frames_estimate - max(1.0, 0.02 * info.frames_estimate):
+        return False
+    end_s = (stats.last_time_s or 0.0) + 1.0 / info.fps
+    short_s = info.duration_s - end_s
+    return stats.errors > 0 or (short_s > 0.5 and end_s < 0.9 * info.duration_s)
+
+
+def constant_rate(times_s: Sequence[float] | np.ndarray, fps: float) -> bool:
+    """True when every frame interval is within 1 % of 1 / ``fps`` (seconds)."""
+    t = np.asarray(times_s, dtype=np.float64)
+    if len(t) < 2:
+        return True
+    return bool(np.all(np.abs(np.diff(t) * fps - 1.0) < 0.01))
+
+
 _SHOWINFO = re.compile(r"\bn:\s*(\d+)\s+pts:\s*(-?\d+)\s+pts_time:\s*(-?[0-9.eE+-]+)")
 _TIME_BASE = re.compile(r"config in time_base:\s*(\d+)/(\d+)")
+# What the demuxer and decoders print about damaged or cut-short data.
+_DECODE_ERROR = re.compile(
+    r"partial file|invalid data|invalid nal|error while decoding|error splitting|"
+    r"decoding error|corrupt|concealing|truncat|missing picture|no frame!", re.IGNORECASE,
+)
 
 
 class _StderrReader(threading.Thread):
@@ -158,6 +270,8 @@ class _StderrReader(threading.Thread):
         self.cond = threading.Condition()
         self.finished = False
         self.time_base: Fraction | None = None
+        self.errors = 0
+        self.last_error: str | None = None
 
     def run(self) -> None:
         for raw in iter(self.stream.readline, b""):
@@ -176,6 +290,9 @@ class _StderrReader(threading.Thread):
                 self.time_base = Fraction(int(tb_match.group(1)), int(tb_match.group(2)))
             elif line:
                 self.tail.append(line)
+                if "Parsed_showinfo" not in line and _DECODE_ERROR.search(line):
+                    self.errors += 1
+                    self.last_error = line
         with self.cond:
             self.finished = True
             self.cond.notify_all()
@@ -201,6 +318,7 @@ def iter_frames(
     size: tuple[int, int] | None = None,
     gray: bool = False,
     info: VideoInfo | None = None,
+    stats: DecodeStats | None = None,
 ) -> Iterator[Frame]:
     """Decode a clip frame by frame, in presentation order, with container timestamps.
 
@@ -210,9 +328,13 @@ def iter_frames(
     size : (width, height) to scale to inside ffmpeg (area filter), or None for full size.
         Scaling keeps pixel centres aligned: x_small = (x + 0.5) * w_small / w - 0.5.
     gray : decode to luma only (uint8, 2-D) instead of RGB.
+    stats : filled in while decoding (frames, last time, decoder complaints, whether the end
+        was reached); pass one to find out afterwards whether the clip was cut short
+        (:func:`looks_truncated`).
 
     Every decoded frame is yielded once (no frames dropped or duplicated for variable frame
     rate). A clip truncated part-way ends early; the caller sees fewer frames than estimated.
+    Close the generator (``contextlib.closing``) when stopping early, so ffmpeg stops at once.
     """
     info = info or probe(path)
     w, h = size or (info.width, info.height)
@@ -222,11 +344,12 @@ def iter_frames(
     filters.append("showinfo=checksum=0")
     pix_fmt, channels = ("gray", 1) if gray else ("rgb24", 3)
     cmd = [
-        ffmpeg_exe(), "-hide_banner", "-nostdin", "-loglevel", "info", "-i", str(path),
+        ffmpeg_exe(), "-hide_banner", "-nostdin", "-loglevel", "info",
+        "-i", ffmpeg_path(path),
         "-map", "0:v:0", "-an", "-sn", "-dn", "-fps_mode", "passthrough",
         "-vf", ",".join(filters), "-f", "rawvideo", "-pix_fmt", pix_fmt, "pipe:1",
     ]
-    proc = subprocess.Popen(
+    proc = _spawn(
         cmd, stdin=subprocess.DEVNULL, stdout=subprocess.PIPE, stderr=subprocess.PIPE,
         bufsize=0,
     )
@@ -234,22 +357,26 @@ def iter_frames(
     reader.start()
     frame_bytes = w * h * channels
     shape = (h, w) if gray else (h, w, 3)
+    stats = stats if stats is not None else DecodeStats()
     n = 0
     try:
         while True:
             buf = _read_exact(proc.stdout, frame_bytes)
             if buf is None:
+                stats.finished = True
                 break
             image = np.frombuffer(buf, np.uint8).reshape(shape)
-            yield Frame(n, reader.time_of(n, n / info.fps), image)
+            time_s = reader.time_of(n, n / info.fps)
             n += 1
+            stats.frames, stats.last_time_s = n, time_s
+            yield Frame(n - 1, time_s, image)
     finally:
-        if proc.poll() is None:
-            proc.kill()
-        proc.wait()
+        _reap(proc)
         reader.join(timeout=5.0)
         proc.stdout.close()
         proc.stderr.close()
+        stats.errors, stats.last_error = reader.errors, reader.last_error
+        stats.messages = list(reader.tail)
     if n == 0:
         detail = reader.tail[-1] if reader.tail else "no frames could be decoded"
         raise StabilizeError(f"{path}: no video frames could be decoded ({detail})")
@@ -279,6 +406,11 @@ class VideoWriter:
     ``fps`` is a number or an exact ratio string such as ``"30000/1001"``. Audio of
     ``audio_from`` is copied through unchanged when the container allows it. If the block raises,
     the temporary file is removed and nothing appears under the final name.
+
+    ``times_s`` (seconds, one per frame, increasing) gives every frame its own presentation
+    time, for variable frame rate clips; ``time_base`` (ticks per second, e.g. the source
+    stream's) is the clock those times are written in, 90000 when not given. Frames beyond
+    ``times_s`` continue at the last interval.
     """
 
     def __init__(
@@ -293,6 +425,8 @@ class VideoWriter:
         preset: str = "medium",
         audio_from: str | os.PathLike | None = None,
         audio_codec: str | None = None,
+        times_s: Sequence[float] | np.ndarray | None = None,
+        time_base: int = 0,
     ) -> None:
         if codec not in ENCODERS:
             raise StabilizeError(f"option --codec: {codec!r} is not one of {', '.join(ENCODERS)}")
@@ -302,10 +436,36 @@ class VideoWriter:
         self.codec, self.crf, self.preset = codec, int(crf), preset
         self.audio_from = audio_from
         self.audio_codec = audio_codec
+        self.times_s = None if times_s is None else np.asarray(times_s, dtype=np.float64)
+        self.time_base = int(time_base) if time_base and time_base > 0 else 90000
         self.frames_written = 0
         self._proc: subprocess.Popen | None = None
         self._tmp: Path | None = None
+        self._script: Path | None = None
         self._reader: _StderrReader | None = None
+
+    def _timestamp_filter(self) -> str:
+        """A filter chain that gives frame N its own time: ``settb`` to the chosen clock, then
+        ``setpts`` with a balanced tree of ``if(lt(N,k),…)`` over the per-frame ticks, so each
+        frame costs a handful of comparisons however long the clip."""
+        t = self.times_s
+        ticks = np.round((t - t[0]) * self.time_base).astype(np.int64)
+        # Strictly increasing, as the encoder demands, even for a damaged source's repeats:
+        # tick_i = max(tick_i, tick_(i-1) + 1).
+        k = np.arange(len(ticks))
+        ticks = np.maximum.accumulate(ticks - k) + k
+        step = int(ticks[-1] - ticks[-2]) if len(ticks) > 1 else self.time_base // 25
+        last = len(ticks) - 1
+
+        def tree(lo: int, hi: int) -> str:
+            if hi - lo == 1:
+                if lo == last:
+                    return f"{int(ticks[lo])}+(N-{last})*{step}"
+                return str(int(ticks[lo]))
+            mid = (lo + hi) // 2
+            return f"if(lt(N\\,{mid})\\,{tree(lo, mid)}\\,{tree(mid, hi)})"
+
+        return f"settb=1/{self.time_base},setpts={tree(0, len(ticks))}"
 
     def _command(self, tmp: Path) -> list[str]:
         cmd = [
@@ -314,11 +474,16 @@ class VideoWriter:
             "-framerate", self.fps, "-i", "pipe:0",
         ]
         if self.audio_from is not None:
-            cmd += ["-i", str(self.audio_from), "-map", "0:v:0", "-map", "1:a?"]
+            cmd += ["-i", ffmpeg_path(self.audio_from), "-map", "0:v:0", "-map", "1:a?"]
             if self.audio_codec is None or self.audio_codec in MP4_AUDIO:
                 cmd += ["-c:a", "copy"]
             else:
                 cmd += ["-c:a", "aac", "-b:a", "192k"]
+        if self._script is not None:
+            # The filter is read from a file ("-/vf"): a long clip's tree outgrows the
+            # command line.
+            cmd += ["-/vf", str(self._script), "-fps_mode", "passthrough",
+                    "-enc_time_base", "-1", "-video_track_timescale", str(self.time_base)]
         encoder = ENCODERS[self.codec]
         cmd += ["-c:v", encoder]
         if self.codec in ("h264", "h265"):
@@ -330,17 +495,26 @@ class VideoWriter:
                 cmd += ["-tag:v", "hvc1", "-x265-params", "log-level=error"]
         else:
             cmd += ["-level", "3", "-pix_fmt", "yuv444p"]
-        cmd += ["-movflags", "+faststart", "-f", "mp4", str(tmp)]
+        cmd += ["-movflags", "+faststart", "-f", "mp4", ffmpeg_path(tmp)]
         return cmd
 
     def __enter__(self) -> VideoWriter:
         if not self.path.parent.is_dir():
             raise StabilizeError(f"{self.path.parent}: output folder does not exist")
         self._tmp = temp_path_for(self.path)
-        self._proc = subprocess.Popen(
-            self._command(self._tmp), stdin=subprocess.PIPE, stdout=subprocess.DEVNULL,
-            stderr=subprocess.PIPE,
-        )
+        try:
+            if self.times_s is not None and len(self.times_s) > 0:
+                self._script = temp_path_for(self.path.with_suffix(".timestamps.txt"))
+                self._script.write_text(self._timestamp_filter(), encoding="ascii")
+            self._proc = _spawn(
+                self._command(self._tmp), stdin=subprocess.PIPE, stdout=subprocess.DEVNULL,
+                stderr=subprocess.PIPE,
+            )
+        except BaseException:
+            discard(self._tmp)
+            if self._script is not None:
+                discard(self._script)
+            raise
         self._reader = _StderrReader(self._proc.stderr)
         self._reader.start()
         return self
@@ -388,10 +562,144 @@ class VideoWriter:
                     proc.stdin.close()
                 except OSError:
                     pass
-            if proc.poll() is None:
-                proc.kill()
-                proc.wait()
+            _reap(proc)
             if self._reader is not None:
                 self._reader.join(timeout=5.0)
-            if tmp is not None and tmp.exists():
-                tmp.unlink()
+            if tmp is not None:
+                discard(tmp)
+            if self._script is not None:
+                discard(self._script)
+
+
+
+def iter_frame_range(
+    path: str | os.PathLike,
+    start: int,
+    stop: int | None = None,
+    *,
+    size: tuple[int, int] | None = None,
+    gray: bool = False,
+    info: VideoInfo | None = None,
+) -> Iterator[Frame]:
+    """Decode frames ``[start, stop)`` of a clip (``stop`` None: to the end), with the indices,
+    timestamps and pixels :func:`iter_frames` gives them.
+
+    Frame ``start`` is reached without decoding what comes before it: the packets'
+    presentation timestamps are listed (demuxing only, no decoding) to learn which timestamp
+    frame ``start`` has; decoding then starts at a keyframe at least a second before it (so no
+    frame kept depends on a picture from before the seek) with the container timestamps kept,
+    and each decoded frame is identified by its timestamp. Timestamps are reported as
+    :func:`iter_frames` reports them (the container's start time subtracted, in the stream's
+    time base). When the decoded timestamps do not line up with the listing (a damaged or
+    unusual file), the clip is decoded from its start and the frames before ``start`` dropped:
+    slower, always exact.
+    """
+    info = info or probe(path)
+    w, h = size or (info.width, info.height)
+    ts_of: dict[float, int] = {}
+    shift = 0
+    if start > 0:
+        listing = subprocess.Popen(
+            [ffmpeg_exe(), "-hide_banner", "-nostdin", "-loglevel", "info", "-copyts",
+             "-i", str(path), "-map", "0:v:0", "-c", "copy", "-f", "framecrc", "pipe:1"],
+            stdin=subprocess.DEVNULL, stdout=subprocess.PIPE, stderr=subprocess.PIPE,
+            text=True, errors="replace",
+        )
+        list_tb: Fraction | None = None
+        pts_list: list[int] = []
+        try:
+            for line in listing.stdout:
+                if line.startswith("#tb 0:"):
+                    num, den = line.split(":", 1)[1].strip().split("/")
+                    list_tb = Fraction(int(num), int(den))
+                elif line.startswith("0,"):
+                    pts = line.split(",")[2].strip()
+                    if pts.lstrip("-").isdigit():
+                        pts_list.append(int(pts))
+                    # Reordering (B-frames) moves a packet only a few places, so a margin
+                    # past ``start`` settles the first presentation times.
+                    if len(pts_list) > start + 64:
+                        break
+        finally:
+            if listing.poll() is None:
+                listing.kill()
+            listing.communicate()
+        times = sorted(pts_list)
+        if list_tb is not None and len(times) > start and len(set(times)) == len(times):
+            # iter_frames reports timestamps shifted by a start offset ffmpeg works out for
+            # the streams in use; it is learnt from frame 0 rather than re-derived.
+            head = iter_frames(path, size=(w, h), gray=True, info=info)
+            frame0 = next(head, None)
+            head.close()
+            if frame0 is not None:
+                shift = times[0] - round(Fraction(frame0.time_s) / list_tb)
+                ts_of = {float(Fraction(p) * list_tb): k for k, p in enumerate(times)}
+                seek_s = max(0.0, float(Fraction(times[start] - shift) * list_tb) - 1.0)
+
+    at_end = [False]
+
+    def decode() -> Iterator[Frame]:
+        filters = [f"scale={w}:{h}:flags=area"] if (w, h) != (info.width, info.height) else []
+        filters.append("showinfo=checksum=0")
+        pix_fmt, channels = ("gray", 1) if gray else ("rgb24", 3)
+        cmd = [ffmpeg_exe(), "-hide_banner", "-nostdin", "-loglevel", "info",
+               "-noaccurate_seek", "-ss", f"{seek_s:.6f}", "-copyts", "-i", str(path),
+               "-map", "0:v:0", "-an", "-sn", "-dn", "-fps_mode", "passthrough",
+               "-vf", ",".join(filters), "-f", "rawvideo", "-pix_fmt", pix_fmt, "pipe:1"]
+        proc = subprocess.Popen(cmd, stdin=subprocess.DEVNULL, stdout=subprocess.PIPE,
+                                stderr=subprocess.PIPE, bufsize=0)
+        reader = _StderrReader(proc.stderr)
+        reader.start()
+        shape = (h, w) if gray else (h, w, 3)
+        n, index = 0, -1
+        try:
+            while True:
+                buf = _read_exact(proc.stdout, w * h * channels)
+                if buf is None:
+                    at_end[0] = index >= start
+                    return
+                raw_s = reader.time_of(n, float("nan"))
+                n += 1
+                known = ts_of.get(raw_s)
+                if index < start:
+                    if known is None or known < start:
+                        continue  # before the wanted frame (the listing covers these)
+                    if known != start:
+                        return
+                    index = start
+                else:
+                    index += 1
+                    if known is not None and known != index:
+                        return
+                if reader.time_base != list_tb:
+                    return
+                time_s = float((round(Fraction(raw_s) / list_tb) - shift) * list_tb)
+                yield Frame(index, time_s, np.frombuffer(buf, np.uint8).reshape(shape))
+        finally:
+            if proc.poll() is None:
+                proc.kill()
+            proc.wait()
+            reader.join(timeout=5.0)
+            proc.stdout.close()
+            proc.stderr.close()
+
+    expected = start
+    if ts_of:
+        frames = decode()
+        try:
+            for f in frames:
+                if stop is not None and f.index >= stop:
+                    return
+                yield f
+                expected += 1
+        finally:
+            frames.close()
+        if at_end[0]:
+            return
+    # Exact path: decode from the start (also what finishes a seek that went astray).
+    for f in iter_frames(path, size=size, gray=gray, info=info):
+        if f.index < expected:
+            continue
+        if stop is not None and f.index >= stop:
+            return
+        yield f

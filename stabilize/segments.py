@@ -1,0 +1,342 @@
+"""Segment-parallel analysis of one long clip, and the worker pools both it and batch use.
+
+The per-frame analysis carries state from frame to frame (live tracks and their history of
+moving with the camera, static-overlay evidence, the previous frame's motion as a prior, the
+texture reference), so a segment started in the middle of a clip would not see what a single
+pass saw there. The scheme that makes segments exact: the analysis restarts that state at
+fixed *keyframes*, every ``keyframe_every`` frames counted from frame 0, exactly as if a new
+analysis began at the frame before each keyframe. The motion from frame k−1 to keyframe k is
+therefore still measured (the frame before a keyframe is the overlap at the join), and every
+keyframe interval depends on its own frames only. Any grouping of intervals into segments,
+analysed in any order on any worker, gives the same log; so does one process going through
+them in turn.
+
+Until :func:`stabilize.motion.analyse` restarts at keyframes itself (``keyframe_every=`` and
+``first_index=``), the restart is made here by running it once per interval; per-frame
+random seeds are then counted from each interval's overlap frame rather than from frame 0.
+Both ways, the log does not depend on the number of workers.
+
+Workers: local processes (``concurrent.futures`` with the forkserver or spawn start method,
+never fork: the parent may hold threads and ffmpeg pipes), a Dask ``LocalCluster``
+(``scheduler="local"``) or an existing Dask cluster (``scheduler="tcp://host:port"``), whose
+workers must see the same paths and have stabilize installed.
+"""
+
+from __future__ import annotations
+
+import inspect
+import math
+import multiprocessing
+import os
+from collections.abc import Callable, Iterable, Iterator
+from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from .config import Settings
+from .errors import StabilizeError
+from .motion import MotionTrack, analyse, fill_failed
+from .video import Frame, VideoInfo, iter_frame_range
+
+#: Keyframe spacing in seconds of nominal frame rate. Each restart costs what the first frames
+#: of a clip cost (fresh tracks with no history, no prior, overlays to be found again), so it
+#: is kept long; common practice, not a measured optimum.
+KEYFRAME_S = 10.0
+MIN_KEYFRAME_FRAMES = 30
+
+
+def keyframe_frames(fps: float, keyframe_s: float = KEYFRAME_S) -> int:
+    """Keyframe spacing in frames for a clip of nominal frame rate ``fps`` (frames/second)."""
+    return max(MIN_KEYFRAME_FRAMES, int(round(keyframe_s * fps)))
+
+
+def analyse_restarts_itself() -> bool:
+    """Whether :func:`stabilize.motion.analyse` takes ``keyframe_every`` and ``first_index``."""
+    params = inspect.signature(analyse).parameters
+    return "keyframe_every" in params and "first_index" in params
+
+
+def default_workers() -> int:
+    """The cores this process may use."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except AttributeError:  # not on Linux
+        return max(1, os.cpu_count() or 1)
+
+
+# ------------------------------------------------------------------- one range
+@dataclass(frozen=True)
+class SegmentTask:
+    """Frames ``[start, stop)`` of a clip (``stop`` None: to the end) to analyse; plain data
+    so it can travel to a worker process or a cluster."""
+
+    clip: str
+    info: VideoInfo
+    analysis_size: tuple[int, int]
+    settings: Settings
+    start: int
+    stop: int | None
+    keyframe_every: int
+
+
+@dataclass
+class SegmentResult:
+    """Per-frame arrays of frames ``start`` onwards, as :class:`MotionTrack` holds them."""
+
+    start: int
+    track: MotionTrack
+    overlays: list[list[int]] = field(default_factory=list)
+
+
+def _chunks(frames: Iterator[Frame], carry: Frame | None,
+            keyframe_every: int) -> Iterator[tuple[bool, Iterator[Frame]]]:
+    """Split a frame stream at keyframes into per-interval streams; each after the first of
+    the clip starts with the frame before its keyframe (the overlap). Yields (has_overlap,
+    stream); each stream must be consumed before the next is asked for."""
+    pending = carry
+    while True:
+        nxt = next(frames, None)
+        if nxt is None:
+            return
+        overlap = pending
+
+        def interval(first: Frame = nxt, overlap: Frame | None = overlap) -> Iterator[Frame]:
+            nonlocal pending
+            if overlap is not None:
+                yield overlap
+            pending = first
+            yield first
+            if (first.index + 1) % keyframe_every == 0:
+                return
+            for f in frames:
+                pending = f
+                yield f
+                if (f.index + 1) % keyframe_every == 0:
+                    return
+
+        yield overlap is not None, interval()
+
+
+def analyse_range(task: SegmentTask, on_frame: Callable[[int], None] | None = None,
+                  single_thread: bool = False) -> SegmentResult:
+    """Analyse frames ``[task.start, task.stop)`` with restarts at every keyframe.
+
+    ``task.start`` must be a keyframe (a multiple of ``keyframe_every``) or 0.
+    ``single_thread`` keeps OpenCV to one thread, for worker processes sharing the cores.
+    """
+    if task.start % task.keyframe_every:
+        raise ValueError("a segment must start at a keyframe")
+    if single_thread:
+        import cv2
+
+        cv2.setNumThreads(1)
+    info = task.info
+    read_from = max(0, task.start - 1)
+    frames = iter_frame_range(task.clip, read_from, task.stop, size=task.analysis_size,
+                              gray=True, info=info)
+    common = dict(full_size=(info.width, info.height), analysis_size=task.analysis_size,
+                  settings=task.settings)
+    parts: list[MotionTrack] = []
+    regions: list[list[int]] = []
+    try:
+        if analyse_restarts_itself():
+            track = analyse(frames, on_frame=on_frame, keyframe_every=task.keyframe_every,
+                            first_index=read_from, **common)
+            if task.start > 0 and len(track.time_s):
+                track = _drop_first(track)
+            parts.append(track)
+            regions += track.excluded.get("static_overlay", [])
+        else:
+            carry = None
+            if task.start > 0:
+                carry = next(frames, None)
+                if carry is None or carry.index != read_from:
+                    carry = None
+            for has_overlap, stream in _chunks(frames, carry, task.keyframe_every):
+                track = analyse(stream, on_frame=None, **common)
+                if has_overlap:
+                    track = _drop_first(track)
+                if on_frame:
+                    on_frame(len(track.time_s))
+                parts.append(track)
+                regions += track.excluded.get("static_overlay", [])
+    finally:
+        frames.close()
+    return SegmentResult(task.start, _concat(parts, task.settings), _unique(regions))
+
+
+def _drop_first(track: MotionTrack) -> MotionTrack:
+    return MotionTrack(time_s=track.time_s[1:], matrices=track.matrices[1:],
+                       tracked=track.tracked[1:], inliers=track.inliers[1:],
+                       inlier_ratio=track.inlier_ratio[1:], rms_px=track.rms_px[1:],
+                       rounds=track.rounds[1:], status=track.status[1:],
+                       excluded=track.excluded)
+
+
+def _concat(parts: list[MotionTrack], settings: Settings) -> MotionTrack:
+    def cat(name: str, empty: np.ndarray) -> np.ndarray:
+        arrays = [getattr(p, name) for p in parts]
+        return np.concatenate(arrays) if arrays else empty
+
+    return MotionTrack(
+        time_s=cat("time_s", np.empty(0)), matrices=cat("matrices", np.empty((0, 3, 3))),
+        tracked=cat("tracked", np.empty(0, int)), inliers=cat("inliers", np.empty(0, int)),
+        inlier_ratio=cat("inlier_ratio", np.empty(0)), rms_px=cat("rms_px", np.empty(0)),
+        rounds=cat("rounds", np.empty(0, int)), status=cat("status", np.empty(0, "<U6")),
+        excluded={"ignore": [list(r) for r in settings.ignore]},
+    )
+
+
+def _unique(regions: Iterable[list[int]]) -> list[list[int]]:
+    seen: list[list[int]] = []
+    for r in regions:
+        if list(r) not in seen:
+            seen.append(list(r))
+    return seen
+
+
+# ------------------------------------------------------------------ the clip
+def plan_segments(frames_estimate: int, keyframe_every: int,
+                  workers: int) -> list[tuple[int, int | None]]:
+    """Split a clip into at most ``workers`` runs of whole keyframe intervals, as even as the
+    estimate allows; the last runs to the end (the real count is known only after decoding).
+    """
+    intervals = max(1, math.ceil(frames_estimate / keyframe_every))
+    groups = np.array_split(np.arange(intervals), min(intervals, max(1, workers)))
+    starts = [int(g[0]) * keyframe_every for g in groups if len(g)]
+    return [(s, starts[i + 1] if i + 1 < len(starts) else None) for i, s in enumerate(starts)]
+
+
+def analyse_segments(clip: str | os.PathLike, info: VideoInfo, analysis_size: tuple[int, int],
+                     settings: Settings, *, workers: int | None = None,
+                     scheduler: str | None = None, keyframe_every: int | None = None,
+                     on_frame: Callable[[int], None] | None = None) -> MotionTrack:
+    """Analyse a clip in keyframe segments over ``workers`` (in this process when 1 and no
+    ``scheduler``); the same result for any number of workers.
+
+    ``keyframe_every`` defaults to :func:`keyframe_frames` of the clip's nominal frame rate.
+    """
+    workers = default_workers() if workers is None else int(workers)
+    if workers < 1:
+        raise StabilizeError(f"option --workers: {workers} is not a positive number")
+    k = int(keyframe_every or keyframe_frames(info.fps))
+    if k < 2:
+        raise StabilizeError(f"keyframe spacing {k} frames is too short (at least 2)")
+    plan = plan_segments(info.frames_estimate, k, workers)
+    tasks = [SegmentTask(str(Path(clip).resolve()), info, tuple(analysis_size), settings,
+                         s, e, k) for s, e in plan]
+    if workers == 1 and scheduler is None:
+        results = [analyse_range(t, on_frame) for t in tasks]
+    else:
+        results = [None] * len(tasks)
+        for i, outcome in parallel_map(_analyse_in_worker, tasks, workers=workers,
+                                       scheduler=scheduler):
+            if isinstance(outcome, BaseException):
+                raise outcome
+            results[i] = outcome
+            if on_frame:
+                on_frame(len(outcome.track.time_s))
+    return merge(results, settings, (info.width, info.height))
+
+
+def _analyse_in_worker(task: SegmentTask) -> SegmentResult:
+    return analyse_range(task, single_thread=True)
+
+
+def merge(results: list[SegmentResult], settings: Settings,
+          full_size: tuple[int, int]) -> MotionTrack:
+    """Join segment results in frame order. Stand-ins for failed frames are worked out again
+    over the whole clip: near a join they depend on neighbours in the next segment."""
+    results = sorted(results, key=lambda r: r.start)
+    kept: list[MotionTrack] = []
+    expected = 0
+    for r in results:
+        n = len(r.track.time_s)
+        if n == 0:
+            continue
+        if r.start != expected:
+            raise StabilizeError(f"segment at frame {r.start} does not follow frame "
+                                 f"{expected - 1}: the clip decodes inconsistently")
+        kept.append(r.track)
+        expected += n
+    track = _concat(kept, settings)
+    track.excluded["static_overlay"] = _unique(reg for r in results for reg in r.overlays)
+    if len(track.status):
+        track.matrices = fill_failed(track.matrices, track.status, full_size)
+    return track
+
+
+# ------------------------------------------------------------------ workers
+def _context() -> multiprocessing.context.BaseContext:
+    methods = multiprocessing.get_all_start_methods()
+    return multiprocessing.get_context("forkserver" if "forkserver" in methods else "spawn")
+
+
+def parallel_map(fn: Callable[[Any], Any], items: list[Any], *, workers: int,
+                 scheduler: str | None = None) -> Iterator[tuple[int, Any]]:
+    """Run ``fn`` on every item on local processes or a Dask cluster; yield (index, result)
+    as each finishes, the result being the exception when the call (or its worker) failed.
+
+    ``scheduler``: None for a local process pool of ``workers`` processes, ``"local"`` for a
+    Dask LocalCluster of ``workers`` single-threaded processes started here, or the address of
+    a running Dask scheduler (``tcp://host:port``).
+    """
+    if not items:
+        return
+    if scheduler is None:
+        yield from _pool_map(fn, items, workers)
+    else:
+        yield from _dask_map(fn, items, workers, scheduler)
+
+
+def _pool_map(fn, items, workers):
+    with ProcessPoolExecutor(max_workers=min(workers, len(items)),
+                             mp_context=_context()) as pool:
+        futures = {pool.submit(fn, item): i for i, item in enumerate(items)}
+        pending = set(futures)
+        try:
+            while pending:
+                done, pending = wait(pending, return_when=FIRST_COMPLETED)
+                for fut in done:
+                    exc = fut.exception()
+                    yield futures[fut], exc if exc is not None else fut.result()
+        finally:
+            for fut in pending:
+                fut.cancel()
+
+
+def _dask_map(fn, items, workers, scheduler):
+    try:
+        from distributed import Client, LocalCluster, as_completed
+    except ImportError:
+        raise StabilizeError("option --scheduler needs Dask: pip install "
+                             "'stabilize[cluster]'") from None
+    cluster = None
+    try:
+        if scheduler == "local":
+            cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
+                                   dashboard_address=None)
+            client = Client(cluster)
+        else:
+            try:
+                client = Client(scheduler, timeout="10s")
+            except (OSError, TimeoutError, ValueError) as exc:
+                raise StabilizeError(f"option --scheduler: cannot reach a Dask scheduler at "
+                                     f"{scheduler} ({exc})") from None
+        with client:
+            futures = [client.submit(fn, item, pure=False) for item in items]
+            index = {f.key: i for i, f in enumerate(futures)}
+            try:
+                for fut in as_completed(futures):
+                    if fut.status == "error":
+                        yield index[fut.key], fut.exception()
+                    else:
+                        yield index[fut.key], fut.result()
+            finally:
+                client.cancel([f for f in futures if not f.done()])
+    finally:
+        if cluster is not None:
+            cluster.close()

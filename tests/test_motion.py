@@ -1,0 +1,95 @@
+"""Per-frame motion: rival fits and track history, overlays, cuts, stand-ins."""
+
+import numpy as np
+
+from stabilize.config import Settings
+from stabilize.cuts import CutSettings, collapsed, is_cut, is_textureless
+from stabilize.motion import fill_failed, fit_frame, hull_share, transfer_error
+from stabilize.overlays import OverlayFinder
+from stabilize.path import from_similarity, to_similarity
+
+W, H = 640, 360
+
+
+def _scene(n_bg, n_obj, obj_shift, rng):
+    bg = np.c_[rng.uniform(0, W, n_bg), rng.uniform(0, H, n_bg)]
+    # The background is everywhere; the object is one compact blob in the middle.
+    ring = (np.abs(bg[:, 0] - W / 2) > 0.35 * W) | (np.abs(bg[:, 1] - H / 2) > 0.35 * H)
+    bg = bg[ring]
+    obj = np.c_[rng.uniform(0.15 * W, 0.85 * W, n_obj), rng.uniform(0.15 * H, 0.85 * H, n_obj)]
+    src = np.concatenate([bg, obj])
+    dst = src.copy()
+    dst[len(bg):] += obj_shift
+    dst += rng.normal(0, 0.05, dst.shape)
+    return src, dst, len(bg)
+
+
+def test_a_slow_busy_object_loses_to_the_surrounding_background():
+    rng = np.random.default_rng(0)
+    # The object has three times the background's tracks and moves 1.2 px a frame: inside
+    # the 1.5 px threshold of the still background, so counting inliers alone would pick it.
+    src, dst, n_bg = _scene(1200, 1500, np.array([1.2, 0.6]), rng)
+    assert n_bg < 0.5 * len(src)
+    fit = fit_frame(src, dst, np.full(len(src), 0.5), settings=Settings(), seed=[0, 1],
+                    prior=None, frame_size=(W, H))
+    np.testing.assert_allclose(fit.matrix[:2, 2], 0.0, atol=0.02)
+    assert fit.support[:n_bg].mean() > 0.95 and fit.support[n_bg:].mean() < 0.05
+
+
+def test_history_keeps_the_background_when_spread_cannot_tell():
+    rng = np.random.default_rng(1)
+    src = np.c_[rng.uniform(0, W, 800), rng.uniform(0, H, 800)]
+    dst = src + rng.normal(0, 0.05, src.shape)
+    obj = np.arange(800) % 2 == 0  # interleaved: both sets spread over the whole frame
+    dst[obj] += [3.0, 0.0]
+    history = np.where(obj, 0.1, 0.95)
+    fit = fit_frame(src, dst, history, settings=Settings(), seed=[0, 2], prior=None,
+                    frame_size=(W, H))
+    np.testing.assert_allclose(fit.matrix[:2, 2], 0.0, atol=0.02)
+
+
+def test_transfer_error_and_hull_share():
+    src = np.array([[0.0, 0.0], [W - 1.0, 0.0], [W - 1.0, H - 1.0], [0.0, H - 1.0]])
+    m = np.eye(3)
+    m[0, 2] = 3.0
+    np.testing.assert_allclose(transfer_error(m, src, src), 3.0)
+    assert hull_share(src, (W, H)) > 0.99
+    assert hull_share(src[:2], (W, H)) == 0.0
+
+
+def test_overlays_found_where_tracks_stay_put_while_the_camera_moves():
+    finder = OverlayFinder((W, H))
+    rng = np.random.default_rng(2)
+    camera = np.eye(3)
+    camera[0, 2] = 2.0
+    for _ in range(20):
+        scene = np.c_[rng.uniform(0, W, 300), rng.uniform(0, 0.8 * H, 300)]
+        strip = np.c_[rng.uniform(0, W, 80), rng.uniform(0.9 * H, H - 1, 80)]
+        src = np.concatenate([scene, strip])
+        dst = np.concatenate([scene + [2.0, 0.0], strip])
+        finder.observe(src, dst, camera)
+    mask = finder.mask(None)
+    assert (mask[int(0.92 * H):, :] == 0).mean() > 0.8
+    assert (mask[: int(0.75 * H), :] == 255).all()
+    regions = finder.regions((0.5, 0.5))
+    assert regions and all(r[1] >= 0.85 * H * 2 for r in regions)
+
+
+def test_cut_and_texture_rules():
+    cfg = CutSettings()
+    assert collapsed(10, 1000, cfg) and not collapsed(900, 1000, cfg)
+    assert is_cut(0.6, None, cfg)
+    assert is_cut(0.2, 0.02, cfg) and not is_cut(0.2, 0.5, cfg) and not is_cut(0.05, 0.02, cfg)
+    assert is_textureless(1e-5, 3e-3, cfg) and not is_textureless(2e-3, 3e-3, cfg)
+    assert is_textureless(1e-5, None, cfg)
+
+
+def test_failed_frames_get_interpolated_stand_ins():
+    centre = np.array([(W - 1) / 2, (H - 1) / 2])
+    q = np.zeros((6, 4))
+    q[:, 0] = [0.0, 2.0, 2.0, 99.0, 4.0, 4.0]
+    m = from_similarity(q, centre)
+    status = np.array(["ok", "ok", "ok", "failed", "ok", "ok"])
+    out = to_similarity(fill_failed(m, status, (W, H)), centre)
+    assert out[3, 0] == 3.0  # halfway between its neighbours, not the wild 99
+    np.testing.assert_allclose(out[[1, 2, 4, 5], 0], q[[1, 2, 4, 5], 0])
