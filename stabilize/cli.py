@@ -91,12 +91,19 @@ def build_parser() -> argparse.ArgumentParser:
                    "the input)")
     _add_common(p)
 
-    p = sub.add_parser("batch", help="many clips (not yet available)")
-    p.add_argument("inputs")
-    p.add_argument("--out-dir", metavar="DIR", required=True)
-    p.add_argument("--workers", metavar="N")
-    p.add_argument("--scheduler", metavar="ADDR")
-    p.add_argument("--measure-only", action="store_true")
+    p = sub.add_parser("batch", help="many clips: outputs, summary.csv and summary.html")
+    p.add_argument("inputs", metavar="DIR_OR_GLOB",
+                   help="a folder (searched recursively) or a glob pattern such as "
+                   "'flights/**/*.mp4' (quote it)")
+    p.add_argument("--out-dir", metavar="DIR", required=True,
+                   help="folder for every output; the input tree is mirrored inside it")
+    p.add_argument("--workers", metavar="N",
+                   help="clips done at once (default: the cores of this machine)")
+    p.add_argument("--scheduler", metavar="ADDR",
+                   help="run on Dask: 'local' starts a cluster here, tcp://HOST:PORT uses a "
+                   "running one (its workers must see the same paths)")
+    p.add_argument("--measure-only", action="store_true",
+                   help="motion log and report only, no steadied video")
     _add_common(p)
 
     p = sub.add_parser("demo", help="steady the bundled demo clip")
@@ -210,7 +217,34 @@ def run(args: argparse.Namespace) -> int:
         _print_summary(report.summary)
         _report_files(report)
     elif args.command == "batch":
-        raise StabilizeError(f"'{args.command}' is not available in this version yet")
+        from .batch import run_batch
+
+        workers = None
+        if args.workers is not None:
+            try:
+                workers = int(args.workers)
+            except ValueError:
+                raise StabilizeError(f"option --workers: {args.workers!r} is not a whole "
+                                     "number") from None
+        clip_bar = None
+        if progress is not None:
+            from tqdm import tqdm
+
+            def clip_bar(desc: str, total: int | None):
+                return tqdm(desc=desc, total=total, unit="clip", file=sys.stderr,
+                            leave=False, dynamic_ncols=True)
+        settings = pipeline._settings(args.config, dict(opts))
+        result = run_batch(args.inputs, args.out_dir, settings=settings,
+                           measure_only=args.measure_only, workers=workers,
+                           scheduler=args.scheduler, progress=clip_bar)
+        for r in result.results:
+            print(f"{r.status}: {r.clip}" + (f": {r.error}" if r.error else ""))
+        print(f"clips: {len(result.results)} ({result.count('done')} done, "
+              f"{result.count('skipped')} skipped, {result.count('failed')} failed)")
+        print(f"summary: {result.summary_csv}")
+        print(f"summary: {result.summary_html}")
+        if result.count("failed"):
+            return EXIT_SOME_FAILED
     elif args.command == "demo":
         from .demo import run_demo
 
@@ -237,36 +271,76 @@ def _report_written(motion) -> None:
         print(f"{labels.get(key, key)}: {path}")
 
 
-def _on_sigterm(signum, frame) -> None:
+def _on_signal(signum, frame) -> None:
+    # SIGINT and SIGTERM alike unwind the stack as an interruption, so every ``finally`` and
+    # context manager on the way out stops its ffmpeg and removes its temporaries.
     raise KeyboardInterrupt
 
 
+def _one_line(text: object) -> str:
+    return " ".join(str(text).split())
+
+
+def _clean_up() -> None:
+    """Stop any ffmpeg still running and remove temporaries a failed run left behind.
+
+    A no-op after a clean run. Signals are ignored meanwhile, so a second Ctrl-C cannot cut
+    the clean-up short.
+    """
+    from .files import remove_temporaries
+    from .video import stop_children
+
+    held = {sig: signal.signal(sig, signal.SIG_IGN) for sig in (signal.SIGINT, signal.SIGTERM)}
+    try:
+        stop_children()
+        remove_temporaries()
+    finally:
+        for sig, handler in held.items():
+            signal.signal(sig, handler)
+
+
 def main(argv: list[str] | None = None) -> int:
+    """Run the command line; returns the exit status (0, 1, 2 or 130, as the contract says)."""
     parser = build_parser()
-    args = parser.parse_args(argv)
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as exc:  # usage errors (status 2, one line), --help and --version (0)
+        return exc.code if isinstance(exc.code, int) else EXIT_USAGE
     _setup_logging(bool(getattr(args, "quiet", False)))
     debug = bool(getattr(args, "debug", False))
-    previous = signal.signal(signal.SIGTERM, _on_sigterm)
+    previous = {sig: signal.signal(sig, _on_signal) for sig in (signal.SIGINT, signal.SIGTERM)}
+    status = 1
     try:
-        return run(args)
+        status = run(args)
     except StabilizeError as exc:
+        status = EXIT_USAGE
         if debug:
             raise
-        print(f"stabilize: error: {exc}", file=sys.stderr)
-        return EXIT_USAGE
+        print(f"stabilize: error: {_one_line(exc)}", file=sys.stderr)
     except KeyboardInterrupt:
+        status = EXIT_INTERRUPTED
+        _clean_up()
         print("stabilize: interrupted; no partial outputs were left", file=sys.stderr)
-        return EXIT_INTERRUPTED
-    except BrokenPipeError:
-        return EXIT_OK
-    except Exception as exc:  # an unexpected fault: still one line unless --debug
+    except BrokenPipeError:  # stdout closed early (``| head``): not a failure of the work
+        status = EXIT_OK
+    except OSError as exc:  # the system refused a file operation: name the file, status 2
+        status = EXIT_USAGE
         if debug:
             raise
-        print(f"stabilize: internal error: {type(exc).__name__}: {exc} "
+        where = f"{exc.filename}: " if exc.filename else ""
+        print(f"stabilize: error: {where}{_one_line(exc.strerror or exc)}", file=sys.stderr)
+    except Exception as exc:  # an unexpected fault: still one line unless --debug
+        status = 1
+        if debug:
+            raise
+        print(f"stabilize: internal error: {type(exc).__name__}: {_one_line(exc)} "
               "(run again with --debug for details)", file=sys.stderr)
-        return 1
     finally:
-        signal.signal(signal.SIGTERM, previous)
+        if status != EXIT_OK:
+            _clean_up()
+        for sig, handler in previous.items():
+            signal.signal(sig, handler)
+    return status
 
 
 if __name__ == "__main__":

@@ -10,6 +10,7 @@ import logging
 import os
 import shutil
 from collections.abc import Callable
+from contextlib import closing
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -19,13 +20,22 @@ import numpy as np
 from . import framing, shake
 from .config import AUTO_MARGIN_CAP, Settings, build_settings
 from .errors import StabilizeError
-from .files import check_writable_folder, publish, temp_path_for
+from .files import all_or_nothing, check_writable_folder, discard, publish, temp_path_for
 from .log import MotionLog, json_path_for, read_log, similarity_readout
 from .motion import analyse, measurable
 from .path import smooth_path
 from .render import compare_size
 from .render import render as render_frames
-from .video import VideoInfo, VideoWriter, analysis_size, iter_frames, probe
+from .video import (
+    DecodeStats,
+    VideoInfo,
+    VideoWriter,
+    analysis_size,
+    constant_rate,
+    iter_frames,
+    looks_truncated,
+    probe,
+)
 
 log = logging.getLogger("stabilize")
 
@@ -114,11 +124,17 @@ def check_outputs(clip: Path, outputs: Outputs, force: bool) -> None:
 
 
 # ------------------------------------------------------------------ passes
-def _source_dict(info: VideoInfo, frames: int, time_s: np.ndarray) -> dict[str, Any]:
+def _source_dict(info: VideoInfo, frames: int, time_s: np.ndarray,
+                 truncated: bool = False) -> dict[str, Any]:
+    """The log's ``source``: the header's figures, the frames really decoded, and whether the
+    clip ended early (then ``frames_expected`` is what its header announced)."""
     d = info.to_dict()
     d["frames"] = int(frames)
     if len(time_s) > 1:
         d["duration_s"] = float(time_s[-1] - time_s[0] + 1.0 / info.fps)
+    d["truncated"] = bool(truncated)
+    if truncated:
+        d["frames_expected"] = int(info.frames_estimate)
     return d
 
 
@@ -138,6 +154,7 @@ def _analyse(clip: Path, info: VideoInfo, settings: Settings,
              ) -> MotionLog:
     size = analysis_size(info, settings.analysis_width)
     bar = _bar(progress, "analyse", info.frames_estimate)
+    stats = DecodeStats()
     try:
         if parallel:
             from .segments import analyse_segments
@@ -145,17 +162,29 @@ def _analyse(clip: Path, info: VideoInfo, settings: Settings,
             track = analyse_segments(clip, info, size, settings, on_frame=bar.update,
                                      **parallel)
         else:
-            track = analyse(
-                iter_frames(clip, size=size, gray=True, info=info),
-                full_size=(info.width, info.height), analysis_size=size, settings=settings,
-                on_frame=bar.update,
-            )
+            from .segments import single_pass_options
+
+            # closing(): should the analysis stop early (an error, an interruption), ffmpeg
+            # is stopped there and then, not whenever the generator is collected.
+            with closing(iter_frames(clip, size=size, gray=True, info=info,
+                                     stats=stats)) as frames:
+                track = analyse(
+                    frames, full_size=(info.width, info.height), analysis_size=size,
+                    settings=settings, on_frame=bar.update, **single_pass_options(info),
+                )
     finally:
         bar.close()
-    if not measurable(info.width, info.height) or len(track.time_s) < 2:
+    n = len(track.time_s)
+    truncated = looks_truncated(info, stats)
+    if truncated:
+        why = f" ({stats.last_error})" if stats.last_error else ""
+        log.warning("%s: the clip ends early: %d of about %d frames could be decoded%s; "
+                    "working on those, and the log says so (source.truncated)", clip, n,
+                    info.frames_estimate, why)
+    if not measurable(info.width, info.height) or n < 2:
         track.status[:] = "failed"
-        log.warning("%s: too short or too small to measure (%d frames of %dx%d); passed "
-                    "through unchanged, frames marked failed", clip, len(track.time_s),
+        log.warning("%s: too short or too small to measure (%d frame%s of %dx%d); passed "
+                    "through unchanged, frames marked failed", clip, n, "" if n == 1 else "s",
                     info.width, info.height)
     n_failed = int(np.count_nonzero(track.status == "failed"))
     if n_failed and len(track.time_s) >= 2 and measurable(info.width, info.height):
@@ -168,7 +197,7 @@ def _analyse(clip: Path, info: VideoInfo, settings: Settings,
         time_s=track.time_s, matrices=track.matrices, tracked=track.tracked,
         inliers=track.inliers, inlier_ratio=track.inlier_ratio, rms_px=track.rms_px,
         rounds=track.rounds, status=track.status,
-        source=_source_dict(info, len(track.time_s), track.time_s),
+        source=_source_dict(info, n, track.time_s, truncated),
         settings=settings.to_dict(),
         extra={"excluded": track.excluded},
     )
@@ -225,22 +254,27 @@ def plan_corrections(motion: MotionLog, settings: Settings, fps: float) -> None:
 def _render_video(clip: Path, info: VideoInfo, motion: MotionLog, settings: Settings,
                   outputs: Outputs, progress: ProgressFactory | None) -> None:
     writer_args = dict(codec=settings.codec, crf=settings.crf, preset=settings.preset)
+    # A variable frame rate clip keeps its own frame times; a constant rate one is written
+    # at its nominal rate, as before.
+    times = None if constant_rate(motion.time_s, info.fps) else motion.time_s
     video = VideoWriter(outputs.video, info.width, info.height, info.fps_text,
                         audio_from=clip if info.has_audio else None,
-                        audio_codec=info.audio_codec, **writer_args)
+                        audio_codec=info.audio_codec, times_s=times,
+                        time_base=info.time_base, **writer_args)
     compare = None
     if outputs.compare is not None:
         cw, ch = compare_size(info.width, info.height)
-        compare = VideoWriter(outputs.compare, cw, ch, info.fps_text, **writer_args)
+        compare = VideoWriter(outputs.compare, cw, ch, info.fps_text, times_s=times,
+                              time_base=info.time_base, **writer_args)
     bar = _bar(progress, "render", motion.frames)
     try:
-        with video:
+        with video, closing(iter_frames(clip, info=info)) as frames:
             if compare is None:
-                n = render_frames(iter_frames(clip, info=info), motion.corrections, video,
+                n = render_frames(frames, motion.corrections, video,
                                   fill=settings.fill, on_frame=bar.update)
             else:
                 with compare:
-                    n = render_frames(iter_frames(clip, info=info), motion.corrections, video,
+                    n = render_frames(frames, motion.corrections, video,
                                       fill=settings.fill, compare=compare, on_frame=bar.update)
     finally:
         bar.close()
@@ -249,13 +283,14 @@ def _render_video(clip: Path, info: VideoInfo, motion: MotionLog, settings: Sett
 
 
 def _copy_unchanged(clip: Path, dest: Path) -> None:
+    """The input's bytes, unchanged, as ``dest`` (for clips too short or small to steady)."""
     tmp = temp_path_for(dest)
     try:
         shutil.copyfile(clip, tmp)
         publish(tmp, dest)
     finally:
         if tmp.exists():
-            tmp.unlink()
+            discard(tmp)
 
 
 def _record_outputs(motion: MotionLog, outputs: Outputs) -> None:
@@ -291,6 +326,8 @@ def measure(clip: str | os.PathLike, *, config: str | None = None,
     return motion
 
 
+# Every output of one job appears together when the job succeeds, or none does.
+@all_or_nothing()
 def steady(clip: str | os.PathLike, out: str | os.PathLike | None = None, *,
            log_path: str | os.PathLike | None = None, config: str | None = None,
            progress: ProgressFactory | None = None, **options: Any) -> MotionLog:
@@ -332,6 +369,7 @@ def _rescale(matrices: np.ndarray, from_size: tuple[int, int],
     return m / m[:, 2:3, 2:3]
 
 
+@all_or_nothing()
 def render(clip: str | os.PathLike, log_file: str | os.PathLike | MotionLog,
            out: str | os.PathLike | None = None, *, config: str | None = None,
            progress: ProgressFactory | None = None, **options: Any) -> MotionLog:

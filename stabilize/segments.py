@@ -59,6 +59,14 @@ def analyse_restarts_itself() -> bool:
     return "keyframe_every" in params and "first_index" in params
 
 
+def single_pass_options(info: VideoInfo) -> dict[str, Any]:
+    """Keyword options that make a single pass restart at the keyframes a segmented pass
+    uses, so both give the same log; none while :func:`analyse` cannot restart itself."""
+    if not analyse_restarts_itself():
+        return {}
+    return {"keyframe_every": keyframe_frames(info.fps)}
+
+
 def default_workers() -> int:
     """The cores this process may use."""
     try:

@@ -483,7 +483,7 @@ class VideoWriter:
             # The filter is read from a file ("-/vf"): a long clip's tree outgrows the
             # command line.
             cmd += ["-/vf", str(self._script), "-fps_mode", "passthrough",
-                    "-enc_time_base", "-1", "-video_track_timescale", str(self.time_base)]
+                    "-enc_time_base", "filter", "-video_track_timescale", str(self.time_base)]
         encoder = ENCODERS[self.codec]
         cmd += ["-c:v", encoder]
         if self.codec in ("h264", "h265"):

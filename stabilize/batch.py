@@ -1,0 +1,380 @@
+"""Many clips: every video under a folder (or matching a glob), on local worker processes or a
+Dask cluster, resumable, with a summary CSV and an HTML page linking each clip's report.
+
+Outputs mirror the input tree under ``--out-dir``: ``ROOT/a/b/flight.mp4`` gives
+``OUT/a/b/flight.steady.mp4``, ``flight.motion.csv`` / ``.json`` and the report files, so clips
+of equal names in different folders never collide; clips of equal names in the same folder
+(``flight.mp4``, ``flight.mov``) keep their extension in NAME (``flight.mov.steady.mp4``).
+
+A clip is done when its motion log JSON records the source's size and modification time
+(``source.size_bytes``, ``source.mtime_ns``, written last, after every other output), the
+same kind of job (``batch.job``) and the same settings, and every output is there. Such a clip
+is skipped; ``force`` redoes it. One clip's failure never stops the others.
+"""
+
+from __future__ import annotations
+
+import csv
+import glob
+import html
+import io
+import json
+import logging
+import os
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from .config import Settings
+from .errors import StabilizeError
+from .files import write_text_atomic
+
+log = logging.getLogger("stabilize")
+
+#: File endings taken as video (compared case-insensitively).
+VIDEO_EXTENSIONS = frozenset({
+    ".mp4", ".m4v", ".mov", ".mkv", ".avi", ".mts", ".m2ts", ".ts", ".webm", ".mpg",
+    ".mpeg", ".wmv", ".flv", ".3gp", ".mxf", ".dv", ".ogv", ".insv", ".lrv",
+})
+
+FIGURES = ("jitter_rms_x_px", "jitter_rms_y_px", "jitter_rms_rot_deg", "jitter_rms_x_deg",
+           "jitter_rms_y_deg", "dominant_hz_x", "dominant_hz_y", "dominant_hz_rot",
+           "stability_translation", "stability_rotation", "cropping_ratio", "distortion",
+           "frames_weak", "frames_failed", "cuts")
+COLUMNS = ("clip", "status", "error", "frames", *FIGURES, "video", "log", "report",
+           "warnings")
+#: Settings that do not change the outputs, left out when deciding whether a clip is done.
+_NOT_OUTPUT = ("force", "quiet")
+
+ProgressFactory = Callable[[str, int | None], Any]
+
+
+# ------------------------------------------------------------------- finding
+def find_clips(spec: str | os.PathLike, out_dir: Path | None = None) -> tuple[Path, list[Path]]:
+    """The root the outputs mirror, and the video files under a folder (recursively) or
+    matching a glob (``**`` allowed), sorted. Hidden files and anything inside ``out_dir``
+    are left out (a batch never takes its own outputs as inputs)."""
+    spec = str(spec)
+    p = Path(spec)
+    if p.is_dir():
+        root, found = p, [q for q in p.rglob("*") if q.is_file()]
+    elif glob.has_magic(spec):
+        parts = p.parts
+        plain = [q for q in parts[: next(i for i, q in enumerate(parts) if glob.has_magic(q))]]
+        root = Path(*plain) if plain else Path(".")
+        found = [Path(q) for q in glob.glob(spec, recursive=True) if Path(q).is_file()]
+    elif p.is_file():
+        root, found = p.parent, [p]
+    else:
+        raise StabilizeError(f"{spec}: no such folder or file, and not a glob pattern")
+    out = out_dir.resolve() if out_dir else None
+    clips = []
+    for q in found:
+        if q.suffix.lower() not in VIDEO_EXTENSIONS or q.name.startswith("."):
+            continue
+        rq = q.resolve()
+        if out is not None and (rq == out or out in rq.parents):
+            continue
+        clips.append(q)
+    if not clips:
+        raise StabilizeError(f"{spec}: no video files found (looked for "
+                             f"{', '.join(sorted(VIDEO_EXTENSIONS))})")
+    return root, sorted(clips)
+
+
+def output_names(root: Path, clips: list[Path]) -> dict[Path, tuple[Path, str]]:
+    """Each clip's output folder relative to the out dir, and its NAME."""
+    rroot = root.resolve()
+    out: dict[Path, tuple[Path, str]] = {}
+    stems: dict[tuple[Path, str], int] = {}
+    for c in clips:
+        try:
+            rel = c.resolve().parent.relative_to(rroot)
+        except ValueError:  # a glob that climbs out of its plain prefix
+            rel = Path(*[q for q in c.resolve().parent.parts[1:]])
+        key = (rel, c.stem.lower())
+        stems[key] = stems.get(key, 0) + 1
+        out[c] = (rel, c.stem)
+    for c, (rel, stem) in out.items():
+        if stems[(rel, stem.lower())] > 1:
+            out[c] = (rel, c.name)
+    return out
+
+
+# ------------------------------------------------------------------ one clip
+@dataclass(frozen=True)
+class ClipJob:
+    """One clip and where its outputs go; plain data for a worker process or a cluster."""
+
+    clip: str
+    label: str
+    folder: str
+    name: str
+    settings: Settings
+    measure_only: bool
+
+    @property
+    def job(self) -> str:
+        return "measure" if self.measure_only else "steady"
+
+    def outputs(self) -> dict[str, Path]:
+        d, n = Path(self.folder), self.name
+        outs = {"log": d / f"{n}.motion.csv", "log_json": d / f"{n}.motion.json",
+                "report": d / f"{n}.report.html", "shake_json": d / f"{n}.shake.json"}
+        if not self.measure_only:
+            outs["video"] = d / f"{n}.steady.mp4"
+        return outs
+
+
+@dataclass
+class ClipResult:
+    """One row of the summary."""
+
+    clip: str
+    status: str
+    error: str = ""
+    summary: dict[str, Any] = field(default_factory=dict)
+    outputs: dict[str, str] = field(default_factory=dict)
+    warnings: list[str] = field(default_factory=list)
+
+    def row(self, out_dir: Path) -> dict[str, Any]:
+        def rel(key: str) -> str:
+            p = self.outputs.get(key)
+            return os.path.relpath(p, out_dir) if p else ""
+
+        row = {"clip": self.clip, "status": self.status, "error": self.error,
+               "frames": self.summary.get("frames", "")}
+        for k in FIGURES:
+            v = self.summary.get(k)
+            row[k] = "" if v is None else (repr(float(v)) if isinstance(v, float) else v)
+        row.update(video=rel("video"), log=rel("log"), report=rel("report"),
+                   warnings=" | ".join(self.warnings))
+        return row
+
+
+def fingerprint(clip: Path) -> dict[str, int]:
+    """What identifies a source's content cheaply: its size and modification time."""
+    st = clip.stat()
+    return {"size_bytes": int(st.st_size), "mtime_ns": int(st.st_mtime_ns)}
+
+
+def _comparable(settings: dict[str, Any]) -> dict[str, Any]:
+    return {k: v for k, v in settings.items() if k not in _NOT_OUTPUT}
+
+
+def done_before(job: ClipJob) -> ClipResult | None:
+    """The earlier result when the clip's outputs are complete and match the source and the
+    settings, else None."""
+    outs = job.outputs()
+    if not all(p.is_file() for p in outs.values()):
+        return None
+    try:
+        doc = json.loads(outs["log_json"].read_text(encoding="utf-8"))
+        fp = fingerprint(Path(job.clip))
+    except (OSError, ValueError):
+        return None
+    src = doc.get("source") or {}
+    if any(src.get(k) != v for k, v in fp.items()):
+        return None
+    if (doc.get("batch") or {}).get("job") not in (job.job, "steady"):
+        return None
+    if _comparable(doc.get("settings") or {}) != _comparable(job.settings.to_dict()):
+        return None
+    return ClipResult(job.label, "skipped", summary=doc.get("summary") or {},
+                      outputs={k: str(v) for k, v in outs.items()})
+
+
+class _Collect(logging.Handler):
+    def __init__(self) -> None:
+        super().__init__(logging.WARNING)
+        self.messages: list[str] = []
+
+    def emit(self, record: logging.LogRecord) -> None:
+        self.messages.append(record.getMessage())
+
+
+def process_clip(job: ClipJob) -> ClipResult:
+    """Do one clip (``steady`` or ``measure``, then its report); never raises: a failure is a
+    ``failed`` result with a one-line error. Warnings are returned, not printed, so the
+    caller reports them (a worker process has no terminal of its own)."""
+    from . import pipeline
+    from .report import make_report
+
+    logger = logging.getLogger("stabilize")
+    collect = _Collect()
+    logger.addHandler(collect)
+    old_propagate, old_level = logger.propagate, logger.level
+    logger.propagate = False
+    if logger.level == logging.NOTSET or logger.level > logging.WARNING:
+        logger.setLevel(logging.WARNING)
+    clip = Path(job.clip)
+    outs = job.outputs()
+    try:
+        Path(job.folder).mkdir(parents=True, exist_ok=True)
+        fp = fingerprint(clip)
+        # The batch owns its out dir: stale or partial outputs of its own are replaced.
+        settings = job.settings.replace(force=True, quiet=True)
+        if job.measure_only:
+            motion = pipeline.measure(clip, settings=settings)
+            motion.save(outs["log"])
+        else:
+            motion = pipeline.steady(clip, outs["video"], log_path=outs["log"],
+                                     settings=settings)
+        make_report(outs["log"], job.folder, force=True, quiet=True)
+        # Written last: a log that records the source marks the clip as done.
+        motion.source.update(fp)
+        motion.extra["batch"] = {"job": job.job}
+        motion.save(outs["log"])
+        return ClipResult(job.label, "done", summary=motion.summary,
+                          outputs={k: str(v) for k, v in outs.items()},
+                          warnings=collect.messages)
+    except StabilizeError as exc:
+        return ClipResult(job.label, "failed", error=str(exc), warnings=collect.messages)
+    except Exception as exc:  # one bad clip must not stop the others
+        return ClipResult(job.label, "failed", error=f"internal error: {type(exc).__name__}: "
+                          f"{exc}", warnings=collect.messages)
+    finally:
+        logger.removeHandler(collect)
+        logger.propagate, logger.level = old_propagate, old_level
+
+
+def _process_in_worker(job: ClipJob) -> ClipResult:
+    import cv2
+
+    # Workers share the cores: one OpenCV thread each, or they oversubscribe.
+    cv2.setNumThreads(1)
+    return process_clip(job)
+
+
+# --------------------------------------------------------------------- batch
+@dataclass
+class BatchResult:
+    """Rows in input order, and the summary files."""
+
+    results: list[ClipResult]
+    summary_csv: Path
+    summary_html: Path
+
+    def count(self, status: str) -> int:
+        return sum(r.status == status for r in self.results)
+
+
+def run_batch(inputs: str | os.PathLike, out_dir: str | os.PathLike, *,
+              settings: Settings, measure_only: bool = False, workers: int | None = None,
+              scheduler: str | None = None,
+              progress: ProgressFactory | None = None) -> BatchResult:
+    """Process every clip of ``inputs`` into ``out_dir``; see the module docstring."""
+    from .segments import default_workers, parallel_map
+
+    out = Path(out_dir)
+    if out.exists() and not out.is_dir():
+        raise StabilizeError(f"{out}: --out-dir must be a folder")
+    workers = default_workers() if workers is None else int(workers)
+    if workers < 1:
+        raise StabilizeError(f"option --workers: {workers} is not a positive number")
+    root, clips = find_clips(inputs, out)
+    out.mkdir(parents=True, exist_ok=True)
+    names = output_names(root, clips)
+    jobs = []
+    for c in clips:
+        rel, name = names[c]
+        label = str(Path(rel, c.name)) if str(rel) != "." else c.name
+        jobs.append(ClipJob(str(c.resolve()), label, str((out / rel).resolve()), name,
+                            settings, measure_only))
+    results: list[ClipResult | None] = [None] * len(jobs)
+    todo = []
+    for i, job in enumerate(jobs):
+        earlier = None if settings.force else done_before(job)
+        if earlier is None:
+            todo.append(i)
+        else:
+            results[i] = earlier
+    bar = progress("clips", len(jobs)) if progress else None
+    if bar is not None:
+        bar.update(len(jobs) - len(todo))
+    try:
+        if todo and workers == 1 and scheduler is None:
+            outcomes = ((k, process_clip(jobs[i])) for k, i in enumerate(todo))
+        else:
+            outcomes = parallel_map(_process_in_worker, [jobs[i] for i in todo],
+                                    workers=workers, scheduler=scheduler)
+        for k, outcome in outcomes:
+            i = todo[k]
+            if isinstance(outcome, BaseException):  # the worker itself died
+                outcome = ClipResult(jobs[i].label, "failed", error=f"worker failed: "
+                                     f"{type(outcome).__name__}: {outcome}")
+            for message in outcome.warnings:
+                log.warning("%s", message)
+            if outcome.status == "failed":
+                log.warning("%s: failed: %s", jobs[i].label, outcome.error)
+            results[i] = outcome
+            if bar is not None:
+                bar.update(1)
+    finally:
+        if bar is not None:
+            bar.close()
+    done = [r for r in results if r is not None]
+    csv_path, html_path = out / "summary.csv", out / "summary.html"
+    write_text_atomic(csv_path, summary_csv(done, out))
+    write_text_atomic(html_path, summary_html(done, out))
+    return BatchResult(done, csv_path, html_path)
+
+
+# ------------------------------------------------------------------- summary
+def summary_csv(results: list[ClipResult], out_dir: Path) -> str:
+    buf = io.StringIO()
+    writer = csv.DictWriter(buf, fieldnames=COLUMNS, lineterminator="\n")
+    writer.writeheader()
+    for r in results:
+        writer.writerow(r.row(out_dir))
+    return buf.getvalue()
+
+
+def summary_html(results: list[ClipResult], out_dir: Path) -> str:
+    """One self-contained page (no scripts, no network): a table of every clip with its
+    figures and links to its report, video and log (relative, so the folder can move)."""
+    from . import __version__
+    from .report_page import fmt_sig
+
+    esc = html.escape
+    heads = ("clip", "status", "frames", "shake x (px)", "shake y (px)", "shake rot (deg)",
+             "dominant x (Hz)", "dominant y (Hz)", "weak", "failed", "files")
+    rows = []
+    for r in results:
+        row = r.row(out_dir)
+        links = " ".join(f'<a href="{esc(row[k])}">{label}</a>'
+                         for k, label in (("report", "report"), ("video", "video"),
+                                          ("log", "log")) if row[k])
+        detail = esc(r.error) if r.status == "failed" else links
+        cells = [esc(r.clip), esc(r.status), esc(str(row["frames"]))]
+        cells += [esc(fmt_sig(r.summary.get(k))) for k in
+                  ("jitter_rms_x_px", "jitter_rms_y_px", "jitter_rms_rot_deg",
+                   "dominant_hz_x", "dominant_hz_y")]
+        cells += [esc(str(row["frames_weak"])), esc(str(row["frames_failed"])), detail]
+        rows.append(f'<tr class="{esc(r.status)}">' + "".join(f"<td>{c}</td>" for c in cells)
+                    + "</tr>")
+    counts = {s: sum(r.status == s for r in results) for s in ("done", "skipped", "failed")}
+    return f"""<!DOCTYPE html>
+<html lang="en"><head><meta charset="utf-8">
+<meta name="viewport" content="width=device-width, initial-scale=1">
+<title>stabilize batch summary</title>
+<style>
+body {{ font-family: sans-serif; color: #24323f; margin: 1rem; }}
+table {{ border-collapse: collapse; font-size: 0.9rem; }}
+th, td {{ border-bottom: 1px solid #d0d6dc; padding: 0.3rem 0.5rem; text-align: left; }}
+tr.failed td {{ background: #fbe9e7; }}
+.wrap {{ overflow-x: auto; }}
+</style></head><body>
+<h1>Batch summary</h1>
+<p>{len(results)} clips: {counts['done']} done, {counts['skipped']} skipped (done before),
+{counts['failed']} failed. Shake figures describe the camera as the frames sample it; clips
+with many weak or failed frames give figures to be trusted less. Each clip's report says
+more.</p>
+<div class="wrap"><table>
+<tr>{''.join(f'<th>{esc(h)}</th>' for h in heads)}</tr>
+{chr(10).join(rows)}
+</table></div>
+<p>stabilize {esc(__version__)}</p>
+</body></html>
+"""
