@@ -23,7 +23,9 @@ class _Parser(argparse.ArgumentParser):
     """argparse that reports a usage error in one line (status 2), not a usage block."""
 
     def error(self, message: str) -> None:  # type: ignore[override]
-        self.exit(EXIT_USAGE, f"{self.prog}: error: {message}\n")
+        # Same prefix as every other error, so scripts can look for one pattern.
+        text = " ".join(message.split())
+        self.exit(EXIT_USAGE, f"stabilize: error: {text} (see '{self.prog} --help')\n")
 
 
 def _add_common(p: argparse.ArgumentParser) -> None:

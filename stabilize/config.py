@@ -85,6 +85,22 @@ def _bad(name: str, value: Any, allowed: str) -> StabilizeError:
     return StabilizeError(f"option {_flag(name)}: {value!r} is not allowed; use {allowed}")
 
 
+# What each numeric option allows, in the words its error message uses; a value that is not
+# a number at all gets the same words, so the user learns the range in one go.
+_ALLOWED = {
+    "window_s": "a positive number of seconds",
+    "inlier_px": "a positive number of pixels",
+    "shake_above_hz": "a positive number of hertz",
+    "margin": f"'auto' or a fraction from 0 to {MAX_MARGIN}",
+    "confidence": "a probability strictly between 0 and 1",
+    "max_rounds": "a whole number of at least 1",
+    "analysis_width": "0 (full resolution) or a whole number of pixels of at least 32",
+    "seed": "a whole number of 0 or more",
+    "fov_deg": "an angle between 0 and 180 degrees",
+    "crf": "a whole number from 0 to 51",
+}
+
+
 def validate(s: Settings) -> None:
     """Raise StabilizeError naming the first bad option and the values it allows."""
     choices = {
@@ -98,24 +114,26 @@ def validate(s: Settings) -> None:
                 "shake_above_hz": s.shake_above_hz}
     for name, value in positive.items():
         if not (isinstance(value, int | float) and math.isfinite(value) and value > 0):
-            raise _bad(name, value, "a positive number")
+            raise _bad(name, value, _ALLOWED[name])
     if s.margin != "auto" and not (
         isinstance(s.margin, int | float) and 0.0 <= s.margin <= MAX_MARGIN
     ):
-        raise _bad("margin", s.margin, f"'auto' or a fraction from 0 to {MAX_MARGIN}")
+        raise _bad("margin", s.margin, _ALLOWED["margin"])
     if not (isinstance(s.confidence, float | int) and 0.0 < s.confidence < 1.0):
-        raise _bad("confidence", s.confidence, "a probability strictly between 0 and 1")
+        raise _bad("confidence", s.confidence, _ALLOWED["confidence"])
     if not (isinstance(s.max_rounds, int) and s.max_rounds >= 1):
-        raise _bad("max_rounds", s.max_rounds, "a whole number of at least 1")
+        raise _bad("max_rounds", s.max_rounds, _ALLOWED["max_rounds"])
     if not (isinstance(s.analysis_width, int) and (s.analysis_width == 0
                                                    or s.analysis_width >= 32)):
-        raise _bad("analysis_width", s.analysis_width, "0 (full resolution) or at least 32")
+        raise _bad("analysis_width", s.analysis_width, _ALLOWED["analysis_width"])
     if not isinstance(s.seed, int) or s.seed < 0:
-        raise _bad("seed", s.seed, "a whole number of 0 or more")
-    if s.fov_deg is not None and not (0.0 < s.fov_deg < 180.0):
-        raise _bad("fov_deg", s.fov_deg, "an angle between 0 and 180 degrees")
+        raise _bad("seed", s.seed, _ALLOWED["seed"])
+    if s.fov_deg is not None and not (
+        isinstance(s.fov_deg, int | float) and 0.0 < s.fov_deg < 180.0
+    ):
+        raise _bad("fov_deg", s.fov_deg, _ALLOWED["fov_deg"])
     if not (isinstance(s.crf, int) and 0 <= s.crf <= 51):
-        raise _bad("crf", s.crf, "a whole number from 0 to 51")
+        raise _bad("crf", s.crf, _ALLOWED["crf"])
     for r in s.ignore:
         if len(r) != 4 or r[2] <= 0 or r[3] <= 0:
             raise _bad("ignore", r, "X,Y,W,H with positive width and height")
@@ -126,7 +144,7 @@ def parse_region(text: str) -> Region:
     parts = [p.strip() for p in str(text).split(",")]
     try:
         values = tuple(int(round(float(p))) for p in parts)
-    except ValueError:
+    except (ValueError, OverflowError):  # not numbers, or nan / inf
         raise _bad("ignore", text, "X,Y,W,H in pixels, e.g. 0,980,1920,100") from None
     if len(values) != 4 or values[2] <= 0 or values[3] <= 0:
         raise _bad("ignore", text, "X,Y,W,H with positive width and height")
@@ -134,14 +152,18 @@ def parse_region(text: str) -> Region:
 
 
 def _to_number(name: str, value: Any, kind: type) -> Any:
+    """A flag's text or a TOML value as ``kind``; whole numbers may be written ``1e3``."""
+    allowed = _ALLOWED.get(name, "a whole number" if kind is int else "a number")
     if isinstance(value, bool):
-        raise _bad(name, value, "a number")
+        raise _bad(name, value, allowed)
     try:
-        number = kind(value)
-    except (TypeError, ValueError):
-        raise _bad(name, value, "a number") from None
-    if kind is int and isinstance(value, float) and not value.is_integer():
-        raise _bad(name, value, "a whole number")
+        number = float(value) if kind is int and not isinstance(value, int) else kind(value)
+    except (TypeError, ValueError, OverflowError):
+        raise _bad(name, value, allowed) from None
+    if kind is int:
+        if not (isinstance(number, int) or (math.isfinite(number) and number.is_integer())):
+            raise _bad(name, value, allowed)
+        number = int(number)
     return number
 
 

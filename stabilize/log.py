@@ -208,73 +208,103 @@ def _jsonable(obj: Any) -> Any:
 
 
 # --------------------------------------------------------------------- reading
-def read_log(csv_path: str | Path) -> MotionLog:
-    """Read a motion log written by this major version (the CSV and the JSON beside it).
+# Logs are data from outside: a file edited by hand, cut short, or from somewhere else. Every
+# problem found is a StabilizeError naming the file and line, never another exception.
+_INT_COLUMNS = ("tracked", "inliers", "rounds")
+_SMOOTH = ["smooth_x", "smooth_y", "smooth_deg", "smooth_scale"]
+_MAX_COUNT = 2**31 - 1
+_MAX_SIDE_PX = 1 << 16
 
-    Raises StabilizeError naming the file and line of the first problem found.
-    """
-    csv_path = Path(csv_path)
-    if csv_path.suffix == ".json":
-        csv_path = csv_path.with_suffix(".csv")
-    json_path = json_path_for(csv_path)
-    for p in (csv_path, json_path):
-        if not p.is_file():
-            raise StabilizeError(f"{p}: motion log file not found")
+
+def _read_text(path: Path) -> str:
     try:
-        meta = json.loads(json_path.read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError) as exc:
-        raise StabilizeError(f"{json_path}: cannot read ({exc})") from None
+        return path.read_bytes().decode("utf-8")
+    except OSError as exc:
+        raise StabilizeError(f"{path}: cannot read ({exc.strerror or exc})") from None
+    except UnicodeDecodeError as exc:
+        raise StabilizeError(f"{path}: not a text file (byte {exc.start} is not UTF-8)") from None
+
+
+def _read_meta(json_path: Path) -> dict[str, Any]:
+    text = _read_text(json_path)
+    try:
+        meta = json.loads(text)
     except json.JSONDecodeError as exc:
         raise StabilizeError(
             f"{json_path}: not valid JSON at line {exc.lineno}: {exc.msg}"
         ) from None
+    except (ValueError, RecursionError):  # absurd numbers or nesting
+        raise StabilizeError(f"{json_path}: not valid JSON (too deeply nested or a number "
+                             "too long)") from None
     if not isinstance(meta, dict) or meta.get("format") != FORMAT:
         raise StabilizeError(f"{json_path}: not a stabilize motion log (format field missing)")
-    if meta.get("version") != VERSION:
+    version = meta.get("version")
+    if type(version) is not int or version != VERSION:
         raise StabilizeError(
-            f"{json_path}: log version {meta.get('version')!r} is not supported (need {VERSION})"
+            f"{json_path}: log version {version!r} is not supported (need {VERSION})"
         )
     source = meta.get("source")
     if not isinstance(source, dict) or not all(
-        isinstance(source.get(k), int) and source[k] > 0 for k in ("width", "height")
+        type(source.get(k)) is int and 0 < source[k] <= _MAX_SIDE_PX for k in ("width", "height")
     ):
         raise StabilizeError(f"{json_path}: source width and height missing or invalid")
+    fps = source.get("fps")
+    if fps is not None and not (isinstance(fps, int | float) and not isinstance(fps, bool)
+                                and math.isfinite(fps) and fps > 0):
+        raise StabilizeError(f"{json_path}: source fps {fps!r} is not a positive number")
+    for key in ("settings", "summary"):
+        if meta.get(key) is not None and not isinstance(meta[key], dict):
+            raise StabilizeError(f"{json_path}: {key} is not a JSON object")
+    return meta
+
+
+def _read_rows(csv_path: Path) -> tuple[np.ndarray, np.ndarray, np.ndarray, bool, bool]:
+    """Parse the CSV body: (numbers, status, line numbers, has smooth, has corrections)."""
+    text = _read_text(csv_path)
+    reader = csv.reader(io.StringIO(text, newline=""))
+    rows: list[list[str]] = []
+    lines: list[int] = []
     try:
-        text = csv_path.read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as exc:
-        raise StabilizeError(f"{csv_path}: cannot read ({exc})") from None
-    rows = list(csv.reader(io.StringIO(text)))
+        for row in reader:
+            if row or lines:  # blank lines after the header still count below
+                rows.append(row)
+                lines.append(reader.line_num)
+    except csv.Error as exc:
+        raise StabilizeError(f"{csv_path}: line {reader.line_num}: {exc}") from None
+    while rows and len(rows) > 1 and not rows[-1]:  # trailing blank lines from an editor
+        rows.pop()
+        lines.pop()
     if not rows or rows[0][: len(COLUMNS)] != COLUMNS:
         raise StabilizeError(f"{csv_path}: line 1: header does not match the motion log columns")
-    header = rows[0]
-    idx = {name: i for i, name in enumerate(header)}
-    body = rows[1:]
+    width = len(rows[0])
+    body, body_lines = rows[1:], lines[1:]
     if not body:
         raise StabilizeError(f"{csv_path}: line 2: the log has no frames")
     n = len(body)
     numeric = np.empty((n, len(COLUMNS)), dtype=np.float64)
     status = np.empty(n, dtype=object)
     has_smooth = has_corr = True
-    for t, row in enumerate(body):
-        line = t + 2
-        if len(row) != len(header):
+    status_col = COLUMNS.index("status")
+    optional = {j for j, name in enumerate(COLUMNS) if name in _SMOOTH or name in _C}
+    for t, (row, line) in enumerate(zip(body, body_lines, strict=True)):
+        if len(row) != width:
             raise StabilizeError(
-                f"{csv_path}: line {line}: {len(row)} fields, expected {len(header)}"
+                f"{csv_path}: line {line}: {len(row)} fields, expected {width}"
             )
         for j, name in enumerate(COLUMNS):
-            cell = row[idx[name]]
-            if name == "status":
+            cell = row[j]
+            if j == status_col:
                 if cell not in STATUSES:
                     raise StabilizeError(
-                        f"{csv_path}: line {line}: status {cell!r} is not one of "
+                        f"{csv_path}: line {line}: status {cell[:40]!r} is not one of "
                         + ", ".join(STATUSES)
                     )
                 status[t] = cell
                 numeric[t, j] = 0.0
                 continue
-            if cell == "" and (name.startswith("smooth_") or name in _C):
+            if cell == "" and j in optional:
                 numeric[t, j] = np.nan
-                if name.startswith("smooth_"):
+                if name in _SMOOTH:
                     has_smooth = False
                 else:
                     has_corr = False
@@ -283,21 +313,68 @@ def read_log(csv_path: str | Path) -> MotionLog:
                 numeric[t, j] = float(cell)
             except ValueError:
                 raise StabilizeError(
-                    f"{csv_path}: line {line}: column {name}: {cell!r} is not a number"
+                    f"{csv_path}: line {line}: column {name}: {cell[:40]!r} is not a number"
                 ) from None
-        if int(numeric[t, 0]) != t:
-            raise StabilizeError(f"{csv_path}: line {line}: frame {row[0]} out of order")
+    return numeric, status, np.array(body_lines), has_smooth, has_corr
+
+
+def _check_rows(csv_path: Path, numeric: np.ndarray, lines: np.ndarray,
+                has_smooth: bool, has_corr: bool) -> None:
+    """Refuse values no stage could use: frames out of order, non-finite times or
+    transforms, singular transforms, counts that are not whole numbers."""
+    n = len(numeric)
+    col = {name: j for j, name in enumerate(COLUMNS)}
+
+    def first_bad(ok: np.ndarray, what: str) -> None:
+        if not np.all(ok):
+            t = int(np.flatnonzero(~ok)[0])
+            raise StabilizeError(f"{csv_path}: line {int(lines[t])}: {what}")
+
+    first_bad(numeric[:, col["frame"]] == np.arange(n), "frame number out of order")
+    first_bad(np.isfinite(numeric[:, col["time_s"]]), "time_s is not a finite number")
+    for name in _INT_COLUMNS:
+        v = numeric[:, col[name]]
+        with np.errstate(invalid="ignore"):
+            ok = np.isfinite(v) & (v >= 0) & (v <= _MAX_COUNT) & (v == np.round(v))
+        first_bad(ok, f"{name} is not a whole number of 0 or more")
+    h = numeric[:, [col[c] for c in _H]].reshape(n, 3, 3)
+    first_bad(np.isfinite(h).reshape(n, -1).all(axis=1), "transform has a non-finite value")
+    with np.errstate(all="ignore"):
+        det = np.linalg.det(h)
+    ok = np.isfinite(det) & (np.abs(det) > 1e-12) & (h[:, 2, 2] != 0)
+    first_bad(ok, "transform is singular (it cannot be inverted)")
+    if has_corr:
+        c = numeric[:, [col[name] for name in _C]]
+        first_bad(np.isfinite(c).all(axis=1), "correction has a non-finite value")
+    if has_smooth:
+        sm = numeric[:, [col[name] for name in _SMOOTH]]
+        first_bad(np.isfinite(sm).all(axis=1), "smoothed path has a non-finite value")
+
+
+def read_log(csv_path: str | Path) -> MotionLog:
+    """Read a motion log written by this major version (the CSV and the JSON beside it).
+
+    Raises StabilizeError naming the file and line of the first problem found; a damaged or
+    hand-edited log gives that one error, never another exception.
+    """
+    csv_path = Path(csv_path)
+    if csv_path.suffix.lower() == ".json":
+        csv_path = csv_path.with_suffix(".csv")
+    json_path = json_path_for(csv_path)
+    for p in (csv_path, json_path):
+        if not p.is_file():
+            raise StabilizeError(f"{p}: motion log file not found")
+    meta = _read_meta(json_path)
+    numeric, status, lines, has_smooth, has_corr = _read_rows(csv_path)
+    _check_rows(csv_path, numeric, lines, has_smooth, has_corr)
+    n = len(numeric)
     col = {name: j for j, name in enumerate(COLUMNS)}
     h = numeric[:, [col[c] for c in _H]].reshape(n, 3, 3)
-    if not np.all(np.isfinite(h)):
-        bad = int(np.argwhere(~np.isfinite(h).reshape(n, -1).all(axis=1))[0][0])
-        raise StabilizeError(f"{csv_path}: line {bad + 2}: transform has a non-finite value")
     corrections = smooth_values = None
     if has_corr:
         corrections = numeric[:, [col[c] for c in _C]].reshape(n, 3, 3)
     if has_smooth:
-        smooth_values = numeric[:, [col[c] for c in
-                                    ("smooth_x", "smooth_y", "smooth_deg", "smooth_scale")]]
+        smooth_values = numeric[:, [col[c] for c in _SMOOTH]]
     return MotionLog(
         time_s=numeric[:, col["time_s"]],
         matrices=h,
@@ -307,7 +384,7 @@ def read_log(csv_path: str | Path) -> MotionLog:
         rms_px=numeric[:, col["rms_px"]],
         rounds=numeric[:, col["rounds"]].astype(int),
         status=status.astype(str),
-        source=source,
+        source=meta["source"],
         settings=meta.get("settings") or {},
         summary=meta.get("summary") or {},
         corrections=corrections,

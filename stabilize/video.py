@@ -154,7 +154,7 @@ def probe(path: str | os.PathLike) -> VideoInfo:
     text = proc.stderr
     video = _VIDEO.search(text)
     if video is None:
-        if "moov atom not found" in text:
+        if "moov atom not found" in text and "low score" not in text:
             # An MP4 whose index is written last: a recording cut short leaves it unreadable.
             raise StabilizeError(f"{p}: the file is incomplete (its index is missing, as when "
                                  "a recording is cut short) and cannot be read")
@@ -252,6 +252,7 @@ def constant_rate(times_s: Sequence[float] | np.ndarray, fps: float) -> bool:
 
 _SHOWINFO = re.compile(r"\bn:\s*(\d+)\s+pts:\s*(-?\d+)\s+pts_time:\s*(-?[0-9.eE+-]+)")
 _TIME_BASE = re.compile(r"config in time_base:\s*(\d+)/(\d+)")
+_FFMPEG_PREFIX = re.compile(r"^(?:\[[^\]]*\]\s*)+")
 # What the demuxer and decoders print about damaged or cut-short data.
 _DECODE_ERROR = re.compile(
     r"partial file|invalid data|invalid nal|error while decoding|error splitting|"
@@ -292,7 +293,8 @@ class _StderrReader(threading.Thread):
                 self.tail.append(line)
                 if "Parsed_showinfo" not in line and _DECODE_ERROR.search(line):
                     self.errors += 1
-                    self.last_error = line
+                    # Without ffmpeg's "[h264 @ 0x55…]" prefixes: plain words for the warning.
+                    self.last_error = _FFMPEG_PREFIX.sub("", line) or line
         with self.cond:
             self.finished = True
             self.cond.notify_all()

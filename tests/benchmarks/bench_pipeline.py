@@ -1,0 +1,104 @@
+"""Whole-job speed and memory against the floors set by video decoding and encoding.
+
+Run as ``python tests/benchmarks/bench_pipeline.py [--width 1920 --height 1080 --frames 240]``.
+It draws a synthetic clip, then times in one run:
+
+* F_dec: the bundled ffmpeg decoding the clip to nothing;
+* F_py:  iterating its frames into Python (full-size RGB), the floor for any analysis;
+* F_tx:  an ffmpeg transcode with the encoder settings ``steady`` uses;
+* the tool's ``measure`` (against F_py) and ``steady`` (against F_tx), as ratios;
+
+and the peak memory (resident set, the tool's process tree summed) of each job. Figures are
+ratios to floors measured in the same run, because this machine is shared and noisy.
+"""
+
+from __future__ import annotations
+
+import argparse
+import subprocess
+import sys
+import tempfile
+import threading
+import time
+from pathlib import Path
+
+import psutil
+
+from stabilize.synth import SceneSpec, SyntheticClip
+from stabilize.video import VideoWriter, ffmpeg_exe, iter_frames
+
+
+def peak_rss_mib(cmd: list[str]) -> tuple[float, float]:
+    """Run ``cmd``; return (seconds, peak RSS of its process tree in MiB)."""
+    start = time.perf_counter()
+    proc = psutil.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    peak = 0.0
+    done = threading.Event()
+
+    def sample() -> None:
+        nonlocal peak
+        while not done.is_set():
+            try:
+                procs = [proc, *proc.children(recursive=True)]
+                rss = sum(p.memory_info().rss for p in procs if p.is_running())
+                peak = max(peak, rss / 2**20)
+            except psutil.Error:
+                pass
+            time.sleep(0.02)
+
+    t = threading.Thread(target=sample, daemon=True)
+    t.start()
+    rc = proc.wait()
+    done.set()
+    t.join()
+    if rc != 0:
+        raise SystemExit(f"command failed ({rc}): {' '.join(cmd)}")
+    return time.perf_counter() - start, peak
+
+
+def make_clip(path: Path, width: int, height: int, frames: int) -> None:
+    spec = SceneSpec(style="truss", width=width, height=height, fps=30.0,
+                     duration_s=frames / 30.0, seed=1, noise_sigma=1.0)
+    clip = SyntheticClip(spec)
+    with VideoWriter(path, width, height, 30.0, crf=20, preset="veryfast") as w:
+        for _, f in clip.frames():
+            w.write(f)
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--width", type=int, default=1920)
+    ap.add_argument("--height", type=int, default=1080)
+    ap.add_argument("--frames", type=int, default=240)
+    ap.add_argument("--preset", default="veryfast")
+    ap.add_argument("--crf", type=int, default=20)
+    args = ap.parse_args()
+    with tempfile.TemporaryDirectory() as tmp:
+        clip = Path(tmp) / "bench.mp4"
+        make_clip(clip, args.width, args.height, args.frames)
+        ff = ffmpeg_exe()
+        f_dec, m_dec = peak_rss_mib([ff, "-v", "error", "-i", str(clip), "-f", "null", "-"])
+        t0 = time.perf_counter()
+        n = sum(1 for _ in iter_frames(clip))
+        f_py = time.perf_counter() - t0
+        f_tx, m_tx = peak_rss_mib([ff, "-v", "error", "-y", "-i", str(clip), "-c:v", "libx264",
+                                   "-preset", args.preset, "-crf", str(args.crf), "-pix_fmt",
+                                   "yuv420p", str(Path(tmp) / "tx.mp4")])
+        tool = [sys.executable, "-m", "stabilize"]
+        t_measure, m_measure = peak_rss_mib([*tool, "measure", str(clip), "--quiet", "--force",
+                                             "--log", str(Path(tmp) / "m.motion.csv")])
+        t_steady, m_steady = peak_rss_mib([*tool, "steady", str(clip), "--quiet", "--force",
+                                           "--preset", args.preset, "--crf", str(args.crf),
+                                           "-o", str(Path(tmp) / "s.mp4")])
+    print(f"clip: {args.width}x{args.height}, {n} frames")
+    print(f"F_dec  {f_dec:7.2f} s   peak {m_dec:7.1f} MiB")
+    print(f"F_py   {f_py:7.2f} s")
+    print(f"F_tx   {f_tx:7.2f} s   peak {m_tx:7.1f} MiB")
+    print(f"measure {t_measure:6.2f} s   {t_measure / f_py:5.2f} x F_py  "
+          f" peak {m_measure:7.1f} MiB")
+    print(f"steady  {t_steady:6.2f} s   {t_steady / f_tx:5.2f} x F_tx  "
+          f" peak {m_steady:7.1f} MiB")
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,111 @@
+"""The batch command: many clips, one row each, resumable, a failure never stops the rest."""
+
+from __future__ import annotations
+
+import csv
+import json
+import os
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pytest
+
+from stabilize.batch import find_clips, output_names
+
+from .conftest import noise_frames, write_clip
+
+
+def run(*args: str) -> subprocess.CompletedProcess:
+    return subprocess.run([sys.executable, "-m", "stabilize", *args], capture_output=True,
+                          text=True, timeout=300)
+
+
+@pytest.fixture(scope="module")
+def folder(tmp_path_factory) -> Path:
+    root = tmp_path_factory.mktemp("batch") / "in"
+    (root / "sub").mkdir(parents=True)
+    write_clip(root / "a.mp4", noise_frames(16, 128, 96, shift_px=1.0), 24.0)
+    write_clip(root / "sub" / "a.mp4", noise_frames(16, 128, 96, seed=1, shift_px=0.8), 24.0)
+    write_clip(root / "sub" / "B.MOV", noise_frames(16, 128, 96, seed=2, shift_px=1.5), 24.0)
+    (root / "broken.mkv").write_bytes(b"not a video" * 20)
+    (root / "notes.txt").write_text("not a clip")
+    return root
+
+
+def _rows(out: Path) -> dict[str, dict[str, str]]:
+    with open(out / "summary.csv", newline="") as fh:
+        return {r["clip"]: r for r in csv.DictReader(fh)}
+
+
+def test_finding_and_naming(folder, tmp_path):
+    root, clips = find_clips(folder)
+    assert [c.relative_to(folder).as_posix() for c in clips] == [
+        "a.mp4", "broken.mkv", "sub/B.MOV", "sub/a.mp4"]
+    names = output_names(root, clips)
+    assert names[folder / "a.mp4"] == (Path("."), "a")
+    assert names[folder / "sub" / "a.mp4"] == (Path("sub"), "a")
+    _, globbed = find_clips(str(folder / "**" / "*.mp4"))
+    assert len(globbed) == 2
+    (tmp_path / "x.mp4").write_bytes(b"")
+    (tmp_path / "x.mov").write_bytes(b"")
+    both = output_names(tmp_path, find_clips(tmp_path)[1])
+    assert sorted(n for _, n in both.values()) == ["x.mov", "x.mp4"]
+
+
+def test_batch_failed_row_resume_force(folder, tmp_path):
+    out = tmp_path / "out"
+    t0 = time.monotonic()
+    first = run("batch", str(folder), "--out-dir", str(out), "--workers", "2", "--quiet")
+    t_first = time.monotonic() - t0
+    assert first.returncode == 3, first.stderr
+    rows = _rows(out)
+    assert len(rows) == 4
+    assert rows["broken.mkv"]["status"] == "failed"
+    assert "broken.mkv" in rows["broken.mkv"]["error"]
+    for label, stem in (("a.mp4", "a"), ("sub/a.mp4", "sub/a"), ("sub/B.MOV", "sub/B")):
+        assert rows[label]["status"] == "done"
+        assert rows[label]["frames"] == "16"
+        assert float(rows[label]["jitter_rms_x_px"]) >= 0
+        assert rows[label]["video"] == f"{stem}.steady.mp4"
+        assert (out / f"{stem}.steady.mp4").is_file() and (out / f"{stem}.report.html").is_file()
+        doc = json.loads((out / f"{stem}.motion.json").read_text())
+        assert doc["source"]["size_bytes"] > 0 and doc["source"]["mtime_ns"] > 0
+    page = (out / "summary.html").read_text()
+    assert 'href="sub/B.report.html"' in page and "<script" not in page
+
+    t0 = time.monotonic()
+    again = run("batch", str(folder), "--out-dir", str(out), "--workers", "2", "--quiet")
+    t_again = time.monotonic() - t0
+    assert again.returncode == 3
+    rows = _rows(out)
+    assert [rows[k]["status"] for k in ("a.mp4", "sub/B.MOV", "sub/a.mp4")] == ["skipped"] * 3
+    assert t_again < 0.5 * t_first, (t_first, t_again)
+
+    # A changed source is redone; --force redoes everything.
+    st = os.stat(folder / "a.mp4")
+    os.utime(folder / "a.mp4", ns=(st.st_atime_ns, st.st_mtime_ns + 10**9))
+    third = run("batch", str(folder / "*.mp4"), "--out-dir", str(tmp_path / "out1"),
+                "--workers", "1", "--quiet", "--measure-only")
+    assert third.returncode == 0, third.stderr
+    assert _rows(tmp_path / "out1")["a.mp4"]["video"] == ""
+
+
+@pytest.mark.slow
+def test_dask_local_cluster_gives_the_same_outputs(folder, tmp_path):
+    pytest.importorskip("distributed")
+    a = run("batch", str(folder), "--out-dir", str(tmp_path / "p"), "--workers", "2",
+            "--quiet", "--measure-only")
+    b = run("batch", str(folder), "--out-dir", str(tmp_path / "d"), "--workers", "2",
+            "--scheduler", "local", "--quiet", "--measure-only")
+    assert a.returncode == b.returncode == 3, b.stderr
+    for stem in ("a", "sub/a", "sub/B"):
+        assert (tmp_path / "p" / f"{stem}.motion.csv").read_text() == \
+            (tmp_path / "d" / f"{stem}.motion.csv").read_text()
+
+
+def test_no_videos_is_a_usage_error(tmp_path):
+    proc = run("batch", str(tmp_path), "--out-dir", str(tmp_path / "o"))
+    assert proc.returncode == 2
+    assert "no video files" in proc.stderr and "Traceback" not in proc.stderr

@@ -1,0 +1,111 @@
+"""Interrupting ``steady``: SIGINT or SIGTERM while it works leaves nothing behind.
+
+The real command (``python -m stabilize steady``) is started on a clip of a few seconds and
+signalled part-way: while it renders (the encoder has started writing its temporary file) and,
+separately, while it still analyses. It must exit with status 130 and one line on stderr, leave
+nothing under the output names and no temporaries, and leave no ffmpeg child running.
+"""
+
+from __future__ import annotations
+
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pytest
+
+from stabilize.video import ffmpeg_exe
+
+
+@pytest.fixture(scope="module")
+def clip(tmp_path_factory) -> Path:
+    """Three seconds of 320×180 test pattern with a tone: long enough to catch mid-render."""
+    path = tmp_path_factory.mktemp("interrupt") / "long flight.mp4"
+    subprocess.run(
+        [ffmpeg_exe(), "-hide_banner", "-nostdin", "-loglevel", "error", "-y",
+         "-f", "lavfi", "-i", "testsrc2=size=320x180:rate=30", "-f", "lavfi", "-i",
+         "sine=frequency=300", "-t", "3", "-c:v", "libx264", "-preset", "ultrafast",
+         "-c:a", "aac", "-shortest", str(path)],
+        check=True, capture_output=True)
+    return path
+
+
+def _children(pid: int) -> set[int]:
+    """Processes whose parent is ``pid`` (from /proc; the name field may hold spaces)."""
+    kids = set()
+    for entry in Path("/proc").iterdir():
+        if not entry.name.isdigit():
+            continue
+        try:
+            stat = (entry / "stat").read_text()
+        except OSError:
+            continue
+        if int(stat.rsplit(")", 1)[1].split()[1]) == pid:
+            kids.add(int(entry.name))
+    return kids
+
+
+def _cmdline(pid: int) -> str:
+    try:
+        return (Path("/proc") / str(pid) / "cmdline").read_bytes().replace(b"\0", b" ").decode(
+            "utf-8", "replace")
+    except OSError:
+        return ""
+
+
+def _alive(pid: int) -> bool:
+    try:
+        state = (Path("/proc") / str(pid) / "stat").read_text().rsplit(")", 1)[1].split()[0]
+    except OSError:
+        return False
+    return state != "Z"
+
+
+@pytest.mark.parametrize(
+    "sig, stage",
+    [(signal.SIGINT, "render"), (signal.SIGTERM, "render"), (signal.SIGINT, "analyse")],
+    ids=["SIGINT-render", "SIGTERM-render", "SIGINT-analyse"],
+)
+def test_interrupted_steady_leaves_nothing(clip, tmp_path, sig, stage):
+    work = tmp_path / "work"
+    work.mkdir()
+    src = work / clip.name
+    os.link(clip, src) if clip.stat().st_dev == work.stat().st_dev else src.write_bytes(
+        clip.read_bytes())
+    before = src.read_bytes()
+    # veryslow: the render takes seconds, so the signal lands while it runs.
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "stabilize", "steady", str(src), "--quiet", "--preset",
+         "veryslow"],
+        stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+    )
+    seen: set[int] = set()
+    deadline = time.monotonic() + 90
+    try:
+        while True:
+            assert proc.poll() is None, "finished before it could be interrupted"
+            assert time.monotonic() < deadline, "never reached the stage"
+            ffmpeg = {k for k in _children(proc.pid) if "ffmpeg" in _cmdline(k)}
+            seen |= ffmpeg
+            if stage == "analyse" and ffmpeg:
+                break
+            partial = [p for p in work.iterdir() if ".partial" in p.name and p.suffix == ".mp4"]
+            if stage == "render" and partial and partial[0].stat().st_size > 0:
+                assert len(ffmpeg) == 2  # the decoder and the encoder
+                break
+            time.sleep(0.01)
+        proc.send_signal(sig)
+        out, err = proc.communicate(timeout=60)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait()
+    assert proc.returncode == 130, err
+    lines = [ln for ln in err.splitlines() if ln.strip()]
+    assert lines == ["stabilize: interrupted; no partial outputs were left"], err
+    assert sorted(p.name for p in work.iterdir()) == [src.name]
+    assert src.read_bytes() == before
+    assert seen and not [pid for pid in seen if _alive(pid)]
