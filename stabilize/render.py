@@ -11,6 +11,7 @@ from collections.abc import Callable, Iterable
 import cv2
 import numpy as np
 
+from .overlap import WriteBehind, read_ahead
 from .video import Frame, VideoWriter
 
 BORDERS = {
@@ -58,16 +59,32 @@ def render(
 ) -> int:
     """Warp every frame by its correction and write it; returns the number of frames written.
 
-    Frames beyond the corrections (a clip that decodes longer than its log) reuse the last one.
+    Decoding runs ahead and encoding behind the warp (see :mod:`stabilize.overlap`). Frames
+    beyond the corrections (a clip that decodes longer than its log) reuse the last one.
     """
     n = 0
     last = len(corrections) - 1
-    for frame in frames:
-        out = warp(frame.image, corrections[min(frame.index, last)], fill)
-        writer.write(out)
-        if compare is not None:
-            compare.write(side_by_side(frame.image, out))
-        n += 1
-        if on_frame:
-            on_frame(1)
+    out_q = WriteBehind(writer.write)
+    cmp_q = WriteBehind(compare.write) if compare is not None else None
+    try:
+        for frame in read_ahead(frames):
+            out = warp(frame.image, corrections[min(frame.index, last)], fill)
+            out_q.put(out)
+            if cmp_q is not None:
+                cmp_q.put(side_by_side(frame.image, out))
+            n += 1
+            if on_frame:
+                on_frame(1)
+    finally:
+        # Always drain the writers so an error in one surfaces and no thread is left behind.
+        errors = []
+        for q in (out_q, cmp_q):
+            if q is None:
+                continue
+            try:
+                q.close()
+            except BaseException as exc:
+                errors.append(exc)
+    if errors:
+        raise errors[0]
     return n

@@ -136,6 +136,15 @@ def _fps_fraction(fps: float) -> str:
     return f"{frac.numerator}/{frac.denominator}"
 
 
+def _starts_like_mp4(p: Path) -> bool:
+    """True when the file opens with an ISO media ``ftyp`` box (MP4, MOV, M4A, 3GP …)."""
+    try:
+        with open(p, "rb") as fh:
+            return fh.read(8)[4:8] == b"ftyp"
+    except OSError:
+        return False
+
+
 def probe(path: str | os.PathLike) -> VideoInfo:
     """Read a clip's header. Raises StabilizeError for a missing, unreadable or non-video file."""
     p = Path(path)
@@ -154,10 +163,12 @@ def probe(path: str | os.PathLike) -> VideoInfo:
     text = proc.stderr
     video = _VIDEO.search(text)
     if video is None:
-        if "moov atom not found" in text and "low score" not in text:
-            # An MP4 whose index is written last: a recording cut short leaves it unreadable.
-            raise StabilizeError(f"{p}: the file is incomplete (its index is missing, as when "
-                                 "a recording is cut short) and cannot be read")
+        if _starts_like_mp4(p) and "Input #0" not in text:
+            # An MP4 whose index is written last: a recording cut short loses it, or part of
+            # it, and nothing can be decoded.
+            raise StabilizeError(f"{p}: the file is incomplete or damaged (its index is "
+                                 "missing or cut, as when a recording stops short) and cannot "
+                                 "be read")
         if "Invalid data found" in text or "Input #0" not in text:
             raise StabilizeError(f"{p}: not a video file ffmpeg can read")
         raise StabilizeError(f"{p}: has no video stream")
@@ -168,8 +179,10 @@ def probe(path: str | os.PathLike) -> VideoInfo:
     if codec in _STILL_CODECS and ("Duration: N/A" in text or image_demuxer):
         raise StabilizeError(f"{p}: is a still image, not a video")
     size = _SIZE.search(rest)
-    if size is None:
-        raise StabilizeError(f"{p}: video stream has no picture size")
+    if size is None or codec == "none":
+        # A header that names a stream but not its codec or size: the index was cut short.
+        raise StabilizeError(f"{p}: the video stream is damaged or incomplete (no codec or "
+                             "picture size) and cannot be decoded")
     width, height = int(size.group(1)), int(size.group(2))
     fps = 0.0
     for value, kilo in _FPS.findall(rest):

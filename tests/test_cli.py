@@ -101,10 +101,6 @@ def test_input_is_never_touched(clip):
     assert hashlib.sha256(clip.read_bytes()).hexdigest() == before
 
 
-def test_reserved_commands_say_so(clip, tmp_path):
-    _one_line_error(run("batch", str(clip.parent), "--out-dir", str(tmp_path)), "batch")
-
-
 def test_demo_runs_and_says_where_the_outputs_are(tmp_path):
     proc = run("demo", "--out", str(tmp_path / "demo"), "--quiet")
     assert proc.returncode == 0, proc.stderr

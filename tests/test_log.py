@@ -4,6 +4,8 @@ import json
 
 import numpy as np
 import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
 from stabilize.errors import StabilizeError
 from stabilize.log import COLUMNS, MotionLog, frame_centre, read_log, similarity_readout
@@ -105,3 +107,91 @@ def test_malformed_json_is_reported(tmp_path):
         read_log(csv_path)
     with pytest.raises(StabilizeError, match="not found"):
         read_log(tmp_path / "none.motion.csv")
+
+
+# ------------------------------------------------------------------ fuzzing the reader
+
+
+@st.composite
+def _mutation(draw):
+    """One random damage: cut the file short, flip some bytes, or drop a field of a line."""
+    kind = draw(st.sampled_from(["truncate", "flip", "drop", "duplicate"]))
+    target = draw(st.sampled_from(["csv", "json"]))
+    return kind, target, draw(st.randoms(use_true_random=False))
+
+
+def _damage(data: bytes, kind: str, rnd) -> bytes:
+    if not data:
+        return data
+    if kind == "truncate":
+        return data[: rnd.randrange(len(data))]
+    if kind == "flip":
+        out = bytearray(data)
+        for _ in range(rnd.randint(1, 8)):
+            out[rnd.randrange(len(out))] = rnd.randrange(256)
+        return bytes(out)
+    lines = data.split(b"\n")
+    i = rnd.randrange(len(lines))
+    if kind == "duplicate":
+        lines.insert(i, lines[i])
+        return b"\n".join(lines)
+    fields = lines[i].split(b",")
+    if len(fields) > 1:
+        del fields[rnd.randrange(len(fields))]
+    lines[i] = b",".join(fields)
+    return b"\n".join(lines)
+
+
+@settings(max_examples=200, deadline=None,
+          suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(mutation=_mutation(), with_corrections=st.booleans())
+def test_read_log_survives_any_damage(tmp_path, mutation, with_corrections):
+    """A damaged log is read or refused with a StabilizeError; nothing else escapes."""
+    kind, target, rnd = mutation
+    csv_path, json_path = _log(with_corrections=with_corrections).save(tmp_path / "f.motion.csv")
+    path = csv_path if target == "csv" else json_path
+    path.write_bytes(_damage(path.read_bytes(), kind, rnd))
+    try:
+        back = read_log(csv_path)
+    except StabilizeError as exc:
+        assert "\n" not in str(exc) and str(tmp_path) in str(exc)
+        return
+    # What is read is usable: finite, invertible transforms, one status per frame.
+    assert np.all(np.isfinite(back.matrices)) and len(back.status) == back.frames
+    assert np.all(np.isfinite(back.path))
+
+
+@pytest.mark.parametrize(
+    "mutate, message",
+    [
+        (lambda t: t.replace("\n1,", "\n7,", 1), "line 3: frame number out of order"),
+        (lambda t: t.replace(",500,", ",-5,", 1), "line 2: tracked is not a whole number"),
+        (lambda t: t.replace(",500,", ",nan,", 1), "line 2: tracked"),
+        (lambda t: t.replace("\n0,0.0,", "\n0,inf,", 1), "line 2: time_s"),
+        (lambda t: "\n".join(t.splitlines()[:2] + [""] + t.splitlines()[2:]), "line 3: 0 fields"),
+        (lambda t: t.replace("\n0,0.0,1.0,", "\n0,0.0,0.0,", 1).replace(
+            ",0.0,0.0,0.0,1.0,0.0,0.0,0.0,1.0,", ",0.0,0.0,0.0,0.0,0.0,0.0,0.0,1.0,", 1),
+         "line 2: transform is singular"),
+        (lambda t: t.replace("\n", "\n\0", 1), "line 2"),
+    ],
+)
+def test_damaged_rows_name_the_line(tmp_path, mutate, message):
+    csv_path, _ = _log().save(tmp_path / "m.motion.csv")
+    csv_path.write_text(mutate(csv_path.read_text()))
+    with pytest.raises(StabilizeError, match=message):
+        read_log(csv_path)
+
+
+def test_damaged_json_fields_are_refused(tmp_path):
+    csv_path, json_path = _log().save(tmp_path / "m.motion.csv")
+    doc = json.loads(json_path.read_text())
+    for change, message in [({"source": {**doc["source"], "fps": "fast"}}, "fps"),
+                            ({"source": {**doc["source"], "width": 0}}, "width"),
+                            ({"settings": [1, 2]}, "settings is not a JSON object"),
+                            ({"version": True}, "version")]:
+        json_path.write_text(json.dumps({**doc, **change}))
+        with pytest.raises(StabilizeError, match=message):
+            read_log(csv_path)
+    json_path.write_bytes(b"\xff\xfe{}")
+    with pytest.raises(StabilizeError, match="not a text file"):
+        read_log(csv_path)

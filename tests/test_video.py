@@ -1,10 +1,23 @@
 """Streaming reader and writer over the bundled ffmpeg."""
 
+import subprocess
+from contextlib import closing
+
 import numpy as np
 import pytest
 
 from stabilize.errors import StabilizeError
-from stabilize.video import VideoWriter, analysis_size, iter_frames, probe
+from stabilize.video import (
+    DecodeStats,
+    VideoWriter,
+    analysis_size,
+    constant_rate,
+    ffmpeg_exe,
+    iter_frames,
+    looks_truncated,
+    probe,
+    stop_children,
+)
 
 from .conftest import noise_frames, write_clip
 
@@ -64,3 +77,85 @@ def test_ffv1_and_h265(tmp_path):
     for codec in ("ffv1", "h265"):
         clip = write_clip(tmp_path / f"{codec}.mp4", noise_frames(4, 64, 48), 25.0, codec=codec)
         assert len(list(iter_frames(clip))) == 4
+
+
+def _ff(*args: str) -> None:
+    subprocess.run([ffmpeg_exe(), "-hide_banner", "-nostdin", "-loglevel", "error", "-y", *args],
+                   check=True, capture_output=True)
+
+
+def test_rotation_flag_gives_upright_frames(tmp_path):
+    # A frame whose orientation is plain: a bright block at the top left.
+    frame = np.zeros((48, 64, 3), np.uint8)
+    frame[:16, :24] = 255
+    stored = write_clip(tmp_path / "stored.mp4", [frame] * 3, 25.0, codec="ffv1")
+    flagged = tmp_path / "flagged.mp4"
+    _ff("-display_rotation", "90", "-i", str(stored), "-c", "copy", str(flagged))
+    info = probe(flagged)
+    assert (info.width, info.height, info.rotation_deg) == (48, 64, 90.0)
+    got = next(iter(iter_frames(flagged))).image
+    # The flag means "turn counter-clockwise by 90 degrees before showing": so does np.rot90.
+    assert got.shape == (64, 48, 3)
+    assert np.abs(got.astype(int) - np.rot90(frame, 1)).max() <= 2
+
+
+def test_writer_keeps_variable_frame_times(tmp_path):
+    rng = np.random.default_rng(3)
+    times = np.concatenate([[0.0], np.cumsum(rng.integers(300, 1500, 19))]) / 15360
+    out = tmp_path / "vfr.mp4"
+    with VideoWriter(out, 32, 24, 20.0, preset="ultrafast", times_s=times,
+                     time_base=15360) as w:
+        for i in range(22):  # two frames more than times: they continue at the last interval
+            w.write(np.full((24, 32, 3), 10 * i, np.uint8))
+    got = np.array([f.time_s for f in iter_frames(out)])
+    np.testing.assert_array_equal(got[:20], times)
+    np.testing.assert_allclose(np.diff(got[19:]), times[-1] - times[-2], atol=1e-9)
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["vfr.mp4"]
+    assert constant_rate(np.arange(10) / 30.0, 30.0) and not constant_rate(times, 20.0)
+
+
+def test_truncation_is_told_apart_from_a_whole_clip(tmp_path):
+    clip = write_clip(tmp_path / "whole.mp4", noise_frames(40, 96, 72), 20.0, audio=True)
+    cut = tmp_path / "cut.mp4"
+    cut.write_bytes(clip.read_bytes()[: clip.stat().st_size // 2])
+    for path, expected in ((clip, False), (cut, True)):
+        info, stats = probe(path), DecodeStats()
+        n = sum(1 for _ in iter_frames(path, info=info, stats=stats))
+        assert stats.finished and stats.frames == n
+        assert looks_truncated(info, stats) is expected
+        assert (n < 40) is expected
+    # A caller that stops early has not seen the end: that is no evidence of truncation.
+    info, stats = probe(clip), DecodeStats()
+    with closing(iter_frames(clip, info=info, stats=stats)) as frames:
+        next(frames)
+    assert not stats.finished and not looks_truncated(info, stats)
+
+
+def test_awkward_names_reach_ffmpeg_as_files(tmp_path):
+    for name in ("-i.mp4", "12:30 take.mp4", "a'b\"c d.mp4", "Øre_橋.mp4"):
+        clip = write_clip(tmp_path / name, noise_frames(3, 32, 24), 25.0)
+        assert probe(clip).width == 32
+        assert len(list(iter_frames(clip))) == 3
+
+
+def test_still_images_and_cut_indexes_are_named(tmp_path):
+    for name in ("s.png", "s.jpg"):
+        _ff("-f", "lavfi", "-i", "testsrc2=size=32x24", "-frames:v", "1", str(tmp_path / name))
+        with pytest.raises(StabilizeError, match="still image"):
+            probe(tmp_path / name)
+    whole = tmp_path / "whole.mp4"
+    _ff("-f", "lavfi", "-i", "testsrc2=size=64x48:rate=10", "-frames:v", "20", "-c:v",
+        "libx264", str(whole))  # no faststart: the index is written last
+    data = whole.read_bytes()
+    for keep in (len(data) // 2, len(data) - 200):  # index missing, or cut inside it
+        (tmp_path / "cut.mp4").write_bytes(data[:keep])
+        with pytest.raises(StabilizeError, match="incomplete"):
+            probe(tmp_path / "cut.mp4")
+
+
+def test_stop_children_ends_a_running_decoder(small_clip):
+    frames = iter_frames(small_clip)
+    next(frames)
+    assert stop_children() == 1
+    assert stop_children() == 0
+    frames.close()

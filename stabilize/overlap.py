@@ -1,0 +1,112 @@
+"""Run the stages of a pass side by side: decode ahead of the warp, encode behind it.
+
+ffmpeg decodes and encodes in processes of its own, and OpenCV's warps release the GIL, so a
+thread that keeps the next frames read and one that keeps the encoder fed let the three work
+at once. Queues are short, so memory stays a few frames, whatever the clip's length.
+"""
+
+from __future__ import annotations
+
+import queue
+import threading
+from collections.abc import Callable, Iterable, Iterator
+from typing import Any, TypeVar
+
+T = TypeVar("T")
+_DONE = object()
+
+
+def read_ahead(items: Iterable[T], depth: int = 3) -> Iterator[T]:
+    """Iterate ``items`` in a background thread, keeping up to ``depth`` ready.
+
+    Exceptions raised while producing are re-raised in the consumer. Closing the returned
+    iterator early stops the producer and closes ``items``.
+    """
+    q: queue.Queue = queue.Queue(maxsize=depth)
+    stop = threading.Event()
+
+    def produce() -> None:
+        it = iter(items)
+        try:
+            for item in it:
+                while not stop.is_set():
+                    try:
+                        q.put(item, timeout=0.1)
+                        break
+                    except queue.Full:
+                        continue
+                if stop.is_set():
+                    break
+        except BaseException as exc:  # handed to the consumer
+            _put_final(q, stop, exc)
+            return
+        finally:
+            close = getattr(it, "close", None)
+            if close is not None:
+                close()
+        _put_final(q, stop, _DONE)
+
+    thread = threading.Thread(target=produce, daemon=True, name="read-ahead")
+    thread.start()
+    try:
+        while True:
+            item = q.get()
+            if item is _DONE:
+                return
+            if isinstance(item, BaseException):
+                raise item
+            yield item
+    finally:
+        stop.set()
+        while thread.is_alive():
+            try:
+                q.get(timeout=0.05)
+            except queue.Empty:
+                pass
+        thread.join()
+
+
+def _put_final(q: queue.Queue, stop: threading.Event, item: Any) -> None:
+    while not stop.is_set():
+        try:
+            q.put(item, timeout=0.1)
+            return
+        except queue.Full:
+            continue
+
+
+class WriteBehind:
+    """Call ``sink(item)`` for each :meth:`put` item in a background thread, in order.
+
+    :meth:`close` waits for every item to be written and re-raises the first error; once an
+    error has happened, :meth:`put` raises it too, so the producer stops early.
+    """
+
+    def __init__(self, sink: Callable[[Any], None], depth: int = 3) -> None:
+        self._sink = sink
+        self._q: queue.Queue = queue.Queue(maxsize=depth)
+        self._error: BaseException | None = None
+        self._thread = threading.Thread(target=self._run, daemon=True, name="write-behind")
+        self._thread.start()
+
+    def _run(self) -> None:
+        while True:
+            item = self._q.get()
+            if item is _DONE:
+                return
+            if self._error is None:
+                try:
+                    self._sink(item)
+                except BaseException as exc:  # handed to the producer
+                    self._error = exc
+
+    def put(self, item: Any) -> None:
+        if self._error is not None:
+            raise self._error
+        self._q.put(item)
+
+    def close(self) -> None:
+        self._q.put(_DONE)
+        self._thread.join()
+        if self._error is not None:
+            raise self._error
