@@ -9,12 +9,14 @@ import argparse
 import logging
 import signal
 import sys
+import threading
 from pathlib import Path
 from typing import Any
 
 from . import __version__
 from .config import CODECS, FILLS, MODELS, OPTION_NAMES, SMOOTHERS
 from .errors import StabilizeError
+from .files import all_or_nothing
 
 EXIT_OK, EXIT_USAGE, EXIT_SOME_FAILED, EXIT_INTERRUPTED = 0, 2, 3, 130
 
@@ -203,7 +205,8 @@ def run(args: argparse.Namespace) -> int:
                                         with_video=False, compare=False)
         pipeline.check_outputs(clip, outputs, settings.force)
         motion = pipeline.measure(clip, progress=progress, settings=settings)
-        csv_path, json_path = motion.save(outputs.log_csv)
+        with all_or_nothing():  # the CSV and its JSON appear together or not at all
+            csv_path, json_path = motion.save(outputs.log_csv)
         _print_summary(motion.summary)
         print(f"motion log: {csv_path}")
         print(f"motion log: {json_path}")
@@ -292,7 +295,9 @@ def _clean_up() -> None:
     from .files import remove_temporaries
     from .video import stop_children
 
-    held = {sig: signal.signal(sig, signal.SIG_IGN) for sig in (signal.SIGINT, signal.SIGTERM)}
+    held = {}
+    if threading.current_thread() is threading.main_thread():
+        held = {sig: signal.signal(sig, signal.SIG_IGN) for sig in (signal.SIGINT, signal.SIGTERM)}
     try:
         stop_children()
         remove_temporaries()
@@ -308,9 +313,15 @@ def main(argv: list[str] | None = None) -> int:
         args = parser.parse_args(argv)
     except SystemExit as exc:  # usage errors (status 2, one line), --help and --version (0)
         return exc.code if isinstance(exc.code, int) else EXIT_USAGE
+    # Called in-process (tests, notebooks), main must leave the logger and the signal
+    # handlers as it found them.
+    logger = logging.getLogger("stabilize")
+    saved_logging = (list(logger.handlers), logger.level, logger.propagate)
     _setup_logging(bool(getattr(args, "quiet", False)))
     debug = bool(getattr(args, "debug", False))
-    previous = {sig: signal.signal(sig, _on_signal) for sig in (signal.SIGINT, signal.SIGTERM)}
+    previous = {}
+    if threading.current_thread() is threading.main_thread():  # only it may set handlers
+        previous = {sig: signal.signal(sig, _on_signal) for sig in (signal.SIGINT, signal.SIGTERM)}
     status = 1
     try:
         status = run(args)
@@ -342,6 +353,9 @@ def main(argv: list[str] | None = None) -> int:
             _clean_up()
         for sig, handler in previous.items():
             signal.signal(sig, handler)
+        logger.handlers[:] = saved_logging[0]
+        logger.setLevel(saved_logging[1])  # setLevel, not .level: it also clears the cache
+        logger.propagate = saved_logging[2]
     return status
 
 

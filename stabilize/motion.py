@@ -30,6 +30,7 @@ from .cuts import (
     is_textureless,
 )
 from .log import frame_centre
+from .overlap import read_ahead
 from .overlays import OverlayFinder
 from .path import from_similarity, to_similarity
 from .track import (
@@ -245,6 +246,8 @@ def analyse(
     on_frame: Callable[[int], None] | None = None,
     track_settings: TrackSettings | None = None,
     cut_settings: CutSettings | None = None,
+    first_index: int = 0,
+    keyframe_every: int | None = None,
 ) -> MotionTrack:
     """Fit the inter-frame motion of a stream of grey analysis frames.
 
@@ -255,6 +258,13 @@ def analyse(
     settings : model, consensus threshold (full-resolution pixels), confidence, rounds, seed,
         ignored regions.
     on_frame : called with 1 after each frame (progress).
+    first_index : index in the clip of the first frame given; per-frame seeds are
+        ``[seed, first_index + t]``, so a segment of a clip draws what a single pass draws.
+    keyframe_every : restart every ``keyframe_every`` frames of the clip (at indices that are
+        multiples of it): tracks, track history, overlay evidence, the prior and the texture
+        reference start afresh, exactly as if a new analysis began at the frame before the
+        keyframe. A segment that starts one frame before a keyframe then reproduces a single
+        pass exactly (see :mod:`stabilize.segments`). None: never restart.
     """
     fw, fh = full_size
     aw, ah = analysis_size
@@ -271,8 +281,22 @@ def analyse(
     prior: np.ndarray | None = None
     prev_hist: np.ndarray | None = None
     texture_ref: float | None = None
-    for frame in frames:
+    origin = 0  # local index of the frame the current state started from
+    overlay_regions: list[list[int]] = []
+    # Decoding keeps a few frames ahead while this frame is tracked and fitted.
+    for frame in read_ahead(frames):
         t = len(times)
+        g = first_index + t
+        if keyframe_every and t > 0 and g % keyframe_every == 0 and can_track:
+            # As a fresh analysis whose first frame is the previous one (still in the tracker).
+            overlay_regions += overlays.regions(scale)
+            last = tracker.frames[1]
+            tracker = Tracker(track_settings, user_mask)
+            tracker.step(last)
+            overlays = OverlayFinder(analysis_size)
+            prior = None
+            texture_ref = None
+            origin = t - 1
         times.append(frame.time_s)
         if not can_track or t == 0:
             mats.append(np.eye(3))
@@ -291,7 +315,7 @@ def analyse(
         pairs = tracker.step(frame.image, predicted)
         offered = tracker.live
         strength = None
-        if t % 15 == 1:
+        if (t - origin) % 15 == 1:
             strength = corner_strength(frame.image)
             if texture_ref is None or not is_textureless(strength, texture_ref, cuts_cfg):
                 texture_ref = strength if texture_ref is None else (
@@ -324,7 +348,7 @@ def analyse(
         src = to_full_resolution(pairs.src, scale)
         dst = to_full_resolution(pairs.dst, scale)
         fit = fit_frame(src, dst, pairs.background, settings=settings,
-                        seed=[settings.seed, t], prior=prior, frame_size=(fw, fh))
+                        seed=[settings.seed, g], prior=prior, frame_size=(fw, fh))
         n_in = int(np.count_nonzero(fit.inliers))
         mats.append(fit.matrix)
         diag.append((len(src), n_in, n_in / len(src) if len(src) else 0.0,
@@ -349,10 +373,19 @@ def analyse(
         tracked=d[:, 0].astype(int), inliers=d[:, 1].astype(int), inlier_ratio=d[:, 2],
         rms_px=d[:, 3], rounds=d[:, 4].astype(int), status=np.array(status, dtype="<U6"),
         excluded={"ignore": [list(r) for r in settings.ignore],
-                  "static_overlay": overlays.regions(scale)},
+                  "static_overlay": _unique_regions(overlay_regions
+                                                    + overlays.regions(scale))},
     )
     track.matrices = fill_failed(track.matrices, track.status, full_size)
     return track
+
+
+def _unique_regions(regions: list[list[int]]) -> list[list[int]]:
+    out: list[list[int]] = []
+    for r in regions:
+        if r not in out:
+            out.append(r)
+    return out
 
 
 def _restart_fast_motion(tracker: Tracker, pairs: Pairs) -> tuple[Pairs, float]:

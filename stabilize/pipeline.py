@@ -31,6 +31,7 @@ from .video import (
     VideoInfo,
     VideoWriter,
     analysis_size,
+    check_input,
     constant_rate,
     iter_frames,
     looks_truncated,
@@ -106,7 +107,8 @@ def plan_outputs(clip: Path, *, video_out: str | Path | None, log_out: str | Pat
 
 def check_outputs(clip: Path, outputs: Outputs, force: bool) -> None:
     """Refuse, before any work, outputs that equal the input, exist (without --force) or
-    cannot be written."""
+    cannot be written. A missing input is named first: that is the problem to fix."""
+    check_input(clip)
     src = clip.resolve()
     seen: set[Path] = set()
     for p in outputs.all():
@@ -379,10 +381,11 @@ def render(clip: str | os.PathLike, log_file: str | os.PathLike | MotionLog,
     clip = Path(clip)
     saved = log_file if isinstance(log_file, MotionLog) else read_log(log_file)
     base = {k: v for k, v in saved.settings.items() if k in Settings.__dataclass_fields__}
-    base["ignore"] = tuple(tuple(r) for r in base.get("ignore", ()))
     try:
+        # A log is data: settings it holds that are no longer valid fall back to defaults.
+        base["ignore"] = tuple(tuple(r) for r in base.get("ignore", ()))
         logged = Settings(**base)
-    except (TypeError, StabilizeError):
+    except (TypeError, ValueError, StabilizeError):
         logged = Settings()
     settings = (_settings(config, options) if config
                 else logged.replace(**{k: v for k, v in options.items() if v is not None}))

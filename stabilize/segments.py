@@ -24,7 +24,6 @@ workers must see the same paths and have stabilize installed.
 
 from __future__ import annotations
 
-import inspect
 import math
 import multiprocessing
 import os
@@ -39,7 +38,7 @@ import numpy as np
 from .config import Settings
 from .errors import StabilizeError
 from .motion import MotionTrack, analyse, fill_failed
-from .video import Frame, VideoInfo, iter_frame_range
+from .video import VideoInfo, iter_frame_range
 
 #: Keyframe spacing in seconds of nominal frame rate. Each restart costs what the first frames
 #: of a clip cost (fresh tracks with no history, no prior, overlays to be found again), so it
@@ -53,17 +52,9 @@ def keyframe_frames(fps: float, keyframe_s: float = KEYFRAME_S) -> int:
     return max(MIN_KEYFRAME_FRAMES, int(round(keyframe_s * fps)))
 
 
-def analyse_restarts_itself() -> bool:
-    """Whether :func:`stabilize.motion.analyse` takes ``keyframe_every`` and ``first_index``."""
-    params = inspect.signature(analyse).parameters
-    return "keyframe_every" in params and "first_index" in params
-
-
 def single_pass_options(info: VideoInfo) -> dict[str, Any]:
     """Keyword options that make a single pass restart at the keyframes a segmented pass
-    uses, so both give the same log; none while :func:`analyse` cannot restart itself."""
-    if not analyse_restarts_itself():
-        return {}
+    uses, so both give the same log."""
     return {"keyframe_every": keyframe_frames(info.fps)}
 
 
@@ -99,35 +90,6 @@ class SegmentResult:
     overlays: list[list[int]] = field(default_factory=list)
 
 
-def _chunks(frames: Iterator[Frame], carry: Frame | None,
-            keyframe_every: int) -> Iterator[tuple[bool, Iterator[Frame]]]:
-    """Split a frame stream at keyframes into per-interval streams; each after the first of
-    the clip starts with the frame before its keyframe (the overlap). Yields (has_overlap,
-    stream); each stream must be consumed before the next is asked for."""
-    pending = carry
-    while True:
-        nxt = next(frames, None)
-        if nxt is None:
-            return
-        overlap = pending
-
-        def interval(first: Frame = nxt, overlap: Frame | None = overlap) -> Iterator[Frame]:
-            nonlocal pending
-            if overlap is not None:
-                yield overlap
-            pending = first
-            yield first
-            if (first.index + 1) % keyframe_every == 0:
-                return
-            for f in frames:
-                pending = f
-                yield f
-                if (f.index + 1) % keyframe_every == 0:
-                    return
-
-        yield overlap is not None, interval()
-
-
 def analyse_range(task: SegmentTask, on_frame: Callable[[int], None] | None = None,
                   single_thread: bool = False) -> SegmentResult:
     """Analyse frames ``[task.start, task.stop)`` with restarts at every keyframe.
@@ -150,27 +112,12 @@ def analyse_range(task: SegmentTask, on_frame: Callable[[int], None] | None = No
     parts: list[MotionTrack] = []
     regions: list[list[int]] = []
     try:
-        if analyse_restarts_itself():
-            track = analyse(frames, on_frame=on_frame, keyframe_every=task.keyframe_every,
-                            first_index=read_from, **common)
-            if task.start > 0 and len(track.time_s):
-                track = _drop_first(track)
-            parts.append(track)
-            regions += track.excluded.get("static_overlay", [])
-        else:
-            carry = None
-            if task.start > 0:
-                carry = next(frames, None)
-                if carry is None or carry.index != read_from:
-                    carry = None
-            for has_overlap, stream in _chunks(frames, carry, task.keyframe_every):
-                track = analyse(stream, on_frame=None, **common)
-                if has_overlap:
-                    track = _drop_first(track)
-                if on_frame:
-                    on_frame(len(track.time_s))
-                parts.append(track)
-                regions += track.excluded.get("static_overlay", [])
+        track = analyse(frames, on_frame=on_frame, keyframe_every=task.keyframe_every,
+                        first_index=read_from, **common)
+        if task.start > 0 and len(track.time_s):
+            track = _drop_first(track)
+        parts.append(track)
+        regions += track.excluded.get("static_overlay", [])
     finally:
         frames.close()
     return SegmentResult(task.start, _concat(parts, task.settings), _unique(regions))

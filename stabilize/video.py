@@ -145,8 +145,8 @@ def _starts_like_mp4(p: Path) -> bool:
         return False
 
 
-def probe(path: str | os.PathLike) -> VideoInfo:
-    """Read a clip's header. Raises StabilizeError for a missing, unreadable or non-video file."""
+def check_input(path: str | os.PathLike) -> None:
+    """Refuse a path that is not there, is a folder, or cannot be read (before any work)."""
     p = Path(path)
     if not p.exists():
         raise StabilizeError(f"{p}: no such file")
@@ -154,6 +154,12 @@ def probe(path: str | os.PathLike) -> VideoInfo:
         raise StabilizeError(f"{p}: is a folder, not a video file")
     if not os.access(p, os.R_OK):
         raise StabilizeError(f"{p}: cannot be read (permission denied)")
+
+
+def probe(path: str | os.PathLike) -> VideoInfo:
+    """Read a clip's header. Raises StabilizeError for a missing, unreadable or non-video file."""
+    p = Path(path)
+    check_input(p)
     if p.stat().st_size == 0:
         raise StabilizeError(f"{p}: is empty (0 bytes), not a video")
     proc = subprocess.run(
@@ -393,7 +399,8 @@ def iter_frames(
         stats.errors, stats.last_error = reader.errors, reader.last_error
         stats.messages = list(reader.tail)
     if n == 0:
-        detail = reader.tail[-1] if reader.tail else "no frames could be decoded"
+        detail = (_FFMPEG_PREFIX.sub("", reader.tail[-1]) if reader.tail
+                  else "no frames could be decoded")
         raise StabilizeError(f"{path}: no video frames could be decoded ({detail})")
 
 

@@ -51,3 +51,16 @@ def noise_frames(n: int, w: int = 160, h: int = 120, seed: int = 0, shift_px: fl
 @pytest.fixture
 def small_clip(tmp_path: Path) -> Path:
     return write_clip(tmp_path / "small clip.mp4", noise_frames(30), 30.0, audio=True)
+
+
+@pytest.fixture(autouse=True)
+def _stabilize_logger_propagates():
+    """The command line, run in-process by some tests, gives the package logger a handler of
+    its own and stops propagation; undo that so caplog sees the warnings of later tests."""
+    import logging
+
+    yield
+    logger = logging.getLogger("stabilize")
+    logger.handlers.clear()
+    logger.propagate = True
+    logger.setLevel(logging.NOTSET)

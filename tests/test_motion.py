@@ -33,7 +33,8 @@ def test_a_slow_busy_object_loses_to_the_surrounding_background():
     fit = fit_frame(src, dst, np.full(len(src), 0.5), settings=Settings(), seed=[0, 1],
                     prior=None, frame_size=(W, H))
     np.testing.assert_allclose(fit.matrix[:2, 2], 0.0, atol=0.02)
-    assert fit.support[:n_bg].mean() > 0.95 and fit.support[n_bg:].mean() < 0.05
+    # The tight set keeps about 95% of the true inliers (a 95% χ² threshold).
+    assert fit.support[:n_bg].mean() > 0.85 and fit.support[n_bg:].mean() < 0.05
 
 
 def test_history_keeps_the_background_when_spread_cannot_tell():

@@ -72,12 +72,9 @@ def test_ranges_in_any_grouping_merge_to_the_same_track(long_clip, one_worker):
     assert np.array_equal(merged.time_s, one_worker.time_s)
 
 
-@pytest.mark.xfail(strict=False, reason="needs motion.analyse(keyframe_every=, first_index=) "
-                   "so the single pass restarts at the same keyframes")
 def test_segmented_log_equals_the_single_pass(long_clip):
     single = measure(long_clip)
     k = segments.keyframe_frames(probe(long_clip).fps)
-    assert segments.analyse_restarts_itself()
     two = measure(long_clip, workers=2, keyframe_every=k)
     assert np.abs(two.matrices - single.matrices).max() < 1e-6
     assert two.to_csv() == single.to_csv()
