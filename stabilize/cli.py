@@ -81,6 +81,10 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("measure", help="motion log and shake summary only, no video")
     p.add_argument("clip")
     p.add_argument("--log", metavar="OUT.csv", help="motion log path")
+    p.add_argument("--workers", metavar="N",
+                   help="analyse a long clip in N segments at once (same log as one pass)")
+    p.add_argument("--scheduler", metavar="ADDR",
+                   help="run the segments on a Dask cluster: 'local' or tcp://HOST:PORT")
     _add_common(p)
 
     p = sub.add_parser("render", help="render a clip from an existing motion log")
@@ -115,6 +119,19 @@ def build_parser() -> argparse.ArgumentParser:
                    "(default: ./stabilize-demo)")
     _add_common(p)
     return parser
+
+
+def _whole_number(flag: str, text: str | None) -> int | None:
+    if text is None:
+        return None
+    try:
+        value = int(text)
+    except ValueError:
+        value = 0
+    if value < 1:
+        raise StabilizeError(f"option {flag}: {text!r} is not allowed; use a whole number of "
+                             "at least 1")
+    return value
 
 
 def _options(args: argparse.Namespace) -> dict[str, Any]:
@@ -204,7 +221,9 @@ def run(args: argparse.Namespace) -> int:
         outputs = pipeline.plan_outputs(clip, video_out=None, log_out=args.log,
                                         with_video=False, compare=False)
         pipeline.check_outputs(clip, outputs, settings.force)
-        motion = pipeline.measure(clip, progress=progress, settings=settings)
+        workers = _whole_number("--workers", args.workers)
+        motion = pipeline.measure(clip, progress=progress, settings=settings,
+                                  workers=workers, scheduler=args.scheduler)
         with all_or_nothing():  # the CSV and its JSON appear together or not at all
             csv_path, json_path = motion.save(outputs.log_csv)
         _print_summary(motion.summary)
@@ -224,13 +243,7 @@ def run(args: argparse.Namespace) -> int:
     elif args.command == "batch":
         from .batch import run_batch
 
-        workers = None
-        if args.workers is not None:
-            try:
-                workers = int(args.workers)
-            except ValueError:
-                raise StabilizeError(f"option --workers: {args.workers!r} is not a whole "
-                                     "number") from None
+        workers = _whole_number("--workers", args.workers)
         clip_bar = None
         if progress is not None:
             from tqdm import tqdm
