@@ -40,14 +40,14 @@ class TrackSettings:
     min_distance_frac: float = 1.0 / 160.0
     block_size: int = 7
     win_size: int = 21
-    levels: int = 3
+    levels: int = 2
     fb_max_px: float = 0.3
     photo_max: float = 12.0
     grid: tuple[int, int] = (16, 9)
     reseed_share: float = 0.8
     empty_cells_share: float = 0.15
-    lk_iterations: int = 40
-    lk_epsilon: float = 0.003
+    lk_iterations: int = 20
+    lk_epsilon: float = 0.01
     min_eig: float = 1e-4
 
 
