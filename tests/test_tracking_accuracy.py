@@ -140,3 +140,17 @@ def test_textureless_stretch_and_hard_cut(tmp_path):
     # And steadying the clip works across both.
     steadied = stabilize.steady(path, tmp_path / "out.mp4", margin=0.1)
     assert steadied.frames == clip.n_frames
+
+
+def test_fast_pan_is_followed(tmp_path):
+    """A whip pan of 100 px a frame (a sixth of the frame width) with a climb: the previous
+    frame's motion predicts the tracks, and phase correlation restarts them on the first."""
+    w, h = 640, 360
+    spec = SceneSpec(style="field", width=w, height=h, fps=30.0, duration_s=3.0, seed=7,
+                     noise_sigma=1.0, motion=MotionSpec(pan_px_s=3000.0, climb_px_s=1000.0))
+    clip = SyntheticClip(spec)
+    path = _encode(clip, tmp_path / "whip.mp4")
+    log = stabilize.measure(path)
+    err = grid_transfer_error(clip.ground_truth()["inter_frame"][1:], log.matrices[1:], w, h)
+    assert (log.status == "ok").all()
+    assert np.median(err) < 0.05 and err.max() < 0.2
