@@ -16,7 +16,6 @@ from typing import Any
 from . import __version__
 from .config import CODECS, FILLS, MODELS, OPTION_NAMES, SMOOTHERS
 from .errors import StabilizeError
-from .files import all_or_nothing
 
 EXIT_OK, EXIT_USAGE, EXIT_SOME_FAILED, EXIT_INTERRUPTED = 0, 2, 3, 130
 
@@ -224,8 +223,7 @@ def run(args: argparse.Namespace) -> int:
         workers = _whole_number("--workers", args.workers)
         motion = pipeline.measure(clip, progress=progress, settings=settings,
                                   workers=workers, scheduler=args.scheduler)
-        with all_or_nothing():  # the CSV and its JSON appear together or not at all
-            csv_path, json_path = motion.save(outputs.log_csv)
+        csv_path, json_path = motion.save(outputs.log_csv)
         _print_summary(motion.summary)
         print(f"motion log: {csv_path}")
         print(f"motion log: {json_path}")

@@ -36,7 +36,7 @@ from typing import Any
 import numpy as np
 
 from .errors import StabilizeError
-from .files import write_text_atomic
+from .files import all_or_nothing, write_text_atomic
 
 FORMAT = "stabilize-motion-log"
 VERSION = 1
@@ -175,8 +175,10 @@ class MotionLog:
         """Write ``NAME.motion.csv`` and its JSON beside it; returns both paths."""
         csv_path = Path(csv_path)
         json_path = json_path_for(csv_path)
-        write_text_atomic(csv_path, self.to_csv())
-        write_text_atomic(json_path, json.dumps(self.to_json(), indent=2, allow_nan=False) + "\n")
+        with all_or_nothing():  # the CSV and its JSON appear together or not at all
+            write_text_atomic(csv_path, self.to_csv())
+            write_text_atomic(json_path,
+                              json.dumps(self.to_json(), indent=2, allow_nan=False) + "\n")
         return csv_path, json_path
 
 

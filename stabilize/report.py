@@ -28,7 +28,13 @@ import numpy as np
 from . import shake
 from .config import Settings
 from .errors import StabilizeError
-from .files import check_writable_folder, publish, temp_path_for, write_text_atomic
+from .files import (
+    all_or_nothing,
+    check_writable_folder,
+    publish,
+    temp_path_for,
+    write_text_atomic,
+)
 from .log import MotionLog, _jsonable, read_log, similarity_readout
 from .report_page import fmt_sig, render_page
 
@@ -169,6 +175,7 @@ def _write_bytes_atomic(final: Path, data: bytes) -> None:
 
 
 # ---------------------------------------------------------------------- work
+@all_or_nothing()
 def make_report(clip_or_log: str | os.PathLike, out_dir: str | os.PathLike | None = None, *,
                 config: str | None = None, progress: ProgressFactory | None = None,
                 **options: Any) -> Report:

@@ -621,9 +621,10 @@ def iter_frame_range(
     ts_of: dict[float, int] = {}
     shift = 0
     if start > 0:
-        listing = subprocess.Popen(
+        listing = _spawn(
             [ffmpeg_exe(), "-hide_banner", "-nostdin", "-loglevel", "info", "-copyts",
-             "-i", str(path), "-map", "0:v:0", "-c", "copy", "-f", "framecrc", "pipe:1"],
+             "-i", ffmpeg_path(path), "-map", "0:v:0", "-c", "copy", "-f", "framecrc",
+             "pipe:1"],
             stdin=subprocess.DEVNULL, stdout=subprocess.PIPE, stderr=subprocess.PIPE,
             text=True, errors="replace",
         )
@@ -646,6 +647,7 @@ def iter_frame_range(
             if listing.poll() is None:
                 listing.kill()
             listing.communicate()
+            _reap(listing)
         times = sorted(pts_list)
         if list_tb is not None and len(times) > start and len(set(times)) == len(times):
             # iter_frames reports timestamps shifted by a start offset ffmpeg works out for
@@ -665,11 +667,11 @@ def iter_frame_range(
         filters.append("showinfo=checksum=0")
         pix_fmt, channels = ("gray", 1) if gray else ("rgb24", 3)
         cmd = [ffmpeg_exe(), "-hide_banner", "-nostdin", "-loglevel", "info",
-               "-noaccurate_seek", "-ss", f"{seek_s:.6f}", "-copyts", "-i", str(path),
+               "-noaccurate_seek", "-ss", f"{seek_s:.6f}", "-copyts", "-i", ffmpeg_path(path),
                "-map", "0:v:0", "-an", "-sn", "-dn", "-fps_mode", "passthrough",
                "-vf", ",".join(filters), "-f", "rawvideo", "-pix_fmt", pix_fmt, "pipe:1"]
-        proc = subprocess.Popen(cmd, stdin=subprocess.DEVNULL, stdout=subprocess.PIPE,
-                                stderr=subprocess.PIPE, bufsize=0)
+        proc = _spawn(cmd, stdin=subprocess.DEVNULL, stdout=subprocess.PIPE,
+                      stderr=subprocess.PIPE, bufsize=0)
         reader = _StderrReader(proc.stderr)
         reader.start()
         shape = (h, w) if gray else (h, w, 3)
@@ -698,9 +700,7 @@ def iter_frame_range(
                 time_s = float((round(Fraction(raw_s) / list_tb) - shift) * list_tb)
                 yield Frame(index, time_s, np.frombuffer(buf, np.uint8).reshape(shape))
         finally:
-            if proc.poll() is None:
-                proc.kill()
-            proc.wait()
+            _reap(proc)
             reader.join(timeout=5.0)
             proc.stdout.close()
             proc.stderr.close()
