@@ -301,6 +301,26 @@ def _record_outputs(motion: MotionLog, outputs: Outputs) -> None:
     motion.extra["outputs"] = {k: str(v) for k, v in pairs if v is not None}
 
 
+def _correct_and_write(clip: Path, info: VideoInfo, motion: MotionLog, settings: Settings,
+                       outputs: Outputs, progress: ProgressFactory | None) -> MotionLog:
+    """Plan the corrections and render them (or pass a clip too short or small to steady
+    through unchanged), then summarise and save the log."""
+    fps = effective_fps(info, motion.time_s)
+    if motion.frames < 2 or not measurable(info.width, info.height):
+        motion.corrections = np.repeat(np.eye(3)[None], motion.frames, axis=0)
+        motion.smooth_values = similarity_readout(motion.path, motion.centre)
+        _copy_unchanged(clip, outputs.video)
+        if outputs.compare is not None:
+            _copy_unchanged(clip, outputs.compare)
+    else:
+        plan_corrections(motion, settings, fps)
+        _render_video(clip, info, motion, settings, outputs, progress)
+    _summarise(motion, settings, fps)
+    _record_outputs(motion, outputs)
+    motion.save(outputs.log_csv)
+    return motion
+
+
 # --------------------------------------------------------------------- API
 def measure(clip: str | os.PathLike, *, config: str | None = None,
             progress: ProgressFactory | None = None, workers: int | None = None,
@@ -346,20 +366,7 @@ def steady(clip: str | os.PathLike, out: str | os.PathLike | None = None, *,
     check_outputs(clip, outputs, settings.force)
     info = probe(clip)
     motion = _analyse(clip, info, settings, progress)
-    fps = effective_fps(info, motion.time_s)
-    if motion.frames < 2 or not measurable(info.width, info.height):
-        motion.corrections = np.repeat(np.eye(3)[None], motion.frames, axis=0)
-        motion.smooth_values = similarity_readout(motion.path, motion.centre)
-        _copy_unchanged(clip, outputs.video)
-        if outputs.compare is not None:
-            _copy_unchanged(clip, outputs.compare)
-    else:
-        plan_corrections(motion, settings, fps)
-        _render_video(clip, info, motion, settings, outputs, progress)
-    _summarise(motion, settings, fps)
-    _record_outputs(motion, outputs)
-    motion.save(outputs.log_csv)
-    return motion
+    return _correct_and_write(clip, info, motion, settings, outputs, progress)
 
 
 def _rescale(matrices: np.ndarray, from_size: tuple[int, int],
@@ -407,15 +414,4 @@ def render(clip: str | os.PathLike, log_file: str | os.PathLike | MotionLog,
         status=saved.status, source=_source_dict(info, saved.frames, saved.time_s),
         settings=settings.to_dict(),
     )
-    fps = effective_fps(info, motion.time_s)
-    if motion.frames < 2 or not measurable(info.width, info.height):
-        motion.corrections = np.repeat(np.eye(3)[None], motion.frames, axis=0)
-        motion.smooth_values = similarity_readout(motion.path, motion.centre)
-        _copy_unchanged(clip, outputs.video)
-    else:
-        plan_corrections(motion, settings, fps)
-        _render_video(clip, info, motion, settings, outputs, progress)
-    _summarise(motion, settings, fps)
-    _record_outputs(motion, outputs)
-    motion.save(outputs.log_csv)
-    return motion
+    return _correct_and_write(clip, info, motion, settings, outputs, progress)
