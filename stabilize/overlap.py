@@ -29,22 +29,16 @@ def read_ahead(items: Iterable[T], depth: int = 3) -> Iterator[T]:
         it = iter(items)
         try:
             for item in it:
-                while not stop.is_set():
-                    try:
-                        q.put(item, timeout=0.1)
-                        break
-                    except queue.Full:
-                        continue
-                if stop.is_set():
+                if not _put(q, stop, item):
                     break
         except BaseException as exc:  # handed to the consumer
-            _put_final(q, stop, exc)
+            _put(q, stop, exc)
             return
         finally:
             close = getattr(it, "close", None)
             if close is not None:
                 close()
-        _put_final(q, stop, _DONE)
+        _put(q, stop, _DONE)
 
     thread = threading.Thread(target=produce, daemon=True, name="read-ahead")
     thread.start()
@@ -66,13 +60,15 @@ def read_ahead(items: Iterable[T], depth: int = 3) -> Iterator[T]:
         thread.join()
 
 
-def _put_final(q: queue.Queue, stop: threading.Event, item: Any) -> None:
+def _put(q: queue.Queue, stop: threading.Event, item: Any) -> bool:
+    """Put ``item`` unless the consumer stopped first; returns whether it was put."""
     while not stop.is_set():
         try:
             q.put(item, timeout=0.1)
-            return
+            return True
         except queue.Full:
             continue
+    return False
 
 
 class WriteBehind:
