@@ -66,6 +66,10 @@ def build_parser() -> argparse.ArgumentParser:
     parser = _Parser(
         prog="stabilize",
         description="Steady shaky video, measure the camera shake, write a per-frame motion log.",
+        epilog="Steadied footage is warped footage: it can hide or invent motion and is no "
+               "substitute for inspection by qualified people or for calibrated measurement. "
+               "Shake faster than half the frame rate cannot be measured from video. Flying is "
+               "governed by local aviation rules.",
     )
     parser.add_argument("--version", action="version", version=f"stabilize {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
