@@ -219,7 +219,8 @@ def smooth_path(
         raise ValueError("the l1 smoother needs a margin")
     # Imported here: the smoothers use this module's parameterisations (and framing's
     # coverage test), so importing them at the top would be circular.
-    from .smoothers import kalman_smooth, l1_smooth, lockoff_path
+    from .smoothers.kalman import kalman_smooth
+    from .smoothers.lockoff import lockoff_path
 
     n = len(p)
     cuts = np.zeros(n, bool) if cuts is None else np.asarray(cuts, bool)
@@ -234,6 +235,8 @@ def smooth_path(
         if smoother == "kalman":
             qs = kalman_smooth(q, fps, window_s)
         elif smoother == "l1":
+            from .smoothers.l1 import l1_smooth
+
             qs = l1_smooth(q, ps, fps=fps, window_s=window_s, margin=float(margin),
                            model=model, width=width, height=height)
             if qs is None:

@@ -64,10 +64,10 @@ def render(
     """
     n = 0
     last = len(corrections) - 1
-    out_q = WriteBehind(writer.write)
-    cmp_q = WriteBehind(compare.write) if compare is not None else None
+    out_q = WriteBehind(writer.write, depth=2)
+    cmp_q = WriteBehind(compare.write, depth=2) if compare is not None else None
     try:
-        for frame in read_ahead(frames):
+        for frame in read_ahead(frames, depth=2):
             out = warp(frame.image, corrections[min(frame.index, last)], fill)
             out_q.put(out)
             if cmp_q is not None:

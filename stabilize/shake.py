@@ -15,10 +15,17 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy import signal
 
 from .log import frame_centre, similarity_readout
 from .path import segments
+
+
+def _signal():
+    """scipy.signal, imported on first use: it costs tens of MiB, which a steady run should
+    not hold while it renders."""
+    from scipy import signal
+
+    return signal
 
 
 def shake_component(x: np.ndarray, fps: float, above_hz: float) -> np.ndarray | None:
@@ -34,9 +41,9 @@ def shake_component(x: np.ndarray, fps: float, above_hz: float) -> np.ndarray | 
         return None
     t = np.arange(n, dtype=np.float64)
     residual = x - np.polyval(np.polyfit(t, x, 1), t)
-    sos = signal.butter(4, above_hz, btype="low", fs=fps, output="sos")
+    sos = _signal().butter(4, above_hz, btype="low", fs=fps, output="sos")
     pad = min(n - 1, max(3 * (2 * len(sos) + 1), int(round(3.0 * fps / above_hz))))
-    return residual - signal.sosfiltfilt(sos, residual, padlen=pad)
+    return residual - _signal().sosfiltfilt(sos, residual, padlen=pad)
 
 
 #: Frequency bands (hertz) in which the shake power is reported, the last one reaching up to
@@ -92,7 +99,7 @@ def shake_spectrum(shake: np.ndarray, fps: float) -> tuple[np.ndarray, np.ndarra
     n = len(shake)
     if n < 16 or not np.any(shake):
         return None
-    f, pxx = signal.welch(shake, fs=fps, nperseg=welch_segment(n, fps), detrend="constant")
+    f, pxx = _signal().welch(shake, fs=fps, nperseg=welch_segment(n, fps), detrend="constant")
     return f, pxx
 
 
@@ -141,7 +148,7 @@ def spectrum_peaks(f: np.ndarray, pxx: np.ndarray, above_hz: float,
     if not band.any() or not np.any(pxx[band] > 0):
         return []
     top = float(pxx[band].max())
-    idx, props = signal.find_peaks(pxx, prominence=0.1 * top)
+    idx, props = _signal().find_peaks(pxx, prominence=0.1 * top)
     keep = [(int(i), float(p)) for i, p in zip(idx, props["prominences"], strict=True)
             if f[i] >= above_hz]
     # A peak on the first or last bin is not found by find_peaks; the largest bin always is.

@@ -15,7 +15,9 @@ from stabilize.log import MotionLog, frame_centre, similarity_readout
 from stabilize.path import accumulate, apply, encode, frame_corners, from_similarity, smooth_path
 from stabilize.pipeline import plan_corrections
 from stabilize.shake import shake_component
-from stabilize.smoothers import L1Settings, hold_pose, kalman_smooth, l1_smooth
+from stabilize.smoothers.kalman import kalman_smooth
+from stabilize.smoothers.l1 import L1Settings, l1_smooth
+from stabilize.smoothers.lockoff import hold_pose
 from stabilize.synth import MotionSpec, SceneSpec, ShakeSpec, SyntheticClip
 from stabilize.video import iter_frames
 
