@@ -279,7 +279,6 @@ def analyse(
     diag: list[tuple[int, int, float, float, int]] = []
     status: list[str] = []
     prior: np.ndarray | None = None
-    prev_hist: np.ndarray | None = None
     texture_ref: float | None = None
     origin = 0  # local index of the frame the current state started from
     overlay_regions: list[list[int]] = []
@@ -304,13 +303,9 @@ def analyse(
             status.append("ok" if can_track else "failed")
             if can_track:
                 tracker.step(frame.image)
-                prev_hist = grey_histogram(frame.image, cuts_cfg.bins)
             if on_frame:
                 on_frame(1)
             continue
-        hist = grey_histogram(frame.image, cuts_cfg.bins)
-        distance = histogram_distance(prev_hist, hist)
-        prev_hist = hist
         predicted = None if prior is None else to_analysis(prior, scale)
         pairs = tracker.step(frame.image, predicted)
         offered = tracker.live
@@ -324,7 +319,8 @@ def analyse(
             response = None
             if offered:
                 pairs, response = _restart_fast_motion(tracker, pairs)
-            if collapsed(len(pairs), offered, cuts_cfg) and is_cut(distance, response, cuts_cfg):
+            if collapsed(len(pairs), offered, cuts_cfg) and is_cut(
+                    _frame_distance(tracker, cuts_cfg), response, cuts_cfg):
                 mats.append(np.eye(3))
                 diag.append((len(pairs), 0, 0.0, 0.0, 0))
                 status.append("cut")
@@ -386,6 +382,13 @@ def _unique_regions(regions: list[list[int]]) -> list[list[int]]:
         if r not in out:
             out.append(r)
     return out
+
+
+def _frame_distance(tracker: Tracker, cfg: CutSettings) -> float:
+    """Histogram distance between the tracker's previous and current frames (only needed
+    when tracking collapsed, so not worked out for every frame)."""
+    prev, cur = tracker.frames
+    return histogram_distance(grey_histogram(prev, cfg.bins), grey_histogram(cur, cfg.bins))
 
 
 def _restart_fast_motion(tracker: Tracker, pairs: Pairs) -> tuple[Pairs, float]:

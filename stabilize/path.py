@@ -29,13 +29,17 @@ def accumulate(matrices: np.ndarray, cuts: np.ndarray | None = None) -> np.ndarr
     n = len(matrices)
     cuts = np.zeros(n, bool) if cuts is None else np.asarray(cuts, bool)
     paths = np.empty((n, 3, 3))
+    if n == 0:
+        return paths
+    # The inverses in one batched call; only the running product is sequential.
+    inverses = np.linalg.inv(matrices)
     p = np.eye(3)
     for t in range(n):
         if t == 0 or cuts[t]:
             p = np.eye(3)
         else:
             # P_t = P_{t-1} H_t^-1: frame t -> frame t-1 -> frame 0.
-            p = p @ np.linalg.inv(matrices[t])
+            p = p @ inverses[t]
             p = p / p[2, 2]
         paths[t] = p
     return paths
