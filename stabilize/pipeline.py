@@ -35,6 +35,7 @@ from .video import (
     constant_rate,
     iter_frames,
     looks_truncated,
+    output_pix_fmt,
     probe,
 )
 
@@ -255,7 +256,11 @@ def plan_corrections(motion: MotionLog, settings: Settings, fps: float) -> None:
 
 def _render_video(clip: Path, info: VideoInfo, motion: MotionLog, settings: Settings,
                   outputs: Outputs, progress: ProgressFactory | None) -> None:
-    writer_args = dict(codec=settings.codec, crf=settings.crf, preset=settings.preset)
+    # Frames stay in the encoder's own planar YUV from decoder to encoder: no colour
+    # conversion on either side, half the bytes of RGB per frame.
+    yuv = output_pix_fmt(settings.codec, info.width, info.height)
+    writer_args = dict(codec=settings.codec, crf=settings.crf, preset=settings.preset,
+                       input_pix_fmt=yuv)
     # A variable frame rate clip keeps its own frame times; a constant rate one is written
     # at its nominal rate, as before.
     times = None if constant_rate(motion.time_s, info.fps) else motion.time_s
@@ -270,7 +275,7 @@ def _render_video(clip: Path, info: VideoInfo, motion: MotionLog, settings: Sett
                               time_base=info.time_base, **writer_args)
     bar = _bar(progress, "render", motion.frames)
     try:
-        with video, closing(iter_frames(clip, info=info)) as frames:
+        with video, closing(iter_frames(clip, info=info, yuv=yuv)) as frames:
             if compare is None:
                 n = render_frames(frames, motion.corrections, video,
                                   fill=settings.fill, on_frame=bar.update)

@@ -5,7 +5,9 @@ pipes, so memory does not grow with clip length. ffmpeg is always called with ar
 never through a shell.
 
 Frames are numpy arrays, ``(height, width, 3)`` uint8 RGB or ``(height, width)`` uint8 grey,
-upright (ffmpeg applies a container rotation flag while decoding).
+upright (ffmpeg applies a container rotation flag while decoding); the render pass instead
+asks for :class:`PlanarImage` frames in the encoder's own planar YUV layout, so neither the
+decoder nor the encoder converts colours and each frame is half the bytes of RGB.
 
 Every ffmpeg child runs in its own process group, so a Ctrl-C at the terminal reaches only
 this process, which stops its children itself (:func:`stop_children`) and removes what they
@@ -20,7 +22,7 @@ import re
 import subprocess
 import threading
 from collections import deque
-from collections.abc import Iterator, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass, field
 from fractions import Fraction
 from pathlib import Path
@@ -216,13 +218,111 @@ def probe(path: str | os.PathLike) -> VideoInfo:
     )
 
 
+#: Planar YUV layouts the render pass works in, with their chroma subsampling (x, y).
+YUV_FORMATS: dict[str, tuple[int, int]] = {"yuv420p": (2, 2), "yuv444p": (1, 1)}
+#: Black in limited ("TV") range YUV, the range planar frames are decoded to: (Y, U, V).
+YUV_BLACK = (16, 128, 128)
+
+
+def plane_sizes(pix_fmt: str, width: int, height: int) -> list[tuple[int, int]]:
+    """(width, height) in pixels of the Y, U and V planes of a ``pix_fmt`` frame.
+
+    Chroma planes are the luma size divided by the subsampling, rounded up (ffmpeg's rule, so
+    odd sizes keep their last column and row).
+    """
+    sx, sy = YUV_FORMATS[pix_fmt]
+    cw, ch = -(-width // sx), -(-height // sy)
+    return [(width, height), (cw, ch), (cw, ch)]
+
+
+@dataclass(frozen=True)
+class PlanarImage:
+    """One frame in planar YUV, as ffmpeg's rawvideo ``yuv420p`` / ``yuv444p`` lays it out.
+
+    ``data`` is the whole frame, one contiguous 1-D uint8 buffer: the Y plane, then U, then V,
+    each row by row. ``y``, ``u``, ``v`` are 2-D (rows, columns) views into it, never copies;
+    ``y`` is (height, width), ``u`` and ``v`` are :func:`plane_sizes` (height and width divided
+    by the subsampling of :data:`YUV_FORMATS`, rounded up). Pixel coordinates follow the
+    convention of :mod:`stabilize.log` in each plane's own pixels. Frames decoded by
+    :func:`iter_frames` are limited range: Y 16–235, U and V 16–240 with 128 neutral.
+    """
+
+    pix_fmt: str
+    data: np.ndarray
+    y: np.ndarray
+    u: np.ndarray
+    v: np.ndarray
+
+    @classmethod
+    def wrap(cls, buf: bytearray | np.ndarray, pix_fmt: str, width: int,
+             height: int) -> PlanarImage:
+        """Views of the planes of ``buf`` (the frame's bytes; shared, not copied)."""
+        data = np.frombuffer(buf, np.uint8) if not isinstance(buf, np.ndarray) else buf
+        planes, at = [], 0
+        for w, h in plane_sizes(pix_fmt, width, height):
+            planes.append(data[at:at + w * h].reshape(h, w))
+            at += w * h
+        if at != data.size:
+            raise ValueError(f"{pix_fmt} {width}x{height} needs {at} bytes, got {data.size}")
+        return cls(pix_fmt, data, *planes)
+
+    @classmethod
+    def empty(cls, pix_fmt: str, width: int, height: int, *,
+              fill: tuple[int, int, int] | None = None) -> PlanarImage:
+        """A new frame, uninitialised, or with every plane set to ``fill`` (Y, U, V)."""
+        image = cls.wrap(np.empty(frame_bytes(pix_fmt, width, height), np.uint8), pix_fmt,
+                         width, height)
+        if fill is not None:
+            for plane, value in zip(image.planes, fill, strict=True):
+                plane.fill(value)
+        return image
+
+    @property
+    def planes(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        return self.y, self.u, self.v
+
+    @property
+    def width(self) -> int:
+        return self.y.shape[1]
+
+    @property
+    def height(self) -> int:
+        return self.y.shape[0]
+
+    @property
+    def subsampling(self) -> tuple[int, int]:
+        """Chroma subsampling (x, y): luma pixels per chroma pixel along each axis."""
+        return YUV_FORMATS[self.pix_fmt]
+
+
+def frame_bytes(pix_fmt: str, width: int, height: int) -> int:
+    """Bytes of one raw ``pix_fmt`` frame (``rgb24``, ``gray`` or a :data:`YUV_FORMATS`)."""
+    if pix_fmt == "rgb24":
+        return 3 * width * height
+    if pix_fmt == "gray":
+        return width * height
+    return sum(w * h for w, h in plane_sizes(pix_fmt, width, height))
+
+
+def output_pix_fmt(codec: str, width: int, height: int) -> str:
+    """The pixel format :class:`VideoWriter` encodes ``codec`` in at this size.
+
+    4:2:0 for H.264 and H.265 when both sides are even (it needs even sizes); 4:4:4 for odd
+    sizes, which keep their exact size, and for the lossless FFV1.
+    """
+    if codec in ("h264", "h265") and width % 2 == 0 and height % 2 == 0:
+        return "yuv420p"
+    return "yuv444p"
+
+
 @dataclass(frozen=True)
 class Frame:
-    """One decoded frame: its 0-based index, presentation time in seconds, and pixels."""
+    """One decoded frame: its 0-based index, presentation time in seconds, and pixels
+    (an RGB or grey array, or a :class:`PlanarImage` when decoded to planar YUV)."""
 
     index: int
     time_s: float
-    image: np.ndarray
+    image: np.ndarray | PlanarImage
 
 
 @dataclass
@@ -338,6 +438,7 @@ def iter_frames(
     *,
     size: tuple[int, int] | None = None,
     gray: bool = False,
+    yuv: str | None = None,
     info: VideoInfo | None = None,
     stats: DecodeStats | None = None,
 ) -> Iterator[Frame]:
@@ -349,6 +450,8 @@ def iter_frames(
     size : (width, height) to scale to inside ffmpeg (area filter), or None for full size.
         Scaling keeps pixel centres aligned: x_small = (x + 0.5) * w_small / w - 0.5.
     gray : decode to luma only (uint8, 2-D) instead of RGB.
+    yuv : a planar format of :data:`YUV_FORMATS` (``"yuv420p"``, ``"yuv444p"``): yield
+        :class:`PlanarImage` frames in limited range instead of RGB (see :func:`_raw_output`).
     stats : filled in while decoding (frames, last time, decoder complaints, whether the end
         was reached); pass one to find out afterwards whether the clip was cut short
         (:func:`looks_truncated`).
@@ -359,11 +462,7 @@ def iter_frames(
     """
     info = info or probe(path)
     w, h = size or (info.width, info.height)
-    filters = []
-    if (w, h) != (info.width, info.height):
-        filters.append(f"scale={w}:{h}:flags=area")
-    filters.append("showinfo=checksum=0")
-    pix_fmt, channels = ("gray", 1) if gray else ("rgb24", 3)
+    pix_fmt, filters, nbytes, wrap = _raw_output(w, h, info, gray=gray, yuv=yuv)
     cmd = [
         ffmpeg_exe(), "-hide_banner", "-nostdin", "-loglevel", "info",
         "-i", ffmpeg_path(path),
@@ -376,17 +475,15 @@ def iter_frames(
     )
     reader = _StderrReader(proc.stderr)
     reader.start()
-    frame_bytes = w * h * channels
-    shape = (h, w) if gray else (h, w, 3)
     stats = stats if stats is not None else DecodeStats()
     n = 0
     try:
         while True:
-            buf = _read_exact(proc.stdout, frame_bytes)
+            buf = _read_exact(proc.stdout, nbytes)
             if buf is None:
                 stats.finished = True
                 break
-            image = np.frombuffer(buf, np.uint8).reshape(shape)
+            image = wrap(buf)
             time_s = reader.time_of(n, n / info.fps)
             n += 1
             stats.frames, stats.last_time_s = n, time_s
@@ -404,6 +501,38 @@ def iter_frames(
         raise StabilizeError(f"{path}: no video frames could be decoded ({detail})")
 
 
+def _raw_output(w: int, h: int, info: VideoInfo, *, gray: bool, yuv: str | None,
+                ) -> tuple[str, list[str], int, Callable[[bytearray], np.ndarray | PlanarImage]]:
+    """What a decoder writing w × h raw frames is asked for: the rawvideo pixel format, the
+    filter chain (ending in ``showinfo``, which reports the timestamps), the bytes per frame,
+    and a function turning a frame's bytes into the image (a view, no copy).
+
+    Planar YUV is always asked for in limited range: ffmpeg hands a full-range source's
+    values through unchanged when only the pixel format is named, and the encoder is fed
+    limited range (as its RGB input was converted before), so black is Y = 16, U = V = 128
+    (:data:`YUV_BLACK`) whatever the source.
+    """
+    if yuv is not None and yuv not in YUV_FORMATS:
+        raise ValueError(f"yuv must be one of {', '.join(YUV_FORMATS)}, got {yuv!r}")
+    filters = []
+    if (w, h) != (info.width, info.height):
+        filters.append(f"scale={w}:{h}:flags=area")
+    if yuv is not None:
+        filters.append("scale=out_range=limited")
+        pix_fmt = yuv
+    else:
+        pix_fmt = "gray" if gray else "rgb24"
+    filters.append("showinfo=checksum=0")
+    shape = (h, w) if gray else (h, w, 3)
+
+    def wrap(buf: bytearray) -> np.ndarray | PlanarImage:
+        if yuv is not None:
+            return PlanarImage.wrap(buf, yuv, w, h)
+        return np.frombuffer(buf, np.uint8).reshape(shape)
+
+    return pix_fmt, filters, frame_bytes(pix_fmt, w, h), wrap
+
+
 def _read_exact(stream, count: int) -> bytearray | None:
     """Read exactly ``count`` bytes, or None at end of stream (a partial frame is dropped)."""
     buf = bytearray(count)
@@ -418,12 +547,17 @@ def _read_exact(stream, count: int) -> bytearray | None:
 
 
 class VideoWriter:
-    """Encode RGB frames to a video file, written under a temporary name and renamed on success.
+    """Encode frames to a video file, written under a temporary name and renamed on success.
 
     Use as a context manager::
 
         with VideoWriter("out.mp4", 640, 360, 30.0, audio_from="in.mp4") as w:
             w.write(frame)      # (360, 640, 3) uint8 RGB
+
+    ``input_pix_fmt`` says what :meth:`write` is fed: ``"rgb24"`` arrays (the default), or
+    :class:`PlanarImage` frames in ``"yuv420p"`` / ``"yuv444p"``, limited range. The encoded
+    format does not depend on it (:func:`output_pix_fmt`); feeding frames already in that
+    format spares the encoder a conversion.
 
     ``fps`` is a number or an exact ratio string such as ``"30000/1001"``. Audio of
     ``audio_from`` is copied through unchanged when the container allows it. If the block raises,
@@ -449,9 +583,13 @@ class VideoWriter:
         audio_codec: str | None = None,
         times_s: Sequence[float] | np.ndarray | None = None,
         time_base: int = 0,
+        input_pix_fmt: str = "rgb24",
     ) -> None:
         if codec not in ENCODERS:
             raise StabilizeError(f"option --codec: {codec!r} is not one of {', '.join(ENCODERS)}")
+        if input_pix_fmt != "rgb24" and input_pix_fmt not in YUV_FORMATS:
+            raise ValueError(f"input_pix_fmt must be rgb24 or one of {', '.join(YUV_FORMATS)}")
+        self.input_pix_fmt = input_pix_fmt
         self.path = Path(path)
         self.width, self.height = int(width), int(height)
         self.fps = fps if isinstance(fps, str) else _fps_fraction(float(fps))
@@ -492,7 +630,8 @@ class VideoWriter:
     def _command(self, tmp: Path) -> list[str]:
         cmd = [
             ffmpeg_exe(), "-hide_banner", "-nostdin", "-y", "-loglevel", "error",
-            "-f", "rawvideo", "-pix_fmt", "rgb24", "-s", f"{self.width}x{self.height}",
+            "-f", "rawvideo", "-pix_fmt", self.input_pix_fmt,
+            "-s", f"{self.width}x{self.height}",
             "-framerate", self.fps, "-i", "pipe:0",
         ]
         if self.audio_from is not None:
@@ -508,15 +647,13 @@ class VideoWriter:
                     "-enc_time_base", "filter", "-video_track_timescale", str(self.time_base)]
         encoder = ENCODERS[self.codec]
         cmd += ["-c:v", encoder]
+        pix_fmt = output_pix_fmt(self.codec, self.width, self.height)
         if self.codec in ("h264", "h265"):
-            # 4:2:0 needs even sizes; odd-sized clips keep their exact size in 4:4:4.
-            even = self.width % 2 == 0 and self.height % 2 == 0
-            cmd += ["-crf", str(self.crf), "-preset", self.preset,
-                    "-pix_fmt", "yuv420p" if even else "yuv444p"]
+            cmd += ["-crf", str(self.crf), "-preset", self.preset, "-pix_fmt", pix_fmt]
             if self.codec == "h265":
                 cmd += ["-tag:v", "hvc1", "-x265-params", "log-level=error"]
         else:
-            cmd += ["-level", "3", "-pix_fmt", "yuv444p"]
+            cmd += ["-level", "3", "-pix_fmt", pix_fmt]
         cmd += ["-movflags", "+faststart", "-f", "mp4", ffmpeg_path(tmp)]
         return cmd
 
@@ -541,15 +678,28 @@ class VideoWriter:
         self._reader.start()
         return self
 
-    def write(self, frame: np.ndarray) -> None:
-        """Append one (height, width, 3) uint8 RGB frame."""
-        if frame.shape != (self.height, self.width, 3) or frame.dtype != np.uint8:
-            raise ValueError(
-                f"frame must be ({self.height}, {self.width}, 3) uint8, got "
-                f"{frame.shape} {frame.dtype}"
-            )
+    def write(self, frame: np.ndarray | PlanarImage) -> None:
+        """Append one frame: a (height, width, 3) uint8 RGB array, or a :class:`PlanarImage`
+        of this writer's ``input_pix_fmt`` and size.
+
+        The frame's bytes are in the pipe when this returns, so its buffer may be reused.
+        """
+        if self.input_pix_fmt == "rgb24":
+            if (not isinstance(frame, np.ndarray) or frame.dtype != np.uint8
+                    or frame.shape != (self.height, self.width, 3)):
+                got = (f"{frame.shape} {frame.dtype}" if isinstance(frame, np.ndarray)
+                       else type(frame).__name__)
+                raise ValueError(f"frame must be ({self.height}, {self.width}, 3) uint8, "
+                                 f"got {got}")
+            data = np.ascontiguousarray(frame).data
+        else:
+            if (not isinstance(frame, PlanarImage) or frame.pix_fmt != self.input_pix_fmt
+                    or (frame.width, frame.height) != (self.width, self.height)):
+                raise ValueError(f"frame must be a {self.width}x{self.height} "
+                                 f"{self.input_pix_fmt} PlanarImage")
+            data = frame.data.data
         try:
-            self._proc.stdin.write(np.ascontiguousarray(frame).data)
+            self._proc.stdin.write(data)
         except BrokenPipeError:
             raise StabilizeError(f"{self.path}: the encoder stopped: {self._error()}") from None
         self.frames_written += 1
@@ -601,10 +751,12 @@ def iter_frame_range(
     *,
     size: tuple[int, int] | None = None,
     gray: bool = False,
+    yuv: str | None = None,
     info: VideoInfo | None = None,
 ) -> Iterator[Frame]:
     """Decode frames ``[start, stop)`` of a clip (``stop`` None: to the end), with the indices,
-    timestamps and pixels :func:`iter_frames` gives them.
+    timestamps and pixels :func:`iter_frames` gives them (``size``, ``gray`` and ``yuv`` as
+    there).
 
     Frame ``start`` is reached without decoding what comes before it: the packets'
     presentation timestamps are listed (demuxing only, no decoding) to learn which timestamp
@@ -663,9 +815,7 @@ def iter_frame_range(
     at_end = [False]
 
     def decode() -> Iterator[Frame]:
-        filters = [f"scale={w}:{h}:flags=area"] if (w, h) != (info.width, info.height) else []
-        filters.append("showinfo=checksum=0")
-        pix_fmt, channels = ("gray", 1) if gray else ("rgb24", 3)
+        pix_fmt, filters, nbytes, wrap = _raw_output(w, h, info, gray=gray, yuv=yuv)
         cmd = [ffmpeg_exe(), "-hide_banner", "-nostdin", "-loglevel", "info",
                "-noaccurate_seek", "-ss", f"{seek_s:.6f}", "-copyts", "-i", ffmpeg_path(path),
                "-map", "0:v:0", "-an", "-sn", "-dn", "-fps_mode", "passthrough",
@@ -674,11 +824,10 @@ def iter_frame_range(
                       stderr=subprocess.PIPE, bufsize=0)
         reader = _StderrReader(proc.stderr)
         reader.start()
-        shape = (h, w) if gray else (h, w, 3)
         n, index = 0, -1
         try:
             while True:
-                buf = _read_exact(proc.stdout, w * h * channels)
+                buf = _read_exact(proc.stdout, nbytes)
                 if buf is None:
                     at_end[0] = index >= start
                     return
@@ -698,7 +847,7 @@ def iter_frame_range(
                 if reader.time_base != list_tb:
                     return
                 time_s = float((round(Fraction(raw_s) / list_tb) - shift) * list_tb)
-                yield Frame(index, time_s, np.frombuffer(buf, np.uint8).reshape(shape))
+                yield Frame(index, time_s, wrap(buf))
         finally:
             _reap(proc)
             reader.join(timeout=5.0)
@@ -719,7 +868,7 @@ def iter_frame_range(
         if at_end[0]:
             return
     # Exact path: decode from the start (also what finishes a seek that went astray).
-    for f in iter_frames(path, size=size, gray=gray, info=info):
+    for f in iter_frames(path, size=size, gray=gray, yuv=yuv, info=info):
         if f.index < expected:
             continue
         if stop is not None and f.index >= stop:
