@@ -11,15 +11,16 @@ keyframe interval depends on its own frames only. Any grouping of intervals into
 analysed in any order on any worker, gives the same log; so does one process going through
 them in turn.
 
-Until :func:`stabilize.motion.analyse` restarts at keyframes itself (``keyframe_every=`` and
-``first_index=``), the restart is made here by running it once per interval; per-frame
-random seeds are then counted from each interval's overlap frame rather than from frame 0.
-Both ways, the log does not depend on the number of workers.
+Per-frame random seeds are ``[seed, frame index in the clip]``, so a segment draws what a
+single pass draws at the same frames.
 
 Workers: local processes (``concurrent.futures`` with the forkserver or spawn start method,
 never fork: the parent may hold threads and ffmpeg pipes), a Dask ``LocalCluster``
 (``scheduler="local"``) or an existing Dask cluster (``scheduler="tcp://host:port"``), whose
-workers must see the same paths and have stabilize installed.
+workers must see the same paths and have stabilize installed. A worker is one core: OpenCV
+runs single-threaded in it, so ``workers=1`` is one single-threaded pass (in this process)
+and ``workers=N`` asks for N cores. Without workers, :func:`stabilize.pipeline.measure` runs
+one pass that spreads its tracking over every core through OpenCV's own threads.
 """
 
 from __future__ import annotations
@@ -29,6 +30,7 @@ import multiprocessing
 import os
 from collections.abc import Callable, Iterable, Iterator
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -99,10 +101,29 @@ def analyse_range(task: SegmentTask, on_frame: Callable[[int], None] | None = No
     """
     if task.start % task.keyframe_every:
         raise ValueError("a segment must start at a keyframe")
-    if single_thread:
-        import cv2
+    with opencv_threads(1 if single_thread else None):
+        return _analyse_range(task, on_frame)
 
-        cv2.setNumThreads(1)
+
+@contextmanager
+def opencv_threads(count: int | None) -> Iterator[None]:
+    """Run the block with OpenCV limited to ``count`` threads (None: leave it as it is),
+    and restore the previous setting afterwards."""
+    if count is None:
+        yield
+        return
+    import cv2
+
+    before = cv2.getNumThreads()
+    cv2.setNumThreads(count)
+    try:
+        yield
+    finally:
+        cv2.setNumThreads(before)
+
+
+def _analyse_range(task: SegmentTask,
+                   on_frame: Callable[[int], None] | None) -> SegmentResult:
     info = task.info
     read_from = max(0, task.start - 1)
     frames = iter_frame_range(task.clip, read_from, task.stop, size=task.analysis_size,
@@ -184,7 +205,8 @@ def analyse_segments(clip: str | os.PathLike, info: VideoInfo, analysis_size: tu
     tasks = [SegmentTask(str(Path(clip).resolve()), info, tuple(analysis_size), settings,
                          s, e, k) for s, e in plan]
     if workers == 1 and scheduler is None:
-        results = [analyse_range(t, on_frame) for t in tasks]
+        # One worker is one core, here as in a pool: the same work a pool's worker does.
+        results = [analyse_range(t, on_frame, single_thread=True) for t in tasks]
     else:
         results = [None] * len(tasks)
         for i, outcome in parallel_map(_analyse_in_worker, tasks, workers=workers,
