@@ -58,8 +58,8 @@ class TrackSettings:
     lk_iterations: int = 20
     lk_epsilon: float = 0.01
     min_eig: float = 1e-4
-    back_win_size: int = 11
-    back_levels: int = 1
+    back_win_size: int = 21
+    back_levels: int = 0
     predicted_levels: int = 0
     fallback_share: float = 0.5
 
@@ -265,8 +265,9 @@ class Tracker:
                 prev, cur, src, None, winSize=(s.win_size, s.win_size), maxLevel=levels,
                 criteria=criteria, minEigThreshold=s.min_eig)
         # Tracking back from where each point landed, starting at its origin: a point that
-        # does not return there slid or jumped. Started at the origin, the check needs only
-        # a small window and one coarser level to catch that.
+        # does not return there slid or jumped. Started at the origin, the check needs no
+        # coarser levels; it keeps the forward window, since on sharp patterns another
+        # window settles a few tenths of a pixel elsewhere and would read as a failure.
         back, st_back, _ = cv2.calcOpticalFlowPyrLK(
             cur, prev, dst, src.copy(), winSize=(s.back_win_size, s.back_win_size),
             maxLevel=s.back_levels, criteria=criteria, minEigThreshold=s.min_eig,
