@@ -120,3 +120,36 @@ def test_phase_correlation_restart_guess():
     b = _shift(a, 37.0, -12.0)
     dx, dy, response = global_shift(a, b)
     assert abs(dx - 37.0) < 1.5 and abs(dy + 12.0) < 1.5 and response > 0.2
+
+
+def test_corner_poor_picture_is_not_searched_on_every_frame(monkeypatch):
+    # Fewer corners than max_corners: the tracker must not run the detector again each
+    # frame for nothing new, yet it looks again now and then for picture entering view.
+    import stabilize.track as track
+
+    calls = []
+    real = track.detect
+    monkeypatch.setattr(track, "detect", lambda *a, **k: calls.append(1) or real(*a, **k))
+    img = np.full((270, 480), 110, np.uint8)
+    img[100:170, 200:280] = _texture(seed=4)[100:170, 200:280]
+    s = TrackSettings(refresh_frames=10)
+    tr = Tracker(s)
+    for t in range(31):
+        tr.step(_shift(img, 0.3 * t, 0.0))
+        tr.update(None)
+    assert 0 < tr.live < 0.8 * s.max_corners
+    assert 2 <= len(calls) <= 5
+
+
+def test_wrong_prediction_falls_back_to_the_pyramid():
+    # A prediction 12 px off is beyond a single-level flow's reach; the tracker must notice
+    # that most tracks failed and solve again over the whole pyramid.
+    a = _texture()
+    b = _shift(a, 3.25, -1.5)
+    tr = Tracker()
+    tr.step(a)
+    wrong = np.array([[1.0, 0.0, 15.25], [0.0, 1.0, -1.5], [0.0, 0.0, 1.0]])
+    pairs = tr.step(b, wrong)
+    assert len(pairs) > 0.8 * tr.live
+    d = pairs.dst - pairs.src
+    assert np.median(np.abs(d[:, 0] - 3.25)) < 0.02 and np.median(np.abs(d[:, 1] + 1.5)) < 0.02
