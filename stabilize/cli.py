@@ -85,7 +85,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("clip")
     p.add_argument("--log", metavar="OUT.csv", help="motion log path")
     p.add_argument("--workers", metavar="N",
-                   help="analyse a long clip in N segments at once (same log as one pass)")
+                   help="analyse a long clip in segments on N single-core workers (same log "
+                   "as one pass; 1 keeps the job to one core)")
     p.add_argument("--scheduler", metavar="ADDR",
                    help="run the segments on a Dask cluster: 'local' or tcp://HOST:PORT")
     _add_common(p)
