@@ -177,12 +177,19 @@ def _unique(regions: Iterable[list[int]]) -> list[list[int]]:
 # ------------------------------------------------------------------ the clip
 def plan_segments(frames_estimate: int, keyframe_every: int,
                   workers: int) -> list[tuple[int, int | None]]:
-    """Split a clip into at most ``workers`` runs of whole keyframe intervals, as even as the
-    estimate allows; the last runs to the end (the real count is known only after decoding).
+    """Runs of frames ``(start, stop)`` to hand out: one per keyframe interval when several
+    workers share them, the whole clip for one worker. The last runs to the end (the real
+    count is known only after decoding).
+
+    Workers take the next run as they come free, so many short runs keep them all busy to
+    the end even when the clip is not a whole number of intervals long or some intervals
+    cost more than others; a run costs one seek and a fresh decoder, small beside an
+    interval's analysis.
     """
     intervals = max(1, math.ceil(frames_estimate / keyframe_every))
-    groups = np.array_split(np.arange(intervals), min(intervals, max(1, workers)))
-    starts = [int(g[0]) * keyframe_every for g in groups if len(g)]
+    if workers <= 1:
+        return [(0, None)]
+    starts = [i * keyframe_every for i in range(intervals)]
     return [(s, starts[i + 1] if i + 1 < len(starts) else None) for i, s in enumerate(starts)]
 
 

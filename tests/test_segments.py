@@ -39,9 +39,12 @@ def test_frame_range_matches_a_full_decode(long_clip, start, stop):
 
 
 def test_plan_splits_at_keyframes():
-    assert segments.plan_segments(70, 20, 2) == [(0, 40), (40, None)]
+    # Several workers: one run per keyframe interval, handed out as workers come free.
+    assert segments.plan_segments(70, 20, 2) == [(0, 20), (20, 40), (40, 60), (60, None)]
     assert segments.plan_segments(70, 20, 8) == [(0, 20), (20, 40), (40, 60), (60, None)]
     assert segments.plan_segments(5, 20, 2) == [(0, None)]
+    # One worker: one pass over the whole clip.
+    assert segments.plan_segments(70, 20, 1) == [(0, None)]
 
 
 def test_two_local_workers_give_the_same_log(long_clip, one_worker):
