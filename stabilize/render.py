@@ -18,6 +18,11 @@ import numpy as np
 from .overlap import WriteBehind, read_ahead
 from .video import YUV_BLACK, Frame, PlanarImage, VideoWriter
 
+# Frames waiting between decoder, warp and encoder threads. One each way keeps all three busy
+# (the encoder's pipe and ffmpeg's own queues absorb the jitter); every extra one is a full
+# frame in memory, 12 MiB at 4K.
+QUEUE_FRAMES = 1
+
 BORDERS = {
     "black": cv2.BORDER_CONSTANT,
     "reflect": cv2.BORDER_REFLECT_101,
@@ -175,7 +180,7 @@ def render(
     canvases = _Recycled(lambda: None)
     out_q = cmp_q = None
     try:
-        for frame in read_ahead(frames, depth=2):
+        for frame in read_ahead(frames, depth=QUEUE_FRAMES):
             image = frame.image
             c = corrections[min(frame.index, last)]
             if out_q is None:
@@ -183,9 +188,9 @@ def render(
                     outs = _Recycled(lambda im=image: PlanarImage.empty(
                         im.pix_fmt, im.width, im.height))
                 out_q = WriteBehind(writer.write if outs is None else outs.sink(writer.write),
-                                    depth=2)
+                                    depth=QUEUE_FRAMES)
                 if compare is not None:
-                    cmp_q = WriteBehind(canvases.sink(compare.write), depth=2)
+                    cmp_q = WriteBehind(canvases.sink(compare.write), depth=QUEUE_FRAMES)
             if outs is not None:
                 out = warp_planes(image, c, fill, out=outs.get())
             else:

@@ -159,3 +159,13 @@ def test_stop_children_ends_a_running_decoder(small_clip):
     assert stop_children() == 1
     assert stop_children() == 0
     frames.close()
+
+
+def test_encoder_env_adds_the_malloc_threshold_and_keeps_other_tunables(monkeypatch):
+    from stabilize.video import _encoder_env
+
+    monkeypatch.delenv("GLIBC_TUNABLES", raising=False)
+    assert _encoder_env()["GLIBC_TUNABLES"] == "glibc.malloc.mmap_threshold=1048576"
+    monkeypatch.setenv("GLIBC_TUNABLES", "glibc.malloc.arena_max=2")
+    assert _encoder_env()["GLIBC_TUNABLES"] == (
+        "glibc.malloc.arena_max=2:glibc.malloc.mmap_threshold=1048576")
