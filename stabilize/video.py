@@ -771,6 +771,12 @@ class VideoWriter:
 
 
 
+# Packets listed past the wanted frame: B-frame reordering moves a packet a few places
+# (H.264 allows 16 reference frames), so this margin settles the presentation times up to
+# the wanted frame and half the margin beyond it.
+_LIST_MARGIN = 64
+
+
 def iter_frame_range(
     path: str | os.PathLike,
     start: int,
@@ -809,6 +815,7 @@ def iter_frame_range(
         )
         list_tb: Fraction | None = None
         pts_list: list[int] = []
+        cut_short = False
         try:
             for line in listing.stdout:
                 if line.startswith("#tb 0:"):
@@ -820,7 +827,8 @@ def iter_frame_range(
                         pts_list.append(int(pts))
                     # Reordering (B-frames) moves a packet only a few places, so a margin
                     # past ``start`` settles the first presentation times.
-                    if len(pts_list) > start + 64:
+                    if len(pts_list) > start + _LIST_MARGIN:
+                        cut_short = True
                         break
         finally:
             if listing.poll() is None:
@@ -836,7 +844,12 @@ def iter_frame_range(
             head.close()
             if frame0 is not None:
                 shift = times[0] - round(Fraction(frame0.time_s) / list_tb)
-                ts_of = {float(Fraction(p) * list_tb): k for k, p in enumerate(times)}
+                # The last presentation times of a listing cut short are not settled: a
+                # packet still to come may sort in among them. Only settled ones identify
+                # frames; past them, frames are counted on.
+                settled = len(times) - _LIST_MARGIN // 2 if cut_short else len(times)
+                ts_of = {float(Fraction(p) * list_tb): k
+                         for k, p in enumerate(times[:settled])}
                 seek_s = max(0.0, float(Fraction(times[start] - shift) * list_tb) - 1.0)
 
     at_end = [False]

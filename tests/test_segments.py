@@ -81,3 +81,22 @@ def test_segmented_log_equals_the_single_pass(long_clip):
     two = measure(long_clip, workers=2, keyframe_every=k)
     assert np.abs(two.matrices - single.matrices).max() < 1e-6
     assert two.to_csv() == single.to_csv()
+
+
+def test_frame_range_seeks_instead_of_decoding_from_the_start(tmp_path, monkeypatch):
+    # A clip with B-frames and a range running past where the timestamp listing stops:
+    # the range must come from the seek, not from the fallback that decodes everything
+    # before it (exact too, but as slow as a full pass).
+    import stabilize.video as video
+
+    clip = write_clip(tmp_path / "bframes.mp4", noise_frames(220, 96, 64, shift_px=0.9), 30.0)
+    info = probe(clip)
+    ref = list(iter_frames(clip, size=(96, 64), gray=True, info=info))[100:200]
+    calls = []
+    real = video.iter_frames
+    monkeypatch.setattr(video, "iter_frames", lambda *a, **k: calls.append(1) or real(*a, **k))
+    got = list(video.iter_frame_range(clip, 100, 200, size=(96, 64), gray=True, info=info))
+    assert [f.index for f in got] == list(range(100, 200))
+    assert [f.time_s for f in got] == [f.time_s for f in ref]
+    assert all(np.array_equal(a.image, b.image) for a, b in zip(got, ref, strict=True))
+    assert len(calls) == 1  # only the look at frame 0 that learns the timestamp offset
