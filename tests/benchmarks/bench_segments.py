@@ -24,17 +24,7 @@ import tempfile
 import time
 from pathlib import Path
 
-
-def make_clip(path: Path, width: int, height: int, frames: int) -> None:
-    from stabilize.synth import SceneSpec, SyntheticClip
-    from stabilize.video import VideoWriter
-
-    spec = SceneSpec(style="truss", width=width, height=height, fps=30.0,
-                     duration_s=frames / 30.0, seed=3, noise_sigma=1.0)
-    clip = SyntheticClip(spec)
-    with VideoWriter(path, width, height, 30.0, crf=20, preset="veryfast") as w:
-        for _, f in clip.frames():
-            w.write(f)
+from bench_pipeline import make_clip  # the same synthetic drone clip, at any size
 
 
 def timed(args: list[str]) -> float:
