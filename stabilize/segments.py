@@ -97,12 +97,13 @@ def analyse_range(task: SegmentTask, on_frame: Callable[[int], None] | None = No
     """Analyse frames ``[task.start, task.stop)`` with restarts at every keyframe.
 
     ``task.start`` must be a keyframe (a multiple of ``keyframe_every``) or 0.
-    ``single_thread`` keeps OpenCV to one thread, for worker processes sharing the cores.
+    ``single_thread`` keeps OpenCV and the decoder to one thread each, for worker processes
+    sharing the cores.
     """
     if task.start % task.keyframe_every:
         raise ValueError("a segment must start at a keyframe")
     with opencv_threads(1 if single_thread else None):
-        return _analyse_range(task, on_frame)
+        return _analyse_range(task, on_frame, decode_threads=1 if single_thread else None)
 
 
 @contextmanager
@@ -122,12 +123,12 @@ def opencv_threads(count: int | None) -> Iterator[None]:
         cv2.setNumThreads(before)
 
 
-def _analyse_range(task: SegmentTask,
-                   on_frame: Callable[[int], None] | None) -> SegmentResult:
+def _analyse_range(task: SegmentTask, on_frame: Callable[[int], None] | None,
+                   decode_threads: int | None) -> SegmentResult:
     info = task.info
     read_from = max(0, task.start - 1)
     frames = iter_frame_range(task.clip, read_from, task.stop, size=task.analysis_size,
-                              gray=True, info=info)
+                              gray=True, info=info, decode_threads=decode_threads)
     common = dict(full_size=(info.width, info.height), analysis_size=task.analysis_size,
                   settings=task.settings)
     parts: list[MotionTrack] = []

@@ -786,10 +786,11 @@ def iter_frame_range(
     gray: bool = False,
     yuv: str | None = None,
     info: VideoInfo | None = None,
+    decode_threads: int | None = None,
 ) -> Iterator[Frame]:
     """Decode frames ``[start, stop)`` of a clip (``stop`` None: to the end), with the indices,
-    timestamps and pixels :func:`iter_frames` gives them (``size``, ``gray`` and ``yuv`` as
-    there).
+    timestamps and pixels :func:`iter_frames` gives them (``size``, ``gray``, ``yuv`` and
+    ``decode_threads`` as there).
 
     Frame ``start`` is reached without decoding what comes before it: the packets'
     presentation timestamps are listed (demuxing only, no decoding) to learn which timestamp
@@ -853,11 +854,13 @@ def iter_frame_range(
                 seek_s = max(0.0, float(Fraction(times[start] - shift) * list_tb) - 1.0)
 
     at_end = [False]
+    threads = [] if decode_threads is None else ["-threads", str(int(decode_threads))]
 
     def decode() -> Iterator[Frame]:
         pix_fmt, filters, nbytes, wrap = _raw_output(w, h, info, gray=gray, yuv=yuv)
         cmd = [ffmpeg_exe(), "-hide_banner", "-nostdin", "-loglevel", "info",
-               "-noaccurate_seek", "-ss", f"{seek_s:.6f}", "-copyts", "-i", ffmpeg_path(path),
+               *threads, "-noaccurate_seek", "-ss", f"{seek_s:.6f}", "-copyts",
+               "-i", ffmpeg_path(path),
                "-map", "0:v:0", "-an", "-sn", "-dn", "-fps_mode", "passthrough",
                "-vf", ",".join(filters), "-f", "rawvideo", "-pix_fmt", pix_fmt, *_RAW_QUEUE,
                "pipe:1"]
@@ -909,7 +912,8 @@ def iter_frame_range(
         if at_end[0]:
             return
     # Exact path: decode from the start (also what finishes a seek that went astray).
-    for f in iter_frames(path, size=size, gray=gray, yuv=yuv, info=info):
+    for f in iter_frames(path, size=size, gray=gray, yuv=yuv, info=info,
+                         decode_threads=decode_threads):
         if f.index < expected:
             continue
         if stop is not None and f.index >= stop:
