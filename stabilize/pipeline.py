@@ -35,6 +35,7 @@ from .video import (
     constant_rate,
     iter_frames,
     looks_truncated,
+    output_colour,
     output_pix_fmt,
     probe,
 )
@@ -266,7 +267,7 @@ def _render_video(clip: Path, info: VideoInfo, motion: MotionLog, settings: Sett
     # conversion on either side, half the bytes of RGB per frame.
     yuv = output_pix_fmt(settings.codec, info.width, info.height)
     writer_args = dict(codec=settings.codec, crf=settings.crf, preset=settings.preset,
-                       input_pix_fmt=yuv)
+                       input_pix_fmt=yuv, colour=output_colour(info))
     # A variable frame rate clip keeps its own frame times; a constant rate one is written
     # at its nominal rate, as before.
     times = None if constant_rate(motion.time_s, info.fps) else motion.time_s

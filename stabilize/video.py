@@ -87,6 +87,72 @@ def stop_children() -> int:
     return running
 
 
+#: Names the encoder side (ffmpeg's ``setparams`` filter) takes for each colour property, as
+#: ffmpeg prints them for a stream. A name outside these is not copied to an output.
+COLOUR_NAMES: dict[str, frozenset[str]] = {
+    "range": frozenset({"tv", "pc"}),
+    "space": frozenset({"bt709", "fcc", "bt470bg", "smpte170m", "smpte240m", "ycgco",
+                        "bt2020nc", "bt2020c", "smpte2085", "chroma-derived-nc",
+                        "chroma-derived-c", "ictcp"}),
+    "primaries": frozenset({"bt709", "bt470m", "bt470bg", "smpte170m", "smpte240m", "film",
+                            "bt2020", "smpte428", "smpte431", "smpte432", "ebu3213"}),
+    "trc": frozenset({"bt709", "gamma22", "gamma28", "smpte170m", "smpte240m", "linear",
+                      "log100", "log316", "iec61966-2-4", "bt1361e", "iec61966-2-1",
+                      "bt2020-10", "bt2020-12", "smpte2084", "smpte428", "arib-std-b67"}),
+}
+
+
+@dataclass(frozen=True)
+class ColourTags:
+    """How a stream's pixel values are to be read, as its header says (None: not said).
+
+    ``range`` is ``"tv"`` (limited: luma 16–235) or ``"pc"`` (full); ``space`` is the YUV
+    matrix, ``primaries`` and ``trc`` (transfer characteristic) describe the light, in
+    ffmpeg's names (``bt709``, ``bt2020nc``, ``arib-std-b67`` for HLG …).
+    """
+
+    range: str | None = None
+    space: str | None = None
+    primaries: str | None = None
+    trc: str | None = None
+
+    def setparams_filter(self) -> str | None:
+        """An ffmpeg ``setparams`` filter stamping these tags on frames (the encoder writes
+        them into the stream), or None when there is nothing to stamp. Unknown names are
+        left out."""
+        parts = []
+        for key, option in (("range", "range"), ("space", "colorspace"),
+                            ("primaries", "color_primaries"), ("trc", "color_trc")):
+            value = getattr(self, key)
+            if value in COLOUR_NAMES[key]:
+                parts.append(f"{option}={value}")
+        return "setparams=" + ":".join(parts) if parts else None
+
+
+_FIELD_ORDER = ("progressive", "top first", "bottom first", "top coded first",
+                "bottom coded first")
+
+
+def parse_colour(pix_fmt_details: str) -> ColourTags:
+    """Colour tags from the parenthesis after the pixel format in ffmpeg's stream line, e.g.
+    ``"tv, bt709, progressive"`` or ``"tv, bt2020nc/bt2020/arib-std-b67, progressive"``
+    (one name stands for all three of matrix, primaries and transfer)."""
+    tags: dict[str, str | None] = {}
+    for item in (x.strip() for x in pix_fmt_details.split(",")):
+        if not item or item.endswith("bpc") or item.startswith(_FIELD_ORDER):
+            continue
+        if item in COLOUR_NAMES["range"]:
+            tags["range"] = item
+            continue
+        names = item.split("/")
+        if len(names) == 1:
+            names = names * 3
+        if len(names) == 3:
+            for key, name in zip(("space", "primaries", "trc"), names, strict=True):
+                tags[key] = None if name in ("unknown", "reserved") else name
+    return ColourTags(**tags)
+
+
 @dataclass(frozen=True)
 class VideoInfo:
     """What the container says about a clip's first video stream.
@@ -109,6 +175,10 @@ class VideoInfo:
     audio_codec: str | None
     #: ticks per second of the stream's time base (0 when the container does not say)
     time_base: int = 0
+    #: the decoder's pixel format as ffmpeg names it (``yuv420p``, ``yuv420p10le`` …; "" when
+    #: not read)
+    pix_fmt: str = ""
+    colour: ColourTags = ColourTags()
 
     @property
     def has_audio(self) -> bool:
@@ -128,6 +198,8 @@ _AUDIO = re.compile(r"Stream #0:\d+[^:]*: Audio: (\w+)")
 _SIZE = re.compile(r"\b(\d{1,5})x(\d{1,5})\b")
 _FPS = re.compile(r"([\d.]+)(k?) (?:fps|tbr)")
 _TBN = re.compile(r"([\d.]+)(k?) tbn")
+# After the codec's name and its parenthesised details: ", yuv420p(tv, bt709, progressive), "
+_PIX_FMT = re.compile(r"^[^,]*, ([a-z0-9_]+)(?:\(([^()]*)\))?[,\s]")
 _ROTATION = re.compile(r"rotation of (-?[\d.]+) degrees")
 _DEMUXER = re.compile(r"Input #0, (\S+), from")
 _STILL_CODECS = {"png", "mjpeg", "bmp", "tiff", "webp", "gif", "jpegxl", "jpeg2000", "qoi"}
@@ -210,12 +282,27 @@ def probe(path: str | os.PathLike) -> VideoInfo:
     audio = _AUDIO.search(text)
     tbn = _TBN.search(rest)
     time_base = int(float(tbn.group(1)) * (1000 if tbn.group(2) else 1)) if tbn else 0
+    fmt = _PIX_FMT.search(rest)
     return VideoInfo(
         path=str(p), width=width, height=height, fps=fps, fps_text=_fps_fraction(fps),
         duration_s=duration, frames_estimate=max(1, int(round(duration * fps))), codec=codec,
         rotation_deg=rotation, audio_codec=audio.group(1) if audio else None,
-        time_base=time_base,
+        time_base=time_base, pix_fmt=fmt.group(1) if fmt else "",
+        colour=parse_colour(fmt.group(2) or "") if fmt else ColourTags(),
     )
+
+
+def output_colour(info: VideoInfo) -> ColourTags:
+    """The tags of a steadied copy of ``info``'s clip rendered in planar YUV: always limited
+    range (the render pass decodes to it), the source's primaries and transfer (HLG, PQ and
+    wide-gamut footage keeps its meaning), and its YUV matrix when the source is YUV-coded
+    (an RGB-coded source is converted with ffmpeg's default matrix, which is not tagged).
+    Untagged properties stay untagged: players then assume what they assumed of the source.
+    """
+    c = info.colour
+    yuv_coded = info.pix_fmt.startswith(("yuv", "nv", "p0", "p2", "p4"))
+    return ColourTags(range="tv", space=c.space if yuv_coded else None,
+                      primaries=c.primaries, trc=c.trc)
 
 
 #: Planar YUV layouts the render pass works in, with their chroma subsampling (x, y).
@@ -584,7 +671,9 @@ class VideoWriter:
     ``input_pix_fmt`` says what :meth:`write` is fed: ``"rgb24"`` arrays (the default), or
     :class:`PlanarImage` frames in ``"yuv420p"`` / ``"yuv444p"``, limited range. The encoded
     format does not depend on it (:func:`output_pix_fmt`); feeding frames already in that
-    format spares the encoder a conversion.
+    format spares the encoder a conversion. ``colour`` tags the stream (:class:`ColourTags`,
+    for instance :func:`output_colour` of the source); it describes the values fed, so it
+    suits planar YUV input carried through from a decoder, not RGB.
 
     ``fps`` is a number or an exact ratio string such as ``"30000/1001"``. Audio of
     ``audio_from`` is copied through unchanged when the container allows it. If the block raises,
@@ -611,12 +700,14 @@ class VideoWriter:
         times_s: Sequence[float] | np.ndarray | None = None,
         time_base: int = 0,
         input_pix_fmt: str = "rgb24",
+        colour: ColourTags | None = None,
     ) -> None:
         if codec not in ENCODERS:
             raise StabilizeError(f"option --codec: {codec!r} is not one of {', '.join(ENCODERS)}")
         if input_pix_fmt != "rgb24" and input_pix_fmt not in YUV_FORMATS:
             raise ValueError(f"input_pix_fmt must be rgb24 or one of {', '.join(YUV_FORMATS)}")
         self.input_pix_fmt = input_pix_fmt
+        self._tag = colour.setparams_filter() if colour is not None else None
         self.path = Path(path)
         self.width, self.height = int(width), int(height)
         self.fps = fps if isinstance(fps, str) else _fps_fraction(float(fps))
@@ -672,6 +763,8 @@ class VideoWriter:
             # command line.
             cmd += ["-/vf", str(self._script), "-fps_mode", "passthrough",
                     "-enc_time_base", "filter", "-video_track_timescale", str(self.time_base)]
+        elif self._tag is not None:
+            cmd += ["-vf", self._tag]
         encoder = ENCODERS[self.codec]
         cmd += ["-c:v", encoder]
         pix_fmt = output_pix_fmt(self.codec, self.width, self.height)
@@ -691,7 +784,8 @@ class VideoWriter:
         try:
             if self.times_s is not None and len(self.times_s) > 0:
                 self._script = temp_path_for(self.path.with_suffix(".timestamps.txt"))
-                self._script.write_text(self._timestamp_filter(), encoding="ascii")
+                chain = [f for f in (self._tag, self._timestamp_filter()) if f]
+                self._script.write_text(",".join(chain), encoding="ascii")
             self._proc = _spawn(
                 self._command(self._tmp), stdin=subprocess.PIPE, stdout=subprocess.DEVNULL,
                 stderr=subprocess.PIPE, env=_encoder_env(),

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import hashlib
+import subprocess
 from pathlib import Path
 
 import cv2
@@ -13,7 +14,7 @@ import stabilize
 from stabilize.framing import covered
 from stabilize.log import read_log
 from stabilize.synth import SceneSpec, SyntheticClip, grid_transfer_error
-from stabilize.video import iter_frames, probe
+from stabilize.video import ColourTags, ffmpeg_exe, iter_frames, probe
 
 from .conftest import write_clip
 
@@ -89,6 +90,24 @@ def test_steady_keeps_audio_frames_fps_and_size(truss, tmp_path):
     assert s["jitter_rms_x_px_out"] < 0.2 * s["jitter_rms_x_px"]
     assert sorted(p.name for p in out.parent.iterdir()) == [
         "steadied.mp4", "truss pass.motion.csv", "truss pass.motion.json"]
+
+
+def test_steady_keeps_the_sources_colour_tags(truss, tmp_path):
+    # 10-bit HLG, as some drones record: the steadied copy (8-bit) must say how its values
+    # are to be shown, or players take them for SDR BT.709 and the picture looks washed out.
+    path, _ = truss
+    hlg = tmp_path / "hlg.mp4"
+    subprocess.run([ffmpeg_exe(), "-nostdin", "-loglevel", "error", "-i", str(path), "-vf",
+                    "setparams=range=tv:colorspace=bt2020nc:color_primaries=bt2020:"
+                    "color_trc=arib-std-b67", "-c:v", "libx264", "-pix_fmt", "yuv420p10le",
+                    "-preset", "veryfast", "-crf", "12", "-c:a", "copy", str(hlg)],
+                   check=True, capture_output=True)
+    want = ColourTags("tv", "bt2020nc", "bt2020", "arib-std-b67")
+    assert probe(hlg).colour == want
+    out = tmp_path / "hlg.steady.mp4"
+    stabilize.steady(hlg, out, compare=True)
+    assert probe(out).colour == want
+    assert probe(tmp_path / "hlg.steady.compare.mp4").colour == want
 
 
 def test_steadied_video_is_steadier(truss, tmp_path):

@@ -8,6 +8,7 @@ import pytest
 
 from stabilize.errors import StabilizeError
 from stabilize.video import (
+    ColourTags,
     DecodeStats,
     VideoWriter,
     analysis_size,
@@ -15,6 +16,8 @@ from stabilize.video import (
     ffmpeg_exe,
     iter_frames,
     looks_truncated,
+    output_colour,
+    parse_colour,
     probe,
     stop_children,
 )
@@ -169,3 +172,70 @@ def test_encoder_env_adds_the_malloc_threshold_and_keeps_other_tunables(monkeypa
     monkeypatch.setenv("GLIBC_TUNABLES", "glibc.malloc.arena_max=2")
     assert _encoder_env()["GLIBC_TUNABLES"] == (
         "glibc.malloc.arena_max=2:glibc.malloc.mmap_threshold=1048576")
+
+
+def test_colour_tags_are_read_from_the_stream_line():
+    # Details as ffmpeg prints them after the pixel format (seen with the bundled ffmpeg).
+    assert parse_colour("tv, bt709, progressive") == ColourTags("tv", "bt709", "bt709", "bt709")
+    assert parse_colour("tv, bt2020nc/bt2020/arib-std-b67, progressive") == ColourTags(
+        "tv", "bt2020nc", "bt2020", "arib-std-b67")
+    assert parse_colour("tv, bt470bg/unknown/unknown, progressive") == ColourTags(
+        "tv", "bt470bg", None, None)
+    assert parse_colour("pc, progressive") == ColourTags("pc")
+    assert parse_colour("progressive") == ColourTags()
+    assert parse_colour("10 bpc, tv, bt709, top first") == ColourTags(
+        "tv", "bt709", "bt709", "bt709")
+    # A name the encoder side does not know is not stamped on an output.
+    assert ColourTags("tv", "bt709", "made-up", None).setparams_filter() == \
+        "setparams=range=tv:colorspace=bt709"
+    assert ColourTags().setparams_filter() is None
+
+
+def _tagged_source(path, vf: str, pix_fmt: str) -> object:
+    _ff("-f", "lavfi", "-i", "testsrc2=s=64x48:d=0.2:r=25", "-vf", vf, "-c:v", "libx264",
+        "-pix_fmt", pix_fmt, str(path))
+    return probe(path)
+
+
+def test_probe_reads_colour_and_the_output_keeps_what_the_render_preserves(tmp_path):
+    hlg = _tagged_source(tmp_path / "hlg.mp4", "setparams=range=tv:colorspace=bt2020nc:"
+                         "color_primaries=bt2020:color_trc=arib-std-b67", "yuv420p10le")
+    assert hlg.pix_fmt == "yuv420p10le"
+    assert hlg.colour == ColourTags("tv", "bt2020nc", "bt2020", "arib-std-b67")
+    # Rendered in 8-bit limited-range YUV: the matrix, primaries and transfer carry over.
+    assert output_colour(hlg) == hlg.colour
+    full = _tagged_source(tmp_path / "full.mp4", "setparams=range=pc", "yuvj420p")
+    assert full.colour.range == "pc" and output_colour(full) == ColourTags("tv")
+    plain = _tagged_source(tmp_path / "plain.mp4", "null", "yuv420p")
+    assert plain.colour == ColourTags() and output_colour(plain) == ColourTags("tv")
+    # An RGB-coded source is turned into YUV with ffmpeg's default matrix: not tagged.
+    rgb = probe(_ff_rgb(tmp_path / "rgb.mp4"))
+    assert rgb.pix_fmt == "gbrp" and output_colour(rgb).space is None
+
+
+def _ff_rgb(path):
+    _ff("-f", "lavfi", "-i", "testsrc2=s=64x48:d=0.2:r=25", "-c:v", "libx264rgb", str(path))
+    return path
+
+
+@pytest.mark.parametrize("times", [None, np.arange(5) / 25.0 + np.array([0, 0, 0.01, 0, 0])])
+def test_writer_tags_colour_without_touching_the_pixels(tmp_path, times):
+    from stabilize.video import PlanarImage
+
+    rng = np.random.default_rng(0)
+    frames = [PlanarImage.wrap(bytearray(rng.integers(16, 236, 64 * 48 * 3 // 2, np.uint8)
+                                         .tobytes()), "yuv420p", 64, 48) for _ in range(5)]
+    tags = ColourTags("tv", "bt709", "bt2020", "arib-std-b67")
+    decoded = {}
+    for name, colour in (("tagged", tags), ("untagged", None)):
+        out = tmp_path / f"{name}.mp4"
+        with VideoWriter(out, 64, 48, 25.0, codec="ffv1", input_pix_fmt="yuv420p",
+                         colour=colour, times_s=times, time_base=12800) as w:
+            for f in frames:
+                w.write(f)
+        decoded[name] = [f.image.data.tobytes() for f in iter_frames(out, yuv="yuv420p")]
+        assert probe(out).colour == (tags if colour else ColourTags())
+    assert decoded["tagged"] == decoded["untagged"]
+    # ffv1 is stored as 4:4:4 here, so only the luma comes back bit for bit.
+    luma = 64 * 48
+    assert [d[:luma] for d in decoded["tagged"]] == [bytes(f.data)[:luma] for f in frames]
