@@ -28,11 +28,13 @@ from __future__ import annotations
 import math
 import multiprocessing
 import os
+import time
 from collections.abc import Callable, Iterable, Iterator
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
+from queue import Empty
 from typing import Any
 
 import numpy as np
@@ -217,18 +219,34 @@ def analyse_segments(clip: str | os.PathLike, info: VideoInfo, analysis_size: tu
         results = [analyse_range(t, on_frame, single_thread=True) for t in tasks]
     else:
         results = [None] * len(tasks)
+        # Frames each run reported while under way (local workers report as they go; Dask
+        # workers only finish), so a finished run adds just what it had not reported yet.
+        told = [0] * len(tasks)
+
+        def under_way(i: int, n: int) -> None:
+            if results[i] is None and on_frame:
+                told[i] += n
+                on_frame(n)
+
         for i, outcome in parallel_map(_analyse_in_worker, tasks, workers=workers,
-                                       scheduler=scheduler):
+                                       scheduler=scheduler,
+                                       on_progress=under_way if on_frame else None):
             if isinstance(outcome, BaseException):
                 raise outcome
             results[i] = outcome
             if on_frame:
-                on_frame(len(outcome.track.time_s))
+                on_frame(max(0, len(outcome.track.time_s) - told[i]))
     return merge(results, settings, (info.width, info.height))
 
 
 def _analyse_in_worker(task: SegmentTask) -> SegmentResult:
-    return analyse_range(task, single_thread=True)
+    # A run after the first re-reads the frame before it (the overlap), which it does not
+    # keep and so does not count.
+    counter = _ProgressCounter(skip=1 if task.start > 0 else 0)
+    try:
+        return analyse_range(task, counter, single_thread=True)
+    finally:
+        counter.flush()
 
 
 def merge(results: list[SegmentResult], settings: Settings,
@@ -261,20 +279,70 @@ def _context() -> multiprocessing.context.BaseContext:
 
 
 def parallel_map(fn: Callable[[Any], Any], items: list[Any], *, workers: int,
-                 scheduler: str | None = None) -> Iterator[tuple[int, Any]]:
+                 scheduler: str | None = None,
+                 on_progress: Callable[[int, int], None] | None = None,
+                 ) -> Iterator[tuple[int, Any]]:
     """Run ``fn`` on every item on local processes or a Dask cluster; yield (index, result)
     as each finishes, the result being the exception when the call (or its worker) failed.
 
     ``scheduler``: None for a local process pool of ``workers`` processes, ``"local"`` for a
     Dask LocalCluster of ``workers`` single-threaded processes started here, or the address of
     a running Dask scheduler (``tcp://host:port``).
+
+    ``on_progress(index, n)`` is called in this process, between results, with the counts
+    that ``fn`` reported through :class:`_ProgressCounter` while working on item ``index``;
+    local processes only (Dask workers report nothing before they finish). Counts for an
+    item may still arrive after its result.
     """
     if not items:
         return
     if scheduler is None:
-        yield from _pool_map(fn, items, workers)
+        yield from _pool_map(fn, items, workers, on_progress)
     else:
         yield from _dask_map(fn, items, workers, scheduler)
+
+
+# ------------------------------------------------------------------ progress
+#: In a local pool's worker: where progress goes (set by the pool's initializer), and the
+#: item the worker is on. None elsewhere (this process, Dask workers).
+_progress_queue: Any = None
+_current_item: list[int] = [-1]
+
+#: A worker sends its count at most this often (seconds): a bar needs no more, and each
+#: message costs a pickle and a pipe write.
+PROGRESS_EVERY_S = 0.5
+
+
+def _init_pool_worker(queue: Any) -> None:
+    global _progress_queue
+    _progress_queue = queue
+
+
+class _ProgressCounter:
+    """An ``on_frame`` for work inside a pool worker: adds up the counts (after skipping the
+    first ``skip``) and sends them to the pool's owner every :data:`PROGRESS_EVERY_S`; a
+    no-op where there is no pool."""
+
+    def __init__(self, skip: int = 0) -> None:
+        self.skip, self.pending, self.sent_at = skip, 0, time.monotonic()
+
+    def __call__(self, n: int) -> None:
+        if self.skip:
+            used = min(self.skip, n)
+            self.skip, n = self.skip - used, n - used
+        self.pending += n
+        if time.monotonic() - self.sent_at >= PROGRESS_EVERY_S:
+            self.flush()
+
+    def flush(self) -> None:
+        if _progress_queue is not None and self.pending:
+            _progress_queue.put((_current_item[0], self.pending))
+        self.pending, self.sent_at = 0, time.monotonic()
+
+
+def _run_item(fn: Callable[[Any], Any], index: int, item: Any) -> Any:
+    _current_item[0] = index
+    return fn(item)
 
 
 # A worker is one core: numerical libraries in it must not start threads of their own, or
@@ -299,20 +367,37 @@ def _worker_environment() -> Iterator[None]:
                 os.environ[k] = v
 
 
-def _pool_map(fn, items, workers):
-    with _worker_environment(), ProcessPoolExecutor(max_workers=min(workers, len(items)),
-                                                    mp_context=_context()) as pool:
-        futures = {pool.submit(fn, item): i for i, item in enumerate(items)}
+def _pool_map(fn, items, workers, on_progress=None):
+    ctx = _context()
+    queue = ctx.Queue() if on_progress else None
+    with _worker_environment(), ProcessPoolExecutor(
+            max_workers=min(workers, len(items)), mp_context=ctx,
+            initializer=_init_pool_worker, initargs=(queue,)) as pool:
+        futures = {pool.submit(_run_item, fn, i, item): i for i, item in enumerate(items)}
         pending = set(futures)
         try:
             while pending:
-                done, pending = wait(pending, return_when=FIRST_COMPLETED)
+                done, pending = wait(pending, timeout=PROGRESS_EVERY_S if queue else None,
+                                     return_when=FIRST_COMPLETED)
+                _drain(queue, on_progress)
                 for fut in done:
                     exc = fut.exception()
                     yield futures[fut], exc if exc is not None else fut.result()
         finally:
             for fut in pending:
                 fut.cancel()
+    if queue is not None:
+        _drain(queue, on_progress)
+        queue.close()
+
+
+def _drain(queue, on_progress) -> None:
+    while queue is not None:
+        try:
+            index, n = queue.get_nowait()
+        except Empty:
+            return
+        on_progress(index, n)
 
 
 def _dask_map(fn, items, workers, scheduler):

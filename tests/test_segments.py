@@ -54,6 +54,62 @@ def test_two_local_workers_give_the_same_log(long_clip, one_worker):
     assert two.to_csv() == one_worker.to_csv()
 
 
+def test_progress_counts_every_kept_frame_once(long_clip, one_worker):
+    counts = []
+
+    class Bar:
+        def update(self, n=1):
+            counts.append(n)
+
+        def close(self):
+            pass
+
+    log = measure(long_clip, workers=2, keyframe_every=KEYFRAME,
+                  progress=lambda desc, total: Bar())
+    assert sum(counts) == log.frames == 70
+    assert log.to_csv() == one_worker.to_csv()
+
+
+def _count_in_worker(n: int) -> int:
+    counter = segments._ProgressCounter(skip=1)
+    for _ in range(n):
+        counter(1)
+    counter.flush()
+    return n
+
+
+def test_pool_workers_report_progress_per_item():
+    got: dict[int, int] = {}
+
+    def on_progress(i, n):
+        got[i] = got.get(i, 0) + n
+
+    results = dict(segments.parallel_map(_count_in_worker, [5, 9, 3], workers=2,
+                                         on_progress=on_progress))
+    assert results == {0: 5, 1: 9, 2: 3}
+    # Each item's counts, less the one frame skipped (the overlap a later run re-reads).
+    assert got == {0: 4, 1: 8, 2: 2}
+
+
+def test_progress_counter_skips_and_sends_in_batches(monkeypatch):
+    sent = []
+
+    class Queue:
+        def put(self, item):
+            sent.append(item)
+
+    monkeypatch.setattr(segments, "_progress_queue", Queue())
+    monkeypatch.setattr(segments, "_current_item", [7])
+    monkeypatch.setattr(segments, "PROGRESS_EVERY_S", 3600.0)
+    counter = segments._ProgressCounter(skip=2)
+    for _ in range(5):
+        counter(1)
+    assert sent == []  # not due yet
+    counter.flush()
+    counter.flush()  # nothing more to send
+    assert sent == [(7, 3)]
+
+
 def test_dask_local_cluster_gives_the_same_log(long_clip, one_worker):
     pytest.importorskip("distributed")
     two = measure(long_clip, workers=2, scheduler="local", keyframe_every=KEYFRAME)
