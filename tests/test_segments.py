@@ -156,3 +156,32 @@ def test_frame_range_seeks_instead_of_decoding_from_the_start(tmp_path, monkeypa
     assert [f.time_s for f in got] == [f.time_s for f in ref]
     assert all(np.array_equal(a.image, b.image) for a, b in zip(got, ref, strict=True))
     assert len(calls) == 1  # only the look at frame 0 that learns the timestamp offset
+
+
+def test_frame_range_seeks_in_a_variable_rate_clip(tmp_path, monkeypatch):
+    # Irregular frame times (as phones and some drones write): the frames before the range
+    # are dropped inside ffmpeg by their time, and the range still comes from the seek.
+    import stabilize.video as video
+    from stabilize.video import VideoWriter
+
+    rng = np.random.default_rng(5)
+    times = np.concatenate([[0.0], np.cumsum(rng.integers(200, 900, 159))]) / 15360
+    clip = tmp_path / "vfr.mp4"
+    with VideoWriter(clip, 96, 64, 30.0, preset="veryfast", times_s=times,
+                     time_base=15360) as w:
+        for f in noise_frames(160, 96, 64, shift_px=0.7):
+            w.write(f)
+    info = probe(clip)
+    ref = list(iter_frames(clip, size=(96, 64), gray=True, info=info))
+    calls = []
+    real = video.iter_frames
+    monkeypatch.setattr(video, "iter_frames", lambda *a, **k: calls.append(1) or real(*a, **k))
+    for start, stop in ((37, 90), (121, None)):
+        calls.clear()
+        got = list(video.iter_frame_range(clip, start, stop, size=(96, 64), gray=True,
+                                          info=info))
+        want = ref[start:stop]
+        assert [f.index for f in got] == [f.index for f in want]
+        assert [f.time_s for f in got] == [f.time_s for f in want]
+        assert all(np.array_equal(a.image, b.image) for a, b in zip(got, want, strict=True))
+        assert len(calls) == 1
