@@ -200,8 +200,9 @@ def analyse_segments(clip: str | os.PathLike, info: VideoInfo, analysis_size: tu
                      settings: Settings, *, workers: int | None = None,
                      scheduler: str | None = None, keyframe_every: int | None = None,
                      on_frame: Callable[[int], None] | None = None) -> MotionTrack:
-    """Analyse a clip in keyframe segments over ``workers`` (in this process when 1 and no
-    ``scheduler``); the same result for any number of workers.
+    """Analyse a clip in keyframe segments over ``workers``; the same result for any number
+    of workers. Without a ``scheduler``, one worker or a clip of one keyframe interval is
+    analysed in this process.
 
     ``keyframe_every`` defaults to :func:`keyframe_frames` of the clip's nominal frame rate.
     """
@@ -214,8 +215,9 @@ def analyse_segments(clip: str | os.PathLike, info: VideoInfo, analysis_size: tu
     plan = plan_segments(info.frames_estimate, k, workers)
     tasks = [SegmentTask(str(Path(clip).resolve()), info, tuple(analysis_size), settings,
                          s, e, k) for s, e in plan]
-    if workers == 1 and scheduler is None:
+    if (workers == 1 or len(tasks) == 1) and scheduler is None:
         # One worker is one core, here as in a pool: the same work a pool's worker does.
+        # A clip of one keyframe interval is one run, which a pool would only delay.
         results = [analyse_range(t, on_frame, single_thread=True) for t in tasks]
     else:
         results = [None] * len(tasks)

@@ -54,6 +54,17 @@ def test_two_local_workers_give_the_same_log(long_clip, one_worker):
     assert two.to_csv() == one_worker.to_csv()
 
 
+def test_a_clip_of_one_interval_starts_no_pool(long_clip, one_worker, monkeypatch):
+    def no_pool(*args, **kwargs):
+        raise AssertionError("a pool was started for a single run")
+
+    monkeypatch.setattr(segments, "_pool_map", no_pool)
+    whole = measure(long_clip, workers=2, keyframe_every=100)
+    assert whole.frames == 70
+    # The same log as one worker gives.
+    assert whole.to_csv() == measure(long_clip, workers=1, keyframe_every=100).to_csv()
+
+
 def test_progress_counts_every_kept_frame_once(long_clip, one_worker):
     counts = []
 
