@@ -267,7 +267,7 @@ def _render_video(clip: Path, info: VideoInfo, motion: MotionLog, settings: Sett
     # conversion on either side, half the bytes of RGB per frame.
     yuv = output_pix_fmt(settings.codec, info.width, info.height)
     writer_args = dict(codec=settings.codec, crf=settings.crf, preset=settings.preset,
-                       input_pix_fmt=yuv, colour=output_colour(info))
+                       input_pix_fmt=yuv, colour=output_colour(info), sar=info.sar)
     # A variable frame rate clip keeps its own frame times; a constant rate one is written
     # at its nominal rate, as before.
     times = None if constant_rate(motion.time_s, info.fps) else motion.time_s

@@ -179,6 +179,8 @@ class VideoInfo:
     #: not read)
     pix_fmt: str = ""
     colour: ColourTags = ColourTags()
+    #: sample (pixel) aspect ratio of the upright picture, width:height of one pixel
+    sar: tuple[int, int] = (1, 1)
 
     @property
     def has_audio(self) -> bool:
@@ -201,6 +203,9 @@ _TBN = re.compile(r"([\d.]+)(k?) tbn")
 # After the codec's name and its parenthesised details: ", yuv420p(tv, bt709, progressive), "
 _PIX_FMT = re.compile(r"^[^,]*, ([a-z0-9_]+)(?:\(([^()]*)\))?[,\s]")
 _ROTATION = re.compile(r"rotation of (-?[\d.]+) degrees")
+# "[SAR 32:27 DAR 16:9]" from the codec; a plain "SAR …" after it is the container's, which
+# players follow (ffmpeg prints it only when the two differ, or when the codec has none).
+_SAR = re.compile(r"\bSAR (\d+):(\d+) DAR")
 _DEMUXER = re.compile(r"Input #0, (\S+), from")
 _STILL_CODECS = {"png", "mjpeg", "bmp", "tiff", "webp", "gif", "jpegxl", "jpeg2000", "qoi"}
 
@@ -277,8 +282,11 @@ def probe(path: str | os.PathLike) -> VideoInfo:
     )
     rot = _ROTATION.search(text)
     rotation = float(rot.group(1)) if rot else 0.0
+    sars = [(int(a), int(b)) for a, b in _SAR.findall(rest) if int(a) > 0 and int(b) > 0]
+    sar = sars[-1] if sars else (1, 1)
     if round(abs(rotation)) % 180 == 90:
         width, height = height, width
+        sar = (sar[1], sar[0])
     audio = _AUDIO.search(text)
     tbn = _TBN.search(rest)
     time_base = int(float(tbn.group(1)) * (1000 if tbn.group(2) else 1)) if tbn else 0
@@ -288,7 +296,7 @@ def probe(path: str | os.PathLike) -> VideoInfo:
         duration_s=duration, frames_estimate=max(1, int(round(duration * fps))), codec=codec,
         rotation_deg=rotation, audio_codec=audio.group(1) if audio else None,
         time_base=time_base, pix_fmt=fmt.group(1) if fmt else "",
-        colour=parse_colour(fmt.group(2) or "") if fmt else ColourTags(),
+        colour=parse_colour(fmt.group(2) or "") if fmt else ColourTags(), sar=sar,
     )
 
 
@@ -673,7 +681,8 @@ class VideoWriter:
     format does not depend on it (:func:`output_pix_fmt`); feeding frames already in that
     format spares the encoder a conversion. ``colour`` tags the stream (:class:`ColourTags`,
     for instance :func:`output_colour` of the source); it describes the values fed, so it
-    suits planar YUV input carried through from a decoder, not RGB.
+    suits planar YUV input carried through from a decoder, not RGB. ``sar`` is the pixel
+    aspect ratio (width:height of one pixel) players are told, for non-square-pixel sources.
 
     ``fps`` is a number or an exact ratio string such as ``"30000/1001"``. Audio of
     ``audio_from`` is copied through unchanged when the container allows it. If the block raises,
@@ -701,13 +710,17 @@ class VideoWriter:
         time_base: int = 0,
         input_pix_fmt: str = "rgb24",
         colour: ColourTags | None = None,
+        sar: tuple[int, int] = (1, 1),
     ) -> None:
         if codec not in ENCODERS:
             raise StabilizeError(f"option --codec: {codec!r} is not one of {', '.join(ENCODERS)}")
         if input_pix_fmt != "rgb24" and input_pix_fmt not in YUV_FORMATS:
             raise ValueError(f"input_pix_fmt must be rgb24 or one of {', '.join(YUV_FORMATS)}")
         self.input_pix_fmt = input_pix_fmt
-        self._tag = colour.setparams_filter() if colour is not None else None
+        # Filters that only label the frames (colour, pixel shape) for the encoder.
+        tags = [colour.setparams_filter() if colour is not None else None,
+                f"setsar={int(sar[0])}/{int(sar[1])}" if tuple(sar) != (1, 1) else None]
+        self._tag = ",".join(t for t in tags if t) or None
         self.path = Path(path)
         self.width, self.height = int(width), int(height)
         self.fps = fps if isinstance(fps, str) else _fps_fraction(float(fps))

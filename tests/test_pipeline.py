@@ -92,22 +92,24 @@ def test_steady_keeps_audio_frames_fps_and_size(truss, tmp_path):
         "steadied.mp4", "truss pass.motion.csv", "truss pass.motion.json"]
 
 
-def test_steady_keeps_the_sources_colour_tags(truss, tmp_path):
+def test_steady_keeps_the_sources_colour_tags_and_pixel_shape(truss, tmp_path):
     # 10-bit HLG, as some drones record: the steadied copy (8-bit) must say how its values
     # are to be shown, or players take them for SDR BT.709 and the picture looks washed out.
     path, _ = truss
     hlg = tmp_path / "hlg.mp4"
     subprocess.run([ffmpeg_exe(), "-nostdin", "-loglevel", "error", "-i", str(path), "-vf",
                     "setparams=range=tv:colorspace=bt2020nc:color_primaries=bt2020:"
-                    "color_trc=arib-std-b67", "-c:v", "libx264", "-pix_fmt", "yuv420p10le",
+                    "color_trc=arib-std-b67,setsar=4/3", "-c:v", "libx264", "-pix_fmt",
+                    "yuv420p10le",
                     "-preset", "veryfast", "-crf", "12", "-c:a", "copy", str(hlg)],
                    check=True, capture_output=True)
     want = ColourTags("tv", "bt2020nc", "bt2020", "arib-std-b67")
     assert probe(hlg).colour == want
     out = tmp_path / "hlg.steady.mp4"
     stabilize.steady(hlg, out, compare=True)
-    assert probe(out).colour == want
-    assert probe(tmp_path / "hlg.steady.compare.mp4").colour == want
+    # Non-square pixels (here 4:3 wide) keep their shape too.
+    for video in (out, tmp_path / "hlg.steady.compare.mp4"):
+        assert (probe(video).colour, probe(video).sar) == (want, (4, 3))
 
 
 def test_steadied_video_is_steadier(truss, tmp_path):

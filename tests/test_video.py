@@ -219,7 +219,7 @@ def _ff_rgb(path):
 
 
 @pytest.mark.parametrize("times", [None, np.arange(5) / 25.0 + np.array([0, 0, 0.01, 0, 0])])
-def test_writer_tags_colour_without_touching_the_pixels(tmp_path, times):
+def test_writer_tags_colour_and_pixel_shape_without_touching_the_pixels(tmp_path, times):
     from stabilize.video import PlanarImage
 
     rng = np.random.default_rng(0)
@@ -227,15 +227,29 @@ def test_writer_tags_colour_without_touching_the_pixels(tmp_path, times):
                                          .tobytes()), "yuv420p", 64, 48) for _ in range(5)]
     tags = ColourTags("tv", "bt709", "bt2020", "arib-std-b67")
     decoded = {}
-    for name, colour in (("tagged", tags), ("untagged", None)):
+    for name, colour, sar in (("tagged", tags, (32, 27)), ("untagged", None, (1, 1))):
         out = tmp_path / f"{name}.mp4"
         with VideoWriter(out, 64, 48, 25.0, codec="ffv1", input_pix_fmt="yuv420p",
-                         colour=colour, times_s=times, time_base=12800) as w:
+                         colour=colour, sar=sar, times_s=times, time_base=12800) as w:
             for f in frames:
                 w.write(f)
         decoded[name] = [f.image.data.tobytes() for f in iter_frames(out, yuv="yuv420p")]
         assert probe(out).colour == (tags if colour else ColourTags())
+        assert probe(out).sar == sar
     assert decoded["tagged"] == decoded["untagged"]
     # ffv1 is stored as 4:4:4 here, so only the luma comes back bit for bit.
     luma = 64 * 48
     assert [d[:luma] for d in decoded["tagged"]] == [bytes(f.data)[:luma] for f in frames]
+
+
+def test_probe_reads_the_pixel_aspect_ratio_upright(tmp_path):
+    stored = tmp_path / "anamorphic.mp4"
+    _ff("-f", "lavfi", "-i", "testsrc2=s=72x48:d=0.2:r=25", "-vf", "setsar=32/27",
+        "-c:v", "libx264", str(stored))
+    assert probe(stored).sar == (32, 27)
+    flagged = tmp_path / "flagged.mp4"
+    _ff("-display_rotation", "90", "-i", str(stored), "-c", "copy", str(flagged))
+    info = probe(flagged)
+    # Read upright, a pixel is as tall as it was wide.
+    assert (info.width, info.height, info.sar) == (48, 72, (27, 32))
+    assert probe(_ff_rgb(tmp_path / "square.mp4")).sar == (1, 1)
