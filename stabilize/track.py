@@ -255,15 +255,11 @@ class Tracker:
         criteria = (cv2.TERM_CRITERIA_EPS | cv2.TERM_CRITERIA_COUNT, s.lk_iterations,
                     s.lk_epsilon)
         prev, cur = self._prev_pyr, self._pyr
-        if guess is not None:
-            dst, st, err = cv2.calcOpticalFlowPyrLK(
-                prev, cur, src, guess.copy(), winSize=(s.win_size, s.win_size),
-                maxLevel=levels, criteria=criteria, minEigThreshold=s.min_eig,
-                flags=cv2.OPTFLOW_USE_INITIAL_FLOW)
-        else:
-            dst, st, err = cv2.calcOpticalFlowPyrLK(
-                prev, cur, src, None, winSize=(s.win_size, s.win_size), maxLevel=levels,
-                criteria=criteria, minEigThreshold=s.min_eig)
+        dst, st, err = cv2.calcOpticalFlowPyrLK(
+            prev, cur, src, None if guess is None else guess.copy(),
+            winSize=(s.win_size, s.win_size), maxLevel=levels, criteria=criteria,
+            minEigThreshold=s.min_eig,
+            flags=0 if guess is None else cv2.OPTFLOW_USE_INITIAL_FLOW)
         # Tracking back from where each point landed, starting at its origin: a point that
         # does not return there slid or jumped. Started at the origin, the check needs no
         # coarser levels; it keeps the forward window, since on sharp patterns another
