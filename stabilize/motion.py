@@ -12,12 +12,15 @@ status ``failed``, so they never throw the path.
 from __future__ import annotations
 
 import dataclasses
+import math
+from collections import deque
 from collections.abc import Callable, Iterable
 from dataclasses import dataclass, field
 
-import cv2
 import numpy as np
 
+from . import anchors
+from .anchors import BaselineSettings, Grouping, hull_share
 from .config import Settings
 from .consensus import estimate
 from .cuts import (
@@ -53,11 +56,26 @@ BACKGROUND_HISTORY = 0.65
 # scipy.stats.chi2.ppf(0.95, 2)).
 TIGHT_K = 2.447
 
+# A second rigid group counts only when its motion over the baseline is at least this many
+# inlier thresholds away from the first (median over its tracks); this project's choice.
+SEPARATION = 2.0
+
+#: Why a frame is weak or failed, as logged in the ``reason`` column.
+REASONS = {
+    "foreground": "the motion could not be told apart from an object moving in front of the "
+                  "scene; the frame's motion is a stand-in from its neighbours",
+    "few_inliers": "few inliers, or inliers bunched in a small part of the frame",
+    "textureless": "too little texture to measure motion (plain sky, water, fog, blur)",
+    "no_fit": "no trustworthy motion fit",
+    "unmeasurable": "the frame is too small to track",
+}
+
 
 @dataclass
 class MotionTrack:
-    """Per-frame arrays of one analysis pass (see :class:`stabilize.log.MotionLog`), and what
-    was left out of tracking (``excluded``: full-resolution (x, y, w, h) rectangles)."""
+    """Per-frame arrays of one analysis pass (see :class:`stabilize.log.MotionLog`), what
+    was left out of tracking (``excluded``: full-resolution (x, y, w, h) rectangles), and why
+    a frame is weak or failed (``reason``: '' or a short code, see :data:`REASONS`)."""
 
     time_s: np.ndarray
     matrices: np.ndarray
@@ -68,6 +86,7 @@ class MotionTrack:
     rounds: np.ndarray
     status: np.ndarray
     excluded: dict[str, list[list[int]]] = field(default_factory=dict)
+    reason: np.ndarray | None = None
 
 
 @dataclass(frozen=True)
@@ -85,6 +104,7 @@ class FrameFit:
     ok: bool
     weak: bool
     tight: np.ndarray | None = None
+    ambiguous: bool = False
 
     @property
     def support(self) -> np.ndarray:
@@ -100,14 +120,6 @@ def transfer_error(m: np.ndarray, src: np.ndarray, dst: np.ndarray) -> np.ndarra
     """Distance (pixels) between ``m`` applied to ``src`` and ``dst``, per point."""
     h = np.c_[src, np.ones(len(src))] @ m.T
     return np.linalg.norm(h[:, :2] / h[:, 2:3] - dst, axis=1)
-
-
-def hull_share(pts: np.ndarray, frame_size: tuple[int, int]) -> float:
-    """Area of the convex hull of ``pts`` as a share of the frame area (0 to 1)."""
-    if len(pts) < 3:
-        return 0.0
-    hull = cv2.convexHull(pts.astype(np.float32).reshape(-1, 1, 2))
-    return float(cv2.contourArea(hull)) / float(frame_size[0] * frame_size[1])
 
 
 def _candidate(fit, src: np.ndarray, dst: np.ndarray, inlier_px: float) -> FrameFit | None:
@@ -237,6 +249,243 @@ def _noise_adaptive_refit(src: np.ndarray, dst: np.ndarray, fit: FrameFit, kw: d
                     tight_set)
 
 
+def warm_up_frames(keyframe_every: int) -> int:
+    """Frames a fresh analysis runs before a keyframe so that it takes over there with
+    tracks that have a history (about a sixteenth of the interval: 0.6 s of a 10-s one)."""
+    return max(2, keyframe_every // 16)
+
+
+def group_tracks(dst: np.ndarray, memo: np.ndarray, slot: int | None, background: np.ndarray,
+                 ages: np.ndarray, *, settings: Settings, base: BaselineSettings,
+                 seed: list[int], frame_size: tuple[int, int]) -> Grouping | None:
+    """Split the tracks into the scene and a rival rigid group by their motion over a
+    baseline of several frames (see :mod:`stabilize.anchors`).
+
+    The largest rigid group over the baseline and, among the rest, a second one are found by
+    consensus (the user's model and threshold). The scene is the group with the larger
+    score: the share of the frame its hull covers now, plus half its mean track age (older
+    tracks: objects turn, leave and are lost more often than the scene), plus half its
+    history of moving with the camera. Returns None when no baseline is at hand or no single
+    group could be found.
+    """
+    if slot is None:
+        return None
+    start = memo[:, 2 * slot:2 * slot + 2]
+    has = np.isfinite(start[:, 0])
+    if has.sum() < 2 * base.min_group:
+        return None
+    kw = dict(model=settings.model, inlier_px=settings.inlier_px,
+              confidence=settings.confidence, max_rounds=settings.max_rounds)
+    idx = np.flatnonzero(has)
+    first = estimate(start[has], dst[has], seed=[*seed, 20], **kw)
+    if not first.ok:
+        return None
+    a = np.zeros(len(dst), bool)
+    a[idx[first.inliers]] = True
+    rest = has & ~a
+    none = np.zeros(len(dst), bool)
+    spread_a = hull_share(dst[a], frame_size)
+    if rest.sum() < base.min_group:
+        return Grouping(a, none, spread_a, 0.0)
+    second = estimate(start[rest], dst[rest], seed=[*seed, 21], **kw)
+    if not second.ok or second.inliers.sum() < base.min_group:
+        return Grouping(a, none, spread_a, 0.0)
+    b = np.zeros(len(dst), bool)
+    b[np.flatnonzero(rest)[second.inliers]] = True
+    # Only a motion clearly apart from the first is a second group; one just past the
+    # threshold is the same scene seen through tracking noise or lens distortion.
+    apart = transfer_error(np.asarray(first.matrix, float), start[b], dst[b])
+    if float(np.median(apart)) < SEPARATION * settings.inlier_px:
+        return Grouping(a, none, spread_a, 0.0)
+    spread_b = hull_share(dst[b], frame_size)
+
+    def score(m: np.ndarray, spread: float) -> float:
+        return spread + 0.5 * float(ages[m].mean()) + 0.5 * float(background[m].mean())
+
+    if score(b, spread_b) > score(a, spread_a):
+        return Grouping(b, a, spread_b, spread_a)
+    return Grouping(a, b, spread_a, spread_b)
+
+
+@dataclass
+class _Record:
+    matrix: np.ndarray
+    diag: tuple[int, int, float, float, int]
+    status: str
+    reason: str = ""
+
+
+@dataclass
+class _Recent:
+    """A recent frame's pairs, kept for a baseline's time so its fit can be revised when
+    tracks it used turn out to have been moving on their own."""
+
+    index: int
+    time_s: float
+    src: np.ndarray
+    dst: np.ndarray
+    ids: np.ndarray
+    background: np.ndarray
+    used: np.ndarray
+    record: _Record
+
+
+class _Pass:
+    """The analysis state since its last (re)start: tracks, overlay evidence, the previous
+    motion, the texture reference and the baselines. :meth:`begin` takes the first frame;
+    :meth:`step` each next one."""
+
+    def __init__(self, ctx: dict) -> None:
+        self.ctx = ctx
+        self.tracker = Tracker(ctx["track_settings"], ctx["user_mask"])
+        self.overlays = OverlayFinder(ctx["analysis_size"])
+        self.prior: np.ndarray | None = None
+        self.texture_ref: float | None = None
+        self.steps = 0
+        self.prev_s = 0.0
+        self.started_at = 0
+        # Frames from this index on are this pass's own to revise (see _hindsight).
+        self.owned_from = 0
+        self.recent: deque[_Recent] = deque()
+        # Baseline slot times (seconds; NaN: not based yet) and the slot to re-base next.
+        self.slot_s = [math.nan, math.nan]
+
+    def begin(self, image: np.ndarray, time_s: float, index: int) -> None:
+        self.tracker.step(image)
+        self.prev_s = time_s
+        self.started_at = index
+        self.steps = 0
+
+    def _older_slot(self, now_s: float) -> int | None:
+        ready = [j for j in (0, 1) if math.isfinite(self.slot_s[j])]
+        if not ready:
+            return None
+        return min(ready, key=lambda j: self.slot_s[j])
+
+    def step(self, image: np.ndarray, time_s: float, index: int) -> _Record:
+        ctx = self.ctx
+        settings, scale, cuts_cfg = ctx["settings"], ctx["scale"], ctx["cuts"]
+        base: BaselineSettings = ctx["baseline"]
+        fw, fh = ctx["full_size"]
+        tracker = self.tracker
+        self.steps += 1
+        prev_s, self.prev_s = self.prev_s, time_s
+        predicted = None if self.prior is None else to_analysis(self.prior, scale)
+        pairs = tracker.step(image, predicted)
+        offered = tracker.live
+        strength = None
+        if self.steps % 15 == 1:
+            strength = corner_strength(image)
+            if self.texture_ref is None or not is_textureless(strength, self.texture_ref,
+                                                              cuts_cfg):
+                self.texture_ref = strength if self.texture_ref is None else (
+                    0.8 * self.texture_ref + 0.2 * strength)
+        if collapsed(len(pairs), offered, cuts_cfg):
+            response = None
+            if offered:
+                pairs, response = _restart_fast_motion(tracker, pairs)
+            if collapsed(len(pairs), offered, cuts_cfg) and is_cut(
+                    _frame_distance(tracker, cuts_cfg), response, cuts_cfg):
+                tracker.update(None)
+                tracker.reset()
+                self.prior = None
+                self.slot_s = [math.nan, math.nan]
+                return _Record(np.eye(3), (len(pairs), 0, 0.0, 0.0, 0), "cut")
+        if len(pairs) < 0.3 * tracker.settings.max_corners:
+            strength = corner_strength(image) if strength is None else strength
+            if is_textureless(strength, self.texture_ref, cuts_cfg):
+                tracker.update(None)
+                self.prior = None
+                return _Record(np.eye(3), (len(pairs), 0, 0.0, 0.0, 0), "failed",
+                               "textureless")
+        src = to_full_resolution(pairs.src, scale)
+        dst = to_full_resolution(pairs.dst, scale)
+        memo = anchors.first_seen(pairs.memo, prev_s)
+        seed = [settings.seed, index]
+        grouping = group_tracks(dst, memo, self._older_slot(time_s), pairs.background,
+                                anchors.age_share(memo, time_s, base), settings=settings,
+                                base=base, seed=seed, frame_size=(fw, fh))
+        # Tracks that moved on their own, now or lately, do not speak for the camera.
+        suspect = ~anchors.trust(memo, time_s, base)
+        if grouping is not None:
+            suspect |= grouping.moved
+        use = ~suspect
+        ambiguous = False
+        if suspect.any() and (use.sum() < base.min_group
+                              or hull_share(dst[use], (fw, fh)) < 0.02):
+            # What is left is too little to be the scene: camera and object cannot be told
+            # apart on this frame.
+            ambiguous = grouping is not None and grouping.split
+            use = np.ones(len(dst), bool)
+        fit = fit_frame(src[use], dst[use], pairs.background[use], settings=settings,
+                        seed=seed, prior=self.prior, frame_size=(fw, fh))
+        support = np.zeros(len(dst), bool)
+        support[np.flatnonzero(use)[fit.support]] = True
+        n_in = int(np.count_nonzero(transfer_error(fit.matrix, src, dst) < settings.inlier_px)
+                   ) if fit.ok else 0
+        d = (len(src), n_in, n_in / len(src) if len(src) else 0.0,
+             fit.rms_px if fit.ok else 0.0, fit.rounds)
+        if grouping is not None and grouping.split:
+            memo = anchors.strike(memo, grouping.moved, time_s)
+            self._hindsight(pairs.ids[grouping.moved], time_s)
+        # Re-base a baseline slot every half baseline: the older one goes.
+        half = 0.5 * base.baseline_s
+        newest = max((s for s in self.slot_s if math.isfinite(s)), default=-math.inf)
+        if time_s - newest >= half or not math.isfinite(newest):
+            old = self._older_slot(time_s)
+            slot = old
+            if old is None:
+                slot = 0
+            elif not math.isfinite(self.slot_s[1 - old]):
+                slot = 1 - old
+            memo = anchors.rebase(memo, slot, dst)
+            self.slot_s[slot] = time_s
+        if not fit.ok:
+            self.prior = None
+            tracker.update(None, memo)
+            return _Record(fit.matrix, d, "failed", "no_fit")
+        if ambiguous:
+            tracker.update(None, memo)
+            return _Record(fit.matrix, d, "weak", "foreground")
+        self.prior = fit.matrix
+        tracker.update(support, memo)
+        if self.overlays.observe(pairs.src, pairs.dst, to_analysis(fit.matrix, scale)):
+            tracker.set_mask(self.overlays.mask(ctx["user_mask"]))
+        record = _Record(fit.matrix, d, "weak" if fit.weak else "ok",
+                         "few_inliers" if fit.weak else "")
+        self.recent.append(_Recent(index, time_s, src, dst, pairs.ids, pairs.background,
+                                   use, record))
+        while self.recent and self.recent[0].time_s < time_s - base.baseline_s:
+            self.recent.popleft()
+        return record
+
+    def _hindsight(self, moved_ids: np.ndarray, now_s: float) -> None:
+        """Fit again the recent frames that used tracks now found to move on their own.
+
+        An object that starts to move drags the first frames' fits a little before its
+        motion over the baseline gives it away; those frames are refitted without it.
+        """
+        ctx = self.ctx
+        base: BaselineSettings = ctx["baseline"]
+        fw, fh = ctx["full_size"]
+        settings = ctx["settings"]
+        for r in self.recent:
+            if r.index < self.owned_from or r.record.status != "ok":
+                continue
+            hit = r.used & np.isin(r.ids, moved_ids)
+            if not hit.any():
+                continue
+            keep = r.used & ~hit
+            if keep.sum() < base.min_group or hull_share(r.dst[keep], (fw, fh)) < 0.02:
+                continue
+            fit = fit_frame(r.src[keep], r.dst[keep], r.background[keep], settings=settings,
+                            seed=[settings.seed, r.index, 1], prior=r.record.matrix,
+                            frame_size=(fw, fh))
+            if fit.ok and not fit.weak:
+                r.record.matrix = fit.matrix
+                r.used = keep
+
+
 def analyse(
     frames: Iterable[Frame],
     *,
@@ -262,118 +511,83 @@ def analyse(
         ``[seed, first_index + t]``, so a segment of a clip draws what a single pass draws.
     keyframe_every : restart every ``keyframe_every`` frames of the clip (at indices that are
         multiples of it): tracks, track history, overlay evidence, the prior and the texture
-        reference start afresh, exactly as if a new analysis began at the frame before the
-        keyframe. A segment that starts one frame before a keyframe then reproduces a single
-        pass exactly (see :mod:`stabilize.segments`). None: never restart.
+        reference start afresh, exactly as if a new analysis began :func:`warm_up_frames`
+        frames before the frame before the keyframe (a second analysis runs alongside over
+        those frames, and takes over at the keyframe). A segment that starts that many
+        frames before a keyframe then reproduces a single pass exactly (see
+        :mod:`stabilize.segments`). None: never restart.
     """
     fw, fh = full_size
     aw, ah = analysis_size
     scale = (aw / fw, ah / fh)
-    cuts_cfg = cut_settings or CutSettings()
     user_mask = ignore_mask(analysis_size, settings.ignore, scale)
-    tracker = Tracker(track_settings, user_mask)
-    overlays = OverlayFinder(analysis_size)
+    ctx = dict(settings=settings, scale=scale, cuts=cut_settings or CutSettings(),
+               baseline=BaselineSettings(), full_size=full_size, analysis_size=analysis_size,
+               track_settings=track_settings, user_mask=user_mask)
     can_track = measurable(fw, fh) and measurable(aw, ah)
+    warm = warm_up_frames(keyframe_every) if keyframe_every else 0
+    main = _Pass(ctx)
+    shadow: _Pass | None = None
     times: list[float] = []
-    mats: list[np.ndarray] = []
-    diag: list[tuple[int, int, float, float, int]] = []
-    status: list[str] = []
-    prior: np.ndarray | None = None
-    texture_ref: float | None = None
-    origin = 0  # local index of the frame the current state started from
+    records: list[_Record] = []
     overlay_regions: list[list[int]] = []
+    last: np.ndarray | None = None
     # Decoding keeps a few frames ahead while this frame is tracked and fitted.
     for frame in read_ahead(frames):
         t = len(times)
         g = first_index + t
-        if keyframe_every and t > 0 and g % keyframe_every == 0 and can_track:
-            # As a fresh analysis whose first frame is the previous one (still in the tracker).
-            overlay_regions += overlays.regions(scale)
-            last = tracker.frames[1]
-            tracker = Tracker(track_settings, user_mask)
-            tracker.step(last)
-            overlays = OverlayFinder(analysis_size)
-            prior = None
-            texture_ref = None
-            origin = t - 1
+        if keyframe_every and t > 0 and can_track:
+            if (g + warm) % keyframe_every == 0 and main.started_at != g - 1:
+                shadow = _Pass(ctx)
+                shadow.begin(last, times[-1], g - 1)
+            if g % keyframe_every == 0 and main.started_at != g - warm - 1:
+                overlay_regions += main.overlays.regions(scale)
+                if shadow is None:
+                    shadow = _Pass(ctx)
+                    shadow.begin(last, times[-1], g - 1)
+                main, shadow = shadow, None
+            if g % keyframe_every == 0:
+                main.owned_from = g
         times.append(frame.time_s)
         if not can_track or t == 0:
-            mats.append(np.eye(3))
-            diag.append((0, 0, 0.0, 0.0, 0))
-            status.append("ok" if can_track else "failed")
             if can_track:
-                tracker.step(frame.image)
-            if on_frame:
-                on_frame(1)
-            continue
-        predicted = None if prior is None else to_analysis(prior, scale)
-        pairs = tracker.step(frame.image, predicted)
-        offered = tracker.live
-        strength = None
-        if (t - origin) % 15 == 1:
-            strength = corner_strength(frame.image)
-            if texture_ref is None or not is_textureless(strength, texture_ref, cuts_cfg):
-                texture_ref = strength if texture_ref is None else (
-                    0.8 * texture_ref + 0.2 * strength)
-        if collapsed(len(pairs), offered, cuts_cfg):
-            response = None
-            if offered:
-                pairs, response = _restart_fast_motion(tracker, pairs)
-            if collapsed(len(pairs), offered, cuts_cfg) and is_cut(
-                    _frame_distance(tracker, cuts_cfg), response, cuts_cfg):
-                mats.append(np.eye(3))
-                diag.append((len(pairs), 0, 0.0, 0.0, 0))
-                status.append("cut")
-                tracker.update(None)
-                tracker.reset()
-                prior = None
-                if on_frame:
-                    on_frame(1)
-                continue
-        if len(pairs) < 0.3 * tracker.settings.max_corners:
-            strength = corner_strength(frame.image) if strength is None else strength
-            if is_textureless(strength, texture_ref, cuts_cfg):
-                mats.append(np.eye(3))
-                diag.append((len(pairs), 0, 0.0, 0.0, 0))
-                status.append("failed")
-                tracker.update(None)
-                prior = None
-                if on_frame:
-                    on_frame(1)
-                continue
-        src = to_full_resolution(pairs.src, scale)
-        dst = to_full_resolution(pairs.dst, scale)
-        fit = fit_frame(src, dst, pairs.background, settings=settings,
-                        seed=[settings.seed, g], prior=prior, frame_size=(fw, fh))
-        n_in = int(np.count_nonzero(fit.inliers))
-        mats.append(fit.matrix)
-        diag.append((len(src), n_in, n_in / len(src) if len(src) else 0.0,
-                     fit.rms_px if fit.ok else 0.0, fit.rounds))
-        if fit.ok:
-            status.append("weak" if fit.weak else "ok")
-            prior = fit.matrix
-            tracker.update(fit.support)
-            if overlays.observe(pairs.src, pairs.dst, to_analysis(fit.matrix, scale)):
-                tracker.set_mask(overlays.mask(user_mask))
+                main.begin(frame.image, frame.time_s, g)
+            records.append(_Record(np.eye(3), (0, 0, 0.0, 0.0, 0),
+                                   "ok" if can_track else "failed",
+                                   "" if can_track else "unmeasurable"))
         else:
-            status.append("failed")
-            prior = None
-            tracker.update(None)
+            records.append(main.step(frame.image, frame.time_s, g))
+            if shadow is not None:
+                shadow.step(frame.image, frame.time_s, g)
+        last = frame.image
         if on_frame:
             on_frame(1)
     n = len(times)
-    d = np.array(diag, dtype=np.float64).reshape(n, 5)
+    d = np.array([r.diag for r in records], dtype=np.float64).reshape(n, 5)
+    why = np.array([r.reason for r in records], dtype="<U12")
+    status = np.array([r.status for r in records], dtype="<U6")
     track = MotionTrack(
         time_s=np.array(times, dtype=np.float64),
-        matrices=np.array(mats, dtype=np.float64).reshape(n, 3, 3),
+        matrices=np.array([r.matrix for r in records], dtype=np.float64).reshape(n, 3, 3),
         tracked=d[:, 0].astype(int), inliers=d[:, 1].astype(int), inlier_ratio=d[:, 2],
-        rms_px=d[:, 3], rounds=d[:, 4].astype(int), status=np.array(status, dtype="<U6"),
+        rms_px=d[:, 3], rounds=d[:, 4].astype(int), status=status,
         excluded={"ignore": [list(r) for r in settings.ignore],
                   "static_overlay": _unique_regions(overlay_regions
-                                                    + overlays.regions(scale))},
+                                                    + main.overlays.regions(scale))},
+        reason=why,
     )
-    track.matrices = fill_failed(track.matrices, track.status, full_size)
+    track.matrices = fill_failed(track.matrices, track.status, full_size,
+                                 stand_in=stand_ins(track.status, why))
     return track
+
+
+def stand_ins(status: np.ndarray, reason: np.ndarray | None) -> np.ndarray:
+    """Frames whose logged motion is a stand-in: failed ones, and weak ones whose motion
+    could not be told apart from an object's."""
+    out = status == "failed"
+    if reason is not None:
+        out = out | (reason == "foreground")
+    return out
 
 
 def _unique_regions(regions: list[list[int]]) -> list[list[int]]:
@@ -406,11 +620,12 @@ def _restart_fast_motion(tracker: Tracker, pairs: Pairs) -> tuple[Pairs, float]:
     return tracker.retry(None), response
 
 
-def fill_failed(matrices: np.ndarray, status: np.ndarray,
-                size: tuple[int, int]) -> np.ndarray:
-    """Stand-ins for failed frames: the similarity motion interpolated linearly between the
-    nearest trustworthy neighbours (or the identity with none), never a wild jump."""
-    failed = status == "failed"
+def fill_failed(matrices: np.ndarray, status: np.ndarray, size: tuple[int, int],
+                stand_in: np.ndarray | None = None) -> np.ndarray:
+    """Stand-ins for failed frames (or the frames marked in ``stand_in``): the similarity
+    motion interpolated linearly between the nearest trustworthy neighbours (or the identity
+    with none), never a wild jump."""
+    failed = (status == "failed") if stand_in is None else np.array(stand_in, bool)
     failed[0] = False
     if not failed.any():
         return matrices

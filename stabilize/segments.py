@@ -5,9 +5,12 @@ moving with the camera, static-overlay evidence, the previous frame's motion as 
 texture reference), so a segment started in the middle of a clip would not see what a single
 pass saw there. The scheme that makes segments exact: the analysis restarts that state at
 fixed *keyframes*, every ``keyframe_every`` frames counted from frame 0, exactly as if a new
-analysis began at the frame before each keyframe. The motion from frame k−1 to keyframe k is
-therefore still measured (the frame before a keyframe is the overlap at the join), and every
-keyframe interval depends on its own frames only. Any grouping of intervals into segments,
+analysis began a short lead-in before each keyframe (:func:`stabilize.motion.warm_up_frames`
+frames before the frame before it, so that its tracks arrive with a history of what moved
+with the scene). A single pass runs that second analysis alongside over the lead-in and hands
+over at the keyframe; a segment simply starts there and drops the lead-in's frames. The
+motion from frame k−1 to keyframe k is still measured, and every keyframe interval depends on
+its own frames and its lead-in only. Any grouping of intervals into segments,
 analysed in any order on any worker, gives the same log; so does one process going through
 them in turn.
 
@@ -41,7 +44,7 @@ import numpy as np
 
 from .config import Settings
 from .errors import StabilizeError
-from .motion import MotionTrack, analyse, fill_failed
+from .motion import MotionTrack, analyse, fill_failed, stand_ins, warm_up_frames
 from .video import VideoInfo, iter_frame_range
 
 #: Keyframe spacing in seconds of nominal frame rate. Each restart costs what the first frames
@@ -128,7 +131,7 @@ def opencv_threads(count: int | None) -> Iterator[None]:
 def _analyse_range(task: SegmentTask, on_frame: Callable[[int], None] | None,
                    decode_threads: int | None) -> SegmentResult:
     info = task.info
-    read_from = max(0, task.start - 1)
+    read_from = lead_in_start(task.start, task.keyframe_every)
     frames = iter_frame_range(task.clip, read_from, task.stop, size=task.analysis_size,
                               gray=True, info=info, decode_threads=decode_threads)
     common = dict(full_size=(info.width, info.height), analysis_size=task.analysis_size,
@@ -138,8 +141,8 @@ def _analyse_range(task: SegmentTask, on_frame: Callable[[int], None] | None,
     try:
         track = analyse(frames, on_frame=on_frame, keyframe_every=task.keyframe_every,
                         first_index=read_from, **common)
-        if task.start > 0 and len(track.time_s):
-            track = _drop_first(track)
+        if task.start > read_from and len(track.time_s):
+            track = _drop_first(track, task.start - read_from)
         parts.append(track)
         regions += track.excluded.get("static_overlay", [])
     finally:
@@ -147,12 +150,23 @@ def _analyse_range(task: SegmentTask, on_frame: Callable[[int], None] | None,
     return SegmentResult(task.start, _concat(parts, task.settings), _unique(regions))
 
 
-def _drop_first(track: MotionTrack) -> MotionTrack:
-    return MotionTrack(time_s=track.time_s[1:], matrices=track.matrices[1:],
-                       tracked=track.tracked[1:], inliers=track.inliers[1:],
-                       inlier_ratio=track.inlier_ratio[1:], rms_px=track.rms_px[1:],
-                       rounds=track.rounds[1:], status=track.status[1:],
-                       excluded=track.excluded)
+def lead_in_start(start: int, keyframe_every: int) -> int:
+    """First frame a run starting at keyframe ``start`` reads: the analysis starts
+    :func:`~stabilize.motion.warm_up_frames` frames before the frame before the keyframe,
+    as a single pass's second analysis does, and its frames before ``start`` are dropped."""
+    if start <= 0:
+        return 0
+    return max(0, start - 1 - warm_up_frames(keyframe_every))
+
+
+def _drop_first(track: MotionTrack, count: int) -> MotionTrack:
+    k = count
+    return MotionTrack(time_s=track.time_s[k:], matrices=track.matrices[k:],
+                       tracked=track.tracked[k:], inliers=track.inliers[k:],
+                       inlier_ratio=track.inlier_ratio[k:], rms_px=track.rms_px[k:],
+                       rounds=track.rounds[k:], status=track.status[k:],
+                       excluded=track.excluded,
+                       reason=None if track.reason is None else track.reason[k:])
 
 
 def _concat(parts: list[MotionTrack], settings: Settings) -> MotionTrack:
@@ -166,6 +180,9 @@ def _concat(parts: list[MotionTrack], settings: Settings) -> MotionTrack:
         inlier_ratio=cat("inlier_ratio", np.empty(0)), rms_px=cat("rms_px", np.empty(0)),
         rounds=cat("rounds", np.empty(0, int)), status=cat("status", np.empty(0, "<U6")),
         excluded={"ignore": [list(r) for r in settings.ignore]},
+        reason=np.concatenate([p.reason if p.reason is not None
+                               else np.full(len(p.status), "", "<U12") for p in parts])
+        if parts else np.empty(0, "<U12"),
     )
 
 
@@ -242,9 +259,9 @@ def analyse_segments(clip: str | os.PathLike, info: VideoInfo, analysis_size: tu
 
 
 def _analyse_in_worker(task: SegmentTask) -> SegmentResult:
-    # A run after the first re-reads the frame before it (the overlap), which it does not
+    # A run after the first re-reads the frames before it (the lead-in), which it does not
     # keep and so does not count.
-    counter = _ProgressCounter(skip=1 if task.start > 0 else 0)
+    counter = _ProgressCounter(skip=task.start - lead_in_start(task.start, task.keyframe_every))
     try:
         return analyse_range(task, counter, single_thread=True)
     finally:
@@ -270,7 +287,8 @@ def merge(results: list[SegmentResult], settings: Settings,
     track = _concat(kept, settings)
     track.excluded["static_overlay"] = _unique(reg for r in results for reg in r.overlays)
     if len(track.status):
-        track.matrices = fill_failed(track.matrices, track.status, full_size)
+        track.matrices = fill_failed(track.matrices, track.status, full_size,
+                                     stand_in=stand_ins(track.status, track.reason))
     return track
 
 

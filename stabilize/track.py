@@ -140,21 +140,29 @@ class Pairs:
     """Correspondences between the previous frame and this one, analysis pixels.
 
     ``src``, ``dst`` (k, 2); ``ids`` (k,) track identities; ``background`` (k,) the track's
-    history of moving with the camera (1 = always did, 0 = never, 0.5 = new).
+    history of moving with the camera (1 = always did, 0 = never, 0.5 = new); ``memo``
+    (k, MEMO_WIDTH) what the caller last stored for each track with :meth:`Tracker.update`
+    (NaN for a track it has not seen yet).
     """
 
     src: np.ndarray
     dst: np.ndarray
     ids: np.ndarray
     background: np.ndarray
+    memo: np.ndarray
 
     def __len__(self) -> int:
         return len(self.src)
 
 
+#: Columns of the per-track record a caller may keep in the tracker (see :class:`Pairs`).
+MEMO_WIDTH = 6
+
+
 def _empty_pairs() -> Pairs:
     z = np.empty((0, 2))
-    return Pairs(z, z.copy(), np.empty(0, np.int64), np.empty(0))
+    return Pairs(z, z.copy(), np.empty(0, np.int64), np.empty(0),
+                 np.empty((0, MEMO_WIDTH)))
 
 
 class Tracker:
@@ -175,6 +183,7 @@ class Tracker:
         self._pts = np.empty((0, 2), np.float32)
         self._ids = np.empty(0, np.int64)
         self._bg = np.empty(0)
+        self._memo = np.empty((0, MEMO_WIDTH))
         self._next_id = 0
         self._pending: tuple[np.ndarray, np.ndarray] | None = None
         self._had_cells: np.ndarray | None = None
@@ -187,6 +196,7 @@ class Tracker:
         self._pts = np.empty((0, 2), np.float32)
         self._ids = np.empty(0, np.int64)
         self._bg = np.empty(0)
+        self._memo = np.empty((0, MEMO_WIDTH))
         self._had_cells = None
         self._reached = 0
         self._since_detect = 0
@@ -199,6 +209,7 @@ class Tracker:
             yi = np.clip(np.rint(self._pts[:, 1]).astype(int), 0, mask.shape[0] - 1)
             keep = mask[yi, xi] > 0
             self._pts, self._ids, self._bg = self._pts[keep], self._ids[keep], self._bg[keep]
+            self._memo = self._memo[keep]
 
     def step(self, gray: np.ndarray, predicted: np.ndarray | None = None) -> Pairs:
         """Track the live corners of the previous frame into ``gray``.
@@ -245,7 +256,7 @@ class Tracker:
                 dst, keep, _ = again
         self._pending = (dst, keep)
         return Pairs(src[keep].astype(np.float64), dst[keep].astype(np.float64),
-                     self._ids[keep], self._bg[keep])
+                     self._ids[keep], self._bg[keep], self._memo[keep].copy())
 
     def _flow(self, src: np.ndarray, guess: np.ndarray | None,
               levels: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -291,10 +302,13 @@ class Tracker:
         """The previous and current analysis frames."""
         return self._prev_gray, self._gray
 
-    def update(self, moved_with_camera: np.ndarray | None) -> None:
+    def update(self, moved_with_camera: np.ndarray | None,
+               memo: np.ndarray | None = None) -> None:
         """Advance the tracks to this frame, with which kept pairs fitted the camera motion.
 
         ``None`` means the fit was not trustworthy: histories are left as they are.
+        ``memo`` (k, MEMO_WIDTH), one row per kept pair, replaces what the caller keeps for
+        those tracks (returned as :attr:`Pairs.memo` next time); None leaves it as it was.
         """
         if self._pending is None:
             return
@@ -306,6 +320,7 @@ class Tracker:
         self._pts = dst[keep]
         self._ids = self._ids[keep]
         self._bg = bg
+        self._memo = self._memo[keep] if memo is None else np.asarray(memo, np.float64)
 
     def _reseed(self, gray: np.ndarray) -> None:
         """Add corners where tracks have thinned out (few overall, or cells emptied)."""
@@ -340,6 +355,7 @@ class Tracker:
             self._pts = np.concatenate([self._pts, new]).astype(np.float32)
             self._ids = np.concatenate([self._ids, self._next_id + np.arange(len(new))])
             self._bg = np.concatenate([self._bg, np.full(len(new), 0.5)])
+            self._memo = np.concatenate([self._memo, np.full((len(new), MEMO_WIDTH), np.nan)])
             self._next_id += len(new)
         counts = np.bincount(cell_index(self._pts, (w, h), s.grid), minlength=n_cells)
         self._had_cells = counts > 0
