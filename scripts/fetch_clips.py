@@ -362,7 +362,7 @@ def _write_licence_index(cache: Path) -> None:
     for c in CLIPS:
         lines += [f"{c.name}  sha256 {c.sha256}",
                   f"  from {labels[c.source]}: {c.member}",
-                  f"  licence record: {records[c.source]}",
+                  f"  licence record: {records.get(c.source, 'none')}",
                   f"  licence: {c.licence}", ""]
     data = "\n".join(lines).encode()
     dest = cache / "LICENCES"
