@@ -17,6 +17,7 @@ from collections import deque
 from collections.abc import Callable, Iterable
 from dataclasses import dataclass, field
 
+import cv2
 import numpy as np
 
 from . import anchors
@@ -57,8 +58,10 @@ BACKGROUND_HISTORY = 0.65
 TIGHT_K = 2.447
 
 # A second rigid group counts only when its motion over the baseline is at least this many
-# inlier thresholds away from the first (median over its tracks); this project's choice.
+# grouping thresholds away from the first (median over its tracks); this project's choice.
 SEPARATION = 2.0
+# The grouping's consensus threshold, as a share of the user's inlier threshold.
+GROUP_SHARE = 0.5
 
 #: Why a frame is weak or failed, as logged in the ``reason`` column.
 REASONS = {
@@ -274,12 +277,30 @@ def group_tracks(dst: np.ndarray, memo: np.ndarray, slot: int | None, background
     has = np.isfinite(start[:, 0])
     if has.sum() < 2 * base.min_group:
         return None
-    kw = dict(model=settings.model, inlier_px=settings.inlier_px,
-              confidence=settings.confidence, max_rounds=settings.max_rounds)
     idx = np.flatnonzero(has)
-    first = estimate(start[has], dst[has], seed=[*seed, 20], **kw)
+    kw = dict(model=settings.model, confidence=settings.confidence,
+              max_rounds=settings.max_rounds)
+    first = estimate(start[has], dst[has], seed=[*seed, 20], inlier_px=settings.inlier_px,
+                     **kw)
     if not first.ok:
         return None
+    # Over a baseline of a few frames the scene's tracks agree to well within the per-frame
+    # threshold on sharp footage, so the groups are split at a threshold set by the scene's
+    # own spread (twice the tight threshold of the noise-adaptive refit), between
+    # GROUP_SHARE of the user's threshold and all of it: a slow object parts from the scene
+    # sooner, and small noisy frames do not fall apart into groups.
+    err = transfer_error(np.asarray(first.matrix, float), start[has], dst[has])
+    # The lower quartile: a compromise between two groups inflates the median. For 2-D
+    # Gaussian errors the quartile distance is sqrt(2 ln(4/3)) σ = 0.7585 σ.
+    sigma = float(np.percentile(err[first.inliers], 25)) / 0.7585
+    group_px = min(settings.inlier_px, max(GROUP_SHARE * settings.inlier_px,
+                                           2.0 * TIGHT_K * sigma))
+    if group_px < settings.inlier_px:
+        again = estimate(start[has], dst[has], seed=[*seed, 22], inlier_px=group_px,
+                         prior=first.matrix, **kw)
+        if again.ok:
+            first = again
+    kw["inlier_px"] = group_px
     a = np.zeros(len(dst), bool)
     a[idx[first.inliers]] = True
     rest = has & ~a
@@ -295,7 +316,7 @@ def group_tracks(dst: np.ndarray, memo: np.ndarray, slot: int | None, background
     # Only a motion clearly apart from the first is a second group; one just past the
     # threshold is the same scene seen through tracking noise or lens distortion.
     apart = transfer_error(np.asarray(first.matrix, float), start[b], dst[b])
-    if float(np.median(apart)) < SEPARATION * settings.inlier_px:
+    if float(np.median(apart)) < SEPARATION * group_px:
         return Grouping(a, none, spread_a, 0.0)
     spread_b = hull_share(dst[b], frame_size)
 
@@ -305,6 +326,29 @@ def group_tracks(dst: np.ndarray, memo: np.ndarray, slot: int | None, background
     if score(b, spread_b) > score(a, spread_a):
         return Grouping(b, a, spread_b, spread_a)
     return Grouping(a, b, spread_a, spread_b)
+
+
+#: Cell size (full-resolution pixels) of the coarse mask of where a moving group was.
+MASK_CELL_PX = 8
+
+
+def object_mask(pts: np.ndarray, frame_size: tuple[int, int]) -> np.ndarray:
+    """Coarse uint8 mask (cells of :data:`MASK_CELL_PX`) of the convex hull of ``pts``
+    (full-resolution pixels), grown by one cell."""
+    w, h = frame_size
+    mask = np.zeros((h // MASK_CELL_PX + 1, w // MASK_CELL_PX + 1), np.uint8)
+    if len(pts) >= 3:
+        hull = cv2.convexHull(np.rint(pts / MASK_CELL_PX).astype(np.int32).reshape(-1, 1, 2))
+        cv2.fillConvexPoly(mask, hull, 1)
+        mask = cv2.dilate(mask, np.ones((3, 3), np.uint8))
+    return mask
+
+
+def in_mask(mask: np.ndarray, pts: np.ndarray) -> np.ndarray:
+    """Whether each point (k, 2) full-resolution pixels falls in a cell set in ``mask``."""
+    xi = np.clip((pts[:, 0] / MASK_CELL_PX).astype(int), 0, mask.shape[1] - 1)
+    yi = np.clip((pts[:, 1] / MASK_CELL_PX).astype(int), 0, mask.shape[0] - 1)
+    return mask[yi, xi] > 0
 
 
 @dataclass
@@ -427,7 +471,10 @@ class _Pass:
              fit.rms_px if fit.ok else 0.0, fit.rounds)
         if grouping is not None and grouping.split:
             memo = anchors.strike(memo, grouping.moved, time_s)
-            self._hindsight(pairs.ids[grouping.moved], time_s)
+            slot = self._older_slot(time_s)
+            then = memo[grouping.moved, 2 * slot:2 * slot + 2]
+            where = np.concatenate([dst[grouping.moved], then[np.isfinite(then[:, 0])]])
+            self._hindsight(pairs.ids[grouping.moved], object_mask(where, (fw, fh)))
         # Re-base a baseline slot every half baseline: the older one goes.
         half = 0.5 * base.baseline_s
         newest = max((s for s in self.slot_s if math.isfinite(s)), default=-math.inf)
@@ -455,12 +502,14 @@ class _Pass:
                          "few_inliers" if fit.weak else "")
         self.recent.append(_Recent(index, time_s, src, dst, pairs.ids, pairs.background,
                                    use, record))
-        while self.recent and self.recent[0].time_s < time_s - base.baseline_s:
+        while self.recent and self.recent[0].time_s < time_s - 2.0 * base.baseline_s:
             self.recent.popleft()
         return record
 
-    def _hindsight(self, moved_ids: np.ndarray, now_s: float) -> None:
-        """Fit again the recent frames that used tracks now found to move on their own.
+    def _hindsight(self, moved_ids: np.ndarray, region: np.ndarray) -> None:
+        """Fit again the recent frames that used tracks now found to move on their own, or
+        tracks inside the region the moving group covered (``region``, from
+        :func:`object_mask`: tracks on an object are lost and found again under new names).
 
         An object that starts to move drags the first frames' fits a little before its
         motion over the baseline gives it away; those frames are refitted without it.
@@ -472,7 +521,7 @@ class _Pass:
         for r in self.recent:
             if r.index < self.owned_from or r.record.status != "ok":
                 continue
-            hit = r.used & np.isin(r.ids, moved_ids)
+            hit = r.used & (np.isin(r.ids, moved_ids) | in_mask(region, r.dst))
             if not hit.any():
                 continue
             keep = r.used & ~hit
