@@ -62,6 +62,10 @@ TIGHT_K = 2.447
 SEPARATION = 2.0
 # The grouping's consensus threshold, as a share of the user's inlier threshold.
 GROUP_SHARE = 0.5
+# A revised fit replaces the first one only when they differ by more than this much at the
+# frame's corners (full-resolution pixels): below it the revision is noise, and it was
+# fitted on fewer tracks. This project's choice.
+REVISE_PX = 0.05
 
 #: Why a frame is weak or failed, as logged in the ``reason`` column.
 REASONS = {
@@ -332,6 +336,19 @@ def group_tracks(dst: np.ndarray, memo: np.ndarray, slot: int | None, background
 MASK_CELL_PX = 8
 
 
+def corner_shift(a: np.ndarray, b: np.ndarray, frame_size: tuple[int, int]) -> float:
+    """Largest distance (pixels) between where two 3×3 motions put the frame's corners."""
+    w, h = frame_size
+    corners = np.array([[0.0, 0.0], [w - 1.0, 0.0], [0.0, h - 1.0], [w - 1.0, h - 1.0]])
+    return float(np.max(transfer_error(a, corners, anchors_project(b, corners))))
+
+
+def anchors_project(m: np.ndarray, pts: np.ndarray) -> np.ndarray:
+    """Apply a 3×3 transform to points (k, 2)."""
+    h = np.c_[pts, np.ones(len(pts))] @ m.T
+    return h[:, :2] / h[:, 2:3]
+
+
 def object_mask(pts: np.ndarray, frame_size: tuple[int, int]) -> np.ndarray:
     """Coarse uint8 mask (cells of :data:`MASK_CELL_PX`) of the convex hull of ``pts``
     (full-resolution pixels), grown by one cell."""
@@ -530,7 +547,8 @@ class _Pass:
             fit = fit_frame(r.src[keep], r.dst[keep], r.background[keep], settings=settings,
                             seed=[settings.seed, r.index, 1], prior=r.record.matrix,
                             frame_size=(fw, fh))
-            if fit.ok and not fit.weak:
+            if fit.ok and not fit.weak and corner_shift(fit.matrix, r.record.matrix,
+                                                         (fw, fh)) > REVISE_PX:
                 r.record.matrix = fit.matrix
                 r.used = keep
 
