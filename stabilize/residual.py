@@ -77,8 +77,8 @@ class CheckSettings:
     max_corners: int = 120
     min_corners: int = 40
     redetect_frames: int = 10
-    quality: float = 0.01
-    min_distance_px: float = 10.0
+    quality: float = 0.003
+    min_distance_px: float = 6.0
     block_px: int = 5
     win_px: int = 15
     levels: int = 3
@@ -86,7 +86,7 @@ class CheckSettings:
     edge_px: float = 6.0
     inlier_px: float = 0.5
     max_rounds: int = 300
-    min_inliers: int = 12
+    min_inliers: int = 8
 
 
 @dataclass(frozen=True)
@@ -162,9 +162,9 @@ def reduce_luma(luma: np.ndarray, min_width_px: int) -> tuple[np.ndarray, tuple[
     The last w mod k columns and h mod k rows are left out, so every reduced pixel averages
     one whole block. The averaging is done as repeated halvings with bilinear resizing at
     exactly half the size, which samples midway between each pair of pixels: a 2 × 2 mean
-    per step, and in all a k × k mean within one grey level (two roundings), a tenth of the
-    time of OpenCV's area resizing by 4 at 1080p (measured). Returns the reduced copy and
-    the scale (1/k, 1/k) from full resolution to it, as
+    per step, and in all a k × k mean within half a grey level per halving (one rounding
+    each), in a tenth of the time of OpenCV's area resizing by 4 at 1080p (measured).
+    Returns the reduced copy and the scale (1/k, 1/k) from full resolution to it, as
     :func:`stabilize.track.to_full_resolution` takes it: reduced pixel (j, i) is centred on
     full-resolution ((j + 0.5)·k − 0.5, (i + 0.5)·k − 0.5). With k = 1 the plane itself is
     returned.
@@ -351,10 +351,12 @@ def _mask(shape: tuple[int, int], scale: tuple[float, float], region: Region,
 
 
 def _luma(image) -> np.ndarray:
-    """The luma plane of a planar YUV frame, or the grey of an RGB array."""
+    """The luma plane of a planar YUV frame, the grey of an RGB array, or a grey array."""
     y = getattr(image, "y", None)
     if y is not None:
         return y
+    if image.ndim == 2:
+        return image
     return cv2.cvtColor(image, cv2.COLOR_RGB2GRAY)
 
 
