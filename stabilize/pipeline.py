@@ -334,7 +334,9 @@ def _render_video(clip: Path, info: VideoInfo, motion: MotionLog, settings: Sett
         log.warning("%s: rendered %d frames but the log has %d", clip, n, motion.frames)
     motion.output_check, motion.source_check = check.output, check.source
     if check.checked:
-        log.debug("output check: %.2f ms per frame", 1000.0 * check.seconds / check.checked)
+        log.debug("output check: %.2f ms per frame (%.2f ms of processor time)",
+                  1000.0 * check.seconds / check.checked,
+                  1000.0 * check.cpu_seconds / check.checked)
 
 
 def _excluded_regions(motion: MotionLog) -> list[list[float]]:
