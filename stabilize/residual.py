@@ -9,8 +9,10 @@ motion log (which may itself be wrong):
 2. Shi–Tomasi corners (Shi and Tomasi, "Good features to track", CVPR 1994) are found there,
    again every few frames or when they thin out, only where the frame shows the scene (the
    output's fill, and regions left out of tracking, are masked);
-3. they are followed from the previous frame with pyramidal Lucas–Kanade (Bouguet's pyramidal
-   form of Lucas and Kanade, IJCAI 1981, as implemented by OpenCV) and kept when tracking
+3. they are followed from the previous frame with pyramidal Lucas–Kanade (Lucas and Kanade,
+   "An iterative image registration technique with an application to stereo vision", IJCAI
+   1981, in Bouguet's pyramidal form, "Pyramidal implementation of the Lucas Kanade feature
+   tracker", Intel technical report, 2000, as OpenCV implements it) and kept when tracking
    back returns them where they started (Kalal, Mikolajczyk and Matas, "Forward-backward
    error: automatic detection of tracking failures", ICPR 2010);
 4. a similarity is fitted robustly with the project's own estimator
@@ -48,9 +50,12 @@ __all__ = [
     "Region",
     "RenderCheck",
     "STEADIER_RATIO",
+    "STEADY_FLOOR_PX_PER_1000",
+    "measured_share",
     "pair_motion",
     "reduce_luma",
     "steadiness",
+    "usable",
 ]
 
 
