@@ -44,12 +44,20 @@ STATUSES = ("ok", "weak", "failed", "cut")
 
 _H = [f"h{r}{c}" for r in (1, 2, 3) for c in (1, 2, 3)]
 _C = [f"c{r}{c}" for r in (1, 2, 3) for c in (1, 2, 3)]
-COLUMNS = (
+#: The columns every version-1 log has.
+BASE_COLUMNS = (
     ["frame", "time_s", *_H, "dx", "dy", "rotation_deg", "scale",
      "tracked", "inliers", "inlier_ratio", "rms_px", "rounds", "status",
      "path_x", "path_y", "path_deg", "path_scale",
      "smooth_x", "smooth_y", "smooth_deg", "smooth_scale", *_C]
 )
+#: The motion measured on the frames while rendering (:mod:`stabilize.residual`): of the
+#: output (``out_*``) and of the source (``src_check_*``), frame t−1 to t, read as a
+#: similarity about the frame centre. Written after the base columns; older logs lack them.
+OUT_CHECK = ["out_dx", "out_dy", "out_deg"]
+SRC_CHECK = ["src_check_dx", "src_check_dy", "src_check_deg"]
+CHECK_COLUMNS = [*OUT_CHECK, *SRC_CHECK]
+COLUMNS = [*BASE_COLUMNS, *CHECK_COLUMNS]
 
 
 def frame_centre(width: int, height: int) -> np.ndarray:
@@ -94,7 +102,9 @@ class MotionLog:
     Arrays have one row per decoded frame. ``matrices`` are the inter-frame transforms H_t,
     ``corrections`` the C_t (None before smoothing), ``smooth_values`` the smoothed path S_t
     read as (x, y, degrees, scale) per frame (None before smoothing); see the module docstring
-    for the convention.
+    for the convention. ``output_check`` and ``source_check`` are (frames, 3) dx, dy (pixels)
+    and degrees: the inter-frame motion measured on the written output and on the source
+    frames while rendering (nan where not measured; None before rendering).
     """
 
     time_s: np.ndarray
@@ -111,6 +121,8 @@ class MotionLog:
     smooth_values: np.ndarray | None = None
     corrections: np.ndarray | None = None
     extra: dict[str, Any] = field(default_factory=dict)
+    output_check: np.ndarray | None = None
+    source_check: np.ndarray | None = None
 
     @property
     def frames(self) -> int:
@@ -157,6 +169,8 @@ class MotionLog:
             row += [_num(v) for v in r["path"][t]]
             row += [_num(v) for v in r["smooth"][t]] if "smooth" in r else [""] * 4
             row += [_num(v) for v in cm[t]] if cm is not None else [""] * 9
+            for check in (self.output_check, self.source_check):
+                row += [_num(v) for v in check[t]] if check is not None else [""] * 3
             writer.writerow(row)
         return buf.getvalue()
 
@@ -260,8 +274,11 @@ def _read_meta(json_path: Path) -> dict[str, Any]:
     return meta
 
 
-def _read_rows(csv_path: Path) -> tuple[np.ndarray, np.ndarray, np.ndarray, bool, bool]:
-    """Parse the CSV body: (numbers, status, line numbers, has smooth, has corrections)."""
+def _read_rows(csv_path: Path) -> tuple[np.ndarray, np.ndarray, np.ndarray, bool, bool,
+                                        list[str], set[str]]:
+    """Parse the CSV body: (numbers, status, line numbers, has smooth, has corrections, the
+    known columns present, the check columns with any value written). A log from before the
+    check columns has only the base ones."""
     text = _read_text(csv_path)
     reader = csv.reader(io.StringIO(text, newline=""))
     rows: list[list[str]] = []
@@ -276,24 +293,27 @@ def _read_rows(csv_path: Path) -> tuple[np.ndarray, np.ndarray, np.ndarray, bool
     while rows and len(rows) > 1 and not rows[-1]:  # trailing blank lines from an editor
         rows.pop()
         lines.pop()
-    if not rows or rows[0][: len(COLUMNS)] != COLUMNS:
+    if not rows or rows[0][: len(BASE_COLUMNS)] != BASE_COLUMNS:
         raise StabilizeError(f"{csv_path}: line 1: header does not match the motion log columns")
+    names = COLUMNS if rows[0][: len(COLUMNS)] == COLUMNS else BASE_COLUMNS
     width = len(rows[0])
     body, body_lines = rows[1:], lines[1:]
     if not body:
         raise StabilizeError(f"{csv_path}: line 2: the log has no frames")
     n = len(body)
-    numeric = np.empty((n, len(COLUMNS)), dtype=np.float64)
+    numeric = np.empty((n, len(names)), dtype=np.float64)
     status = np.empty(n, dtype=object)
     has_smooth = has_corr = True
-    status_col = COLUMNS.index("status")
-    optional = {j for j, name in enumerate(COLUMNS) if name in _SMOOTH or name in _C}
+    status_col = names.index("status")
+    optional = {j for j, name in enumerate(names) if name in _SMOOTH or name in _C}
+    checks = {j for j, name in enumerate(names) if name in CHECK_COLUMNS}
+    written: set[str] = set()
     for t, (row, line) in enumerate(zip(body, body_lines, strict=True)):
         if len(row) != width:
             raise StabilizeError(
                 f"{csv_path}: line {line}: {len(row)} fields, expected {width}"
             )
-        for j, name in enumerate(COLUMNS):
+        for j, name in enumerate(names):
             cell = row[j]
             if j == status_col:
                 if cell not in STATUSES:
@@ -304,6 +324,11 @@ def _read_rows(csv_path: Path) -> tuple[np.ndarray, np.ndarray, np.ndarray, bool
                 status[t] = cell
                 numeric[t, j] = 0.0
                 continue
+            if j in checks:
+                if cell == "":  # not rendered
+                    numeric[t, j] = np.nan
+                    continue
+                written.add(name)
             if cell == "" and j in optional:
                 numeric[t, j] = np.nan
                 if name in _SMOOTH:
@@ -317,15 +342,15 @@ def _read_rows(csv_path: Path) -> tuple[np.ndarray, np.ndarray, np.ndarray, bool
                 raise StabilizeError(
                     f"{csv_path}: line {line}: column {name}: {cell[:40]!r} is not a number"
                 ) from None
-    return numeric, status, np.array(body_lines), has_smooth, has_corr
+    return numeric, status, np.array(body_lines), has_smooth, has_corr, names, written
 
 
 def _check_rows(csv_path: Path, numeric: np.ndarray, lines: np.ndarray,
-                has_smooth: bool, has_corr: bool) -> None:
+                has_smooth: bool, has_corr: bool, names: list[str]) -> None:
     """Refuse values no stage could use: frames out of order, non-finite times or
     transforms, singular transforms, counts that are not whole numbers."""
     n = len(numeric)
-    col = {name: j for j, name in enumerate(COLUMNS)}
+    col = {name: j for j, name in enumerate(names)}
 
     def first_bad(ok: np.ndarray, what: str) -> None:
         if not np.all(ok):
@@ -367,16 +392,21 @@ def read_log(csv_path: str | Path) -> MotionLog:
         if not p.is_file():
             raise StabilizeError(f"{p}: motion log file not found")
     meta = _read_meta(json_path)
-    numeric, status, lines, has_smooth, has_corr = _read_rows(csv_path)
-    _check_rows(csv_path, numeric, lines, has_smooth, has_corr)
+    numeric, status, lines, has_smooth, has_corr, names, written = _read_rows(csv_path)
+    _check_rows(csv_path, numeric, lines, has_smooth, has_corr, names)
     n = len(numeric)
-    col = {name: j for j, name in enumerate(COLUMNS)}
+    col = {name: j for j, name in enumerate(names)}
     h = numeric[:, [col[c] for c in _H]].reshape(n, 3, 3)
     corrections = smooth_values = None
     if has_corr:
         corrections = numeric[:, [col[c] for c in _C]].reshape(n, 3, 3)
     if has_smooth:
         smooth_values = numeric[:, [col[c] for c in _SMOOTH]]
+    checks = {}
+    for key, cols in (("output_check", OUT_CHECK), ("source_check", SRC_CHECK)):
+        # Columns left empty (a log not rendered) read as absent, not as unmeasured.
+        if any(c in written for c in cols):
+            checks[key] = numeric[:, [col[c] for c in cols]]
     return MotionLog(
         time_s=numeric[:, col["time_s"]],
         matrices=h,
@@ -391,6 +421,7 @@ def read_log(csv_path: str | Path) -> MotionLog:
         summary=meta.get("summary") or {},
         corrections=corrections,
         smooth_values=smooth_values,
+        **checks,
         extra={k: v for k, v in meta.items()
                if k not in {"format", "version", "source", "settings", "summary",
                             "tool_version"}},

@@ -17,7 +17,7 @@ from typing import Any
 
 import numpy as np
 
-from . import framing, shake
+from . import framing, residual, shake
 from .config import AUTO_MARGIN_CAP, Settings, build_settings
 from .errors import StabilizeError
 from .files import all_or_nothing, check_writable_folder, discard, publish, temp_path_for
@@ -209,11 +209,40 @@ def _analyse(clip: Path, info: VideoInfo, settings: Settings,
 
 def _summarise(motion: MotionLog, settings: Settings, fps: float) -> None:
     w, h = motion.size
-    motion.summary = shake.summarise(
+    summary = shake.summarise(
         matrices=motion.matrices, path=motion.path, status=motion.status, fps=fps,
         width=w, height=h, above_hz=settings.shake_above_hz, fov_deg=settings.fov_deg,
         smooth_readout=motion.smooth_values, corrections=motion.corrections,
-    ) | motion.summary
+        output_motion_readout=motion.output_check,
+    )
+    if motion.corrections is not None:
+        summary |= residual.steadiness(
+            motion.output_check, motion.source_check, cuts=motion.status == "cut", fps=fps,
+            above_hz=settings.shake_above_hz, width=w, height=h)
+    motion.summary = summary | motion.summary
+
+
+def _warn_if_not_steadier(clip: Path, motion: MotionLog) -> None:
+    """Say so on stderr when the written video, measured on its frames, is not steadier than
+    its source (or could not be measured)."""
+    s = motion.summary
+    if motion.output_check is None:
+        return
+    if s.get("output_steadier") is None:
+        share = s.get("output_pairs_measured")
+        log.warning("%s: the steadied video could not be checked (%s of its frame pairs "
+                    "measured); its figures after steadying are not given", clip,
+                    "none" if not share else f"{share:.0%}")
+    elif not s["output_steadier"]:
+        def rms(key: str) -> str:
+            v = s.get(key)
+            return "?" if v is None else f"{v:.2f}"
+
+        log.warning("%s: the steadied video is not steadier than the source: shake RMS "
+                    "measured on its frames x %s px, y %s px, against x %s px, y %s px on "
+                    "the source's; check the motion log and the settings", clip,
+                    rms("jitter_rms_x_px_out"), rms("jitter_rms_y_px_out"),
+                    rms("jitter_rms_x_px_src_check"), rms("jitter_rms_y_px_src_check"))
 
 
 def plan_corrections(motion: MotionLog, settings: Settings, fps: float) -> None:
@@ -262,7 +291,8 @@ RENDER_DECODE_THREADS = 1
 
 
 def _render_video(clip: Path, info: VideoInfo, motion: MotionLog, settings: Settings,
-                  outputs: Outputs, progress: ProgressFactory | None) -> None:
+                  outputs: Outputs, progress: ProgressFactory | None,
+                  excluded: list[list[float]] | None = None) -> None:
     # Frames stay in the encoder's own planar YUV from decoder to encoder: no colour
     # conversion on either side, half the bytes of RGB per frame.
     yuv = output_pix_fmt(settings.codec, info.width, info.height)
@@ -280,21 +310,50 @@ def _render_video(clip: Path, info: VideoInfo, motion: MotionLog, settings: Sett
         cw, ch = compare_size(info.width, info.height)
         compare = VideoWriter(outputs.compare, cw, ch, info.fps_text, times_s=times,
                               time_base=info.time_base, **writer_args)
+    # The written frames' own motion, and the source's measured alike, for the figures
+    # after steadying (see stabilize.residual).
+    check = residual.RenderCheck(
+        motion.frames, (info.width, info.height), cuts=motion.status == "cut",
+        excluded=_excluded_regions(motion) if excluded is None else excluded,
+        seed=settings.seed)
     bar = _bar(progress, "render", motion.frames)
     try:
         with video, closing(iter_frames(clip, info=info, yuv=yuv,
                                         decode_threads=RENDER_DECODE_THREADS)) as frames:
             if compare is None:
                 n = render_frames(frames, motion.corrections, video,
-                                  fill=settings.fill, on_frame=bar.update)
+                                  fill=settings.fill, on_frame=bar.update, check=check)
             else:
                 with compare:
                     n = render_frames(frames, motion.corrections, video,
-                                      fill=settings.fill, compare=compare, on_frame=bar.update)
+                                      fill=settings.fill, compare=compare, on_frame=bar.update,
+                                      check=check)
     finally:
         bar.close()
     if n != motion.frames:
         log.warning("%s: rendered %d frames but the log has %d", clip, n, motion.frames)
+    motion.output_check, motion.source_check = check.output, check.source
+    if check.checked:
+        log.debug("output check: %.2f ms per frame (%.2f ms of processor time)",
+                  1000.0 * check.seconds / check.checked,
+                  1000.0 * check.cpu_seconds / check.checked)
+
+
+def _excluded_regions(motion: MotionLog) -> list[list[float]]:
+    """Rectangles (x, y, w, h) left out of tracking, full-resolution pixels of the log."""
+    found = motion.extra.get("excluded")
+    out: list[list[float]] = []
+    if isinstance(found, dict):
+        for rects in found.values():
+            # A log is data: anything but four finite numbers is passed over.
+            for r in rects if isinstance(rects, list) else ():
+                try:
+                    vals = [float(v) for v in r]
+                except (TypeError, ValueError):
+                    continue
+                if len(vals) == 4 and all(np.isfinite(vals)) and vals[2] > 0 and vals[3] > 0:
+                    out.append(vals)
+    return out
 
 
 def _copy_unchanged(clip: Path, dest: Path) -> None:
@@ -315,7 +374,8 @@ def _record_outputs(motion: MotionLog, outputs: Outputs) -> None:
 
 
 def _correct_and_write(clip: Path, info: VideoInfo, motion: MotionLog, settings: Settings,
-                       outputs: Outputs, progress: ProgressFactory | None) -> MotionLog:
+                       outputs: Outputs, progress: ProgressFactory | None,
+                       excluded: list[list[float]] | None = None) -> MotionLog:
     """Plan the corrections and render them (or pass a clip too short or small to steady
     through unchanged), then summarise and save the log."""
     fps = effective_fps(info, motion.time_s)
@@ -327,8 +387,9 @@ def _correct_and_write(clip: Path, info: VideoInfo, motion: MotionLog, settings:
             _copy_unchanged(clip, outputs.compare)
     else:
         plan_corrections(motion, settings, fps)
-        _render_video(clip, info, motion, settings, outputs, progress)
+        _render_video(clip, info, motion, settings, outputs, progress, excluded)
     _summarise(motion, settings, fps)
+    _warn_if_not_steadier(clip, motion)
     _record_outputs(motion, outputs)
     motion.save(outputs.log_csv)
     return motion
@@ -422,13 +483,16 @@ def render(clip: str | os.PathLike, log_file: str | os.PathLike | MotionLog,
     check_outputs(clip, outputs, settings.force)
     info = probe(clip)
     matrices = saved.matrices
+    excluded = _excluded_regions(saved)
     if saved.size != (info.width, info.height):
         log.info("log made at %dx%d, rendering at %dx%d", *saved.size, info.width, info.height)
         matrices = _rescale(matrices, saved.size, (info.width, info.height))
+        fx, fy = info.width / saved.size[0], info.height / saved.size[1]
+        excluded = [[x * fx, y * fy, w * fx, h * fy] for x, y, w, h in excluded]
     motion = MotionLog(
         time_s=saved.time_s, matrices=matrices, tracked=saved.tracked, inliers=saved.inliers,
         inlier_ratio=saved.inlier_ratio, rms_px=saved.rms_px, rounds=saved.rounds,
         status=saved.status, source=_source_dict(info, saved.frames, saved.time_s),
         settings=settings.to_dict(),
     )
-    return _correct_and_write(clip, info, motion, settings, outputs, progress)
+    return _correct_and_write(clip, info, motion, settings, outputs, progress, excluded)

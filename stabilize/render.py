@@ -166,12 +166,16 @@ def render(
     fill: str,
     compare: VideoWriter | None = None,
     on_frame: Callable[[int], None] | None = None,
+    check: Callable[[int, object, object, np.ndarray], None] | None = None,
 ) -> int:
     """Warp every frame by its correction and write it; returns the number of frames written.
 
     Frames are planar YUV (:class:`PlanarImage`, the writers fed the same format) or RGB
     arrays. Decoding runs ahead and encoding behind the warp (see :mod:`stabilize.overlap`).
     Frames beyond the corrections (a clip that decodes longer than its log) reuse the last one.
+    ``check`` is called with (frame index, source frame, output frame, correction) for every
+    frame, before the output is handed to the encoder (its buffer is reused afterwards), e.g.
+    a :class:`stabilize.residual.RenderCheck` measuring the motion left in the output.
     """
     n = 0
     last = len(corrections) - 1
@@ -195,6 +199,8 @@ def render(
                 out = warp_planes(image, c, fill, out=outs.get())
             else:
                 out = warp(image, c, fill)
+            if check is not None:
+                check(frame.index, image, out, c)
             out_q.put(out)
             if cmp_q is not None:
                 cmp_q.put(side_by_side(image, out, out=canvases.get()))

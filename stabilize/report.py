@@ -289,7 +289,14 @@ def _summary(motion: MotionLog, settings: Settings, fps: float) -> dict[str, Any
         matrices=motion.matrices, path=motion.path, status=motion.status, fps=fps, width=w,
         height=h, above_hz=settings.shake_above_hz, fov_deg=settings.fov_deg,
         smooth_readout=motion.smooth_values, corrections=motion.corrections,
+        output_motion_readout=motion.output_check,
     )
+    if motion.output_check is not None and motion.corrections is not None:
+        from .residual import steadiness
+
+        fresh |= steadiness(motion.output_check, motion.source_check,
+                            cuts=motion.status == "cut", fps=fps,
+                            above_hz=settings.shake_above_hz, width=w, height=h)
     out = dict(motion.summary)
     out.update(fresh)
     out["fov_deg"] = settings.fov_deg

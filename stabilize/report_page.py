@@ -140,7 +140,8 @@ def _figures_section(s: dict[str, Any]) -> str:
          _hz(s.get("dominant_hz_rot"), res)],
     ]
     if s.get("jitter_rms_x_px_out") is not None or s.get("jitter_rms_rot_deg_out") is not None:
-        rows.append(["RMS after steadying", _with(s.get("jitter_rms_x_px_out"), "px"),
+        rows.append(["RMS after steadying (measured on the written video)",
+                     _with(s.get("jitter_rms_x_px_out"), "px"),
                      _with(s.get("jitter_rms_y_px_out"), "px"),
                      _with(s.get("jitter_rms_rot_deg_out"), "deg")])
     return _table(["shake", "x", "y", "rotation"], rows)
@@ -190,6 +191,13 @@ def _steady_section(s: dict[str, Any]) -> str:
         ["margin cut from each side", fmt_sig(s.get("margin"))],
         ["frames whose correction was eased", str(s.get("frames_correction_eased", "n/a"))],
     ]
+    if "output_steadier" in s:
+        verdict = {True: "yes", False: "NO: check the log and the settings",
+                   None: "not measured"}[s.get("output_steadier")]
+        extra.append(["steadier than the source (both measured on frames)", verdict])
+        extra.append(["shake removed, x / y (1 = all)",
+                      f"{fmt_sig(s.get('shake_reduction_x'))} / "
+                      f"{fmt_sig(s.get('shake_reduction_y'))}"])
     return (_table(["figure", "as shot", "steadied"], rows) + "<p></p>"
             + _table(["after steadying", "value"], extra))
 

@@ -17,7 +17,7 @@ import math
 import numpy as np
 
 from .log import frame_centre, similarity_readout
-from .path import segments
+from .path import accumulate, from_similarity, segments
 
 
 def _signal():
@@ -290,6 +290,44 @@ def output_motion(matrices: np.ndarray, corrections: np.ndarray) -> np.ndarray:
     return out
 
 
+#: Below this share of measured frame pairs, figures of a measured motion are not given.
+MIN_MEASURED_SHARE = 0.5
+
+
+def readout_path(readout: np.ndarray, cuts: np.ndarray, width: int,
+                 height: int) -> np.ndarray | None:
+    """The path (n, 3) of x, y (pixels) and degrees accumulated from per-frame motion read as
+    similarities about the frame centre ((n, 3) dx, dy pixels, degrees; nan where not
+    measured), per shot between ``cuts``, as the raw path is from ``H_t``. Gaps are filled by
+    linear interpolation over time; None when fewer than :data:`MIN_MEASURED_SHARE` of the
+    frame pairs were measured."""
+    filled = _filled_motion(readout, cuts)
+    if filled is None:
+        return None
+    centre = frame_centre(width, height)
+    q = np.column_stack([filled[:, 0], filled[:, 1], np.radians(filled[:, 2]),
+                         np.zeros(len(filled))])
+    return similarity_readout(accumulate(from_similarity(q, centre), cuts), centre)[:, :3]
+
+
+def _filled_motion(readout: np.ndarray, cuts: np.ndarray) -> np.ndarray | None:
+    """Measured per-frame motion with its gaps interpolated; the first frame of each shot
+    (no predecessor) holds no motion. None when too little was measured."""
+    m = np.array(readout, dtype=np.float64)[:, :3]
+    start = np.asarray(cuts, bool).copy()
+    if len(start):
+        start[0] = True
+    m[start] = 0.0
+    ok = np.isfinite(m).all(axis=1)
+    pairs = ~start
+    if not pairs.any() or np.mean(ok[pairs]) < MIN_MEASURED_SHARE:
+        return None
+    t = np.arange(len(m))
+    for j in range(3):
+        m[~ok, j] = np.interp(t[~ok], t[ok], m[ok, j])
+    return m
+
+
 def correction_figures(corrections: np.ndarray) -> dict:
     """Cropping ratio (mean of 1 / scale) and distortion (smallest σ_min / σ_max of the 2×2
     part), after Liu et al., SIGGRAPH 2013."""
@@ -312,8 +350,16 @@ def summarise(
     fov_deg: float | None,
     smooth_readout: np.ndarray | None = None,
     corrections: np.ndarray | None = None,
+    output_motion_readout: np.ndarray | None = None,
 ) -> dict:
-    """The summary block of the motion log's JSON (see the log format documentation)."""
+    """The summary block of the motion log's JSON (see the log format documentation).
+
+    ``output_motion_readout`` (n, 3): the written video's inter-frame motion as measured on
+    its frames (dx, dy pixels, degrees; nan where not measured; see
+    :mod:`stabilize.residual`). When given, the ``_out`` figures describe it, and the figures
+    of the plan (the smoothed path and the corrections) move to ``_planned`` keys; the
+    ``_out`` figures are null when too little of the output could be measured.
+    """
     centre = frame_centre(width, height)
     cuts = status == "cut"
     motion = similarity_readout(matrices, centre)
@@ -336,13 +382,37 @@ def summarise(
     has_out = corrections is not None
     summary.update(stability_figures(motion, "_in" if has_out else ""))
     if has_out:
+        measured = output_motion_readout is not None
+        planned = "_planned" if measured else "_out"
         out_motion = similarity_readout(output_motion(matrices, corrections), centre)
-        summary.update(stability_figures(out_motion, "_out"))
+        summary.update(stability_figures(out_motion, planned))
         summary.update(correction_figures(corrections))
         if smooth_readout is not None:
             summary.update(path_figures(smooth_readout, cuts, fps=fps, above_hz=above_hz,
-                                        width=width, fov_deg=fov_deg, suffix="_out"))
+                                        width=width, fov_deg=fov_deg, suffix=planned))
+        if measured:
+            summary.update(_measured_output_figures(
+                output_motion_readout, cuts, fps=fps, above_hz=above_hz, width=width,
+                height=height, fov_deg=fov_deg))
     return summary
+
+
+def _measured_output_figures(readout: np.ndarray, cuts: np.ndarray, *, fps: float,
+                             above_hz: float, width: int, height: int,
+                             fov_deg: float | None) -> dict:
+    """The ``_out`` shake and stability figures of the output's measured motion (all null
+    when too little of it was measured)."""
+    filled = _filled_motion(readout, cuts)
+    dummy = np.zeros((len(cuts), 3))
+    if filled is None:
+        figs = path_figures(dummy, cuts, fps=fps, above_hz=above_hz, width=width,
+                            fov_deg=fov_deg, suffix="_out")
+        figs.update(stability_figures(dummy, "_out"))
+        return {k: None for k in figs}
+    figs = path_figures(readout_path(filled, cuts, width, height), cuts, fps=fps,
+                        above_hz=above_hz, width=width, fov_deg=fov_deg, suffix="_out")
+    figs.update(stability_figures(filled, "_out"))
+    return figs
 
 
 #: Shares of weak-or-failed frames above which the figures are called rough, and unreliable.

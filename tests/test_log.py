@@ -8,7 +8,14 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from stabilize.errors import StabilizeError
-from stabilize.log import COLUMNS, MotionLog, frame_centre, read_log, similarity_readout
+from stabilize.log import (
+    BASE_COLUMNS,
+    COLUMNS,
+    MotionLog,
+    frame_centre,
+    read_log,
+    similarity_readout,
+)
 
 
 def _log(n=6, with_corrections=True):
@@ -37,7 +44,8 @@ def test_header_is_the_contract():
     assert COLUMNS == ["frame", "time_s", *h, "dx", "dy", "rotation_deg", "scale", "tracked",
                        "inliers", "inlier_ratio", "rms_px", "rounds", "status", "path_x",
                        "path_y", "path_deg", "path_scale", "smooth_x", "smooth_y",
-                       "smooth_deg", "smooth_scale", *c]
+                       "smooth_deg", "smooth_scale", *c, "out_dx", "out_dy", "out_deg",
+                       "src_check_dx", "src_check_dy", "src_check_deg"]
 
 
 def test_similarity_readout_about_the_centre():
@@ -71,6 +79,41 @@ def test_csv_json_round_trip_is_exact(tmp_path, with_corrections):
         assert lines[1].endswith("," * 13)
     # No temporaries are left beside the outputs.
     assert sorted(p.name for p in tmp_path.iterdir()) == ["clip.motion.csv", "clip.motion.json"]
+
+
+def test_measured_motion_columns_round_trip_with_gaps(tmp_path):
+    log = _log()
+    rng = np.random.default_rng(1)
+    log.output_check = rng.normal(0, 0.1, (log.frames, 3))
+    log.source_check = rng.normal(0, 3.0, (log.frames, 3))
+    log.output_check[0] = log.source_check[0] = np.nan  # frame 0 has no predecessor
+    log.output_check[3, 1] = np.nan
+    csv_path, _ = log.save(tmp_path / "c.motion.csv")
+    row = csv_path.read_text().splitlines()[1].split(",")
+    assert row[-6:] == ["nan"] * 6
+    back = read_log(csv_path)
+    np.testing.assert_array_equal(back.output_check, log.output_check)
+    np.testing.assert_array_equal(back.source_check, log.source_check)
+    assert back.to_csv() == log.to_csv()
+
+
+def test_logs_without_the_measured_motion_columns_still_read(tmp_path):
+    log = _log()
+    csv_path, _ = log.save(tmp_path / "old.motion.csv")
+    back = read_log(csv_path)  # columns there, left empty: not rendered
+    assert back.output_check is None and back.source_check is None
+    # A log written before the columns existed: the base columns only.
+    lines = csv_path.read_text().splitlines()
+    csv_path.write_text("\n".join(",".join(line.split(",")[:len(BASE_COLUMNS)])
+                                   for line in lines) + "\n")
+    assert csv_path.read_text().splitlines()[0].split(",") == BASE_COLUMNS
+    back = read_log(csv_path)
+    assert back.output_check is None and back.source_check is None
+    np.testing.assert_array_equal(back.corrections, log.corrections)
+    # Saving it again writes the new header, the new columns empty.
+    back.save(tmp_path / "again.motion.csv")
+    header = (tmp_path / "again.motion.csv").read_text().splitlines()[0].split(",")
+    assert header == COLUMNS
 
 
 def test_numbers_keep_at_least_nine_significant_digits(tmp_path):
