@@ -194,17 +194,39 @@ def _analyse(clip: Path, info: VideoInfo, settings: Settings,
     if n_failed and len(track.time_s) >= 2 and measurable(info.width, info.height):
         log.warning("%s: %d of %d frames had no trustworthy motion fit (status failed)",
                     clip, n_failed, len(track.time_s))
-    n_weak = int(np.count_nonzero(track.status == "weak"))
+    reasons = track.reason if track.reason is not None else np.full(n, "", "<U12")
+    n_fore = int(np.count_nonzero(reasons == "foreground"))
+    n_weak = int(np.count_nonzero(track.status == "weak")) - n_fore
     if n_weak:
         log.warning("%s: %d frames have weak fits (few or bunched inliers)", clip, n_weak)
+    if n_fore:
+        log.warning("%s: %d frames: the camera's motion could not be told apart from an "
+                    "object moving in front of it; their motion is a stand-in (status weak)",
+                    clip, n_fore)
     return MotionLog(
         time_s=track.time_s, matrices=track.matrices, tracked=track.tracked,
         inliers=track.inliers, inlier_ratio=track.inlier_ratio, rms_px=track.rms_px,
         rounds=track.rounds, status=track.status,
         source=_source_dict(info, n, track.time_s, truncated),
         settings=settings.to_dict(),
-        extra={"excluded": track.excluded},
+        extra={"excluded": track.excluded, "frame_reasons": frame_reasons(reasons)},
     )
+
+
+def frame_reasons(reasons: np.ndarray) -> dict[str, list[int]]:
+    """Frames that are weak or failed for a stated reason, by reason (see
+    :data:`stabilize.motion.REASONS`): ``{"foreground": [12, 13], ...}``."""
+    return {str(r): np.flatnonzero(reasons == r).tolist()
+            for r in sorted(set(reasons.tolist())) if r}
+
+
+def reasons_of(motion: MotionLog) -> np.ndarray:
+    """Per-frame reason codes ('' for none) from a log's ``frame_reasons``."""
+    out = np.full(len(motion.status), "", "<U12")
+    for reason, frames in (motion.extra.get("frame_reasons") or {}).items():
+        idx = np.asarray([f for f in frames if isinstance(f, int) and 0 <= f < len(out)], int)
+        out[idx] = str(reason)[:12]
+    return out
 
 
 def _summarise(motion: MotionLog, settings: Settings, fps: float) -> None:
