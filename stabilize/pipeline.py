@@ -142,17 +142,6 @@ def _source_dict(info: VideoInfo, frames: int, time_s: np.ndarray,
     return d
 
 
-def effective_fps(info: VideoInfo, time_s: np.ndarray) -> float:
-    """Frame rate for time scales: from the timestamps when they are regular, else nominal."""
-    if len(time_s) > 2:
-        dt = np.diff(time_s)
-        med = float(np.median(dt))
-        if med > 0 and np.all(np.abs(dt - med) < 0.25 * med):
-            fps = 1.0 / med
-            return info.fps if abs(fps - info.fps) < 1e-3 * info.fps else fps
-    return info.fps
-
-
 def _analyse(clip: Path, info: VideoInfo, settings: Settings,
              progress: ProgressFactory | None, parallel: dict[str, Any] | None = None
              ) -> MotionLog:
@@ -207,13 +196,22 @@ def _analyse(clip: Path, info: VideoInfo, settings: Settings,
     )
 
 
-def _summarise(motion: MotionLog, settings: Settings, fps: float) -> None:
+def _summarise(motion: MotionLog, settings: Settings, nominal_fps: float) -> None:
+    """The shake summary, in real time (the frames' own timestamps; ``nominal_fps`` is the
+    container's rate), merged with what the job has put in ``motion.summary``; then the
+    verdict again, which reads keys of both."""
     w, h = motion.size
     motion.summary = shake.summarise(
-        matrices=motion.matrices, path=motion.path, status=motion.status, fps=fps,
+        matrices=motion.matrices, path=motion.path, status=motion.status, fps=nominal_fps,
         width=w, height=h, above_hz=settings.shake_above_hz, fov_deg=settings.fov_deg,
         smooth_readout=motion.smooth_values, corrections=motion.corrections,
+        time_s=motion.time_s, rms_px=motion.rms_px, inliers=motion.inliers,
     ) | motion.summary
+    motion.summary.update(shake.trust_verdict(motion.summary))
+    if motion.summary.get("timestamps_irregular"):
+        log.warning("%s: the frame times are irregular; the figures and the smoothing use "
+                    "their real mean rate of %.3g fps, not the container's %.3g fps",
+                    motion.source.get("path", "clip"), motion.summary["fps"], nominal_fps)
 
 
 def plan_corrections(motion: MotionLog, settings: Settings, fps: float) -> None:
@@ -318,7 +316,7 @@ def _correct_and_write(clip: Path, info: VideoInfo, motion: MotionLog, settings:
                        outputs: Outputs, progress: ProgressFactory | None) -> MotionLog:
     """Plan the corrections and render them (or pass a clip too short or small to steady
     through unchanged), then summarise and save the log."""
-    fps = effective_fps(info, motion.time_s)
+    fps = shake.frame_rate(motion.time_s, info.fps)  # real time for the smoothing window
     if motion.frames < 2 or not measurable(info.width, info.height):
         motion.corrections = np.repeat(np.eye(3)[None], motion.frames, axis=0)
         motion.smooth_values = similarity_readout(motion.path, motion.centre)
@@ -328,7 +326,7 @@ def _correct_and_write(clip: Path, info: VideoInfo, motion: MotionLog, settings:
     else:
         plan_corrections(motion, settings, fps)
         _render_video(clip, info, motion, settings, outputs, progress)
-    _summarise(motion, settings, fps)
+    _summarise(motion, settings, info.fps)
     _record_outputs(motion, outputs)
     motion.save(outputs.log_csv)
     return motion
@@ -361,7 +359,7 @@ def measure(clip: str | os.PathLike, *, config: str | None = None,
             # (1.2–1.5 s less after the analysis, measured; a single pass gained nothing).
             shake.prefetch()
     motion = _analyse(clip, info, settings, progress, parallel)
-    _summarise(motion, settings, effective_fps(info, motion.time_s))
+    _summarise(motion, settings, info.fps)
     return motion
 
 
