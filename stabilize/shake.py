@@ -402,37 +402,6 @@ def _refine_peak(f: np.ndarray, pxx: np.ndarray, i: int) -> float:
     return float(f[i])
 
 
-def spectrum_peaks(f: np.ndarray, pxx: np.ndarray, above_hz: float,
-                   count: int = 3) -> list[tuple[float, float]]:
-    """The ``count`` most prominent peaks of a power spectral density above ``above_hz``.
-
-    Parameters
-    ----------
-    f, pxx : frequencies (Hz) and density (unit² per Hz), as from :func:`shake_spectrum`.
-    above_hz : peaks below this frequency are left out (motion there is not shake).
-    count : at most this many peaks.
-
-    Returns
-    -------
-    list of (frequency in Hz, density) pairs, strongest first. A peak must stand out by at
-    least a tenth of the largest density (a rule of thumb of this project) so that the
-    ripple of the estimate is not labelled.
-    """
-    band = f >= above_hz
-    if not band.any() or not np.any(pxx[band] > 0):
-        return []
-    top = float(pxx[band].max())
-    idx, props = _signal().find_peaks(pxx, prominence=0.1 * top)
-    keep = [(int(i), float(p)) for i, p in zip(idx, props["prominences"], strict=True)
-            if f[i] >= above_hz]
-    # A peak on the first or last bin is not found by find_peaks; the largest bin always is.
-    best = int(np.flatnonzero(band)[np.argmax(pxx[band])])
-    if best not in {i for i, _ in keep}:
-        keep.append((best, top))
-    keep.sort(key=lambda ip: -pxx[ip[0]])
-    return [(_refine_peak(f, pxx, i), float(pxx[i])) for i, _ in keep[:count]]
-
-
 def band_powers(shake: np.ndarray | None, fps: float) -> list[float | None]:
     """Shake power (unit²) in each of :data:`SHAKE_BANDS_HZ`, from the Welch density.
 
