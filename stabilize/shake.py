@@ -795,8 +795,8 @@ def trust_verdict(summary: dict) -> dict:
         said = f" (the container says {nominal:.3g} fps)" if nominal else ""
         real = f" of {rate:.3g} fps" if rate else ""
         reasons.append((1, f"The frame times are irregular{said}: the path was resampled "
-                           f"onto an even time grid at the real mean rate{real}, which "
-                           "smooths the fastest motion a little."))
+                           f"onto an even time grid at the real mean rate{real}; motion "
+                           "between frames is interpolated, not measured."))
     level = max((lv for lv, _ in reasons), default=0)
     return {"trust": TRUST_LEVELS[level], "trust_reasons": [text for _, text in reasons]}
 
