@@ -284,6 +284,11 @@ PEAK_MIN_GAIN = 0.9
 PEAK_BACKGROUND_BINS = 12
 
 
+@functools.lru_cache(maxsize=4)
+def _gauss_legendre(n: int) -> tuple[np.ndarray, np.ndarray]:
+    return np.polynomial.legendre.leggauss(n)
+
+
 @functools.lru_cache(maxsize=256)
 def peak_threshold(dof: float, m: int, rank: int, alpha: float) -> float:
     """The factor k with P(X > k · Y₍rank₎) = ``alpha``, for X and Y₁ … Y_m independent, each
@@ -297,7 +302,7 @@ def peak_threshold(dof: float, m: int, rank: int, alpha: float) -> float:
     from scipy import optimize, special
 
     half = 0.5 * dof
-    nodes, weights = np.polynomial.legendre.leggauss(200)
+    nodes, weights = _gauss_legendre(200)
     v = 0.5 * (nodes + 1.0)
     y = special.gammaincinv(half, v) / half  # F⁻¹(v) of χ²_dof / dof
     log_beta = (math.lgamma(rank) + math.lgamma(m - rank + 1) - math.lgamma(m + 1))
