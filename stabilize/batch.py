@@ -42,8 +42,8 @@ FIGURES = ("jitter_rms_x_px", "jitter_rms_y_px", "jitter_rms_rot_deg", "jitter_r
            "jitter_rms_y_deg", "dominant_hz_x", "dominant_hz_y", "dominant_hz_rot",
            "stability_translation", "stability_rotation", "cropping_ratio", "distortion",
            "frames_weak", "frames_failed", "cuts")
-COLUMNS = ("clip", "status", "error", "frames", *FIGURES, "video", "log", "report",
-           "warnings")
+COLUMNS = ("clip", "status", "error", "frames", *FIGURES, "trust", "trust_reasons", "video",
+           "log", "report", "warnings")
 #: Settings that do not change the outputs, left out when deciding whether a clip is done.
 _NOT_OUTPUT = ("force", "quiet")
 
@@ -148,7 +148,11 @@ class ClipResult:
         for k in FIGURES:
             v = self.summary.get(k)
             row[k] = "" if v is None else (repr(float(v)) if isinstance(v, float) else v)
-        row.update(video=rel("video"), log=rel("log"), report=rel("report"),
+        trust = self.summary.get("trust")
+        row.update(trust=trust if isinstance(trust, str) else "",
+                   trust_reasons="; ".join(str(r) for r in self.summary.get("trust_reasons")
+                                           or []),
+                   video=rel("video"), log=rel("log"), report=rel("report"),
                    warnings=" | ".join(self.warnings))
         return row
 
@@ -331,6 +335,23 @@ def summary_csv(results: list[ClipResult], out_dir: Path) -> str:
     return buf.getvalue()
 
 
+def _verdict_cell(row: dict[str, Any]) -> str:
+    """The verdict, its reasons in small type under it."""
+    if not row["trust"]:
+        return ""
+    reasons = html.escape(row["trust_reasons"])
+    more = f'<br><span class="why">{reasons}</span>' if reasons else ""
+    return f'<span class="trust-{html.escape(row["trust"])}">{html.escape(row["trust"])}' \
+           f"</span>{more}"
+
+
+def _dominant_text(summary: dict[str, Any], axis: str, fmt: Callable[[Any], str]) -> str:
+    hz = summary.get(f"dominant_hz_{axis}")
+    if hz is None and summary.get(f"jitter_rms_{axis}_px") is not None:
+        return "no clear peak"
+    return fmt(hz)
+
+
 def summary_html(results: list[ClipResult], out_dir: Path) -> str:
     """One self-contained page (no scripts, no network): a table of every clip with its
     figures and links to its report, video and log (relative, so the folder can move)."""
@@ -338,8 +359,9 @@ def summary_html(results: list[ClipResult], out_dir: Path) -> str:
     from .report_page import fmt_sig
 
     esc = html.escape
-    heads = ("clip", "status", "frames", "shake x (px)", "shake y (px)", "shake rot (deg)",
-             "dominant x (Hz)", "dominant y (Hz)", "weak", "failed", "files")
+    heads = ("clip", "status", "frames", "verdict", "shake x (px)", "shake y (px)",
+             "shake rot (deg)", "dominant x (Hz)", "dominant y (Hz)", "weak", "failed",
+             "files")
     rows = []
     for r in results:
         row = r.row(out_dir)
@@ -347,10 +369,10 @@ def summary_html(results: list[ClipResult], out_dir: Path) -> str:
                          for k, label in (("report", "report"), ("video", "video"),
                                           ("log", "log")) if row[k])
         detail = esc(r.error) if r.status == "failed" else links
-        cells = [esc(r.clip), esc(r.status), esc(str(row["frames"]))]
+        cells = [esc(r.clip), esc(r.status), esc(str(row["frames"])), _verdict_cell(row)]
         cells += [esc(fmt_sig(r.summary.get(k))) for k in
-                  ("jitter_rms_x_px", "jitter_rms_y_px", "jitter_rms_rot_deg",
-                   "dominant_hz_x", "dominant_hz_y")]
+                  ("jitter_rms_x_px", "jitter_rms_y_px", "jitter_rms_rot_deg")]
+        cells += [esc(_dominant_text(r.summary, axis, fmt_sig)) for axis in ("x", "y")]
         cells += [esc(str(row["frames_weak"])), esc(str(row["frames_failed"])), detail]
         rows.append(f'<tr class="{esc(r.status)}">' + "".join(f"<td>{c}</td>" for c in cells)
                     + "</tr>")
@@ -364,13 +386,16 @@ body {{ font-family: sans-serif; color: #24323f; margin: 1rem; }}
 table {{ border-collapse: collapse; font-size: 0.9rem; }}
 th, td {{ border-bottom: 1px solid #d0d6dc; padding: 0.3rem 0.5rem; text-align: left; }}
 tr.failed td {{ background: #fbe9e7; }}
+.why {{ font-size: 0.8rem; color: #5f6b76; white-space: normal; }}
+.trust-rough {{ color: #8a6100; font-weight: 600; }}
+.trust-unreliable {{ color: #b3261e; font-weight: 600; }}
 .wrap {{ overflow-x: auto; }}
 </style></head><body>
 <h1>Batch summary</h1>
 <p>{len(results)} clips: {counts['done']} done, {counts['skipped']} skipped (done before),
-{counts['failed']} failed. Shake figures describe the camera as the frames sample it; clips
-with many weak or failed frames give figures to be trusted less. Each clip's report says
-more.</p>
+{counts['failed']} failed. Shake figures describe the camera as the frames sample it. The
+verdict says how far each clip's figures can be trusted (sound, rough or unreliable) and
+why; each clip's report says more.</p>
 <div class="wrap"><table>
 <tr>{''.join(f'<th>{esc(h)}</th>' for h in heads)}</tr>
 {chr(10).join(rows)}

@@ -10,6 +10,7 @@ import logging
 import signal
 import sys
 import threading
+from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
@@ -183,6 +184,11 @@ def _print_summary(summary: dict) -> None:
     weak, failed = summary.get("frames_weak", 0), summary.get("frames_failed", 0)
     fps, nyquist = summary.get("fps"), summary.get("nyquist_hz")
     rate = "" if fps is None else f" at {fmt_sig(fps)} fps"
+    nominal = summary.get("fps_nominal")
+    if fps is not None and summary.get("timestamps_irregular"):
+        rate += f" on average, irregular times (container: {fmt_sig(nominal)} fps)"
+    elif fps is not None and nominal and abs(nominal - fps) > 1e-3 * nominal:
+        rate += f" (container: {fmt_sig(nominal)} fps)"
     share = "" if not n else f", {100.0 * (weak + failed) / n:.1f} % weak or failed"
     print(f"frames: {n}{rate} (weak {weak}, failed {failed}, cuts {summary.get('cuts', 0)}"
           f"{share})")
@@ -196,7 +202,7 @@ def _print_summary(summary: dict) -> None:
         angle = "" if axis == "rot" else cell(summary.get(f"jitter_rms_{axis}_deg"), "deg")
         rows.append((label, cell(summary.get(f"jitter_rms_{axis}_{unit}"), unit), angle,
                      cell(summary.get(f"jitter_p2p_{axis}_{unit}"), unit),
-                     cell(summary.get(f"dominant_hz_{axis}"), "Hz")))
+                     _dominant_cell(summary, axis, cell)))
     widths = [max(len(r[k]) for r in rows) for k in range(5)]
     for r in rows:
         print("  ".join([r[0].ljust(widths[0])] + [c.rjust(w) for c, w in
@@ -208,6 +214,20 @@ def _print_summary(summary: dict) -> None:
         if tr is not None or rot is not None:
             print(f"stability ({label}, 1 = steady): translation {fmt_sig(tr)}, "
                   f"rotation {fmt_sig(rot)}")
+    if summary.get("trust") is not None:
+        print(f"verdict: {summary['trust']}")
+        for reason in summary.get("trust_reasons") or []:
+            print(f"  - {reason}")
+
+
+def _dominant_cell(summary: dict, axis: str, cell: Callable[[Any, str], str]) -> str:
+    """The dominant frequency, or "no clear peak" when the shake was measured but no peak
+    stood out of its spectrum's background."""
+    hz = summary.get(f"dominant_hz_{axis}")
+    unit = "deg" if axis == "rot" else "px"
+    if hz is None and summary.get(f"jitter_rms_{axis}_{unit}") is not None:
+        return "no clear peak"
+    return cell(hz, "Hz")
 
 
 def run(args: argparse.Namespace) -> int:

@@ -426,3 +426,19 @@ def read_log(csv_path: str | Path) -> MotionLog:
                if k not in {"format", "version", "source", "settings", "summary",
                             "tool_version"}},
     )
+
+
+def frame_reasons(reasons: np.ndarray) -> dict[str, list[int]]:
+    """Frames that are weak or failed for a stated reason, by reason (see
+    :data:`stabilize.motion.REASONS`): ``{"foreground": [12, 13], ...}``."""
+    return {str(r): np.flatnonzero(reasons == r).tolist()
+            for r in sorted(set(reasons.tolist())) if r}
+
+
+def reasons_of(motion: MotionLog) -> np.ndarray:
+    """Per-frame reason codes ('' for none) from a log's ``frame_reasons``."""
+    out = np.full(len(motion.status), "", "<U12")
+    for reason, frames in (motion.extra.get("frame_reasons") or {}).items():
+        idx = np.asarray([f for f in frames if isinstance(f, int) and 0 <= f < len(out)], int)
+        out[idx] = str(reason)[:12]
+    return out

@@ -21,7 +21,14 @@ from . import framing, residual, shake
 from .config import AUTO_MARGIN_CAP, Settings, build_settings
 from .errors import StabilizeError
 from .files import all_or_nothing, check_writable_folder, discard, publish, temp_path_for
-from .log import MotionLog, json_path_for, read_log, similarity_readout
+from .log import (
+    MotionLog,
+    frame_reasons,
+    json_path_for,
+    read_log,
+    reasons_of,
+    similarity_readout,
+)
 from .motion import analyse, measurable
 from .path import smooth_path
 from .render import compare_size
@@ -142,17 +149,6 @@ def _source_dict(info: VideoInfo, frames: int, time_s: np.ndarray,
     return d
 
 
-def effective_fps(info: VideoInfo, time_s: np.ndarray) -> float:
-    """Frame rate for time scales: from the timestamps when they are regular, else nominal."""
-    if len(time_s) > 2:
-        dt = np.diff(time_s)
-        med = float(np.median(dt))
-        if med > 0 and np.all(np.abs(dt - med) < 0.25 * med):
-            fps = 1.0 / med
-            return info.fps if abs(fps - info.fps) < 1e-3 * info.fps else fps
-    return info.fps
-
-
 def _analyse(clip: Path, info: VideoInfo, settings: Settings,
              progress: ProgressFactory | None, parallel: dict[str, Any] | None = None
              ) -> MotionLog:
@@ -213,35 +209,29 @@ def _analyse(clip: Path, info: VideoInfo, settings: Settings,
     )
 
 
-def frame_reasons(reasons: np.ndarray) -> dict[str, list[int]]:
-    """Frames that are weak or failed for a stated reason, by reason (see
-    :data:`stabilize.motion.REASONS`): ``{"foreground": [12, 13], ...}``."""
-    return {str(r): np.flatnonzero(reasons == r).tolist()
-            for r in sorted(set(reasons.tolist())) if r}
-
-
-def reasons_of(motion: MotionLog) -> np.ndarray:
-    """Per-frame reason codes ('' for none) from a log's ``frame_reasons``."""
-    out = np.full(len(motion.status), "", "<U12")
-    for reason, frames in (motion.extra.get("frame_reasons") or {}).items():
-        idx = np.asarray([f for f in frames if isinstance(f, int) and 0 <= f < len(out)], int)
-        out[idx] = str(reason)[:12]
-    return out
-
-
-def _summarise(motion: MotionLog, settings: Settings, fps: float) -> None:
+def _summarise(motion: MotionLog, settings: Settings, nominal_fps: float) -> None:
+    """The shake summary, in real time (the frames' own timestamps; ``nominal_fps`` is the
+    container's rate), with the figures measured on the written video when there is one,
+    merged with what the job has put in ``motion.summary``; then the verdict again, which
+    reads keys of all of them."""
     w, h = motion.size
     summary = shake.summarise(
-        matrices=motion.matrices, path=motion.path, status=motion.status, fps=fps,
+        matrices=motion.matrices, path=motion.path, status=motion.status, fps=nominal_fps,
         width=w, height=h, above_hz=settings.shake_above_hz, fov_deg=settings.fov_deg,
         smooth_readout=motion.smooth_values, corrections=motion.corrections,
-        output_motion_readout=motion.output_check,
+        time_s=motion.time_s, rms_px=motion.rms_px, inliers=motion.inliers,
+        reasons=reasons_of(motion), output_motion_readout=motion.output_check,
     )
     if motion.corrections is not None:
         summary |= residual.steadiness(
-            motion.output_check, motion.source_check, cuts=motion.status == "cut", fps=fps,
-            above_hz=settings.shake_above_hz, width=w, height=h)
+            motion.output_check, motion.source_check, cuts=motion.status == "cut",
+            fps=summary["fps"], above_hz=settings.shake_above_hz, width=w, height=h)
     motion.summary = summary | motion.summary
+    motion.summary.update(shake.trust_verdict(motion.summary))
+    if motion.summary.get("timestamps_irregular"):
+        log.warning("%s: the frame times are irregular; the figures and the smoothing use "
+                    "their real mean rate of %.3g fps, not the container's %.3g fps",
+                    motion.source.get("path", "clip"), motion.summary["fps"], nominal_fps)
 
 
 def _warn_if_not_steadier(clip: Path, motion: MotionLog) -> None:
@@ -400,7 +390,7 @@ def _correct_and_write(clip: Path, info: VideoInfo, motion: MotionLog, settings:
                        excluded: list[list[float]] | None = None) -> MotionLog:
     """Plan the corrections and render them (or pass a clip too short or small to steady
     through unchanged), then summarise and save the log."""
-    fps = effective_fps(info, motion.time_s)
+    fps = shake.frame_rate(motion.time_s, info.fps)  # real time for the smoothing window
     if motion.frames < 2 or not measurable(info.width, info.height):
         motion.corrections = np.repeat(np.eye(3)[None], motion.frames, axis=0)
         motion.smooth_values = similarity_readout(motion.path, motion.centre)
@@ -410,7 +400,7 @@ def _correct_and_write(clip: Path, info: VideoInfo, motion: MotionLog, settings:
     else:
         plan_corrections(motion, settings, fps)
         _render_video(clip, info, motion, settings, outputs, progress, excluded)
-    _summarise(motion, settings, fps)
+    _summarise(motion, settings, info.fps)
     _warn_if_not_steadier(clip, motion)
     _record_outputs(motion, outputs)
     motion.save(outputs.log_csv)
@@ -444,7 +434,7 @@ def measure(clip: str | os.PathLike, *, config: str | None = None,
             # (1.2–1.5 s less after the analysis, measured; a single pass gained nothing).
             shake.prefetch()
     motion = _analyse(clip, info, settings, progress, parallel)
-    _summarise(motion, settings, effective_fps(info, motion.time_s))
+    _summarise(motion, settings, info.fps)
     return motion
 
 

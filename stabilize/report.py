@@ -35,7 +35,7 @@ from .files import (
     temp_path_for,
     write_text_atomic,
 )
-from .log import MotionLog, _jsonable, read_log, similarity_readout
+from .log import MotionLog, _jsonable, read_log, reasons_of, similarity_readout
 from .report_page import fmt_sig, render_page
 
 FORMAT = "stabilize-shake-report"
@@ -93,21 +93,29 @@ def _settings_for_log(motion: MotionLog, config: str | None, options: dict[str, 
     return logged.replace(**{k: v for k, v in options.items() if v is not None})
 
 
+def _nominal_fps(motion: MotionLog) -> float:
+    """The container's frame rate of a log (frames per second): its source's, else the one
+    its summary was computed with."""
+    for fps in (motion.source.get("fps"), motion.summary.get("fps_nominal"),
+                motion.summary.get("fps")):
+        if isinstance(fps, int | float) and not isinstance(fps, bool) and fps > 0:
+            return float(fps)
+    return 0.0
+
+
 def _frame_rate(motion: MotionLog) -> float:
-    """Frame rate of a log (frames per second): the one its summary was computed with, else
-    the timestamps' when they are regular, else the container's nominal rate."""
-    fps = motion.summary.get("fps")
-    if isinstance(fps, int | float) and fps > 0:
-        return float(fps)
-    nominal = float(motion.source.get("fps") or 0.0)
-    if len(motion.time_s) > 2:
-        dt = np.diff(motion.time_s)
-        med = float(np.median(dt))
-        if med > 0 and np.all(np.abs(dt - med) < 0.25 * med):
-            return 1.0 / med
-    if nominal > 0:
-        return nominal
+    """The real mean frame rate of a log (frames per second), from its timestamps
+    (:func:`stabilize.shake.frame_rate`), else the container's nominal rate."""
+    fps = shake.frame_rate(motion.time_s, _nominal_fps(motion))
+    if fps > 0:
+        return fps
     raise StabilizeError("the motion log has no usable frame rate (source fps missing)")
+
+
+def _uneven_times(motion: MotionLog) -> np.ndarray | None:
+    """The log's frame times when they are irregular (the shake is then resampled), else
+    None."""
+    return motion.time_s if shake.timestamps_irregular(motion.time_s) else None
 
 
 def _existing(path: str | os.PathLike | None, *, base: Path) -> Path | None:
@@ -286,19 +294,23 @@ def _summary(motion: MotionLog, settings: Settings, fps: float) -> dict[str, Any
     added since the log was written. Keys only the writing job knows (margin …) are kept."""
     w, h = motion.size
     fresh = shake.summarise(
-        matrices=motion.matrices, path=motion.path, status=motion.status, fps=fps, width=w,
-        height=h, above_hz=settings.shake_above_hz, fov_deg=settings.fov_deg,
+        matrices=motion.matrices, path=motion.path, status=motion.status,
+        fps=_nominal_fps(motion) or fps, width=w, height=h,
+        above_hz=settings.shake_above_hz, fov_deg=settings.fov_deg,
         smooth_readout=motion.smooth_values, corrections=motion.corrections,
-        output_motion_readout=motion.output_check,
+        time_s=motion.time_s, rms_px=motion.rms_px, inliers=motion.inliers,
+        output_motion_readout=motion.output_check, reasons=reasons_of(motion),
     )
     if motion.output_check is not None and motion.corrections is not None:
         from .residual import steadiness
 
         fresh |= steadiness(motion.output_check, motion.source_check,
-                            cuts=motion.status == "cut", fps=fps,
+                            cuts=motion.status == "cut", fps=fresh["fps"],
                             above_hz=settings.shake_above_hz, width=w, height=h)
     out = dict(motion.summary)
     out.update(fresh)
+    # Keys only later stages know (output_steadier …) count in the verdict too.
+    out.update(shake.trust_verdict(out))
     out["fov_deg"] = settings.fov_deg
     finite = np.isfinite(motion.inlier_ratio) & (motion.tracked > 0)
     out["inlier_ratio_median"] = (float(np.median(motion.inlier_ratio[finite]))
@@ -366,8 +378,12 @@ def plot_path(motion: MotionLog, settings: Settings, fps: float) -> bytes:
     its shake (the path minus its low-pass at ``shake_above_hz``). PNG bytes."""
     raw = similarity_readout(motion.path, motion.centre)
     cuts = motion.status == "cut"
-    shakes = shake.axis_shake(raw, cuts, fps=fps, above_hz=settings.shake_above_hz)
+    uneven = _uneven_times(motion)
+    shakes = shake.axis_shake(raw, cuts, fps=fps, above_hz=settings.shake_above_hz,
+                              time_s=uneven)
     t = motion.time_s - motion.time_s[0]
+    t_shake = shake.shake_times(cuts, motion.time_s, fps=fps,
+                                above_hz=settings.shake_above_hz, resampled=uneven is not None)
     fig = _figure(8.0, 10.0)
     axes = fig.subplots(6, 1, sharex=True)
     for j, axis in enumerate(shake.AXES):
@@ -381,9 +397,9 @@ def plot_path(motion: MotionLog, settings: Settings, fps: float) -> bytes:
         _style(ax_path, _AXIS_LABEL[axis])
         ax_path.legend(loc="best", fontsize=8, frameon=False)
         s = shakes[axis]
-        if s is not None and len(s) == len(t):
+        if s is not None and t_shake is not None and len(s) == len(t_shake):
             rms = float(np.sqrt(np.mean(s**2)))
-            ax_shake.plot(t, s, color=INK, linewidth=0.9)
+            ax_shake.plot(t_shake - motion.time_s[0], s, color=INK, linewidth=0.9)
             for sign in (-1, 1):
                 ax_shake.axhline(sign * rms, color=SMOOTH, linewidth=0.9, linestyle="--")
             ax_shake.set_title(f"{_AXIS_TITLE[axis]}: shake above {settings.shake_above_hz:g}"
@@ -406,7 +422,7 @@ def plot_spectrum(motion: MotionLog, settings: Settings, fps: float,
     PNG bytes."""
     raw = similarity_readout(motion.path, motion.centre)
     shakes = shake.axis_shake(raw, motion.status == "cut", fps=fps,
-                              above_hz=settings.shake_above_hz)
+                              above_hz=settings.shake_above_hz, time_s=_uneven_times(motion))
     nyquist = 0.5 * fps
     fig = _figure(8.0, 7.5)
     axes = fig.subplots(3, 1, sharex=True)
@@ -426,8 +442,11 @@ def plot_spectrum(motion: MotionLog, settings: Settings, fps: float,
             ax.semilogy(f, np.maximum(pxx, floor), color=RAW, linewidth=1.3)
             ax.set_ylim(floor, float(pxx.max()) * 30.0)
             placed: list[tuple[float, int]] = []
-            for k, (hz, dens) in enumerate(
-                    shake.spectrum_peaks(f, pxx, settings.shake_above_hz, count=3)):
+            peaks = shake.shake_peaks(shakes[axis], fps, settings.shake_above_hz, count=3)
+            if not peaks:
+                ax.text(0.98, 0.92, "no clear peak", transform=ax.transAxes, ha="right",
+                        va="top", fontsize=8, color=MUTED)
+            for k, (hz, dens) in enumerate(peaks):
                 # Lift a label to the next free row when an earlier one sits close by, so
                 # that neighbouring peaks stay readable.
                 xfrac = hz / nyquist

@@ -42,6 +42,11 @@ tbody tr:last-child td { border-bottom: none; }
 .notes { background: var(--warn-bg); border-left: 4px solid var(--warn-line);
          padding: 0.5rem 1rem; border-radius: 4px; }
 .notes li, .cautions li { margin: 0.3rem 0; }
+.verdict { border-left: 6px solid #8cc084; background: var(--card); padding: 0.4rem 1rem;
+           border-radius: 4px; margin: 0.5rem 0 1rem; }
+.verdict p { margin: 0.3rem 0; }
+.verdict-rough { border-left-color: var(--warn-line); background: var(--warn-bg); }
+.verdict-unreliable { border-left-color: #c8453b; background: #fbe9e7; }
 figure { margin: 1rem 0; background: var(--card); border: 1px solid var(--line);
          border-radius: 8px; padding: 0.5rem; }
 figure img { display: block; width: 100%; height: auto; }
@@ -60,9 +65,10 @@ code { font-size: 0.9em; }
 _PLOT_CAPTIONS = {
     "path_plot": "Camera path against time (where each frame's centre lies relative to the "
                  "first frame) and, under each, its shake: the path minus its slow part.",
-    "spectrum_plot": "Shake spectrum (Welch power spectral density) per axis; the three "
-                     "strongest peaks are labelled. The grey range lies below the shake "
-                     "cut-off; thin lines mark the band edges.",
+    "spectrum_plot": "Shake spectrum (Welch power spectral density) per axis; up to three "
+                     "peaks that clearly stand out of the spectrum's background are "
+                     "labelled (noise and slow drift have none). The grey range lies below "
+                     "the shake cut-off; thin lines mark the band edges.",
     "fit_plot": "Per-frame motion fit: the share of tracked points that agree with the fitted "
                 "motion, and each frame's status.",
     "frames_plot": "A few frames where the shake moved the picture furthest, as shot and (when "
@@ -100,6 +106,16 @@ def _hz(v: Any, resolution_hz: Any) -> str:
     return f"{v:.{decimals}f}\u00a0Hz"
 
 
+def _dominant(s: dict[str, Any], axis: str, suffix: str = "") -> str:
+    """The dominant shake frequency of one axis, or "no clear peak" when the shake was
+    measured but no peak stood out of its spectrum's background."""
+    v = s.get(f"dominant_hz_{axis}{suffix}")
+    unit = shake.axis_unit(axis)
+    if v is None and s.get(f"jitter_rms_{axis}_{unit}{suffix}") is not None:
+        return "no clear peak"
+    return _hz(v, s.get("spectrum_resolution_hz"))
+
+
 def _share(count: Any, total: Any) -> str:
     if not isinstance(count, int) or not isinstance(total, int) or total <= 0:
         return "n/a"
@@ -126,7 +142,6 @@ def _band_label(lo: float, hi: float | None, nyquist: float) -> str:
 
 
 def _figures_section(s: dict[str, Any]) -> str:
-    res = s.get("spectrum_resolution_hz")
     rows = [
         ["RMS", _with(s.get("jitter_rms_x_px"), "px"), _with(s.get("jitter_rms_y_px"), "px"),
          _with(s.get("jitter_rms_rot_deg"), "deg")],
@@ -136,8 +151,7 @@ def _figures_section(s: dict[str, Any]) -> str:
          _with(s.get("jitter_p2p_y_px"), "px"), _with(s.get("jitter_p2p_rot_deg"), "deg")],
         ["peak-to-peak, angle", _with(s.get("jitter_p2p_x_deg"), "deg"),
          _with(s.get("jitter_p2p_y_deg"), "deg"), "—"],
-        ["dominant", _hz(s.get("dominant_hz_x"), res), _hz(s.get("dominant_hz_y"), res),
-         _hz(s.get("dominant_hz_rot"), res)],
+        ["dominant", _dominant(s, "x"), _dominant(s, "y"), _dominant(s, "rot")],
     ]
     if s.get("jitter_rms_x_px_out") is not None or s.get("jitter_rms_rot_deg_out") is not None:
         rows.append(["RMS after steadying (measured on the written video)",
@@ -202,6 +216,26 @@ def _steady_section(s: dict[str, Any]) -> str:
             + _table(["after steadying", "value"], extra))
 
 
+#: What each verdict level says, in plain words.
+_VERDICT_TEXT = {
+    "sound": "nothing found that makes these figures doubtful.",
+    "rough": "treat these figures as rough estimates.",
+    "unreliable": "these figures are not reliable; check the original footage.",
+}
+
+
+def _verdict_section(s: dict[str, Any]) -> str:
+    level = s.get("trust")
+    if not isinstance(level, str):
+        return ""
+    reasons = s.get("trust_reasons") or []
+    items = "".join(f"<li>{escape(str(r))}</li>" for r in reasons)
+    body = f"<ul>{items}</ul>" if items else ""
+    return (f'<section class="verdict verdict-{escape(level)}"><p><strong>Verdict: '
+            f'{escape(level)}</strong> — {escape(_VERDICT_TEXT.get(level, ""))}</p>{body}'
+            "</section>")
+
+
 def _uncertainty_section(s: dict[str, Any], notes: list[str]) -> str:
     n = s.get("frames")
     rows = [
@@ -237,11 +271,17 @@ def render_page(*, name: str, source: dict[str, Any], summary: dict[str, Any], n
     tool_version : the version that wrote the report.
     """
     s = summary
-    res = s.get("spectrum_resolution_hz")
     w, h = source.get("width"), source.get("height")
     fps = s.get("fps") or source.get("fps")
+    nominal = s.get("fps_nominal")
+    rate = f"{fmt_sig(fps, 4)} frames per second"
+    if s.get("timestamps_irregular") and nominal:
+        rate += f" on average, irregular (the container says {fmt_sig(nominal, 4)})"
+    elif isinstance(nominal, int | float) and isinstance(fps, int | float) and \
+            abs(nominal - fps) > 1e-3 * nominal:
+        rate += f" (the container says {fmt_sig(nominal, 4)})"
     duration = source.get("duration_s")
-    sub = (f"{w}×{h} px, {fmt_sig(fps, 4)} frames per second, {s.get('frames')} frames"
+    sub = (f"{w}×{h} px, {rate}, {s.get('frames')} frames"
            + (f", {fmt_sig(duration)} s" if duration else "")
            + (f" — figures from {log_name}" if log_name else ""))
     x_deg = s.get("jitter_rms_x_deg")
@@ -256,12 +296,13 @@ def render_page(*, name: str, source: dict[str, Any], summary: dict[str, Any], n
         _card("vertical shake (RMS)", _with(s.get("jitter_rms_y_px"), "px"),
               "" if s.get("jitter_rms_y_deg") is None else f"{fmt_sig(s['jitter_rms_y_deg'])} deg"),
         _card("rotation shake (RMS)", _with(s.get("jitter_rms_rot_deg"), "deg")),
-        _card("dominant shake frequency", _hz(s.get("dominant_hz_x"), res),
-              f"horizontal; vertical {_hz(s.get('dominant_hz_y'), res)}, rotation "
-              f"{_hz(s.get('dominant_hz_rot'), res)}"),
+        _card("dominant shake frequency", _dominant(s, "x"),
+              f"horizontal; vertical {_dominant(s, 'y')}, rotation {_dominant(s, 'rot')}"),
         _card("weak or failed frames", f"{100.0 * uncertain:.1f} %",
               f"{s.get('frames_weak', 0)} weak, {s.get('frames_failed', 0)} failed"),
     ])
+    shown = set(s.get("trust_reasons") or [])
+    other_notes = [n for n in notes if n not in shown]
     plots = "".join(
         f'<figure><img alt="{escape(role.replace("_", " "))}" '
         f'src="data:image/png;base64,{base64.b64encode(data).decode("ascii")}">'
@@ -286,8 +327,9 @@ def render_page(*, name: str, source: dict[str, Any], summary: dict[str, Any], n
 <h1>Shake report: {escape(name)}</h1>
 <p class="sub">{escape(sub)}</p>
 </header>
+{_verdict_section(s)}
 <section><h2>Key figures</h2><div class="cards">{cards}</div></section>
-<section><h2>How certain these figures are</h2>{_uncertainty_section(s, notes)}</section>
+<section><h2>How certain these figures are</h2>{_uncertainty_section(s, other_notes)}</section>
 <section><h2>Shake per axis</h2>
 <p>Shake is the camera path's motion above {_with(s.get("shake_above_hz"), "Hz")}: the path minus
 its slow, deliberate part; x is horizontal, y vertical. {fov_text}</p>
@@ -299,7 +341,10 @@ unless the cut-off is lowered.</p>
 {_bands_section(s)}</section>
 <section><h2>Steadiness</h2>
 <p>Stability: the share of the per-frame motion's spectral energy at the lowest frequencies
-(after Liu, Yuan, Tan and Sun, SIGGRAPH 2013); 1 means steady.</p>
+(after Liu, Yuan, Tan and Sun, SIGGRAPH 2013); 1 means steady. Scene cuts and frames with a
+stand-in motion are left out, and motion no larger than the measurement's own noise
+({_with(s.get("motion_noise_px"), "px")} per frame) counts as steady. It says how smooth the
+motion is, not how large: see the shake figures for that.</p>
 {_steady_section(s)}</section>
 <section><h2>Plots</h2>{plots}</section>
 <section><h2>Settings used</h2>{_table(["setting", "value"], settings_rows)}</section>

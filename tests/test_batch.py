@@ -69,11 +69,16 @@ def test_batch_failed_row_resume_force(folder, tmp_path):
         assert rows[label]["frames"] == "16"
         assert float(rows[label]["jitter_rms_x_px"]) >= 0
         assert rows[label]["video"] == f"{stem}.steady.mp4"
+        assert rows[label]["trust"] in ("sound", "rough", "unreliable")
+        doc_summary = json.loads((out / f"{stem}.motion.json").read_text())["summary"]
+        assert rows[label]["trust"] == doc_summary["trust"]
+        assert rows[label]["trust_reasons"] == "; ".join(doc_summary["trust_reasons"])
         assert (out / f"{stem}.steady.mp4").is_file() and (out / f"{stem}.report.html").is_file()
         doc = json.loads((out / f"{stem}.motion.json").read_text())
         assert doc["source"]["size_bytes"] > 0 and doc["source"]["mtime_ns"] > 0
     page = (out / "summary.html").read_text()
     assert 'href="sub/B.report.html"' in page and "<script" not in page
+    assert "<th>verdict</th>" in page
 
     t0 = time.monotonic()
     again = run("batch", str(folder), "--out-dir", str(out), "--workers", "2", "--quiet")
@@ -81,6 +86,7 @@ def test_batch_failed_row_resume_force(folder, tmp_path):
     assert again.returncode == 3
     rows = _rows(out)
     assert [rows[k]["status"] for k in ("a.mp4", "sub/B.MOV", "sub/a.mp4")] == ["skipped"] * 3
+    assert all(rows[k]["trust"] for k in ("a.mp4", "sub/B.MOV", "sub/a.mp4"))
     assert t_again < 0.5 * t_first, (t_first, t_again)
 
     # A changed source is redone; --force redoes everything.

@@ -56,6 +56,8 @@ def test_measure_prints_a_summary_and_writes_the_log(clip, tmp_path):
     assert proc.returncode == 0, proc.stderr
     assert "shake x" in proc.stdout and "deg" in proc.stdout
     assert out.is_file() and out.with_suffix(".json").is_file()
+    trust = json.loads(out.with_suffix(".json").read_text())["summary"]["trust"]
+    assert f"verdict: {trust}" in proc.stdout
     header = out.read_text().splitlines()[0]
     assert header.startswith("frame,time_s,h11")
     row = out.read_text().splitlines()[2].split(",")
@@ -114,3 +116,21 @@ def test_demo_runs_and_says_where_the_outputs_are(tmp_path):
     summary = json.loads(next(p for p in outs if p.suffix == ".json").read_text())["summary"]
     assert summary["frames_failed"] == 0
     assert np.isfinite(summary["jitter_rms_x_px"])
+
+
+def test_the_printout_says_no_clear_peak_the_real_rate_and_the_verdict(capsys):
+    from stabilize.cli import _print_summary
+
+    summary = {"frames": 68, "frames_weak": 0, "frames_failed": 0, "cuts": 0, "fps": 2.27,
+               "fps_nominal": 15.0, "timestamps_irregular": True, "nyquist_hz": 1.135,
+               "shake_above_hz": 1.0, "jitter_rms_x_px": 0.5, "dominant_hz_x": None,
+               "jitter_rms_y_px": 0.4, "dominant_hz_y": 3.25, "jitter_rms_rot_deg": None,
+               "dominant_hz_rot": None, "trust": "rough",
+               "trust_reasons": ["The frame times are irregular."]}
+    _print_summary(summary)
+    out = capsys.readouterr().out
+    lines = {ln.split()[1] if ln.startswith("shake") else ln: ln for ln in out.splitlines()}
+    assert "no clear peak" in lines["x"] and "3.25 Hz" in lines["y"]
+    assert "no clear peak" not in lines["rotation"]  # no shake measured: nothing to say
+    assert "2.27 fps on average, irregular times (container: 15.0 fps)" in out
+    assert "verdict: rough" in out and "  - The frame times are irregular." in out

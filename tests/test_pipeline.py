@@ -165,3 +165,29 @@ def test_tiny_clip_passes_through(tmp_path):
     log = stabilize.steady(tiny)
     assert (log.status == "failed").all() and log.frames == 6
     assert (tmp_path / "tiny.steady.mp4").is_file()
+
+
+def test_irregular_frame_times_are_summarised_in_real_time_with_a_warning(caplog):
+    """Frames 0.33-0.73 s apart in a container that says 15 fps: the job warns and gives the
+    real mean rate, and the verdict says why the figures are rough."""
+    from stabilize import pipeline
+    from stabilize.config import Settings
+    from stabilize.log import MotionLog
+
+    n = 80
+    t = np.r_[0.0, np.cumsum(np.random.default_rng(8).uniform(0.33, 0.73, n - 1))]
+    h = np.repeat(np.eye(3)[None], n, axis=0)
+    h[1:, 0, 2] = 0.4 * np.sin(np.arange(1, n))
+    motion = MotionLog(time_s=t, matrices=h, tracked=np.full(n, 300), inliers=np.full(n, 250),
+                       inlier_ratio=np.full(n, 250 / 300), rms_px=np.full(n, 0.2),
+                       rounds=np.full(n, 30), status=np.array(["ok"] * n),
+                       source={"path": "late.avi", "width": 320, "height": 240, "fps": 15.0,
+                               "frames": n}, settings=Settings().to_dict())
+    with caplog.at_level("WARNING", logger="stabilize"):
+        pipeline._summarise(motion, Settings(shake_above_hz=0.5), 15.0)
+    rate = (n - 1) / (t[-1] - t[0])
+    s = motion.summary
+    assert s["fps"] == pytest.approx(rate) and s["fps_nominal"] == 15.0
+    assert s["timestamps_irregular"] is True and s["trust"] == "rough"
+    warned = [r.getMessage() for r in caplog.records if r.levelname == "WARNING"]
+    assert len(warned) == 1 and "late.avi" in warned[0] and f"{rate:.3g} fps" in warned[0]

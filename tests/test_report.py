@@ -205,3 +205,32 @@ def test_the_page_in_a_real_browser(sine_report, tmp_path):
         assert not_white > 0.05, not_white  # text, cards and plots, not a blank page
         assert colours > 500, colours  # the plots' anti-aliased lines, not flat fills
         shot.unlink()
+
+
+def test_a_static_shot_at_irregular_times_reads_as_such(tmp_path):
+    """A locked-off camera (the motion is measurement noise) whose frame times are irregular
+    (about 2.3 fps in a container that says 15): no clear peak, steady, real time."""
+    rng = np.random.default_rng(4)
+    n = 120
+    t = np.r_[0.0, np.cumsum(rng.uniform(0.33, 0.73, n - 1))]
+    h = np.repeat(np.eye(3)[None], n, axis=0)
+    h[1:, :2, 2] = rng.normal(0.0, 0.003, (n - 1, 2))
+    status = np.array(["ok"] * n)
+    log = MotionLog(time_s=t, matrices=h, tracked=np.full(n, 900), inliers=np.full(n, 800),
+                    inlier_ratio=np.full(n, 800 / 900), rms_px=np.full(n, 0.1),
+                    rounds=np.full(n, 20), status=status,
+                    source={"path": str(tmp_path / "gone.avi"), "width": 320, "height": 240,
+                            "fps": 15.0, "frames": n},
+                    settings=Settings(shake_above_hz=0.5).to_dict())
+    csv_path, _ = log.save(tmp_path / "still.motion.csv")
+    rep = make_report(csv_path, tmp_path / "out")
+    s = json.loads(rep.outputs["json"].read_text())["summary"]
+    assert s["fps"] == pytest.approx((n - 1) / (t[-1] - t[0]))
+    assert s["fps_nominal"] == 15.0 and s["timestamps_irregular"] is True
+    assert s["nyquist_hz"] == pytest.approx(s["fps"] / 2)
+    assert [s[f"dominant_hz_{a}"] for a in ("x", "y", "rot")] == [None, None, None]
+    assert s["stability_translation"] == 1.0
+    assert s["trust"] == "rough" and "irregular" in s["trust_reasons"][0]
+    html = rep.outputs["html"].read_text()
+    assert "Verdict: rough" in html and "no clear peak" in html
+    assert "irregular (the container says 15.00)" in html

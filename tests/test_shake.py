@@ -9,17 +9,23 @@ import stabilize
 from stabilize.log import frame_centre, similarity_readout
 from stabilize.path import accumulate, from_similarity
 from stabilize.shake import (
+    NOISE_FLOOR_PX,
     SHAKE_BANDS_HZ,
     band_key,
     band_powers,
     correction_figures,
     dominant_hz,
+    frame_rate,
     path_figures,
+    peak_to_peak,
+    resample_even,
     shake_component,
+    shake_peaks,
     shake_spectrum,
-    spectrum_peaks,
     stability,
     summarise,
+    timestamps_irregular,
+    trust_verdict,
     uncertainty_notes,
 )
 from stabilize.synth import MotionSpec, SceneSpec, ShakeSpec, Sinusoid, SyntheticClip
@@ -122,14 +128,16 @@ def test_bands_above_nyquist_cannot_be_measured():
     assert band_powers(None, fps) == [None] * len(SHAKE_BANDS_HZ)
 
 
-def test_spectrum_peaks_label_both_tones():
+def test_shake_peaks_label_both_tones():
     fps = 30.0
     t = np.arange(600) / fps
-    x = 2.0 * np.sin(2 * np.pi * 3.5 * t) + 1.0 * np.sin(2 * np.pi * 9.0 * t)
+    rng = np.random.default_rng(0)
+    x = (2.0 * np.sin(2 * np.pi * 3.5 * t) + 1.0 * np.sin(2 * np.pi * 9.0 * t)
+         + 0.1 * rng.normal(size=len(t)))
+    peaks = shake_peaks(x, fps, 1.0, count=3)
+    assert [round(hz, 1) for hz, _ in peaks] == [3.5, 9.0]  # and nothing else
     f, pxx = shake_spectrum(x, fps)
-    peaks = spectrum_peaks(f, pxx, 1.0, count=3)
-    assert peaks[0][0] == pytest.approx(3.5, abs=0.1)
-    assert any(abs(hz - 9.0) < 0.1 for hz, _ in peaks[1:])
+    assert peaks[0][1] == pytest.approx(pxx.max())
 
 
 def test_notes_say_when_the_figures_are_uncertain():
@@ -179,3 +187,242 @@ def test_shake_of_an_encoded_clip_matches_the_ground_truth(f_hz, tmp_path):
     f_px = 160.0 / math.tan(math.radians(fov / 2))
     assert s["jitter_rms_x_deg"] == pytest.approx(
         math.degrees(math.atan(s["jitter_rms_x_px"] / f_px)))
+
+
+# ------------------------------------------------------------------ real time
+def _irregular_times(n, lo_s, hi_s, seed=0):
+    """Frame times whose intervals are drawn evenly between ``lo_s`` and ``hi_s``."""
+    dt = np.random.default_rng(seed).uniform(lo_s, hi_s, size=n - 1)
+    return np.r_[0.0, np.cumsum(dt)]
+
+
+def test_frame_rate_is_the_mean_rate_of_the_timestamps():
+    regular = np.arange(300) / 30.0
+    assert frame_rate(regular, 30.0) == 30.0  # the container's rate, when the times agree
+    assert frame_rate(regular, 25.0) == pytest.approx(30.0, rel=1e-9)  # a wrong container
+    assert not timestamps_irregular(regular)
+    # Intervals of 0.33-0.73 s, as in a clip whose container says 15 fps.
+    t = _irregular_times(68, 0.33, 0.73)
+    assert frame_rate(t, 15.0) == pytest.approx(67 / (t[-1] - t[0]), rel=1e-12)
+    assert 1.8 < frame_rate(t, 15.0) < 2.6
+    assert timestamps_irregular(t)
+    # Two frames' times swapped: one step backwards does not change the rate.
+    swapped = regular.copy()
+    swapped[[100, 101]] = swapped[[101, 100]]
+    assert np.diff(swapped).min() < 0
+    assert frame_rate(swapped, 25.0) == pytest.approx(30.0, rel=1e-9)
+    assert not timestamps_irregular(swapped)
+    # One gap of two seconds (frames missing) is not part of the rate.
+    gap = np.r_[np.arange(100) / 25.0, 6.0 + np.arange(100) / 25.0]
+    assert frame_rate(gap, 30.0) == pytest.approx(25.0, rel=1e-9)
+    assert not timestamps_irregular(gap)
+    assert frame_rate(np.array([0.0]), 24.0) == 24.0  # nothing to go by
+
+
+def test_resample_even_puts_a_series_on_an_even_grid():
+    t = _irregular_times(200, 0.05, 0.25, seed=3)
+    grid, v = resample_even(t, 2.0 * t + 1.0, 5.0)
+    assert np.allclose(np.diff(grid), 0.2) and grid[0] == t[0] and grid[-1] <= t[-1]
+    assert np.allclose(v, 2.0 * grid + 1.0)  # a straight line is interpolated exactly
+
+
+def _path_from_x(x, y=None):
+    zero = np.zeros_like(x)
+    y = zero if y is None else y
+    return from_similarity(np.stack([x, y, zero, zero], axis=1), frame_centre(640, 360))
+
+
+def test_irregular_clip_is_measured_in_real_time():
+    """A 1.5 Hz shake sampled at irregular times (mean 6 fps) in a container that says
+    15 fps: at 15 fps it would read 3.75 Hz, above the real Nyquist frequency."""
+    t = _irregular_times(361, 0.1, 0.2333, seed=1)
+    rate = 360 / (t[-1] - t[0])
+    p = _path_from_x(3.0 * np.sin(2 * np.pi * 1.5 * t) + 4.0 * t)
+    h = np.repeat(np.eye(3)[None], len(p), axis=0)
+    s = summarise(matrices=h, path=p, status=np.array(["ok"] * len(p)), fps=15.0,
+                  width=640, height=360, above_hz=0.5, fov_deg=None, time_s=t)
+    assert s["fps"] == pytest.approx(rate) and s["fps_nominal"] == 15.0
+    assert s["timestamps_irregular"] is True
+    assert s["nyquist_hz"] == pytest.approx(rate / 2)
+    assert s["dominant_hz_x"] == pytest.approx(1.5, abs=0.1)
+    # The spline through the frames keeps a 1.5 Hz sine at about 6 samples per second
+    # (straight lines between them lost a fifth of it).
+    assert s["jitter_rms_x_px"] == pytest.approx(3.0 / math.sqrt(2), rel=0.04)
+    assert s["jitter_p2p_x_px"] == pytest.approx(6.0, rel=0.04)
+    assert s["trust"] == "rough"
+    assert any("irregular" in r and "15 fps" in r for r in s["trust_reasons"])
+    # The same frames taken as evenly spaced at the container's rate read wrong.
+    wrong = summarise(matrices=h, path=p, status=np.array(["ok"] * len(p)), fps=15.0,
+                      width=640, height=360, above_hz=0.5, fov_deg=None)
+    assert wrong["dominant_hz_x"] == pytest.approx(1.5 * 15.0 / rate, abs=0.15)
+
+
+# -------------------------------------------------------------- dominant peak
+@pytest.mark.parametrize("fps, seconds", [(30.0, 10.0), (25.0, 60.0), (10.0, 120.0)])
+def test_noise_and_drift_have_no_dominant_frequency(fps, seconds):
+    n = int(fps * seconds)
+    found = {"white": 0, "random walk": 0, "double random walk": 0}
+    for seed in range(20):
+        rng = np.random.default_rng([seed, n])
+        series = {"white": rng.normal(size=n), "random walk": np.cumsum(rng.normal(size=n)),
+                  "double random walk": np.cumsum(np.cumsum(rng.normal(size=n)))}
+        for name, x in series.items():
+            found[name] += dominant_hz(shake_component(x, fps, 1.0), fps, 1.0) is not None
+    # The test's false-alarm probability is 1 % per series; allow one in twenty.
+    assert all(v <= 1 for v in found.values()), found
+
+
+def test_the_filter_edge_is_no_peak():
+    """Below 1.44 × the cut-off the filter's roll-off shapes a hump out of drift; a peak is
+    not looked for there, and the hump of a strong random walk is not reported."""
+    fps = 30.0
+    x = np.cumsum(np.random.default_rng(5).normal(size=9000))  # 5 minutes of drift
+    s = shake_component(x, fps, 1.0)
+    f, pxx = shake_spectrum(s, fps)
+    hump = f[np.argmax(pxx)]
+    assert 1.0 < hump < 1.44  # the roll-off's hump, found by the old rule
+    assert shake_peaks(s, fps, 1.0) == []
+
+
+# A clip under 8 s has one Welch segment (ν = 2): its sine must stand further out of the noise.
+@pytest.mark.parametrize("f_hz, seconds, amp", [(4.0, 10.0, 2.0), (4.0, 60.0, 0.7),
+                                                (2.2, 30.0, 1.0), (9.5, 30.0, 1.0)])
+def test_a_sinusoid_over_noise_is_found(f_hz, seconds, amp):
+    fps = 30.0
+    t = np.arange(int(fps * seconds)) / fps
+    for seed in range(10):
+        rng = np.random.default_rng(seed)
+        x = (amp * np.sin(2 * np.pi * f_hz * t + rng.uniform(0, 6)) + rng.normal(size=len(t))
+             + 0.3 * np.cumsum(rng.normal(size=len(t))))
+        assert dominant_hz(shake_component(x, fps, 1.0), fps, 1.0) == pytest.approx(
+            f_hz, abs=0.1)
+
+
+def test_a_static_shot_has_no_peak_and_is_steady():
+    """A locked-off camera: the per-frame motion is measurement noise only, so its path is
+    a random walk of tiny steps."""
+    fps, n = 10.0, 800
+    rng = np.random.default_rng(2)
+    h = np.repeat(np.eye(3)[None], n, axis=0)
+    h[1:, 0, 2] = rng.normal(0.0, 0.002, n - 1)
+    h[1:, 1, 2] = rng.normal(0.0, 0.002, n - 1)
+    a = rng.normal(0.0, 2e-6, n - 1)
+    h[1:, 0, 0] = h[1:, 1, 1] = np.cos(a)
+    h[1:, 1, 0], h[1:, 0, 1] = np.sin(a), -np.sin(a)
+    status = np.array(["ok"] * n)
+    from stabilize.path import accumulate
+
+    p = accumulate(h, status == "cut")
+    s = summarise(matrices=h, path=p, status=status, fps=fps, width=768, height=576,
+                  above_hz=1.0, fov_deg=None, rms_px=np.full(n, 0.08),
+                  inliers=np.full(n, 1400))
+    assert [s[f"dominant_hz_{a}"] for a in ("x", "y", "rot")] == [None, None, None]
+    assert s["jitter_rms_x_px"] > 0
+    assert s["stability_translation"] == 1.0 and s["stability_rotation"] == 1.0
+    assert s["motion_noise_px"] == NOISE_FLOOR_PX  # 0.08 / sqrt(2800) is below the floor
+    assert s["trust"] == "sound" and s["trust_reasons"] == []
+    # Without the noise test the same motion scores as very unsteady.
+    dx = similarity_readout(h, frame_centre(768, 576))[1:, 0]
+    assert stability(dx) < 0.05
+
+
+# ------------------------------------------------------------------ stability
+def _moving_log(n=600, fps=30.0):
+    """Per-frame motion of a slow sway (steady in the score's sense), as transforms."""
+    t = np.arange(n) / fps
+    h = np.repeat(np.eye(3)[None], n, axis=0)
+    h[1:, 0, 2] = 2.0 * np.sin(2 * np.pi * 0.1 * t[1:])
+    h[1:, 1, 2] = 1.5 * np.cos(2 * np.pi * 0.1 * t[1:])
+    return h
+
+
+def test_stability_leaves_out_cuts_and_stand_ins():
+    h = _moving_log()
+    n = len(h)
+    status = np.array(["ok"] * n, dtype="<U6")
+    status[[200, 400]] = "cut"
+    status[300:305] = "failed"
+    h[200, 0, 2], h[400, 1, 2] = 300.0, -250.0  # motion across a cut is no camera motion
+    h[300:305, 0, 2] = 40.0  # a bad stand-in
+    from stabilize.path import accumulate
+
+    p = accumulate(h, status == "cut")
+    s = summarise(matrices=h, path=p, status=status, fps=30.0, width=640, height=360,
+                  above_hz=1.0, fov_deg=None)
+    keep = np.ones(n, dtype=bool)
+    keep[[0, 200, 400]] = False
+    keep[300:305] = False
+    dxy = similarity_readout(h, frame_centre(640, 360))[keep]
+    assert s["stability_translation"] == pytest.approx(
+        min(stability(dxy[:, 0]), stability(dxy[:, 1])))
+    assert s["stability_translation"] > 0.9
+    assert stability(similarity_readout(h, frame_centre(640, 360))[:, 0]) < 0.5  # all frames
+
+
+def test_stability_of_the_output_is_not_spoilt_by_cuts():
+    """A steadied clip with cuts: the output's motion across a cut is no shake."""
+    h = _moving_log()
+    n = len(h)
+    status = np.array(["ok"] * n, dtype="<U6")
+    status[300] = "cut"
+    h[300, 0, 2] = 200.0
+    from stabilize.path import accumulate
+
+    p = accumulate(h, status == "cut")
+    s = summarise(matrices=h, path=p, status=status, fps=30.0, width=640, height=360,
+                  above_hz=1.0, fov_deg=None, corrections=p,
+                  smooth_readout=np.zeros((n, 4)))
+    # C_t = P_t holds every frame at its shot's first: the output does not move at all.
+    assert s["stability_translation_out"] == 1.0
+    assert s["stability_translation_in"] > 0.9
+
+
+# -------------------------------------------------------------- peak-to-peak
+def test_peak_to_peak_leaves_out_the_filter_ends():
+    fps = 30.0
+    t = np.arange(300) / fps
+    x = 2.0 * np.sin(2 * np.pi * 3.5 * t) + 3.0 * t**2  # an accelerating pan
+    s = shake_component(x, fps, 1.0)
+    assert np.ptp(s) > 4.2  # the ends ring: 2.0 amplitude reads as more than 4.2
+    assert peak_to_peak([s], fps, 1.0) == pytest.approx(4.0, rel=0.03)
+    fig = _summary_of(_path_from_x(x))
+    assert fig["jitter_p2p_x_px"] == pytest.approx(4.0, rel=0.03)
+    short = s[:100]  # shorter than 4 s: counted whole
+    assert peak_to_peak([short], fps, 1.0) == pytest.approx(np.ptp(short))
+
+
+# -------------------------------------------------------------------- verdict
+def test_verdict_levels_and_reasons():
+    base = {"frames": 100, "frames_weak": 0, "frames_failed": 0}
+    assert trust_verdict(base) == {"trust": "sound", "trust_reasons": []}
+    assert trust_verdict(base | {"frames_weak": 15})["trust"] == "rough"
+    assert trust_verdict(base | {"frames_weak": 20, "frames_failed": 15})["trust"] == \
+        "unreliable"
+    fg = trust_verdict(base | {"frames_foreground": 12})
+    assert fg["trust"] == "rough" and "moving object" in fg["trust_reasons"][0]
+    plain = trust_verdict(base | {"frames_textureless": 40})
+    assert plain["trust"] == "unreliable" and "texture" in plain["trust_reasons"][0]
+    assert trust_verdict(base | {"output_steadier": True})["trust"] == "sound"
+    out = trust_verdict(base | {"output_steadier": False})
+    assert out["trust"] == "rough" and "no steadier" in out["trust_reasons"][0]
+    both = trust_verdict(base | {"frames_failed": 40, "output_steadier": False,
+                                 "timestamps_irregular": True, "fps": 2.3,
+                                 "fps_nominal": 15.0})
+    assert both["trust"] == "unreliable" and len(both["trust_reasons"]) == 3
+
+
+def test_reasons_are_counted_and_the_notes_repeat_the_verdict():
+    p = _sine_path(3.5, 4.0)
+    n = len(p)
+    reasons = np.array([""] * n, dtype="<U12")
+    reasons[:40] = "foreground"
+    reasons[40:45] = "textureless"
+    reasons[45:50] = "few_inliers"
+    h = np.repeat(np.eye(3)[None], n, axis=0)
+    s = summarise(matrices=h, path=p, status=np.array(["ok"] * n), fps=30.0, width=640,
+                  height=360, above_hz=1.0, fov_deg=90.0, reasons=reasons)
+    assert s["frames_foreground"] == 40 and s["frames_textureless"] == 5
+    assert s["trust"] == "rough"
+    notes = uncertainty_notes(s)
+    assert notes[:len(s["trust_reasons"])] == s["trust_reasons"]
+    assert "frames_foreground" not in _summary_of(p)  # unknown without the analysis' word
