@@ -66,6 +66,9 @@ GROUP_SHARE = 0.5
 # frame's corners (full-resolution pixels): below it the revision is noise, and it was
 # fitted on fewer tracks. This project's choice.
 REVISE_PX = 0.05
+# ... and only when the tracks it keeps fit it with at most this share of the median
+# residual they had under the first fit (this project's choice).
+REVISE_GAIN = 0.7
 
 #: Why a frame is weak or failed, as logged in the ``reason`` column.
 REASONS = {
@@ -491,7 +494,8 @@ class _Pass:
             slot = self._older_slot(time_s)
             then = memo[grouping.moved, 2 * slot:2 * slot + 2]
             where = np.concatenate([dst[grouping.moved], then[np.isfinite(then[:, 0])]])
-            self._hindsight(pairs.ids[grouping.moved], object_mask(where, (fw, fh)))
+            self._hindsight(pairs.ids[grouping.scene], pairs.ids[grouping.moved],
+                            object_mask(where, (fw, fh)))
         # Re-base a baseline slot every half baseline: the older one goes.
         half = 0.5 * base.baseline_s
         newest = max((s for s in self.slot_s if math.isfinite(s)), default=-math.inf)
@@ -523,10 +527,12 @@ class _Pass:
             self.recent.popleft()
         return record
 
-    def _hindsight(self, moved_ids: np.ndarray, region: np.ndarray) -> None:
-        """Fit again the recent frames that used tracks now found to move on their own, or
-        tracks inside the region the moving group covered (``region``, from
-        :func:`object_mask`: tracks on an object are lost and found again under new names).
+    def _hindsight(self, scene_ids: np.ndarray, moved_ids: np.ndarray,
+                   region: np.ndarray) -> None:
+        """Fit again, on the tracks now known to be the scene (``scene_ids``) alone, the
+        recent frames that used tracks now found to move on their own, or tracks inside the
+        region the moving group covered (``region``, from :func:`object_mask`: tracks on an
+        object are lost and found again under new names).
 
         An object that starts to move drags the first frames' fits a little before its
         motion over the baseline gives it away; those frames are refitted without it.
@@ -541,14 +547,23 @@ class _Pass:
             hit = r.used & (np.isin(r.ids, moved_ids) | in_mask(region, r.dst))
             if not hit.any():
                 continue
-            keep = r.used & ~hit
+            keep = r.used & ~hit & np.isin(r.ids, scene_ids)
             if keep.sum() < base.min_group or hull_share(r.dst[keep], (fw, fh)) < 0.02:
                 continue
             fit = fit_frame(r.src[keep], r.dst[keep], r.background[keep], settings=settings,
                             seed=[settings.seed, r.index, 1], prior=r.record.matrix,
                             frame_size=(fw, fh))
-            if fit.ok and not fit.weak and corner_shift(fit.matrix, r.record.matrix,
-                                                         (fw, fh)) > REVISE_PX:
+            # A slow object drags a fit by a fraction of the threshold; a faster one was
+            # parted from the scene by the frame's own consensus already.
+            shift = corner_shift(fit.matrix, r.record.matrix, (fw, fh))
+            if not fit.ok or fit.weak or not REVISE_PX < shift <= settings.inlier_px:
+                continue
+            # The tracks kept must fit the revision clearly better than the first fit (which
+            # a moving object dragged away from them); otherwise what is left is another
+            # motion of its own, not the scene.
+            before = np.median(transfer_error(r.record.matrix, r.src[keep], r.dst[keep]))
+            after = np.median(transfer_error(fit.matrix, r.src[keep], r.dst[keep]))
+            if after <= REVISE_GAIN * before:
                 r.record.matrix = fit.matrix
                 r.used = keep
 

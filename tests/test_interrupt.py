@@ -108,7 +108,9 @@ def test_interrupted_steady_leaves_nothing(clip, tmp_path, sig, stage):
             proc.kill()
             proc.wait()
     assert proc.returncode == 130, err
-    lines = [ln for ln in err.splitlines() if ln.strip()]
+    # Warnings about the clip itself (weak frames of the moving test pattern) may come first.
+    lines = [ln for ln in err.splitlines()
+             if ln.strip() and not ln.startswith("stabilize: warning:")]
     assert lines == ["stabilize: interrupted; no partial outputs were left"], err
     assert sorted(p.name for p in work.iterdir()) == [src.name]
     assert src.read_bytes() == before
