@@ -14,9 +14,11 @@ chosen before, so a wrong choice does not feed on itself.
 
 Points and thresholds are in full-resolution pixels; times in seconds of the clip's own
 timestamps. The per-track record (kept by the tracker, :attr:`stabilize.track.Pairs.memo`)
-is six numbers: the position at baseline 0 (x, y) and at baseline 1 (x, y), NaN for a track
-that did not exist then; the time the track was first seen or last moved on its own; and
-how many times it moved on its own.
+is seven numbers: the position at baseline 0 (x, y) and at baseline 1 (x, y), NaN for a
+track that did not exist then; the time the track was first seen or last moved on its own;
+how many times it moved on its own; and whether it has yet been found in the scene's group
+(*proven*: while objects move about, tracks new to the picture, most of them on the moving
+objects that keep turning and showing new corners, wait until they are).
 """
 
 from __future__ import annotations
@@ -26,11 +28,11 @@ from dataclasses import dataclass
 import cv2
 import numpy as np
 
-__all__ = ["BaselineSettings", "Grouping", "age_share", "first_seen", "hull_share", "rebase",
-           "strike", "trust", "WIDTH"]
+__all__ = ["BaselineSettings", "Grouping", "age_share", "first_seen", "hull_share", "prove",
+           "proven", "rebase", "strike", "trust", "WIDTH"]
 
-WIDTH = 6
-SINCE_S, STRIKES = 4, 5
+WIDTH = 7
+SINCE_S, STRIKES, PROVEN = 4, 5, 6
 
 
 @dataclass(frozen=True)
@@ -94,7 +96,20 @@ def first_seen(memo: np.ndarray, prev_s: float) -> np.ndarray:
     new = ~np.isfinite(out[:, SINCE_S])
     out[new, SINCE_S] = prev_s
     out[new, STRIKES] = 0.0
+    out[new, PROVEN] = 0.0
     return out
+
+
+def prove(memo: np.ndarray, scene: np.ndarray) -> np.ndarray:
+    """Records with the tracks in ``scene`` marked as found in the scene's group."""
+    out = np.array(memo, dtype=np.float64, copy=True)
+    out[scene, PROVEN] = 1.0
+    return out
+
+
+def proven(memo: np.ndarray) -> np.ndarray:
+    """Whether each track has been found in the scene's group (k,) bool."""
+    return np.nan_to_num(memo[:, PROVEN]) > 0
 
 
 def strike(memo: np.ndarray, moved: np.ndarray, now_s: float) -> np.ndarray:

@@ -473,7 +473,14 @@ class _Pass:
         suspect = ~anchors.trust(memo, time_s, base)
         if grouping is not None:
             suspect |= grouping.moved
+            memo = anchors.prove(memo, grouping.scene)
         use = ~suspect
+        if suspect.any():
+            # Objects are about: tracks new to the picture wait until the scene's group
+            # takes them in, if enough of the scene is left without them.
+            sure = use & anchors.proven(memo)
+            if sure.sum() >= base.min_group and hull_share(dst[sure], (fw, fh)) >= 0.1:
+                use = sure
         ambiguous = False
         if suspect.any() and (use.sum() < base.min_group
                               or hull_share(dst[use], (fw, fh)) < 0.02):
@@ -556,7 +563,7 @@ class _Pass:
             # A slow object drags a fit by a fraction of the threshold; a faster one was
             # parted from the scene by the frame's own consensus already.
             shift = corner_shift(fit.matrix, r.record.matrix, (fw, fh))
-            if not fit.ok or fit.weak or not REVISE_PX < shift <= settings.inlier_px:
+            if not fit.ok or fit.weak or not REVISE_PX < shift <= 2.0 * settings.inlier_px:
                 continue
             # The tracks kept must fit the revision clearly better than the first fit (which
             # a moving object dragged away from them); otherwise what is left is another

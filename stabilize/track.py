@@ -156,7 +156,7 @@ class Pairs:
 
 
 #: Columns of the per-track record a caller may keep in the tracker (see :class:`Pairs`).
-MEMO_WIDTH = 6
+MEMO_WIDTH = 7
 
 
 def _empty_pairs() -> Pairs:
