@@ -411,12 +411,14 @@ class _Pass:
         # Frames from this index on are this pass's own to revise (see _hindsight).
         self.owned_from = 0
         self.recent: deque[_Recent] = deque()
+        self.begin_s = 0.0
         # Baseline slot times (seconds; NaN: not based yet) and the slot to re-base next.
         self.slot_s = [math.nan, math.nan]
 
     def begin(self, image: np.ndarray, time_s: float, index: int) -> None:
         self.tracker.step(image)
         self.prev_s = time_s
+        self.begin_s = time_s
         self.started_at = index
         self.steps = 0
 
@@ -530,8 +532,11 @@ class _Pass:
                          "few_inliers" if fit.weak else "")
         self.recent.append(_Recent(index, time_s, src, dst, pairs.ids, pairs.background,
                                    use, record))
-        while self.recent and self.recent[0].time_s < time_s - 2.0 * base.baseline_s:
-            self.recent.popleft()
+        # The last second's fits are kept for revision; over the first three seconds of a
+        # pass, all of them (its first frames have no baseline at all).
+        if time_s - self.begin_s > 6.0 * base.baseline_s:
+            while self.recent and self.recent[0].time_s < time_s - 2.0 * base.baseline_s:
+                self.recent.popleft()
         return record
 
     def _hindsight(self, scene_ids: np.ndarray, moved_ids: np.ndarray,
