@@ -69,6 +69,8 @@ REVISE_PX = 0.05
 # ... and only when the tracks it keeps fit it with at most this share of the median
 # residual they had under the first fit (this project's choice).
 REVISE_GAIN = 0.7
+# A frame is refitted at most this many times while objects go on moving (cost).
+REVISE_ATTEMPTS = 8
 
 #: Why a frame is weak or failed, as logged in the ``reason`` column.
 REASONS = {
@@ -220,6 +222,19 @@ def fit_frame(src: np.ndarray, dst: np.ndarray, background: np.ndarray, *,
             best, score = dataclasses.replace(r, inliers=inl, rms_px=float(
                 np.sqrt(np.mean(err[inl] ** 2)))), s
     return dataclasses.replace(best, rounds=rounds)
+
+
+def refit(src: np.ndarray, dst: np.ndarray, *, settings: Settings, seed: list[int],
+          prior: np.ndarray, frame_size: tuple[int, int]) -> FrameFit:
+    """A plain consensus fit from a starting guess, refitted to the tracking noise: the fit
+    of a frame whose pairs are already known to be the scene's."""
+    kw = dict(model=settings.model, inlier_px=settings.inlier_px,
+              confidence=settings.confidence, max_rounds=settings.max_rounds,
+              frame_size=frame_size)
+    fit = estimate(src, dst, seed=seed, prior=prior, **kw)
+    first = FrameFit(np.asarray(fit.matrix, float), np.asarray(fit.inliers, bool),
+                     float(fit.rms_px), int(fit.rounds), bool(fit.ok), bool(fit.weak))
+    return _noise_adaptive_refit(src, dst, first, kw, seed) if first.ok else first
 
 
 def _noise_adaptive_refit(src: np.ndarray, dst: np.ndarray, fit: FrameFit, kw: dict,
@@ -392,6 +407,7 @@ class _Recent:
     background: np.ndarray
     used: np.ndarray
     record: _Record
+    attempts: int = 0
 
 
 class _Pass:
@@ -557,14 +573,17 @@ class _Pass:
             if r.index < self.owned_from or r.record.status != "ok":
                 continue
             hit = r.used & (np.isin(r.ids, moved_ids) | in_mask(region, r.dst))
-            if not hit.any():
+            # A few tracks more or less hardly move a fit; and a frame is refitted a few times
+            # at most while the same object goes on moving.
+            if hit.sum() < max(3, 0.05 * r.used.sum()) or r.attempts >= REVISE_ATTEMPTS:
                 continue
+            r.attempts += 1
             keep = r.used & ~hit & np.isin(r.ids, scene_ids)
             if keep.sum() < base.min_group or hull_share(r.dst[keep], (fw, fh)) < 0.02:
                 continue
-            fit = fit_frame(r.src[keep], r.dst[keep], r.background[keep], settings=settings,
-                            seed=[settings.seed, r.index, 1], prior=r.record.matrix,
-                            frame_size=(fw, fh))
+            fit = refit(r.src[keep], r.dst[keep], settings=settings,
+                        seed=[settings.seed, r.index, 1], prior=r.record.matrix,
+                        frame_size=(fw, fh))
             # A slow object drags a fit by a fraction of the threshold; a faster one was
             # parted from the scene by the frame's own consensus already.
             shift = corner_shift(fit.matrix, r.record.matrix, (fw, fh))
