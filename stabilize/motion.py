@@ -2,11 +2,15 @@
 
 Every transform is in full-resolution pixels (the analysis copy's points are mapped back before
 fitting, so ``inlier_px`` is a full-resolution distance). What video offers beyond one frame is
-used: the previous frame's motion predicts where tracks go and is scored first; each track's
-history of moving with the camera decides between rival fits when a large moving object
-competes with the background; static overlays are found and left out; scene cuts restart the
-path. Frames with no trustworthy fit get a stand-in interpolated from their neighbours and
-status ``failed``, so they never throw the path.
+used: the previous frame's motion predicts where tracks go and is scored first; tracks are
+grouped by how they moved over the last half second, so an object that moves on its own,
+however slowly, is told from the scene (the group that spreads over the frame with the older
+tracks) and left out, and the last second's fits are redone without it once it gives itself
+away (:mod:`stabilize.anchors`); each track's history of moving with the camera decides
+between rival fits; static overlays are found and left out; scene cuts restart the path.
+Frames with no trustworthy fit get a stand-in interpolated from their neighbours and status
+``failed``; frames where camera and object cannot be told apart get one too, with status
+``weak`` and reason ``foreground``. So they never throw the path.
 """
 
 from __future__ import annotations
@@ -72,7 +76,7 @@ REVISE_GAIN = 0.7
 # A frame is refitted at most this many times while objects go on moving (cost).
 REVISE_ATTEMPTS = 8
 
-#: Why a frame is weak or failed, as logged in the ``reason`` column.
+#: Why a frame is weak or failed, as listed in the log's JSON (``frame_reasons``).
 REASONS = {
     "foreground": "the motion could not be told apart from an object moving in front of the "
                   "scene; the frame's motion is a stand-in from its neighbours",
@@ -116,7 +120,6 @@ class FrameFit:
     ok: bool
     weak: bool
     tight: np.ndarray | None = None
-    ambiguous: bool = False
 
     @property
     def support(self) -> np.ndarray:
@@ -358,13 +361,8 @@ def corner_shift(a: np.ndarray, b: np.ndarray, frame_size: tuple[int, int]) -> f
     """Largest distance (pixels) between where two 3×3 motions put the frame's corners."""
     w, h = frame_size
     corners = np.array([[0.0, 0.0], [w - 1.0, 0.0], [0.0, h - 1.0], [w - 1.0, h - 1.0]])
-    return float(np.max(transfer_error(a, corners, anchors_project(b, corners))))
-
-
-def anchors_project(m: np.ndarray, pts: np.ndarray) -> np.ndarray:
-    """Apply a 3×3 transform to points (k, 2)."""
-    h = np.c_[pts, np.ones(len(pts))] @ m.T
-    return h[:, :2] / h[:, 2:3]
+    h = np.c_[corners, np.ones(4)] @ b.T
+    return float(np.max(transfer_error(a, corners, h[:, :2] / h[:, 2:3])))
 
 
 def object_mask(pts: np.ndarray, frame_size: tuple[int, int]) -> np.ndarray:
@@ -396,8 +394,8 @@ class _Record:
 
 @dataclass
 class _Recent:
-    """A recent frame's pairs, kept for a baseline's time so its fit can be revised when
-    tracks it used turn out to have been moving on their own."""
+    """A recent frame's pairs, kept for a second (from the start of a pass, three) so its
+    fit can be revised when tracks it used turn out to have been moving on their own."""
 
     index: int
     time_s: float
@@ -438,7 +436,7 @@ class _Pass:
         self.started_at = index
         self.steps = 0
 
-    def _older_slot(self, now_s: float) -> int | None:
+    def _older_slot(self) -> int | None:
         ready = [j for j in (0, 1) if math.isfinite(self.slot_s[j])]
         if not ready:
             return None
@@ -484,7 +482,7 @@ class _Pass:
         dst = to_full_resolution(pairs.dst, scale)
         memo = anchors.first_seen(pairs.memo, prev_s)
         seed = [settings.seed, index]
-        grouping = group_tracks(dst, memo, self._older_slot(time_s), pairs.background,
+        grouping = group_tracks(dst, memo, self._older_slot(), pairs.background,
                                 anchors.age_share(memo, time_s, base), settings=settings,
                                 base=base, seed=seed, frame_size=(fw, fh))
         # Tracks that moved on their own, now or lately, do not speak for the camera.
@@ -516,7 +514,7 @@ class _Pass:
              fit.rms_px if fit.ok else 0.0, fit.rounds)
         if grouping is not None and grouping.split:
             memo = anchors.strike(memo, grouping.moved, time_s)
-            slot = self._older_slot(time_s)
+            slot = self._older_slot()
             then = memo[grouping.moved, 2 * slot:2 * slot + 2]
             where = np.concatenate([dst[grouping.moved], then[np.isfinite(then[:, 0])]])
             self._hindsight(pairs.ids[grouping.scene], pairs.ids[grouping.moved],
@@ -525,7 +523,7 @@ class _Pass:
         half = 0.5 * base.baseline_s
         newest = max((s for s in self.slot_s if math.isfinite(s)), default=-math.inf)
         if time_s - newest >= half or not math.isfinite(newest):
-            old = self._older_slot(time_s)
+            old = self._older_slot()
             slot = old
             if old is None:
                 slot = 0
