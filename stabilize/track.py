@@ -45,6 +45,8 @@ class TrackSettings:
 
     max_corners: int = 1500
     quality_floor: float = 0.003
+    cell_quality: float = 0.1
+    noise_floor: float = 20.0
     min_distance_frac: float = 1.0 / 240.0
     block_size: int = 7
     win_size: int = 21
@@ -114,24 +116,76 @@ def bucket(pts: np.ndarray, size: tuple[int, int], grid: tuple[int, int],
     return pts[rank < per_cell]
 
 
+def cell_maxima(strength: np.ndarray, grid: tuple[int, int]) -> np.ndarray:
+    """Largest value of ``strength`` (h, w) in each grid cell, row-major over ``grid`` =
+    (columns, rows), with the cells of :func:`cell_index` (pixel centres)."""
+    h, w = strength.shape
+    gx, gy = grid
+    xs = np.ceil(np.arange(gx) * w / gx).astype(int)
+    ys = np.ceil(np.arange(gy) * h / gy).astype(int)
+    cols = np.maximum.reduceat(strength, xs, axis=1)
+    return np.maximum.reduceat(cols, ys, axis=0).reshape(-1)
+
+
+def cell_keep(strength: np.ndarray, cells: np.ndarray, cell_max: np.ndarray,
+              global_max: float, *, quality: float, cell_quality: float,
+              floor: float) -> np.ndarray:
+    """Which corners to keep (k,) bool, judged against the whole frame or their own cell.
+
+    A corner of ``strength`` (k,) is kept when it reaches ``quality`` × ``global_max`` (the
+    usual rule of Shi and Tomasi's detector as OpenCV applies it), or when it reaches both
+    ``cell_quality`` × the strongest corner of its own cell (``cell_max`` indexed by ``cells``)
+    and the absolute ``floor`` (same units as ``strength``). The per-cell rule keeps a
+    low-contrast part of the frame from losing all its corners to a far stronger part
+    elsewhere; the floor keeps flat cells from yielding corners of noise alone (common
+    practice).
+    """
+    own = cell_max[cells]
+    return (strength >= quality * global_max) | (
+        (strength >= cell_quality * own) & (strength >= floor))
+
+
 def detect(gray: np.ndarray, settings: TrackSettings, mask: np.ndarray | None,
            count: int) -> np.ndarray:
-    """Up to ``count`` corners (k, 2) float32, bucketed over the grid."""
+    """Up to ``count`` corners (k, 2) float32, bucketed over the grid.
+
+    Corner strength is the smaller eigenvalue of the gradient structure tensor (Shi and
+    Tomasi, CVPR 1994); each corner is judged against the frame's strongest and its own
+    grid cell's strongest (:func:`cell_keep`), the absolute floor being
+    ``noise_floor`` × the frame's median strength, a measure of its noise and fine texture
+    (this project's choice).
+    """
     if count <= 0:
         return np.empty((0, 2), np.float32)
     min_dist = max(2.0, settings.min_distance_frac * gray.shape[1])
+    size = (gray.shape[1], gray.shape[0])
+    strength = cv2.cornerMinEigenVal(gray, settings.block_size, ksize=3)
+    if mask is not None:
+        strength[mask == 0] = 0.0
+    top = float(strength.max())
+    if top <= 0.0:
+        return np.empty((0, 2), np.float32)
+    floor = settings.noise_floor * float(np.median(strength))
+    cell_max = cell_maxima(strength, settings.grid)
+    lowest = min(settings.quality_floor * top,
+                 max(floor, settings.cell_quality * float(cell_max[cell_max > 0].min())))
     # No cap on the number here: a cap keeps the strongest corners of the whole frame, which
     # can all lie on one busy object; bucketing below spreads them instead.
     pts = cv2.goodFeaturesToTrack(
-        gray, maxCorners=0, qualityLevel=settings.quality_floor,
+        gray, maxCorners=0, qualityLevel=max(lowest / top, 1e-6),
         minDistance=min_dist, mask=mask, blockSize=settings.block_size,
     )
     if pts is None:
         return np.empty((0, 2), np.float32)
     pts = pts.reshape(-1, 2).astype(np.float32)
+    xi = np.clip(np.rint(pts[:, 0]).astype(int), 0, size[0] - 1)
+    yi = np.clip(np.rint(pts[:, 1]).astype(int), 0, size[1] - 1)
+    keep = cell_keep(strength[yi, xi], cell_index(pts, size, settings.grid), cell_max, top,
+                     quality=settings.quality_floor, cell_quality=settings.cell_quality,
+                     floor=floor)
+    pts = pts[keep]
     n_cells = settings.grid[0] * settings.grid[1]
     per_cell = max(2, int(np.ceil(1.5 * settings.max_corners / n_cells)))
-    size = (gray.shape[1], gray.shape[0])
     return bucket(pts, size, settings.grid, per_cell)[:count]
 
 
