@@ -46,7 +46,7 @@ class TrackSettings:
     max_corners: int = 1500
     quality_floor: float = 0.003
     cell_quality: float = 0.1
-    noise_floor: float = 20.0
+    noise_floor: float = 10.0
     min_distance_frac: float = 1.0 / 240.0
     block_size: int = 7
     win_size: int = 21
