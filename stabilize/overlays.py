@@ -47,8 +47,8 @@ class OverlaySettings:
     still_share: float = 0.85
     band_still_px: float = 0.1
     band_moving_px: float = 1.0
-    band_share: float = 0.2
-    band_spread: float = 0.25
+    band_share: float = 0.15
+    band_spread: float = 0.4
     band_frames: int = 15
 
 
