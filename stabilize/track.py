@@ -47,6 +47,8 @@ class TrackSettings:
     quality_floor: float = 0.003
     cell_quality: float = 0.1
     noise_floor: float = 10.0
+    min_strength: float = 3e-5
+    min_isotropy: float = 0.2
     min_distance_frac: float = 1.0 / 240.0
     block_size: int = 7
     win_size: int = 21
@@ -129,20 +131,28 @@ def cell_maxima(strength: np.ndarray, grid: tuple[int, int]) -> np.ndarray:
 
 def cell_keep(strength: np.ndarray, cells: np.ndarray, cell_max: np.ndarray,
               global_max: float, *, quality: float, cell_quality: float,
-              floor: float) -> np.ndarray:
+              floor: float, isotropy: np.ndarray | None = None,
+              min_isotropy: float = 0.0, sparse_below: int | None = None) -> np.ndarray:
     """Which corners to keep (k,) bool, judged against the whole frame or their own cell.
 
     A corner of ``strength`` (k,) is kept when it reaches ``quality`` × ``global_max`` (the
     usual rule of Shi and Tomasi's detector as OpenCV applies it), or when it reaches both
     ``cell_quality`` × the strongest corner of its own cell (``cell_max`` indexed by ``cells``)
-    and the absolute ``floor`` (same units as ``strength``). The per-cell rule keeps a
+    and the absolute ``floor`` (same units as ``strength``) and, given ``isotropy`` (k,), the
+    ratio of the smaller to the larger eigenvalue, ``min_isotropy``. The per-cell rule keeps a
     low-contrast part of the frame from losing all its corners to a far stronger part
-    elsewhere; the floor keeps flat cells from yielding corners of noise alone (common
-    practice).
+    elsewhere; the floor keeps flat cells from yielding corners of noise alone, the isotropy
+    cells holding only edges from yielding points that slide along them (common practice).
+    With ``sparse_below``, the per-cell rule applies only in cells where the frame-wide rule
+    kept fewer corners than that, so well-textured cells keep exactly their usual corners.
     """
-    own = cell_max[cells]
-    return (strength >= quality * global_max) | (
-        (strength >= cell_quality * own) & (strength >= floor))
+    usual = strength >= quality * global_max
+    local = (strength >= cell_quality * cell_max[cells]) & (strength >= floor)
+    if isotropy is not None:
+        local &= isotropy >= min_isotropy
+    if sparse_below is not None:
+        local &= np.bincount(cells[usual], minlength=len(cell_max))[cells] < sparse_below
+    return usual | local
 
 
 def detect(gray: np.ndarray, settings: TrackSettings, mask: np.ndarray | None,
@@ -151,21 +161,27 @@ def detect(gray: np.ndarray, settings: TrackSettings, mask: np.ndarray | None,
 
     Corner strength is the smaller eigenvalue of the gradient structure tensor (Shi and
     Tomasi, CVPR 1994); each corner is judged against the frame's strongest and its own
-    grid cell's strongest (:func:`cell_keep`), the absolute floor being
-    ``noise_floor`` × the frame's median strength, a measure of its noise and fine texture
-    (this project's choice).
+    grid cell's strongest (:func:`cell_keep`; the latter only in cells where the former kept
+    fewer than a quarter of the corners a cell may hold), the absolute floor being
+    ``noise_floor`` × the frame's median strength, a measure of its noise and fine texture,
+    and no less than ``min_strength`` (flat pictures have a median of nought) (this project's
+    choice).
     """
     if count <= 0:
         return np.empty((0, 2), np.float32)
     min_dist = max(2.0, settings.min_distance_frac * gray.shape[1])
     size = (gray.shape[1], gray.shape[0])
-    strength = cv2.cornerMinEigenVal(gray, settings.block_size, ksize=3)
+    n_cells = settings.grid[0] * settings.grid[1]
+    per_cell = max(2, int(np.ceil(1.5 * settings.max_corners / n_cells)))
+    eig = cv2.cornerEigenValsAndVecs(gray, settings.block_size, ksize=3)
+    strength = np.minimum(eig[..., 0], eig[..., 1])
+    larger = np.maximum(eig[..., 0], eig[..., 1])
     if mask is not None:
         strength[mask == 0] = 0.0
     top = float(strength.max())
     if top <= 0.0:
         return np.empty((0, 2), np.float32)
-    floor = settings.noise_floor * float(np.median(strength))
+    floor = max(settings.min_strength, settings.noise_floor * float(np.median(strength)))
     cell_max = cell_maxima(strength, settings.grid)
     lowest = min(settings.quality_floor * top,
                  max(floor, settings.cell_quality * float(cell_max[cell_max > 0].min())))
@@ -180,12 +196,12 @@ def detect(gray: np.ndarray, settings: TrackSettings, mask: np.ndarray | None,
     pts = pts.reshape(-1, 2).astype(np.float32)
     xi = np.clip(np.rint(pts[:, 0]).astype(int), 0, size[0] - 1)
     yi = np.clip(np.rint(pts[:, 1]).astype(int), 0, size[1] - 1)
-    keep = cell_keep(strength[yi, xi], cell_index(pts, size, settings.grid), cell_max, top,
+    at = strength[yi, xi]
+    keep = cell_keep(at, cell_index(pts, size, settings.grid), cell_max, top,
                      quality=settings.quality_floor, cell_quality=settings.cell_quality,
-                     floor=floor)
+                     floor=floor, isotropy=at / np.maximum(larger[yi, xi], 1e-12),
+                     min_isotropy=settings.min_isotropy, sparse_below=max(1, per_cell // 4))
     pts = pts[keep]
-    n_cells = settings.grid[0] * settings.grid[1]
-    per_cell = max(2, int(np.ceil(1.5 * settings.max_corners / n_cells)))
     return bucket(pts, size, settings.grid, per_cell)[:count]
 
 
