@@ -70,19 +70,26 @@ def test_cell_keep_judges_weak_cells_by_their_own_best_above_the_floor():
     strength = np.array([1.0, 0.002, 0.004, 0.0005, 0.004])
     cells = np.array([0, 0, 1, 1, 2])
     cell_max = np.array([1.0, 0.004, 0.004])
-    keep = cell_keep(strength, cells, cell_max, 1.0, quality=0.003, cell_quality=0.1,
-                     floor=0.001)
+    kw = dict(quality=0.01, cell_quality=0.1)
     # Cell 0: its weak corner is judged against the frame's strongest (1.0) and dropped;
-    # cell 1: its corner near its own best is kept, one below the floor is not.
+    # cells 1 and 2: corners near their own best are kept, one below the floor is not.
+    keep = cell_keep(strength, cells, cell_max, 1.0, floor=0.001, **kw)
     assert keep.tolist() == [True, False, True, False, True]
-    none_floor = cell_keep(strength, cells, cell_max, 1.0, quality=0.003, cell_quality=0.1,
-                           floor=0.01)
-    assert none_floor.tolist() == [True, False, True, False, True]
-    strict = cell_keep(strength, cells, cell_max, 1.0, quality=0.003, cell_quality=0.1,
-                       floor=0.0045)
-    assert strict.tolist() == [True, False, True, False, True]
-    assert not cell_keep(strength, cells, cell_max, 1.0, quality=0.01, cell_quality=0.1,
-                         floor=0.0045)[2]
+    assert cell_keep(strength, cells, cell_max, 1.0, floor=0.01, **kw).tolist() == [
+        True, False, False, False, False]
+    assert cell_keep(strength, cells, cell_max, 1.0, floor=0.001, quality=0.003,
+                     cell_quality=2.0).tolist() == [True, False, True, False, True]
+    # A point on an edge (one eigenvalue far below the other) is not a corner of its cell.
+    edge = cell_keep(strength, cells, cell_max, 1.0, floor=0.001,
+                     isotropy=np.array([1.0, 1.0, 0.05, 1.0, 1.0]), min_isotropy=0.2, **kw)
+    assert edge.tolist() == [True, False, False, False, True]
+    # In a cell the frame-wide rule already filled, the per-cell rule adds nothing.
+    three = np.array([1.0, 0.9, 0.002])
+    crowded = cell_keep(three, np.zeros(3, int), np.array([1.0]), 1.0, quality=0.5,
+                        cell_quality=0.001, floor=0.0, sparse_below=2)
+    assert crowded.tolist() == [True, True, False]
+    assert cell_keep(three, np.zeros(3, int), np.array([1.0]), 1.0, quality=0.5,
+                     cell_quality=0.001, floor=0.0, sparse_below=3).all()
 
 
 def test_hazy_scene_keeps_corners_beside_high_contrast_text():
