@@ -49,6 +49,7 @@ class TrackSettings:
     noise_floor: float = 10.0
     min_strength: float = 3e-5
     min_isotropy: float = 0.2
+    sparse_share: float = 0.5
     min_distance_frac: float = 1.0 / 240.0
     block_size: int = 7
     win_size: int = 21
@@ -161,8 +162,9 @@ def detect(gray: np.ndarray, settings: TrackSettings, mask: np.ndarray | None,
 
     Corner strength is the smaller eigenvalue of the gradient structure tensor (Shi and
     Tomasi, CVPR 1994); each corner is judged against the frame's strongest and its own
-    grid cell's strongest (:func:`cell_keep`; the latter only in cells where the former kept
-    fewer than a quarter of the corners a cell may hold), the absolute floor being
+    grid cell's strongest (:func:`cell_keep`; the latter only when the former leaves most
+    cells empty, and then only in cells where it kept fewer than a quarter of the corners a
+    cell may hold), the absolute floor being
     ``noise_floor`` × the frame's median strength, a measure of its noise and fine texture,
     and no less than ``min_strength`` (flat pictures have a median of nought) (this project's
     choice).
@@ -176,6 +178,10 @@ def detect(gray: np.ndarray, settings: TrackSettings, mask: np.ndarray | None,
     eig = cv2.cornerEigenValsAndVecs(gray, settings.block_size, ksize=3)
     strength = np.minimum(eig[..., 0], eig[..., 1])
     larger = np.maximum(eig[..., 0], eig[..., 1])
+    # Whether the picture's strong corners crowd into a few cells, judged on the whole
+    # picture (not the mask, which at a re-seed hides the corners already tracked).
+    whole = cell_maxima(strength, settings.grid)
+    crowded = (whole >= settings.quality_floor * float(whole.max())).mean() < settings.sparse_share
     if mask is not None:
         strength[mask == 0] = 0.0
     top = float(strength.max())
@@ -197,7 +203,12 @@ def detect(gray: np.ndarray, settings: TrackSettings, mask: np.ndarray | None,
     xi = np.clip(np.rint(pts[:, 0]).astype(int), 0, size[0] - 1)
     yi = np.clip(np.rint(pts[:, 1]).astype(int), 0, size[1] - 1)
     at = strength[yi, xi]
-    keep = cell_keep(at, cell_index(pts, size, settings.grid), cell_max, top,
+    cells = cell_index(pts, size, settings.grid)
+    if not crowded:
+        # The frame-wide rule reaches most of the frame: corners judged as usual.
+        return bucket(pts[at >= settings.quality_floor * top], size, settings.grid,
+                      per_cell)[:count]
+    keep = cell_keep(at, cells, cell_max, top,
                      quality=settings.quality_floor, cell_quality=settings.cell_quality,
                      floor=floor, isotropy=at / np.maximum(larger[yi, xi], 1e-12),
                      min_isotropy=settings.min_isotropy, sparse_below=max(1, per_cell // 4))

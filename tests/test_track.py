@@ -98,7 +98,7 @@ def test_hazy_scene_keeps_corners_beside_high_contrast_text():
     rng = np.random.default_rng(4)
     img = np.full((270, 480), 160.0)
     for x, y, r, d in zip(rng.uniform(0, 480, 400), rng.uniform(0, 235, 400),
-                          rng.uniform(2, 6, 400), rng.choice([-12.0, 12.0], 400),
+                          rng.uniform(2, 6, 400), rng.choice([-10.0, 10.0], 400),
                           strict=True):
         cv2.circle(img, (int(x), int(y)), int(r), 160.0 + d, -1, cv2.LINE_AA)
     img = np.clip(img + rng.normal(0, 1.5, img.shape), 0, 255).astype(np.uint8)
