@@ -27,7 +27,18 @@ class TrackSettings:
 
     ``max_corners`` is the number of live tracks aimed for; ``grid`` the (columns, rows) of
     the bucketing grid; ``quality_floor`` the weakest corner considered, as a share of the
-    strongest (each cell then keeps its own strongest); ``min_distance_frac`` the minimum
+    strongest (each cell then keeps its own strongest); ``cell_quality``, ``noise_floor``,
+    ``min_strength``, ``min_isotropy``, ``sparse_share``: when the frame-wide rule finds
+    corners in fewer than ``sparse_share`` of the grid cells of the whole picture while more
+    than twice as many cells hold only weaker corners (strong corners crowding into a small
+    part of a picture textured elsewhere, such as burnt-in text over a hazy scene), a corner in
+    a cell the rule left sparse is also kept when it reaches ``cell_quality`` of its own
+    cell's strongest, ``noise_floor`` times the picture's median corner strength and
+    ``min_strength`` (OpenCV's minimum-eigenvalue units for 8-bit images and this block size;
+    about the strongest corner that Gaussian noise of 1.3 grey levels makes on a flat patch,
+    measured), and its smaller eigenvalue is at least ``min_isotropy`` of its larger (a
+    corner, not a point on an edge) (see :func:`cell_keep`; this project's own values);
+    ``min_distance_frac`` the minimum
     corner spacing as a share of the frame width; ``fb_max_px`` the largest forward–backward
     error kept; ``photo_max`` the largest mean absolute patch difference (grey levels) kept;
     ``reseed_share``: re-seed when live tracks fall below this share of ``max_corners``, or
@@ -180,14 +191,16 @@ def detect(gray: np.ndarray, settings: TrackSettings, mask: np.ndarray | None,
     larger = np.maximum(eig[..., 0], eig[..., 1])
     # Whether the picture's strong corners crowd into a few cells, judged on the whole
     # picture (not the mask, which at a re-seed hides the corners already tracked).
+    floor = max(settings.min_strength, settings.noise_floor * float(np.median(strength)))
     whole = cell_maxima(strength, settings.grid)
-    crowded = (whole >= settings.quality_floor * float(whole.max())).mean() < settings.sparse_share
+    strong = whole >= settings.quality_floor * float(whole.max())
+    weak_only = ~strong & (whole >= floor)
+    crowded = strong.mean() < settings.sparse_share and weak_only.sum() > 2 * strong.sum()
     if mask is not None:
         strength[mask == 0] = 0.0
     top = float(strength.max())
     if top <= 0.0:
         return np.empty((0, 2), np.float32)
-    floor = max(settings.min_strength, settings.noise_floor * float(np.median(strength)))
     cell_max = cell_maxima(strength, settings.grid)
     lowest = min(settings.quality_floor * top,
                  max(floor, settings.cell_quality * float(cell_max[cell_max > 0].min())))
