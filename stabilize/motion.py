@@ -39,7 +39,7 @@ from .cuts import (
 )
 from .log import frame_centre
 from .overlap import read_ahead
-from .overlays import OverlayFinder
+from .overlays import OverlayFinder, still_band
 from .path import from_similarity, to_similarity
 from .track import (
     Pairs,
@@ -353,6 +353,19 @@ def group_tracks(dst: np.ndarray, memo: np.ndarray, slot: int | None, background
     return Grouping(a, b, spread_a, spread_b)
 
 
+def band_overlay_tracks(grouping: Grouping, start: np.ndarray, now: np.ndarray,
+                        frame_size: tuple[int, int]) -> np.ndarray:
+    """The tracks (k,) bool of whichever of the grouping's two groups is a still band along a
+    frame edge while the other moves over the frame (:func:`stabilize.overlays.still_band`),
+    whether the grouping took it for the scene or not; none when neither is. ``start`` and
+    ``now``: positions at the baseline and now (k, 2), full-resolution pixels."""
+    for still, moving, spread in ((grouping.scene, grouping.moved, grouping.moved_spread),
+                                  (grouping.moved, grouping.scene, grouping.scene_spread)):
+        if still_band(start, now, still, moving, spread, frame_size):
+            return still
+    return np.zeros(len(now), bool)
+
+
 #: Cell size (full-resolution pixels) of the coarse mask of where a moving group was.
 MASK_CELL_PX = 8
 
@@ -417,6 +430,7 @@ class _Pass:
         self.ctx = ctx
         self.tracker = Tracker(ctx["track_settings"], ctx["user_mask"])
         self.overlays = OverlayFinder(ctx["analysis_size"])
+        self.overlays_grew = False
         self.prior: np.ndarray | None = None
         self.texture_ref: float | None = None
         self.steps = 0
@@ -451,6 +465,9 @@ class _Pass:
         self.steps += 1
         prev_s, self.prev_s = self.prev_s, time_s
         predicted = None if self.prior is None else to_analysis(self.prior, scale)
+        if self.overlays_grew:
+            self.overlays_grew = False
+            tracker.set_mask(self.overlays.mask(ctx["user_mask"]))
         pairs = tracker.step(image, predicted)
         offered = tracker.live
         strength = None
@@ -490,6 +507,10 @@ class _Pass:
         if grouping is not None:
             suspect |= grouping.moved
             memo = anchors.prove(memo, grouping.scene)
+        if grouping is not None and grouping.split:
+            slot = self._older_slot()
+            band = band_overlay_tracks(grouping, memo[:, 2 * slot:2 * slot + 2], dst, (fw, fh))
+            self.overlays_grew |= self.overlays.observe_band(pairs.src[band])
         use = ~suspect
         if suspect.any():
             # Objects are about: tracks new to the picture wait until the scene's group

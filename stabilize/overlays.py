@@ -4,6 +4,16 @@ Burnt-in telemetry text, timestamps, a logo, or a landing leg in view do not mov
 camera; tracked there, they pull the motion estimate toward zero whenever the camera is nearly
 still. A grid cell is declared an overlay when, over enough frames in which the camera motion
 would have moved it, its tracks stayed where they were.
+
+That evidence rests on the fitted motion being the scene's. When the overlay holds most of the
+strong corners (burnt-in text over a hazy, low-contrast scene) the fit may follow the overlay
+itself, and nothing then looks still against a moving camera. A second, fit-free piece of
+evidence covers that case: when the tracks split into two rigid groups over a baseline of
+several frames (:mod:`stabilize.anchors`), one perfectly still and confined to a thin band
+along an edge of the frame, the other moving and spread over much of the rest, the band's
+cells collect a vote each frame (:func:`still_band`, :meth:`OverlayFinder.observe_band`). A
+static background seen by a fixed camera around a moving object is spread over the frame, not
+confined to an edge band, and so collects none.
 """
 
 from __future__ import annotations
@@ -20,13 +30,64 @@ class OverlaySettings:
     """``grid`` (columns, rows) of cells; a track is *still* when it moved less than
     ``still_px`` while the fitted camera motion would have moved it at least ``moving_px``
     (analysis pixels); a cell becomes an overlay after ``min_votes`` such observations with a
-    still share of at least ``still_share``."""
+    still share of at least ``still_share``.
+
+    Band evidence (:func:`still_band`; full-resolution pixels): the still group moved at most
+    ``band_still_px`` over the baseline (90th percentile) and lies within ``band_share`` of the
+    frame's height (or width) from one edge; the other group moved at least ``band_moving_px``
+    (median) and its hull covers at least ``band_spread`` of the frame; a cell becomes an
+    overlay after ``band_frames`` frames of such evidence. These values are this project's own
+    choices (common practice, no source).
+    """
 
     grid: tuple[int, int] = (32, 18)
     still_px: float = 0.08
     moving_px: float = 1.0
     min_votes: int = 12
     still_share: float = 0.85
+    band_still_px: float = 0.1
+    band_moving_px: float = 1.0
+    band_share: float = 0.15
+    band_spread: float = 0.4
+    band_frames: int = 15
+
+
+def still_band(start: np.ndarray, now: np.ndarray, still: np.ndarray, moving: np.ndarray,
+               moving_spread: float, frame_size: tuple[int, int],
+               settings: OverlaySettings | None = None) -> bool:
+    """Whether the group ``still`` looks like a static overlay against the group ``moving``.
+
+    Parameters
+    ----------
+    start, now : (k, 2) float
+        Each track's position at the baseline frame and now, full-resolution pixels.
+    still, moving : (k,) bool
+        The two rigid groups found over the baseline.
+    moving_spread : float
+        Share of the frame (0 to 1) covered by the hull of the ``moving`` group.
+    frame_size : (width, height)
+        Full-resolution frame size, pixels.
+
+    Returns
+    -------
+    bool
+        True when ``still`` moved at most ``band_still_px`` (90th percentile), lies within a
+        band of ``band_share`` of the frame along one edge, and ``moving`` moved at least
+        ``band_moving_px`` (median) and covers at least ``band_spread`` of the frame.
+    """
+    s = settings or OverlaySettings()
+    if not still.any() or not moving.any() or moving_spread < s.band_spread:
+        return False
+    shift = np.linalg.norm(now - start, axis=1)
+    if (float(np.percentile(shift[still], 90)) > s.band_still_px
+            or float(np.median(shift[moving])) < s.band_moving_px):
+        return False
+    w, h = frame_size
+    lo, hi = now[still].min(axis=0), now[still].max(axis=0)
+    size = np.array([w, h], float)
+    near_low = hi <= s.band_share * size
+    near_high = lo >= (1.0 - s.band_share) * size
+    return bool((near_low | near_high).any())
 
 
 class OverlayFinder:
@@ -39,6 +100,7 @@ class OverlayFinder:
         self.still = np.zeros(n)
         self.moving = np.zeros(n)
         self.cells = np.zeros(n, bool)
+        self.band = np.zeros(n)
 
     def observe(self, src: np.ndarray, dst: np.ndarray, camera: np.ndarray) -> bool:
         """Add one frame's pairs (analysis pixels) and its fitted camera motion (3×3, analysis
@@ -59,6 +121,18 @@ class OverlayFinder:
         self.moving += np.bincount(cells[~is_still], minlength=n)
         votes = self.still + self.moving
         new = (votes >= s.min_votes) & (self.still >= s.still_share * votes) & ~self.cells
+        self.cells |= new
+        return bool(new.any())
+
+    def observe_band(self, pts: np.ndarray) -> bool:
+        """Add one frame's vote for the cells holding ``pts`` (analysis pixels), the tracks of
+        a group :func:`still_band` judged an overlay. Returns True when the set of overlay
+        cells grew."""
+        if len(pts) == 0:
+            return False
+        n = len(self.band)
+        self.band += np.bincount(cell_index(pts, self.size, self.settings.grid), minlength=n) > 0
+        new = (self.band >= self.settings.band_frames) & ~self.cells
         self.cells |= new
         return bool(new.any())
 

@@ -44,6 +44,7 @@ import cv2
 import numpy as np
 
 __all__ = [
+    "HAZE_GREY",
     "MODELS",
     "STYLES",
     "TRUSS_DECK_FRAC",
@@ -249,6 +250,10 @@ def movers_covering(
     return tuple(out)
 
 
+#: Grey level (0–255) a hazy scene is blended toward (see ``SceneSpec.contrast``).
+HAZE_GREY = 170.0
+
+
 @dataclass(frozen=True)
 class SceneSpec:
     """Everything that defines a synthetic clip; equal specs give bit-identical clips.
@@ -260,6 +265,9 @@ class SceneSpec:
     (tilt), so the shake itself produces true homographies.
     ``telemetry``: burn a static on-screen-display strip into the bottom of every frame.
     ``noise_sigma``: Gaussian sensor noise, grey levels (applied before the telemetry overlay).
+    ``contrast``: haze, 0 < c ≤ 1: the rendered scene (movers included) is blended toward a
+    flat grey of :data:`HAZE_GREY` as ``grey + c·(scene − grey)`` before the noise and before
+    the telemetry strip is burnt in, so the strip keeps its full contrast (1: no haze).
     ``textureless_s``: ``(start, end)`` seconds during which the camera sees plain sky.
     ``cuts_s``: times (s) of hard scene cuts; shot ``k`` shows ``cut_styles[k-1]`` (default: the
     next style) drawn from a different seed. ``supersample``: render at this integer factor and
@@ -279,6 +287,7 @@ class SceneSpec:
     movers: tuple[Mover, ...] = ()
     telemetry: bool = False
     noise_sigma: float = 0.0
+    contrast: float = 1.0
     textureless_s: tuple[float, float] | None = None
     cuts_s: tuple[float, ...] = ()
     cut_styles: tuple[str, ...] = ()
@@ -298,6 +307,8 @@ class SceneSpec:
             raise ValueError("supersample must be 1..4")
         if self.noise_sigma < 0:
             raise ValueError("noise_sigma must be >= 0")
+        if not 0.0 < self.contrast <= 1.0:
+            raise ValueError("contrast must be in (0, 1]")
         if not 5.0 < self.hfov_deg < 150.0:
             raise ValueError("hfov_deg must be in (5, 150)")
 
@@ -1098,6 +1109,8 @@ class SyntheticClip:
             for mv in self._movers:
                 self._paste_mover(f, mask, mv, t)
             img = f
+        if self.spec.contrast < 1.0:
+            img = HAZE_GREY + self.spec.contrast * (img.astype(np.float32) - HAZE_GREY)
         if self.spec.noise_sigma > 0:
             rng = np.random.default_rng([self.spec.seed, 2, t])
             img = img + rng.standard_normal((h, w, 3), dtype=np.float32) * self.spec.noise_sigma

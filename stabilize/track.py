@@ -27,7 +27,18 @@ class TrackSettings:
 
     ``max_corners`` is the number of live tracks aimed for; ``grid`` the (columns, rows) of
     the bucketing grid; ``quality_floor`` the weakest corner considered, as a share of the
-    strongest (each cell then keeps its own strongest); ``min_distance_frac`` the minimum
+    strongest (each cell then keeps its own strongest); ``cell_quality``, ``noise_floor``,
+    ``min_strength``, ``min_isotropy``, ``sparse_share``: when the frame-wide rule finds
+    corners in fewer than ``sparse_share`` of the grid cells of the whole picture while more
+    than twice as many cells hold only weaker corners (strong corners crowding into a small
+    part of a picture textured elsewhere, such as burnt-in text over a hazy scene), a corner in
+    a cell the rule left sparse is also kept when it reaches ``cell_quality`` of its own
+    cell's strongest, ``noise_floor`` times the picture's median corner strength and
+    ``min_strength`` (OpenCV's minimum-eigenvalue units for 8-bit images and this block size;
+    about the strongest corner that Gaussian noise of 1.3 grey levels makes on a flat patch,
+    measured), and its smaller eigenvalue is at least ``min_isotropy`` of its larger (a
+    corner, not a point on an edge) (see :func:`cell_keep`; this project's own values);
+    ``min_distance_frac`` the minimum
     corner spacing as a share of the frame width; ``fb_max_px`` the largest forward–backward
     error kept; ``photo_max`` the largest mean absolute patch difference (grey levels) kept;
     ``reseed_share``: re-seed when live tracks fall below this share of ``max_corners``, or
@@ -45,6 +56,11 @@ class TrackSettings:
 
     max_corners: int = 1500
     quality_floor: float = 0.003
+    cell_quality: float = 0.1
+    noise_floor: float = 10.0
+    min_strength: float = 3e-5
+    min_isotropy: float = 0.2
+    sparse_share: float = 0.5
     min_distance_frac: float = 1.0 / 240.0
     block_size: int = 7
     win_size: int = 21
@@ -114,24 +130,102 @@ def bucket(pts: np.ndarray, size: tuple[int, int], grid: tuple[int, int],
     return pts[rank < per_cell]
 
 
+def cell_maxima(strength: np.ndarray, grid: tuple[int, int]) -> np.ndarray:
+    """Largest value of ``strength`` (h, w) in each grid cell, row-major over ``grid`` =
+    (columns, rows), with the cells of :func:`cell_index` (pixel centres)."""
+    h, w = strength.shape
+    gx, gy = grid
+    xs = np.ceil(np.arange(gx) * w / gx).astype(int)
+    ys = np.ceil(np.arange(gy) * h / gy).astype(int)
+    cols = np.maximum.reduceat(strength, xs, axis=1)
+    return np.maximum.reduceat(cols, ys, axis=0).reshape(-1)
+
+
+def cell_keep(strength: np.ndarray, cells: np.ndarray, cell_max: np.ndarray,
+              global_max: float, *, quality: float, cell_quality: float,
+              floor: float, isotropy: np.ndarray | None = None,
+              min_isotropy: float = 0.0, sparse_below: int | None = None) -> np.ndarray:
+    """Which corners to keep (k,) bool, judged against the whole frame or their own cell.
+
+    A corner of ``strength`` (k,) is kept when it reaches ``quality`` × ``global_max`` (the
+    usual rule of Shi and Tomasi's detector as OpenCV applies it), or when it reaches both
+    ``cell_quality`` × the strongest corner of its own cell (``cell_max`` indexed by ``cells``)
+    and the absolute ``floor`` (same units as ``strength``) and, given ``isotropy`` (k,), the
+    ratio of the smaller to the larger eigenvalue, ``min_isotropy``. The per-cell rule keeps a
+    low-contrast part of the frame from losing all its corners to a far stronger part
+    elsewhere; the floor keeps flat cells from yielding corners of noise alone, the isotropy
+    cells holding only edges from yielding points that slide along them (common practice).
+    With ``sparse_below``, the per-cell rule applies only in cells where the frame-wide rule
+    kept fewer corners than that, so well-textured cells keep exactly their usual corners.
+    """
+    usual = strength >= quality * global_max
+    local = (strength >= cell_quality * cell_max[cells]) & (strength >= floor)
+    if isotropy is not None:
+        local &= isotropy >= min_isotropy
+    if sparse_below is not None:
+        local &= np.bincount(cells[usual], minlength=len(cell_max))[cells] < sparse_below
+    return usual | local
+
+
 def detect(gray: np.ndarray, settings: TrackSettings, mask: np.ndarray | None,
            count: int) -> np.ndarray:
-    """Up to ``count`` corners (k, 2) float32, bucketed over the grid."""
+    """Up to ``count`` corners (k, 2) float32, bucketed over the grid.
+
+    Corner strength is the smaller eigenvalue of the gradient structure tensor (Shi and
+    Tomasi, CVPR 1994); each corner is judged against the frame's strongest and its own
+    grid cell's strongest (:func:`cell_keep`; the latter only when the former leaves most
+    cells empty, and then only in cells where it kept fewer than a quarter of the corners a
+    cell may hold), the absolute floor being
+    ``noise_floor`` × the frame's median strength, a measure of its noise and fine texture,
+    and no less than ``min_strength`` (flat pictures have a median of nought) (this project's
+    choice).
+    """
     if count <= 0:
         return np.empty((0, 2), np.float32)
     min_dist = max(2.0, settings.min_distance_frac * gray.shape[1])
+    size = (gray.shape[1], gray.shape[0])
+    n_cells = settings.grid[0] * settings.grid[1]
+    per_cell = max(2, int(np.ceil(1.5 * settings.max_corners / n_cells)))
+    eig = cv2.cornerEigenValsAndVecs(gray, settings.block_size, ksize=3)
+    strength = np.minimum(eig[..., 0], eig[..., 1])
+    larger = np.maximum(eig[..., 0], eig[..., 1])
+    # Whether the picture's strong corners crowd into a few cells, judged on the whole
+    # picture (not the mask, which at a re-seed hides the corners already tracked).
+    floor = max(settings.min_strength, settings.noise_floor * float(np.median(strength)))
+    whole = cell_maxima(strength, settings.grid)
+    strong = whole >= settings.quality_floor * float(whole.max())
+    weak_only = ~strong & (whole >= floor)
+    crowded = strong.mean() < settings.sparse_share and weak_only.sum() > 2 * strong.sum()
+    if mask is not None:
+        strength[mask == 0] = 0.0
+    top = float(strength.max())
+    if top <= 0.0:
+        return np.empty((0, 2), np.float32)
+    cell_max = cell_maxima(strength, settings.grid)
+    lowest = min(settings.quality_floor * top,
+                 max(floor, settings.cell_quality * float(cell_max[cell_max > 0].min())))
     # No cap on the number here: a cap keeps the strongest corners of the whole frame, which
     # can all lie on one busy object; bucketing below spreads them instead.
     pts = cv2.goodFeaturesToTrack(
-        gray, maxCorners=0, qualityLevel=settings.quality_floor,
+        gray, maxCorners=0, qualityLevel=max(lowest / top, 1e-6),
         minDistance=min_dist, mask=mask, blockSize=settings.block_size,
     )
     if pts is None:
         return np.empty((0, 2), np.float32)
     pts = pts.reshape(-1, 2).astype(np.float32)
-    n_cells = settings.grid[0] * settings.grid[1]
-    per_cell = max(2, int(np.ceil(1.5 * settings.max_corners / n_cells)))
-    size = (gray.shape[1], gray.shape[0])
+    xi = np.clip(np.rint(pts[:, 0]).astype(int), 0, size[0] - 1)
+    yi = np.clip(np.rint(pts[:, 1]).astype(int), 0, size[1] - 1)
+    at = strength[yi, xi]
+    cells = cell_index(pts, size, settings.grid)
+    if not crowded:
+        # The frame-wide rule reaches most of the frame: corners judged as usual.
+        return bucket(pts[at >= settings.quality_floor * top], size, settings.grid,
+                      per_cell)[:count]
+    keep = cell_keep(at, cells, cell_max, top,
+                     quality=settings.quality_floor, cell_quality=settings.cell_quality,
+                     floor=floor, isotropy=at / np.maximum(larger[yi, xi], 1e-12),
+                     min_isotropy=settings.min_isotropy, sparse_below=max(1, per_cell // 4))
+    pts = pts[keep]
     return bucket(pts, size, settings.grid, per_cell)[:count]
 
 

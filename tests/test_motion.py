@@ -5,7 +5,7 @@ import numpy as np
 from stabilize.config import Settings
 from stabilize.cuts import CutSettings, collapsed, is_cut, is_textureless
 from stabilize.motion import fill_failed, fit_frame, hull_share, transfer_error
-from stabilize.overlays import OverlayFinder
+from stabilize.overlays import OverlayFinder, still_band
 from stabilize.path import from_similarity, to_similarity
 
 W, H = 640, 360
@@ -74,6 +74,42 @@ def test_overlays_found_where_tracks_stay_put_while_the_camera_moves():
     assert (mask[: int(0.75 * H), :] == 255).all()
     regions = finder.regions((0.5, 0.5))
     assert regions and all(r[1] >= 0.85 * H * 2 for r in regions)
+
+
+def test_still_band_along_an_edge_against_a_moving_scene_is_an_overlay():
+    rng = np.random.default_rng(5)
+    scene = np.c_[rng.uniform(0, W, 200), rng.uniform(0, 0.85 * H, 200)]
+    strip = np.c_[rng.uniform(0, W, 60), rng.uniform(0.92 * H, H - 1, 60)]
+    start = np.concatenate([scene, strip])
+    now = np.concatenate([scene + [3.0, -1.0], strip + rng.normal(0, 0.01, (60, 2))])
+    still = np.r_[np.zeros(200, bool), np.ones(60, bool)]
+    spread = hull_share(now[~still], (W, H))
+    assert still_band(start, now, still, ~still, spread, (W, H))
+    # The same still group spread over the frame (a fixed camera's background around a
+    # moving object) is not an overlay, nor is a band that moved, nor one beside a small
+    # moving group.
+    around = np.c_[rng.uniform(0, W, 60), rng.uniform(0, H, 60)]
+    spread_out = np.concatenate([scene, around])
+    now_out = np.concatenate([scene + [3.0, -1.0], around])
+    assert not still_band(spread_out, now_out, still, ~still, spread, (W, H))
+    drifted = now.copy()
+    drifted[still] += [0.3, 0.0]
+    assert not still_band(start, drifted, still, ~still, spread, (W, H))
+    assert not still_band(start, now, still, ~still, 0.1, (W, H))
+    # A band at the left edge counts as well.
+    side = np.c_[rng.uniform(0, 0.1 * W, 60), rng.uniform(0, H, 60)]
+    assert still_band(np.concatenate([scene, side]), np.concatenate([scene + 2.0, side]),
+                      still, ~still, spread, (W, H))
+
+
+def test_band_votes_need_many_frames():
+    finder = OverlayFinder((W, H))
+    strip = np.c_[np.linspace(5, W - 5, 50), np.full(50, H - 5.0)]
+    grew = [finder.observe_band(strip) for _ in range(finder.settings.band_frames)]
+    assert not any(grew[:-1]) and grew[-1]
+    mask = finder.mask(None)
+    assert (mask[-10:, 10:-10] == 0).all() and (mask[: int(0.8 * H)] == 255).all()
+    assert not finder.observe_band(strip[:0])
 
 
 def test_cut_and_texture_rules():

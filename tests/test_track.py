@@ -9,6 +9,8 @@ from stabilize.track import (
     TrackSettings,
     bucket,
     cell_index,
+    cell_keep,
+    cell_maxima,
     detect,
     global_shift,
     ignore_mask,
@@ -51,6 +53,69 @@ def test_corners_spread_over_a_frame_with_one_busy_object():
     pts = detect(img, TrackSettings(max_corners=600), None, 600)
     outside = ~((pts[:, 0] > 150) & (pts[:, 0] < 330) & (pts[:, 1] > 60) & (pts[:, 1] < 200))
     assert outside.sum() > 0.3 * len(pts)
+
+
+def test_cell_maxima_use_the_cells_of_cell_index():
+    rng = np.random.default_rng(3)
+    strength = rng.uniform(0, 1, (37, 53))
+    grid = (5, 4)
+    ys, xs = np.mgrid[0:37, 0:53]
+    cells = cell_index(np.c_[xs.ravel(), ys.ravel()].astype(float), (53, 37), grid)
+    expected = np.full(20, -np.inf)
+    np.maximum.at(expected, cells, strength.ravel())
+    np.testing.assert_array_equal(cell_maxima(strength, grid), expected)
+
+
+def test_cell_keep_judges_weak_cells_by_their_own_best_above_the_floor():
+    strength = np.array([1.0, 0.002, 0.004, 0.0005, 0.004])
+    cells = np.array([0, 0, 1, 1, 2])
+    cell_max = np.array([1.0, 0.004, 0.004])
+    kw = dict(quality=0.01, cell_quality=0.1)
+    # Cell 0: its weak corner is judged against the frame's strongest (1.0) and dropped;
+    # cells 1 and 2: corners near their own best are kept, one below the floor is not.
+    keep = cell_keep(strength, cells, cell_max, 1.0, floor=0.001, **kw)
+    assert keep.tolist() == [True, False, True, False, True]
+    assert cell_keep(strength, cells, cell_max, 1.0, floor=0.01, **kw).tolist() == [
+        True, False, False, False, False]
+    assert cell_keep(strength, cells, cell_max, 1.0, floor=0.001, quality=0.003,
+                     cell_quality=2.0).tolist() == [True, False, True, False, True]
+    # A point on an edge (one eigenvalue far below the other) is not a corner of its cell.
+    edge = cell_keep(strength, cells, cell_max, 1.0, floor=0.001,
+                     isotropy=np.array([1.0, 1.0, 0.05, 1.0, 1.0]), min_isotropy=0.2, **kw)
+    assert edge.tolist() == [True, False, False, False, True]
+    # In a cell the frame-wide rule already filled, the per-cell rule adds nothing.
+    three = np.array([1.0, 0.9, 0.002])
+    crowded = cell_keep(three, np.zeros(3, int), np.array([1.0]), 1.0, quality=0.5,
+                        cell_quality=0.001, floor=0.0, sparse_below=2)
+    assert crowded.tolist() == [True, True, False]
+    assert cell_keep(three, np.zeros(3, int), np.array([1.0]), 1.0, quality=0.5,
+                     cell_quality=0.001, floor=0.0, sparse_below=3).all()
+
+
+def test_hazy_scene_keeps_corners_beside_high_contrast_text():
+    # A low-contrast picture with a strip of bright text along the bottom: judged against the
+    # frame's strongest corner alone, nearly every corner would be on the text.
+    rng = np.random.default_rng(4)
+    img = np.full((270, 480), 160.0)
+    for x, y, r, d in zip(rng.uniform(0, 480, 400), rng.uniform(0, 235, 400),
+                          rng.uniform(2, 6, 400), rng.choice([-10.0, 10.0], 400),
+                          strict=True):
+        cv2.circle(img, (int(x), int(y)), int(r), 160.0 + d, -1, cv2.LINE_AA)
+    img = np.clip(img + rng.normal(0, 1.5, img.shape), 0, 255).astype(np.uint8)
+    img[240:] = 20
+    cv2.putText(img, "ALT 48.3m  GS 0.6m/s  HDG 090", (5, 262), cv2.FONT_HERSHEY_SIMPLEX, 0.6,
+                235, 1, cv2.LINE_AA)
+    pts = detect(img, TrackSettings(max_corners=600), None, 600)
+    above = pts[:, 1] < 235
+    assert above.sum() > 0.6 * len(pts)
+    cells = np.unique(cell_index(pts[above], (480, 270), TrackSettings().grid))
+    assert len(cells) > 0.8 * 16 * 8
+    # A flat picture with only noise gets no corners from the per-cell rule.
+    flat = np.clip(160 + rng.normal(0, 1.5, (270, 480)), 0, 255)
+    flat = flat.astype(np.uint8)
+    flat[240:] = img[240:]
+    noisy = detect(flat, TrackSettings(max_corners=600), None, 600)
+    assert (noisy[:, 1] < 235).sum() < 0.05 * (16 * 8 * 16)
 
 
 def test_tracker_follows_a_subpixel_shift():
