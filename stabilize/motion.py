@@ -176,12 +176,8 @@ def fit_frame(src: np.ndarray, dst: np.ndarray, background: np.ndarray, *,
     the camera when most of them disagree. The candidate with the best
     :func:`background_score` wins.
     """
-    kw = dict(model=settings.model, inlier_px=settings.inlier_px,
-              confidence=settings.confidence, max_rounds=settings.max_rounds,
-              frame_size=frame_size)
-    fit = estimate(src, dst, seed=seed, prior=prior, **kw)
-    best = FrameFit(np.asarray(fit.matrix, float), np.asarray(fit.inliers, bool),
-                    float(fit.rms_px), int(fit.rounds), bool(fit.ok), bool(fit.weak))
+    best, kw = _consensus(src, dst, settings=settings, seed=seed, prior=prior,
+                          frame_size=frame_size)
     if not best.ok:
         return best
     # Two motions less than the threshold apart are both inliers of a compromise between
@@ -231,13 +227,20 @@ def refit(src: np.ndarray, dst: np.ndarray, *, settings: Settings, seed: list[in
           prior: np.ndarray, frame_size: tuple[int, int]) -> FrameFit:
     """A plain consensus fit from a starting guess, refitted to the tracking noise: the fit
     of a frame whose pairs are already known to be the scene's."""
+    first, kw = _consensus(src, dst, settings=settings, seed=seed, prior=prior,
+                           frame_size=frame_size)
+    return _noise_adaptive_refit(src, dst, first, kw, seed) if first.ok else first
+
+
+def _consensus(src: np.ndarray, dst: np.ndarray, *, settings: Settings, seed: list[int],
+               prior: np.ndarray | None, frame_size: tuple[int, int]) -> tuple[FrameFit, dict]:
+    """The consensus fit at the user's settings, and those settings as keywords."""
     kw = dict(model=settings.model, inlier_px=settings.inlier_px,
               confidence=settings.confidence, max_rounds=settings.max_rounds,
               frame_size=frame_size)
     fit = estimate(src, dst, seed=seed, prior=prior, **kw)
-    first = FrameFit(np.asarray(fit.matrix, float), np.asarray(fit.inliers, bool),
-                     float(fit.rms_px), int(fit.rounds), bool(fit.ok), bool(fit.weak))
-    return _noise_adaptive_refit(src, dst, first, kw, seed) if first.ok else first
+    return FrameFit(np.asarray(fit.matrix, float), np.asarray(fit.inliers, bool),
+                    float(fit.rms_px), int(fit.rounds), bool(fit.ok), bool(fit.weak)), kw
 
 
 def _noise_adaptive_refit(src: np.ndarray, dst: np.ndarray, fit: FrameFit, kw: dict,
