@@ -193,8 +193,8 @@ def test_summary_out_figures_come_from_the_measured_output():
     n, fps, w, h = 240, 30.0, 640, 360
     c = frame_centre(w, h)
     t = np.arange(n) / fps
-    wobble = 2.0 * np.sin(2 * np.pi * 2.5 * t)
-    matrices = np.stack([_similarity(d, 0.0, 0.0, c) for d in np.diff(wobble, prepend=0.0)])
+    sway = 2.0 * np.sin(2 * np.pi * 2.5 * t)
+    matrices = np.stack([_similarity(d, 0.0, 0.0, c) for d in np.diff(sway, prepend=0.0)])
     status = np.full(n, "ok")
     from stabilize.path import accumulate
 
