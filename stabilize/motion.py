@@ -424,15 +424,30 @@ class _Recent:
     attempts: int = 0
 
 
+@dataclass(frozen=True)
+class _Context:
+    """What every pass of one analysis shares: the settings, the sizes (full resolution and
+    analysis copy, pixels) and the scale between them, and the mask of ignored regions."""
+
+    settings: Settings
+    scale: tuple[float, float]
+    cuts: CutSettings
+    baseline: BaselineSettings
+    full_size: tuple[int, int]
+    analysis_size: tuple[int, int]
+    track_settings: TrackSettings | None
+    user_mask: np.ndarray | None
+
+
 class _Pass:
     """The analysis state since its last (re)start: tracks, overlay evidence, the previous
     motion, the texture reference and the baselines. :meth:`begin` takes the first frame;
     :meth:`step` each next one."""
 
-    def __init__(self, ctx: dict) -> None:
+    def __init__(self, ctx: _Context) -> None:
         self.ctx = ctx
-        self.tracker = Tracker(ctx["track_settings"], ctx["user_mask"])
-        self.overlays = OverlayFinder(ctx["analysis_size"])
+        self.tracker = Tracker(ctx.track_settings, ctx.user_mask)
+        self.overlays = OverlayFinder(ctx.analysis_size)
         self.overlays_grew = False
         self.prior: np.ndarray | None = None
         self.texture_ref: float | None = None
@@ -461,16 +476,16 @@ class _Pass:
 
     def step(self, image: np.ndarray, time_s: float, index: int) -> _Record:
         ctx = self.ctx
-        settings, scale, cuts_cfg = ctx["settings"], ctx["scale"], ctx["cuts"]
-        base: BaselineSettings = ctx["baseline"]
-        fw, fh = ctx["full_size"]
+        settings, scale, cuts_cfg = ctx.settings, ctx.scale, ctx.cuts
+        base = ctx.baseline
+        fw, fh = ctx.full_size
         tracker = self.tracker
         self.steps += 1
         prev_s, self.prev_s = self.prev_s, time_s
         predicted = None if self.prior is None else to_analysis(self.prior, scale)
         if self.overlays_grew:
             self.overlays_grew = False
-            tracker.set_mask(self.overlays.mask(ctx["user_mask"]))
+            tracker.set_mask(self.overlays.mask(ctx.user_mask))
         pairs = tracker.step(image, predicted)
         offered = tracker.live
         strength = None
@@ -565,7 +580,7 @@ class _Pass:
         self.prior = fit.matrix
         tracker.update(support, memo)
         if self.overlays.observe(pairs.src, pairs.dst, to_analysis(fit.matrix, scale)):
-            tracker.set_mask(self.overlays.mask(ctx["user_mask"]))
+            tracker.set_mask(self.overlays.mask(ctx.user_mask))
         record = _Record(fit.matrix, d, "weak" if fit.weak else "ok",
                          "few_inliers" if fit.weak else "")
         self.recent.append(_Recent(index, time_s, src, dst, pairs.ids, pairs.background,
@@ -588,9 +603,9 @@ class _Pass:
         motion over the baseline gives it away; those frames are refitted without it.
         """
         ctx = self.ctx
-        base: BaselineSettings = ctx["baseline"]
-        fw, fh = ctx["full_size"]
-        settings = ctx["settings"]
+        base = ctx.baseline
+        fw, fh = ctx.full_size
+        settings = ctx.settings
         for r in self.recent:
             if r.index < self.owned_from or r.record.status != "ok":
                 continue
@@ -656,9 +671,10 @@ def analyse(
     aw, ah = analysis_size
     scale = (aw / fw, ah / fh)
     user_mask = ignore_mask(analysis_size, settings.ignore, scale)
-    ctx = dict(settings=settings, scale=scale, cuts=cut_settings or CutSettings(),
-               baseline=BaselineSettings(), full_size=full_size, analysis_size=analysis_size,
-               track_settings=track_settings, user_mask=user_mask)
+    ctx = _Context(settings=settings, scale=scale, cuts=cut_settings or CutSettings(),
+                   baseline=BaselineSettings(), full_size=full_size,
+                   analysis_size=analysis_size, track_settings=track_settings,
+                   user_mask=user_mask)
     can_track = measurable(fw, fh) and measurable(aw, ah)
     warm = warm_up_frames(keyframe_every) if keyframe_every else 0
     main = _Pass(ctx)

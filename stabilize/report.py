@@ -25,7 +25,7 @@ from typing import Any
 
 import numpy as np
 
-from . import shake
+from . import residual, shake
 from .config import Settings
 from .errors import StabilizeError
 from .files import (
@@ -302,11 +302,9 @@ def _summary(motion: MotionLog, settings: Settings, fps: float) -> dict[str, Any
         output_motion_readout=motion.output_check, reasons=reasons_of(motion),
     )
     if motion.output_check is not None and motion.corrections is not None:
-        from .residual import steadiness
-
-        fresh |= steadiness(motion.output_check, motion.source_check,
-                            cuts=motion.status == "cut", fps=fresh["fps"],
-                            above_hz=settings.shake_above_hz, width=w, height=h)
+        fresh |= residual.steadiness(motion.output_check, motion.source_check,
+                                     cuts=motion.status == "cut", fps=fresh["fps"],
+                                     above_hz=settings.shake_above_hz, width=w, height=h)
     out = dict(motion.summary)
     out.update(fresh)
     # Keys only later stages know (output_steadier …) count in the verdict too.

@@ -159,8 +159,7 @@ def lead_in_start(start: int, keyframe_every: int) -> int:
     return max(0, start - 1 - warm_up_frames(keyframe_every))
 
 
-def _drop_first(track: MotionTrack, count: int) -> MotionTrack:
-    k = count
+def _drop_first(track: MotionTrack, k: int) -> MotionTrack:
     return MotionTrack(time_s=track.time_s[k:], matrices=track.matrices[k:],
                        tracked=track.tracked[k:], inliers=track.inliers[k:],
                        inlier_ratio=track.inlier_ratio[k:], rms_px=track.rms_px[k:],

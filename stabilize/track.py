@@ -186,9 +186,7 @@ def detect(gray: np.ndarray, settings: TrackSettings, mask: np.ndarray | None,
     size = (gray.shape[1], gray.shape[0])
     n_cells = settings.grid[0] * settings.grid[1]
     per_cell = max(2, int(np.ceil(1.5 * settings.max_corners / n_cells)))
-    eig = cv2.cornerEigenValsAndVecs(gray, settings.block_size, ksize=3)
-    strength = np.minimum(eig[..., 0], eig[..., 1])
-    larger = np.maximum(eig[..., 0], eig[..., 1])
+    strength = cv2.cornerMinEigenVal(gray, settings.block_size, ksize=3)
     # Whether the picture's strong corners crowd into a few cells, judged on the whole
     # picture (not the mask, which at a re-seed hides the corners already tracked).
     floor = max(settings.min_strength, settings.noise_floor * float(np.median(strength)))
@@ -221,6 +219,10 @@ def detect(gray: np.ndarray, settings: TrackSettings, mask: np.ndarray | None,
         # The frame-wide rule reaches most of the frame: corners judged as usual.
         return bucket(pts[at >= settings.quality_floor * top], size, settings.grid,
                       per_cell)[:count]
+    # Both eigenvalues only where the per-cell rule needs them (this costs five times the
+    # smaller eigenvalue alone).
+    eig = cv2.cornerEigenValsAndVecs(gray, settings.block_size, ksize=3)
+    larger = np.maximum(eig[..., 0], eig[..., 1])
     keep = cell_keep(at, cells, cell_max, top,
                      quality=settings.quality_floor, cell_quality=settings.cell_quality,
                      floor=floor, isotropy=at / np.maximum(larger[yi, xi], 1e-12),

@@ -90,16 +90,21 @@ def test_static_camera_with_a_large_object_in_front(tmp_path):
     front of it for the whole 20 s. The logged camera path must stay within 2 px of zero."""
     w, h = 640, 360
     board = Mover("panel", (0.7 * w, 0.7 * h), (w / 2, h / 2), (37.0, 23.0), "frame", seed=5)
-    spec = SceneSpec(style="field", width=w, height=h, fps=30.0, duration_s=20.0, seed=2,
-                     noise_sigma=1.5, motion=MotionSpec(pan_px_s=0.0), shake=ShakeSpec(),
-                     movers=(board,))
-    clip = SyntheticClip(spec)
-    path = _encode(clip, tmp_path / "still.mp4")
-    log = stabilize.measure(path)
-    path_xy = log.readouts()["path"][:, :2]
-    print(f"largest camera path offset: {np.abs(path_xy).max():.4f} px")
-    assert np.abs(path_xy).max() < 2.0
+    log, offset = _still_camera(tmp_path / "still.mp4", board, duration_s=20.0, seed=2)
+    assert offset < 2.0
     assert not (log.status == "failed").any()
+
+
+def _still_camera(path, board: Mover, *, duration_s: float, seed: int):
+    """Measure a still camera's 640×360 field scene with ``board`` moving in front; the log
+    and the largest offset of its camera path from zero, pixels."""
+    spec = SceneSpec(style="field", width=640, height=360, fps=30.0, duration_s=duration_s,
+                     seed=seed, noise_sigma=1.5, motion=MotionSpec(pan_px_s=0.0),
+                     shake=ShakeSpec(), movers=(board,))
+    log = stabilize.measure(_encode(SyntheticClip(spec), path))
+    offset = float(np.abs(log.readouts()["path"][:, :2]).max())
+    print(f"largest camera path offset: {offset:.4f} px")
+    return log, offset
 
 
 def test_static_camera_with_a_slow_object_in_front(tmp_path):
@@ -108,15 +113,8 @@ def test_static_camera_with_a_slow_object_in_front(tmp_path):
     motion over several frames gives it away. The logged path must stay within 1 px."""
     w, h = 640, 360
     board = Mover("panel", (0.55 * w, 0.6 * h), (0.4 * w, h / 2), (9.0, 4.0), "frame", seed=8)
-    spec = SceneSpec(style="field", width=w, height=h, fps=30.0, duration_s=12.0, seed=9,
-                     noise_sigma=1.5, motion=MotionSpec(pan_px_s=0.0), shake=ShakeSpec(),
-                     movers=(board,))
-    clip = SyntheticClip(spec)
-    path = _encode(clip, tmp_path / "slow board.mp4")
-    log = stabilize.measure(path)
-    path_xy = log.readouts()["path"][:, :2]
-    print(f"largest camera path offset: {np.abs(path_xy).max():.4f} px")
-    assert np.abs(path_xy).max() < 1.0
+    _, offset = _still_camera(tmp_path / "slow board.mp4", board, duration_s=12.0, seed=9)
+    assert offset < 1.0
 
 
 def test_homography_chain_matches_direct_registration(tmp_path):
