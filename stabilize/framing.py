@@ -14,8 +14,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from .log import frame_centre
-from .path import apply, blend, frame_corners, gaussian_smooth
+from .geometry import apply, frame_centre, frame_corners
+from .path import blend, gaussian_smooth
 
 #: Smallest σ_min / σ_max of its 2×2 part a correction may have before it is eased: a bound on
 #: the shear and perspective stretch it adds (similarity corrections always have 1). Our choice.

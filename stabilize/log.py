@@ -37,6 +37,7 @@ import numpy as np
 
 from .errors import StabilizeError
 from .files import all_or_nothing, write_text_atomic
+from .geometry import frame_centre, normalise, similarity_readout
 
 FORMAT = "stabilize-motion-log"
 VERSION = 1
@@ -58,41 +59,6 @@ OUT_CHECK = ["out_dx", "out_dy", "out_deg"]
 SRC_CHECK = ["src_check_dx", "src_check_dy", "src_check_deg"]
 CHECK_COLUMNS = [*OUT_CHECK, *SRC_CHECK]
 COLUMNS = [*BASE_COLUMNS, *CHECK_COLUMNS]
-
-
-def frame_centre(width: int, height: int) -> np.ndarray:
-    """Centre of a width × height frame under the pixel-centre convention, (x, y) pixels."""
-    return np.array([(width - 1) / 2.0, (height - 1) / 2.0])
-
-
-def similarity_readout(m: np.ndarray, centre: np.ndarray) -> np.ndarray:
-    """Read 3×3 matrices as similarities about ``centre``.
-
-    Parameters
-    ----------
-    m : (..., 3, 3) matrices.
-    centre : (2,) the frame centre in pixels.
-
-    Returns
-    -------
-    (..., 4) array of dx, dy (pixels: where the centre moves to, minus the centre),
-    rotation in degrees, and scale (sqrt of |det| of the 2×2 part).
-    """
-    m = np.asarray(m, dtype=np.float64)
-    cx, cy = float(centre[0]), float(centre[1])
-    w = m[..., 2, 0] * cx + m[..., 2, 1] * cy + m[..., 2, 2]
-    x = (m[..., 0, 0] * cx + m[..., 0, 1] * cy + m[..., 0, 2]) / w
-    y = (m[..., 1, 0] * cx + m[..., 1, 1] * cy + m[..., 1, 2]) / w
-    a, b, c, d = m[..., 0, 0], m[..., 0, 1], m[..., 1, 0], m[..., 1, 1]
-    rot = np.degrees(np.arctan2(c - b, a + d))
-    scale = np.sqrt(np.abs(a * d - b * c))
-    return np.stack([x - cx, y - cy, rot, scale], axis=-1)
-
-
-def normalise(m: np.ndarray) -> np.ndarray:
-    """Scale (..., 3, 3) matrices so their bottom-right element is 1."""
-    m = np.asarray(m, dtype=np.float64)
-    return m / m[..., 2:3, 2:3]
 
 
 @dataclass

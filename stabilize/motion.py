@@ -37,17 +37,15 @@ from .cuts import (
     is_cut,
     is_textureless,
 )
-from .log import frame_centre
+from .geometry import frame_centre, from_similarity, rescale, to_similarity
 from .overlap import read_ahead
 from .overlays import OverlayFinder, still_band
-from .path import from_similarity, to_similarity
 from .track import (
     Pairs,
     Tracker,
     TrackSettings,
     global_shift,
     ignore_mask,
-    to_analysis,
     to_full_resolution,
 )
 from .video import Frame
@@ -482,7 +480,7 @@ class _Pass:
         tracker = self.tracker
         self.steps += 1
         prev_s, self.prev_s = self.prev_s, time_s
-        predicted = None if self.prior is None else to_analysis(self.prior, scale)
+        predicted = None if self.prior is None else rescale(self.prior, scale)
         if self.overlays_grew:
             self.overlays_grew = False
             tracker.set_mask(self.overlays.mask(ctx.user_mask))
@@ -579,7 +577,7 @@ class _Pass:
             return _Record(fit.matrix, d, "weak", "foreground")
         self.prior = fit.matrix
         tracker.update(support, memo)
-        if self.overlays.observe(pairs.src, pairs.dst, to_analysis(fit.matrix, scale)):
+        if self.overlays.observe(pairs.src, pairs.dst, rescale(fit.matrix, scale)):
             tracker.set_mask(self.overlays.mask(ctx.user_mask))
         record = _Record(fit.matrix, d, "weak" if fit.weak else "ok",
                          "few_inliers" if fit.weak else "")

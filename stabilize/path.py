@@ -15,7 +15,7 @@ import logging
 
 import numpy as np
 
-from .log import frame_centre
+from .geometry import frame_centre, from_corners, from_similarity, to_corners, to_similarity
 
 _log = logging.getLogger("stabilize")
 
@@ -53,70 +53,6 @@ def segments(cuts: np.ndarray) -> list[slice]:
 
 
 # ------------------------------------------------------------- parameterisations
-def to_similarity(p: np.ndarray, centre: np.ndarray) -> np.ndarray:
-    """(n, 3, 3) -> (n, 4): x, y (pixels, where the centre goes minus the centre), angle
-    (radians) and log-scale of the matrices read as similarities about ``centre``."""
-    cx, cy = centre
-    w = p[:, 2, 0] * cx + p[:, 2, 1] * cy + p[:, 2, 2]
-    x = (p[:, 0, 0] * cx + p[:, 0, 1] * cy + p[:, 0, 2]) / w - cx
-    y = (p[:, 1, 0] * cx + p[:, 1, 1] * cy + p[:, 1, 2]) / w - cy
-    a, b, c, d = p[:, 0, 0], p[:, 0, 1], p[:, 1, 0], p[:, 1, 1]
-    angle = np.unwrap(np.arctan2(c - b, a + d))
-    log_s = 0.5 * np.log(np.maximum(np.abs(a * d - b * c), 1e-12))
-    return np.stack([x, y, angle, log_s], axis=1)
-
-
-def from_similarity(q: np.ndarray, centre: np.ndarray) -> np.ndarray:
-    """Inverse of :func:`to_similarity`: (n, 4) -> (n, 3, 3) similarities about ``centre``."""
-    cx, cy = centre
-    s = np.exp(q[:, 3])
-    cos, sin = s * np.cos(q[:, 2]), s * np.sin(q[:, 2])
-    m = np.zeros((len(q), 3, 3))
-    m[:, 0, 0], m[:, 0, 1], m[:, 1, 0], m[:, 1, 1] = cos, -sin, sin, cos
-    m[:, 0, 2] = cx + q[:, 0] - (cos * cx - sin * cy)
-    m[:, 1, 2] = cy + q[:, 1] - (sin * cx + cos * cy)
-    m[:, 2, 2] = 1.0
-    return m
-
-
-def frame_corners(width: int, height: int) -> np.ndarray:
-    """The four corner pixel centres (4, 2), clockwise from the top-left."""
-    return np.array([[0.0, 0.0], [width - 1.0, 0.0], [width - 1.0, height - 1.0],
-                     [0.0, height - 1.0]])
-
-
-def apply(m: np.ndarray, pts: np.ndarray) -> np.ndarray:
-    """Map points (k, 2) by matrices (n, 3, 3) -> (n, k, 2), with perspective division."""
-    h = np.einsum("nij,kj->nki", m[:, :, :2], pts) + m[:, None, :, 2]
-    return h[..., :2] / h[..., 2:3]
-
-
-def to_corners(p: np.ndarray, width: int, height: int) -> np.ndarray:
-    """(n, 3, 3) -> (n, 8): where the frame corners land under each matrix."""
-    return apply(p, frame_corners(width, height)).reshape(len(p), 8)
-
-
-def from_corners(corners: np.ndarray, width: int, height: int) -> np.ndarray:
-    """(n, 8) -> (n, 3, 3): the homographies taking the frame corners to ``corners``."""
-    src = frame_corners(width, height)
-    dst = corners.reshape(-1, 4, 2)
-    n = len(dst)
-    a = np.zeros((n, 8, 8))
-    b = np.zeros((n, 8))
-    for i in range(4):
-        x, y = src[i]
-        u, v = dst[:, i, 0], dst[:, i, 1]
-        a[:, 2 * i, :3] = (x, y, 1.0)
-        a[:, 2 * i, 6] = -u * x
-        a[:, 2 * i, 7] = -u * y
-        a[:, 2 * i + 1, 3:6] = (x, y, 1.0)
-        a[:, 2 * i + 1, 6] = -v * x
-        a[:, 2 * i + 1, 7] = -v * y
-        b[:, 2 * i], b[:, 2 * i + 1] = u, v
-    h = np.linalg.solve(a, b[..., None])[..., 0]
-    return np.concatenate([h, np.ones((n, 1))], axis=1).reshape(n, 3, 3)
-
-
 def uses_corners(model: str) -> bool:
     """Whether paths of this motion model are smoothed as corner trajectories."""
     return model in ("affine", "homography")

@@ -21,14 +21,8 @@ from . import framing, residual, shake
 from .config import AUTO_MARGIN_CAP, Settings, build_settings
 from .errors import StabilizeError
 from .files import all_or_nothing, check_writable_folder, discard, publish, temp_path_for
-from .log import (
-    MotionLog,
-    frame_reasons,
-    json_path_for,
-    read_log,
-    reasons_of,
-    similarity_readout,
-)
+from .geometry import rescale, similarity_readout
+from .log import MotionLog, frame_reasons, json_path_for, read_log, reasons_of
 from .motion import analyse, measurable
 from .path import smooth_path
 from .render import compare_size
@@ -459,15 +453,6 @@ def steady(clip: str | os.PathLike, out: str | os.PathLike | None = None, *,
     return _correct_and_write(clip, info, motion, settings, outputs, progress)
 
 
-def _rescale(matrices: np.ndarray, from_size: tuple[int, int],
-             to_size: tuple[int, int]) -> np.ndarray:
-    """Transforms logged at one resolution expressed at another (pixel-centre convention)."""
-    sx, sy = from_size[0] / to_size[0], from_size[1] / to_size[1]
-    d = np.array([[sx, 0.0, 0.5 * sx - 0.5], [0.0, sy, 0.5 * sy - 0.5], [0.0, 0.0, 1.0]])
-    m = np.linalg.inv(d) @ matrices @ d
-    return m / m[:, 2:3, 2:3]
-
-
 @all_or_nothing()
 def render(clip: str | os.PathLike, log_file: str | os.PathLike | MotionLog,
            out: str | os.PathLike | None = None, *, config: str | None = None,
@@ -498,7 +483,7 @@ def render(clip: str | os.PathLike, log_file: str | os.PathLike | MotionLog,
     excluded = _excluded_regions(saved)
     if saved.size != (info.width, info.height):
         log.info("log made at %dx%d, rendering at %dx%d", *saved.size, info.width, info.height)
-        matrices = _rescale(matrices, saved.size, (info.width, info.height))
+        matrices = rescale(matrices, (info.width / saved.size[0], info.height / saved.size[1]))
         fx, fy = info.width / saved.size[0], info.height / saved.size[1]
         excluded = [[x * fx, y * fy, w * fx, h * fy] for x, y, w, h in excluded]
     motion = MotionLog(

@@ -15,6 +15,7 @@ from collections.abc import Callable, Iterable
 import cv2
 import numpy as np
 
+from .geometry import rescale
 from .overlap import WriteBehind, read_ahead
 from .video import YUV_BLACK, Frame, PlanarImage, VideoWriter
 
@@ -55,13 +56,7 @@ def plane_matrix(correction: np.ndarray, sub_x: int, sub_y: int) -> np.ndarray:
     """
     if (sub_x, sub_y) == (1, 1):
         return np.asarray(correction, dtype=np.float64)
-    d = np.array([[1.0 / sub_x, 0.0, 0.5 / sub_x - 0.5],
-                  [0.0, 1.0 / sub_y, 0.5 / sub_y - 0.5],
-                  [0.0, 0.0, 1.0]])
-    d_inv = np.array([[float(sub_x), 0.0, 0.5 * sub_x - 0.5],
-                      [0.0, float(sub_y), 0.5 * sub_y - 0.5],
-                      [0.0, 0.0, 1.0]])
-    return d @ np.asarray(correction, dtype=np.float64) @ d_inv
+    return rescale(correction, (1.0 / sub_x, 1.0 / sub_y), normalised=False)
 
 
 def warp_planes(image: PlanarImage, correction: np.ndarray, fill: str = "black",

@@ -35,7 +35,8 @@ from .files import (
     temp_path_for,
     write_text_atomic,
 )
-from .log import MotionLog, _jsonable, read_log, reasons_of, similarity_readout
+from .geometry import similarity_readout
+from .log import MotionLog, _jsonable, read_log, reasons_of
 from .report_page import fmt_sig, render_page
 
 FORMAT = "stabilize-shake-report"

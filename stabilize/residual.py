@@ -40,7 +40,7 @@ import cv2
 import numpy as np
 
 from .consensus import estimate
-from .log import frame_centre, similarity_readout
+from .geometry import frame_centre, similarity_readout
 from .track import to_full_resolution
 
 __all__ = [

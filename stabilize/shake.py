@@ -22,8 +22,8 @@ import math
 
 import numpy as np
 
-from .log import frame_centre, similarity_readout
-from .path import accumulate, from_similarity, segments
+from .geometry import frame_centre, from_similarity, similarity_readout
+from .path import accumulate, segments
 
 
 def _signal():

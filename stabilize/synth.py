@@ -43,6 +43,8 @@ from typing import Literal
 import cv2
 import numpy as np
 
+from .geometry import normalise, rescale
+
 __all__ = [
     "HAZE_GREY",
     "MODELS",
@@ -332,10 +334,6 @@ def _stack(n: int) -> np.ndarray:
     return np.tile(np.eye(3), (n, 1, 1))
 
 
-def _normalise(m: np.ndarray) -> np.ndarray:
-    return m / m[..., 2:3, 2:3]
-
-
 def _translations(tx: np.ndarray, ty: np.ndarray) -> np.ndarray:
     m = _stack(len(tx))
     m[:, 0, 2], m[:, 1, 2] = tx, ty
@@ -366,12 +364,7 @@ def _matrices(p: dict[str, np.ndarray], w: int, h: int, f: float) -> np.ndarray:
     k = np.diag([f, f, 1.0])
     persp = k @ ry @ rx @ np.linalg.inv(k)
     centre = _translations(np.full(n, (w - 1) / 2.0), np.full(n, (h - 1) / 2.0))
-    return _normalise(centre @ persp @ aff @ rot @ zoom @ world)
-
-
-def _upscale(k: int) -> np.ndarray:
-    """Maps nominal pixel coordinates to those of a k× supersampled grid (pixel centres)."""
-    return np.array([[k, 0, (k - 1) / 2], [0, k, (k - 1) / 2], [0, 0, 1]], float)
+    return normalise(centre @ persp @ aff @ rot @ zoom @ world)
 
 
 def grid_transfer_error(
@@ -876,7 +869,7 @@ class SyntheticClip:
 
         h = np.empty_like(g)
         h[0] = np.eye(3)
-        h[1:] = _normalise(g[1:] @ np.linalg.inv(g[:-1]))
+        h[1:] = normalise(g[1:] @ np.linalg.inv(g[:-1]))
         h[cut] = np.nan
         self.shot, self.cut, self.textureless, self.observable = shot, cut, tl, obs
         self.world_to_frame, self.smooth_world_to_frame, self.inter_frame = g, gs, h
@@ -1097,8 +1090,7 @@ class SyntheticClip:
         world = self._sky() if self.textureless[t] else self.world_image(int(self.shot[t]))
         g = self.world_to_frame[t]
         if k > 1:
-            up = _upscale(k)
-            g = up @ g @ np.linalg.inv(up)
+            g = rescale(g, (k, k), normalised=False)
         img = cv2.warpPerspective(world, g, (w * k, h * k), flags=cv2.INTER_LINEAR,
                                   borderMode=cv2.BORDER_REPLICATE)
         if k > 1:
@@ -1168,7 +1160,7 @@ class SyntheticClip:
             "inter_frame": np.array(self.inter_frame),
             "world_to_frame": np.array(self.world_to_frame),
             "smooth_world_to_frame": np.array(self.smooth_world_to_frame),
-            "shake_correction": _normalise(self.smooth_world_to_frame
+            "shake_correction": normalise(self.smooth_world_to_frame
                                            @ np.linalg.inv(self.world_to_frame)),
             "cut": np.array(self.cut),
             "textureless": np.array(self.textureless),

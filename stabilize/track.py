@@ -468,14 +468,6 @@ def to_full_resolution(pts: np.ndarray, scale: tuple[float, float]) -> np.ndarra
     return out
 
 
-def to_analysis(m: np.ndarray, scale: tuple[float, float]) -> np.ndarray:
-    """A full-resolution 3×3 motion expressed in analysis pixels: D · M · D⁻¹."""
-    sx, sy = scale
-    d = np.array([[sx, 0.0, 0.5 * sx - 0.5], [0.0, sy, 0.5 * sy - 0.5], [0.0, 0.0, 1.0]])
-    out = d @ m @ np.linalg.inv(d)
-    return out / out[2, 2]
-
-
 def global_shift(prev: np.ndarray, cur: np.ndarray, max_side: int = 320) -> tuple[float, float,
                                                                                     float]:
     """Whole-frame shift (dx, dy) from ``prev`` to ``cur`` in their pixels, by phase

@@ -11,8 +11,7 @@ from stabilize.framing import (
     fit_to_margin,
     zoom,
 )
-from stabilize.log import frame_centre
-from stabilize.path import from_similarity
+from stabilize.geometry import frame_centre, from_similarity
 
 W, H = 640, 360
 

@@ -8,14 +8,8 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from stabilize.errors import StabilizeError
-from stabilize.log import (
-    BASE_COLUMNS,
-    COLUMNS,
-    MotionLog,
-    frame_centre,
-    read_log,
-    similarity_readout,
-)
+from stabilize.geometry import frame_centre, similarity_readout
+from stabilize.log import BASE_COLUMNS, COLUMNS, MotionLog, read_log
 
 
 def _log(n=6, with_corrections=True):

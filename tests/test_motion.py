@@ -4,9 +4,9 @@ import numpy as np
 
 from stabilize.config import Settings
 from stabilize.cuts import CutSettings, collapsed, is_cut, is_textureless
+from stabilize.geometry import from_similarity, to_similarity
 from stabilize.motion import fill_failed, fit_frame, hull_share, transfer_error
 from stabilize.overlays import OverlayFinder, still_band
-from stabilize.path import from_similarity, to_similarity
 
 W, H = 640, 360
 

@@ -3,19 +3,22 @@
 import numpy as np
 import pytest
 
-from stabilize.log import frame_centre, similarity_readout
+from stabilize.geometry import (
+    frame_centre,
+    from_corners,
+    from_similarity,
+    similarity_readout,
+    to_similarity,
+)
 from stabilize.path import (
     SMOOTHERS,
     accumulate,
     blend,
     decode,
     encode,
-    from_corners,
-    from_similarity,
     gaussian_smooth,
     segments,
     smooth_path,
-    to_similarity,
 )
 
 

@@ -16,8 +16,8 @@ import pytest
 from stabilize import shake
 from stabilize.config import Settings
 from stabilize.errors import StabilizeError
-from stabilize.log import MotionLog, frame_centre
-from stabilize.path import from_similarity
+from stabilize.geometry import frame_centre, from_similarity
+from stabilize.log import MotionLog
 from stabilize.report import make_report, report_name
 
 from .conftest import noise_frames, write_clip

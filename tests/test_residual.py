@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 
 from stabilize import shake
-from stabilize.log import frame_centre, similarity_readout
+from stabilize.geometry import frame_centre, similarity_readout
 from stabilize.residual import (
     CheckSettings,
     MotionCheck,

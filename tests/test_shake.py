@@ -6,8 +6,8 @@ import numpy as np
 import pytest
 
 import stabilize
-from stabilize.log import frame_centre, similarity_readout
-from stabilize.path import accumulate, from_similarity
+from stabilize.geometry import frame_centre, from_similarity, similarity_readout
+from stabilize.path import accumulate
 from stabilize.shake import (
     NOISE_FLOOR_PX,
     SHAKE_BANDS_HZ,

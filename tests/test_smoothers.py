@@ -11,8 +11,15 @@ import pytest
 import stabilize
 from stabilize import framing
 from stabilize.config import Settings
-from stabilize.log import MotionLog, frame_centre, similarity_readout
-from stabilize.path import accumulate, apply, encode, frame_corners, from_similarity, smooth_path
+from stabilize.geometry import (
+    apply,
+    frame_centre,
+    frame_corners,
+    from_similarity,
+    similarity_readout,
+)
+from stabilize.log import MotionLog
+from stabilize.path import accumulate, encode, smooth_path
 from stabilize.pipeline import plan_corrections
 from stabilize.shake import shake_component
 from stabilize.smoothers.kalman import kalman_smooth

@@ -4,6 +4,7 @@ import cv2
 import numpy as np
 import pytest
 
+from stabilize.geometry import rescale
 from stabilize.track import (
     Tracker,
     TrackSettings,
@@ -14,7 +15,6 @@ from stabilize.track import (
     detect,
     global_shift,
     ignore_mask,
-    to_analysis,
     to_full_resolution,
 )
 
@@ -157,7 +157,7 @@ def test_subpixel_motion_maps_exactly_to_full_resolution(scale):
     """A full-resolution motion seen on the reduced copy maps back exactly (pixel centres)."""
     sx, sy = scale
     full = np.array([[1.001, -0.002, 3.3], [0.002, 1.001, -1.7], [0.0, 0.0, 1.0]])
-    small = to_analysis(full, scale)
+    small = rescale(full, scale)
     pts_full = np.array([[0.0, 0.0], [1919.0, 1079.0], [640.25, 300.5]])
     pts_small = np.c_[(pts_full[:, 0] + 0.5) * sx - 0.5, (pts_full[:, 1] + 0.5) * sy - 0.5]
     np.testing.assert_allclose(to_full_resolution(pts_small, scale), pts_full, atol=1e-9)

@@ -37,7 +37,8 @@ import numpy as np
 from scipy import sparse
 from scipy.optimize import linprog
 
-from ..path import apply, decode, frame_corners, gaussian_smooth, uses_corners
+from ..geometry import apply, frame_corners
+from ..path import decode, gaussian_smooth, uses_corners
 
 log = logging.getLogger("stabilize")
 

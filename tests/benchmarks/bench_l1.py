@@ -15,7 +15,8 @@ import numpy as np
 
 from stabilize import framing
 from stabilize.config import Settings
-from stabilize.log import MotionLog, similarity_readout
+from stabilize.geometry import similarity_readout
+from stabilize.log import MotionLog
 from stabilize.path import accumulate, smooth_path
 from stabilize.pipeline import plan_corrections
 from stabilize.shake import shake_component

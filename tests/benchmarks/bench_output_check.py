@@ -19,7 +19,7 @@ from pathlib import Path
 import cv2
 import numpy as np
 
-from stabilize.log import frame_centre, similarity_readout
+from stabilize.geometry import frame_centre, similarity_readout
 from stabilize.residual import RenderCheck
 from stabilize.synth import SceneSpec, SyntheticClip
 from stabilize.video import VideoWriter, iter_frames
