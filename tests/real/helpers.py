@@ -16,8 +16,8 @@ from scipy.ndimage import median_filter
 from stabilize.log import MotionLog
 from stabilize.video import iter_frames
 
-__all__ = ["apply_homography", "path_excursion_px", "real_rate_hz", "region_drift_px",
-           "region_shifts_px"]
+__all__ = ["apply_homography", "path_excursion_px", "real_rate_hz", "reference_path_px",
+           "region_drift_px", "region_shifts_px"]
 
 
 def apply_homography(matrices: np.ndarray, points: np.ndarray) -> np.ndarray:
@@ -44,13 +44,17 @@ def path_excursion_px(log: MotionLog) -> tuple[float, float]:
     return float(dist[0]), float(dist[1:].max())
 
 
-def region_shifts_px(clip: str | os.PathLike, box: tuple[int, int, int, int]) -> np.ndarray:
+def region_shifts_px(clip: str | os.PathLike, box: tuple[int, int, int, int], *,
+                     high_pass_px: float | None = None,
+                     with_response: bool = False) -> np.ndarray:
     """Shift (dx, dy) px of a fixed image region in every frame relative to frame 0, (n, 2).
 
     ``box`` is (x0, y0, x1, y1) in full-resolution pixels. Each shift is found by phase
     correlation with a Hann window (Kuglin and Hines, "The phase correlation image alignment
     method", Proc. IEEE Int. Conf. Cybernetics and Society, 1975), sub-pixel as OpenCV's
-    ``phaseCorrelate`` gives it.
+    ``phaseCorrelate`` gives it. ``high_pass_px``: subtract a Gaussian blur of this sigma
+    first (a faint texture on a shaded wall is then what correlates, not the shading).
+    ``with_response``: add the correlation peak's response as a third column, (n, 3).
     """
     x0, y0, x1, y1 = box
     window = cv2.createHanningWindow((x1 - x0, y1 - y0), cv2.CV_64F)
@@ -59,11 +63,36 @@ def region_shifts_px(clip: str | os.PathLike, box: tuple[int, int, int, int]) ->
     with closing(iter_frames(clip, gray=True)) as frames:
         for frame in frames:
             patch = frame.image[y0:y1, x0:x1].astype(np.float64)
+            if high_pass_px:
+                patch = patch - cv2.GaussianBlur(patch, (0, 0), high_pass_px)
             if ref is None:
                 ref = patch
-            (dx, dy), _ = cv2.phaseCorrelate(ref, patch, window)
-            shifts.append((dx, dy))
-    return np.asarray(shifts)
+            (dx, dy), response = cv2.phaseCorrelate(ref, patch, window)
+            shifts.append((dx, dy, response))
+    out = np.asarray(shifts)
+    return out if with_response else out[:, :2]
+
+
+def reference_path_px(clip: str | os.PathLike, boxes: list[tuple[int, int, int, int]], *,
+                      agree_px: float = 1.5, min_response: float = 0.15
+                      ) -> tuple[np.ndarray, np.ndarray]:
+    """The camera's displacement from frame 0, measured independently of the tool on patches
+    of static background: the mean of the phase-correlation shifts of ``boxes`` (each
+    (x0, y0, x1, y1), full-resolution px, high-passed at 8 px), negated (a pan right moves
+    the background left, and the log's path then grows).
+
+    Returns
+    -------
+    path : (n, 2) px, the path of the frame centre as the log states it (``path_x, path_y``).
+    valid : (n,) bool, frames where every box correlates (response ≥ ``min_response``) and the
+        boxes agree within ``agree_px``: elsewhere an object covers a box or the texture is
+        too faint, and the reference says nothing.
+    """
+    shifts = np.stack([region_shifts_px(clip, b, high_pass_px=8.0, with_response=True)
+                       for b in boxes])
+    spread = np.linalg.norm(shifts[:, :, :2] - shifts[:, :, :2].mean(axis=0), axis=2).max(axis=0)
+    valid = (shifts[:, :, 2] >= min_response).all(axis=0) & (spread <= agree_px)
+    return -shifts[:, :, :2].mean(axis=0), valid
 
 
 def region_drift_px(clip: str | os.PathLike, box: tuple[int, int, int, int]) -> float:

@@ -15,7 +15,7 @@ import pytest
 import stabilize
 from stabilize.log import MotionLog
 
-from .helpers import path_excursion_px, real_rate_hz, region_drift_px
+from .helpers import path_excursion_px, real_rate_hz, reference_path_px, region_drift_px
 
 pytestmark = pytest.mark.slow
 
@@ -140,34 +140,47 @@ def test_bikes_steadying_cuts_jitter_threefold(steadied):
 
 
 # --------------------------------------------------------------------- cup
+# A hand waves a dark cup in front of a plain wall with a few faint marks. The phone is held,
+# not fixed: an independent registration of two strips of bare wall (phase correlation,
+# :func:`reference_path_px`) has the camera drifting up to about 10 px. The log is checked
+# against that reference on the frames where both strips correlate and agree (129 of 217;
+# elsewhere the cup or the hand covers a strip).
+CUP_WALL = [(0, 360, 300, 470), (300, 360, 640, 470)]
+
+
+def _cup_errors(real_clip) -> tuple[MotionLog, np.ndarray, np.ndarray]:
+    clip = real_clip("cup.mp4")
+    log = _measured(clip)
+    ref, valid = reference_path_px(clip, CUP_WALL)
+    assert valid.sum() >= 100, f"cup.mp4: the wall reference holds on {valid.sum()} frames only"
+    err = np.linalg.norm(log.readouts()["path"][:, :2] - ref, axis=1)
+    return log, err, valid
+
+
+def _cup_message(err: np.ndarray, valid: np.ndarray, limit: float) -> str:
+    worst = int(np.flatnonzero(valid)[err[valid].argmax()])
+    return (f"cup.mp4: logged path off the wall reference by up to {err[valid].max():.2f} px "
+            f"(frame {worst}), median {np.median(err[valid]):.2f} px; limit {limit} px")
+
+
 @pytest.mark.xfail(strict=True, reason=(
     "known limit (DEVELOPERS.md, Known limits): the few faint marks of a plain wall are "
-    "tracked with about a pixel of noise a frame, and the path wanders by about 14 px"))
-def test_cup_plain_wall_fixed_camera(real_clip):
-    # Camera fixed on a plain wall with few corners; a hand waves a dark cup in front of it.
-    # The cup must not drag the path, and no single frame may report a jump.
-    log = _measured(real_clip("cup.mp4"))
-    centre, _ = path_excursion_px(log)
-    assert centre <= 2.0, _excursion_message("cup.mp4", log, 2.0)
-    motion = log.readouts()["motion"]
-    worst = np.abs(motion[:, :2]).max(axis=0)
-    frame = int(np.abs(motion[:, :2]).max(axis=1).argmax())
-    assert worst.max() <= 2.0, (
-        f"cup.mp4: frame motion up to dx {worst[0]:.2f} px, dy {worst[1]:.2f} px "
-        f"(worst at frame {frame}); the camera is fixed (limit 2 px)")
+    "tracked with about half a pixel of noise a frame, and the path drifts from the wall's "
+    "own registration by up to about 6 px"))
+def test_cup_plain_wall_follows_the_wall(real_clip):
+    _, err, valid = _cup_errors(real_clip)
+    assert err[valid].max() <= 2.0, _cup_message(err, valid, 2.0)
 
 
-def test_cup_plain_wall_is_not_called_trustworthy(real_clip):
-    # Until the path above holds, the run must at least say that its figures for this clip
-    # cannot be trusted, and why, instead of giving them as a measurement.
-    log = _measured(real_clip("cup.mp4"))
+def test_cup_plain_wall_stays_near_the_wall_and_is_called_unreliable(real_clip):
+    # Until the path above holds, the run must say that its figures for this clip cannot be
+    # trusted, and why, instead of giving them as a measurement; and the cup never drags the
+    # path (it did by 209 px and 28 degrees before the grouping of tracks over a baseline).
+    log, err, valid = _cup_errors(real_clip)
     assert log.summary["trust"] == "unreliable", log.summary["trust_reasons"]
     assert log.summary["trust_reasons"]
-    # The cup never drags the path as far as it did (209 px, 28 degrees before the grouping
-    # of tracks over a baseline): a guard against that coming back.
-    centre, _ = path_excursion_px(log)
-    assert centre <= 30.0, _excursion_message("cup.mp4", log, 30.0)
-    assert np.abs(log.readouts()["path"][:, 2]).max() < 5.0
+    assert err[valid].max() <= 8.0, _cup_message(err, valid, 8.0)
+    assert np.abs(log.readouts()["path"][:, 2]).max() < 2.0
 
 
 # --------------------------------------------------------------------- tree
