@@ -10,11 +10,13 @@ series analysis II", ApJ 263, 1982).
 
 The measurement chain, and what it hides
 -----------------------------------------
-1. Each frame's mean band shift is removed. Frame-level motion (shake, pans, rotation, zoom:
-   anything that changes slowly from frame to frame) then leaves only patterns that repeat
-   every frame, whose energy lies at whole multiples of the frame rate; and a global-shutter
-   clip (all bands of a frame equal) leaves nothing at all. This is the design choice that
-   keeps shake from being read as vibration.
+1. Each frame's mean band shift and its linear trend over the rows are removed. Frame-level
+   motion (shake, pans, rotation, zoom: anything that changes slowly from frame to frame)
+   then leaves only small patterns that repeat every frame, whose energy lies at whole
+   multiples of the frame rate; and a global-shutter clip (all bands of a frame equal)
+   leaves nothing at all. This is the design choice that keeps shake from being read as
+   vibration (the trend is the within-frame ramp that shake's acceleration draws over the
+   readout; without removing it, strong shake leaks past the blind spots).
 2. The one-frame difference has gain ``|2 sin(π f / fps)|``: zero at multiples of fps.
 3. A band averages the rows it spans: gain ``sinc(f · band_s)`` (band_s = band height × row
    time).
@@ -159,30 +161,46 @@ def _frames(times_s: np.ndarray, frame_index: np.ndarray | None,
     return np.floor(np.asarray(times_s) * fps + 1e-9).astype(np.int64)
 
 
-def frame_residual(diff_px: np.ndarray, frame_index: np.ndarray) -> np.ndarray:
-    """Band shifts minus their frame's mean shift, (m, k) for ``diff_px`` (m, k) px.
+def frame_residual(diff_px: np.ndarray, frame_index: np.ndarray,
+                   within: np.ndarray | None = None) -> np.ndarray:
+    """Band shifts minus their frame's mean shift (and, given ``within``, its linear trend).
 
-    ``frame_index`` (m,) says which frame each sample belongs to.
+    Parameters
+    ----------
+    diff_px : (m, k) band shifts (px).
+    frame_index : (m,) which frame each sample belongs to.
+    within : (m,) position of each sample within its frame (row, or exposure time); when
+        given, each frame's least-squares line over it is removed, not just its mean.
+
+    Returns
+    -------
+    (m, k) residual (px).
     """
     d = np.asarray(diff_px, dtype=np.float64)
     _, inv = np.unique(frame_index, return_inverse=True)
-    counts = np.bincount(inv)
     flat = d.reshape(len(d), -1)
-    means = np.stack([np.bincount(inv, weights=flat[:, c]) / counts
-                      for c in range(flat.shape[1])], axis=1)
-    return (flat - means[inv]).reshape(d.shape)
+    return _residual_rows(flat.T, inv, int(inv.max()) + 1, within).T.reshape(d.shape)
 
 
-def _residual_rows(x: np.ndarray, inv: np.ndarray, n_frames: int) -> np.ndarray:
-    """Per-frame mean removal along the last axis of ``x`` (…, m); ``inv`` (m,) frame ids."""
+def _residual_rows(x: np.ndarray, inv: np.ndarray, n_frames: int,
+                   within: np.ndarray | None = None) -> np.ndarray:
+    """Per-frame removal of the mean (and the line over ``within``) along the last axis of
+    ``x`` (…, m); ``inv`` (m,) frame ids 0..n_frames−1."""
     g = np.zeros((len(inv), n_frames))
     g[np.arange(len(inv)), inv] = 1.0
-    means = (x @ g) / g.sum(axis=0)
-    return x - means[..., inv]
+    n = g.sum(axis=0)
+    means = (x @ g) / n
+    if within is None:
+        return x - means[..., inv]
+    u = np.asarray(within, dtype=np.float64)
+    u = u - (u @ g / n)[inv]
+    s2 = (u * u) @ g
+    slope = ((x * u) @ g) / np.where(s2 > 1e-18 * max(float(s2.max()), 1e-300), s2, np.inf)
+    return x - means[..., inv] - slope[..., inv] * u
 
 
 def chain_response(times_s: np.ndarray, frame_index: np.ndarray, fps: float,
-                   freqs_hz: np.ndarray, band_s: float = 0.0,
+                   freqs_hz: np.ndarray, band_s: float = 0.0, detrend: bool = True,
                    chunk: int = 256) -> np.ndarray:
     """Response of the measurement chain to unit sinusoids of the path, (f, 2, 2).
 
@@ -198,8 +216,11 @@ def chain_response(times_s: np.ndarray, frame_index: np.ndarray, fps: float,
     fps : frame rate (Hz).
     freqs_hz : (f,) frequencies (Hz).
     band_s : exposure-time span of one band (s).
+    detrend : the per-frame removal includes each frame's linear trend over time (as in
+        :func:`vibration_spectrum`), not only its mean.
     """
     t = np.asarray(times_s, dtype=np.float64)
+    within = t if detrend else None
     _, inv = np.unique(frame_index, return_inverse=True)
     nfr = int(inv.max()) + 1
     out = np.zeros((len(freqs_hz), 2, 2))
@@ -210,7 +231,8 @@ def chain_response(times_s: np.ndarray, frame_index: np.ndarray, fps: float,
         c, s = np.cos(w * t), np.sin(w * t)
         cp, sp = np.cos(w * (t - dt)), np.sin(w * (t - dt))
         box = np.sinc(f * band_s)[:, None]
-        resp = [_residual_rows(box * (c - cp), inv, nfr), _residual_rows(box * (s - sp), inv, nfr)]
+        resp = [_residual_rows(box * (c - cp), inv, nfr, within),
+                _residual_rows(box * (s - sp), inv, nfr, within)]
         cc, ss, cs = (c * c).sum(1), (s * s).sum(1), (c * s).sum(1)
         det = cc * ss - cs * cs
         det = np.where(np.abs(det) < 1e-12, np.inf, det)
@@ -282,7 +304,7 @@ def vibration_spectrum(times_s: np.ndarray, diff_px: np.ndarray, fps: float, *,
     t, d = t[ok], d[ok]
     fi = _frames(times_s, frame_index, fps)[ok]
     _, inv = np.unique(fi, return_inverse=True)
-    r = frame_residual(d, inv)
+    r = frame_residual(d, inv, t)
     span = float(t.max() - t.min()) if len(t) > 1 else 0.0
     hi = _max_hz(t, inv, s)
     if span <= 0 or hi <= s.min_hz:
@@ -362,7 +384,7 @@ def estimate_vibration(times_s: np.ndarray, diff_px: np.ndarray, fps: float, *,
     fi = _frames(times_s, frame_index, fps)[ok]
     t, d = t[ok], d[ok]
     _, inv = np.unique(fi, return_inverse=True)
-    r = frame_residual(d, inv)
+    r = frame_residual(d, inv, t)
     ab = _ls_fit(t, r, f)                                        # (2, 2): rows a,b; cols x,y
     m = chain_response(t, inv, fps, np.array([f]), band_s)[0]
     alpha_beta = np.linalg.solve(m, ab)
@@ -379,12 +401,15 @@ def _ls_power(t: np.ndarray, y: np.ndarray, freqs: np.ndarray,
     the share of ``sum(y²)`` explained, (f,)."""
     out = np.empty(len(freqs))
     total = max(float((y ** 2).sum()), 1e-30)
+    t32 = np.asarray(t, dtype=np.float32)
+    y32 = np.asarray(y, dtype=np.float32)
     for lo in range(0, len(freqs), chunk):
-        w = 2.0 * np.pi * freqs[lo:lo + chunk, None]
-        c, s = np.cos(w * t), np.sin(w * t)
+        w = (2.0 * np.pi * freqs[lo:lo + chunk, None]).astype(np.float32)
+        e = np.exp(1j * (w * t32))                                 # complex64, (f, m)
+        c, s = e.real, e.imag
         cc, ss, cs = (c * c).sum(1), (s * s).sum(1), (c * s).sum(1)
         det = np.maximum(cc * ss - cs * cs, 1e-12)
-        yc, ys = c @ y, s @ y                                      # (f, k)
+        yc, ys = c @ y32, s @ y32                                  # (f, k)
         num = (ss[:, None] * yc ** 2 - 2 * cs[:, None] * yc * ys + cc[:, None] * ys ** 2)
         out[lo:lo + chunk] = num.sum(axis=1) / det / total
     return out
@@ -454,13 +479,14 @@ def estimate_readout(frame_index: np.ndarray, row_px: np.ndarray, height: int,
     ok = np.isfinite(d).all(axis=1)
     fi, rows, d = fi[ok], rows[ok], d[ok]
     _, inv = np.unique(fi, return_inverse=True)
-    r = frame_residual(d, inv)
+    r = frame_residual(d, inv, rows)
     base = fi / fps
     span = float(base.max() - base.min()) + 1.0 / fps
     per_frame = np.bincount(inv).mean()
     hi = s.max_hz if s.max_hz is not None else min(
         s.cap_hz, 0.5 * per_frame / max(float(grid.max()), 1e-6))
-    freqs = np.arange(s.min_hz, hi, 1.0 / (2.0 * span))
+    step = 1.0 / span
+    freqs = np.arange(s.min_hz, hi, step)
     freqs = freqs[np.abs(freqs - fps * np.rint(freqs / fps)) > s.blind_hz]
     t_lo = float(base.min()) - 1.0 / fps
     t_hi = float(base.max()) + max(float(grid.max()), 1.0 / fps)
@@ -473,6 +499,9 @@ def estimate_readout(frame_index: np.ndarray, row_px: np.ndarray, height: int,
         if ro > 0 and len(freqs):
             ex = _ls_power(t, r, freqs)
             f = float(freqs[int(np.argmax(ex))])
+            # The coarse grid (one step per 1 / duration) may straddle the peak: refine.
+            near = f + step * np.linspace(-0.5, 0.5, 5)
+            f = float(near[int(np.argmax(_ls_power(t, r, near)))])
             w = 2.0 * np.pi * f
             box = np.sinc(f * band_s_per_readout * ro)
             cols.append(box * np.stack([np.cos(w * t) - np.cos(w * (t - dt)),
