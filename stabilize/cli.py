@@ -328,7 +328,7 @@ def _clean_up() -> None:
     A no-op after a clean run. Signals are ignored meanwhile, so a second Ctrl-C cannot cut
     the clean-up short.
     """
-    from .files import remove_temporaries
+    from .io.publishing import remove_temporaries
     from .video import stop_children
 
     held = {}

@@ -20,8 +20,8 @@ import numpy as np
 from . import framing, residual, shake
 from .config import AUTO_MARGIN_CAP, Settings, build_settings
 from .errors import StabilizeError
-from .files import all_or_nothing, check_writable_folder, discard, publish, temp_path_for
 from .geometry import rescale, similarity_readout
+from .io.publishing import all_or_nothing, check_writable_folder, discard, publish, temp_path_for
 from .log import MotionLog, frame_reasons, json_path_for, read_log, reasons_of
 from .motion import analyse, measurable
 from .path import smooth_path

@@ -28,14 +28,14 @@ import numpy as np
 from . import residual, shake
 from .config import Settings
 from .errors import StabilizeError
-from .files import (
+from .geometry import similarity_readout
+from .io.publishing import (
     all_or_nothing,
     check_writable_folder,
     publish,
     temp_path_for,
     write_text_atomic,
 )
-from .geometry import similarity_readout
 from .log import MotionLog, _jsonable, read_log, reasons_of
 from .report_page import fmt_sig, render_page
 

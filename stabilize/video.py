@@ -30,7 +30,7 @@ from pathlib import Path
 import numpy as np
 
 from .errors import StabilizeError
-from .files import discard, publish, temp_path_for
+from .io.publishing import discard, publish, temp_path_for
 
 # Audio codecs an MP4 file can carry as they are; others are re-encoded to AAC (with a warning).
 MP4_AUDIO = {"aac", "mp3", "ac3", "eac3", "opus", "alac", "flac", "mp2"}

@@ -32,7 +32,7 @@ import pytest
 
 from stabilize import cli
 from stabilize.errors import StabilizeError
-from stabilize.files import all_or_nothing, check_writable_folder, publish, temp_path_for
+from stabilize.io.publishing import all_or_nothing, check_writable_folder, publish, temp_path_for
 from stabilize.video import ffmpeg_exe, iter_frames, probe
 
 # ----------------------------------------------------------------------------- inputs
