@@ -37,7 +37,7 @@ import numpy as np
 
 from .errors import StabilizeError
 from .geometry import frame_centre, normalise, similarity_readout
-from .io.publishing import all_or_nothing, write_text_atomic
+from .io import all_or_nothing, write_text_atomic
 
 FORMAT = "stabilize-motion-log"
 VERSION = 1

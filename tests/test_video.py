@@ -7,20 +7,12 @@ import numpy as np
 import pytest
 
 from stabilize.errors import StabilizeError
-from stabilize.video import (
-    ColourTags,
-    DecodeStats,
-    VideoWriter,
-    analysis_size,
-    constant_rate,
-    ffmpeg_exe,
-    iter_frames,
-    looks_truncated,
-    output_colour,
-    parse_colour,
-    probe,
-    stop_children,
-)
+from stabilize.io import VideoWriter, iter_frames, probe, stop_children
+from stabilize.io.colour import ColourTags, parse_colour
+from stabilize.io.decode import DecodeStats, analysis_size, looks_truncated
+from stabilize.io.encode import output_colour
+from stabilize.io.probing import constant_rate
+from stabilize.io.process import ffmpeg_exe
 
 from .conftest import noise_frames, write_clip
 
@@ -165,7 +157,7 @@ def test_stop_children_ends_a_running_decoder(small_clip):
 
 
 def test_encoder_env_adds_the_malloc_threshold_and_keeps_other_tunables(monkeypatch):
-    from stabilize.video import _encoder_env
+    from stabilize.io.encode import _encoder_env
 
     monkeypatch.delenv("GLIBC_TUNABLES", raising=False)
     assert _encoder_env()["GLIBC_TUNABLES"] == "glibc.malloc.mmap_threshold=1048576"
@@ -220,7 +212,7 @@ def _ff_rgb(path):
 
 @pytest.mark.parametrize("times", [None, np.arange(5) / 25.0 + np.array([0, 0, 0.01, 0, 0])])
 def test_writer_tags_colour_and_pixel_shape_without_touching_the_pixels(tmp_path, times):
-    from stabilize.video import PlanarImage
+    from stabilize.io import PlanarImage
 
     rng = np.random.default_rng(0)
     frames = [PlanarImage.wrap(bytearray(rng.integers(16, 236, 64 * 48 * 3 // 2, np.uint8)
