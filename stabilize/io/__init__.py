@@ -1,5 +1,7 @@
-"""Input and output at the edges: the ffmpeg process, probing, decoding, seeking, encoding, the
-motion-log files and atomic publishing. Nothing outside this package knows a process or a pipe.
+"""Input and output at the edges: video through the bundled ffmpeg, and files published whole.
+
+The ffmpeg process, probing, decoding, seeking, encoding, the motion-log files and atomic
+publishing live here; nothing outside this package knows a process or a pipe.
 
 A few verbs cover what the rest of the package needs::
 

@@ -105,14 +105,17 @@ class PlanarImage:
 
     @property
     def planes(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """The (Y, U, V) plane views."""
         return self.y, self.u, self.v
 
     @property
     def width(self) -> int:
+        """Picture width in pixels (of the luma plane)."""
         return self.y.shape[1]
 
     @property
     def height(self) -> int:
+        """Picture height in pixels (of the luma plane)."""
         return self.y.shape[0]
 
     @property

@@ -63,6 +63,7 @@ class StderrReader(threading.Thread):
         self.last_error: str | None = None
 
     def run(self) -> None:
+        """Read lines until the stream closes (the thread's body)."""
         for raw in iter(self.stream.readline, b""):
             line = raw.decode("utf-8", "replace").rstrip()
             m = _SHOWINFO.search(line)
