@@ -129,7 +129,8 @@ class VideoWriter:
     Raises
     ------
     StabilizeError
-        When ``codec`` is not supported (on entering: when the folder does not exist).
+        When ``codec`` is not supported; on entering, when the output folder does not
+        exist.
     """
 
     def __init__(
