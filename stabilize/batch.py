@@ -28,7 +28,7 @@ from typing import Any
 
 from .config import Settings
 from .errors import StabilizeError
-from .files import write_text_atomic
+from .io import write_text_atomic
 
 log = logging.getLogger("stabilize")
 

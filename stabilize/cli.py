@@ -328,8 +328,7 @@ def _clean_up() -> None:
     A no-op after a clean run. Signals are ignored meanwhile, so a second Ctrl-C cannot cut
     the clean-up short.
     """
-    from .files import remove_temporaries
-    from .video import stop_children
+    from .io import remove_temporaries, stop_children
 
     held = {}
     if threading.current_thread() is threading.main_thread():

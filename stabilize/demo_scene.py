@@ -62,7 +62,7 @@ def write_demo_clip(path: str | os.PathLike, seed: int = 0,
     With ``truth_path`` the ground truth of :meth:`SyntheticClip.ground_truth` (inter-frame
     homographies in pixel coordinates, camera path, flags) is saved there with ``np.savez``.
     """
-    from .video import VideoWriter
+    from .io import VideoWriter
 
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)

@@ -36,8 +36,8 @@ from typing import Any
 import numpy as np
 
 from .errors import StabilizeError
-from .files import all_or_nothing, write_text_atomic
 from .geometry import frame_centre, normalise, similarity_readout
+from .io import all_or_nothing, write_text_atomic
 
 FORMAT = "stabilize-motion-log"
 VERSION = 1

@@ -38,6 +38,7 @@ from .cuts import (
     is_textureless,
 )
 from .geometry import frame_centre, from_similarity, rescale, to_similarity
+from .io import Frame
 from .overlap import read_ahead
 from .overlays import OverlayFinder, still_band
 from .track import (
@@ -48,7 +49,6 @@ from .track import (
     ignore_mask,
     to_full_resolution,
 )
-from .video import Frame
 
 MIN_SIDE_PX = 24
 # A track whose history says it moved with the camera at least this often is "background".

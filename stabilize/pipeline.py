@@ -20,26 +20,26 @@ import numpy as np
 from . import framing, residual, shake
 from .config import AUTO_MARGIN_CAP, Settings, build_settings
 from .errors import StabilizeError
-from .files import all_or_nothing, check_writable_folder, discard, publish, temp_path_for
 from .geometry import rescale, similarity_readout
+from .io import (
+    VideoInfo,
+    VideoWriter,
+    all_or_nothing,
+    check_writable_folder,
+    discard,
+    iter_frames,
+    probe,
+    publish,
+    temp_path_for,
+)
+from .io.decode import DecodeStats, analysis_size, looks_truncated
+from .io.encode import output_colour, output_pix_fmt
+from .io.probing import check_input, constant_rate
 from .log import MotionLog, frame_reasons, json_path_for, read_log, reasons_of
 from .motion import analyse, measurable
 from .path import smooth_path
 from .render import compare_size
 from .render import render as render_frames
-from .video import (
-    DecodeStats,
-    VideoInfo,
-    VideoWriter,
-    analysis_size,
-    check_input,
-    constant_rate,
-    iter_frames,
-    looks_truncated,
-    output_colour,
-    output_pix_fmt,
-    probe,
-)
 
 log = logging.getLogger("stabilize")
 

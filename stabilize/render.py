@@ -2,7 +2,7 @@
 
 Each output frame is ``cv2.warpPerspective(source, C_t)`` with the correction of
 :mod:`stabilize.framing`; pixels the source does not cover are filled as ``--fill`` says.
-The render pass works in the encoder's planar YUV (:class:`stabilize.video.PlanarImage`):
+The render pass works in the encoder's planar YUV (:class:`stabilize.io.frames.PlanarImage`):
 each plane is warped on its own, the chroma planes by the correction carried into their
 coarser pixel grid (:func:`plane_matrix`), straight into the output frame's buffer.
 """
@@ -16,8 +16,9 @@ import cv2
 import numpy as np
 
 from .geometry import rescale
+from .io import Frame, PlanarImage, VideoWriter
+from .io.frames import YUV_BLACK
 from .overlap import WriteBehind, read_ahead
-from .video import YUV_BLACK, Frame, PlanarImage, VideoWriter
 
 # Frames waiting between the decoding, warping and encoding threads. Every extra one is a
 # whole frame in memory (12 MiB at 4K); one each way ran as fast as two at 1080p and 4K
@@ -64,7 +65,7 @@ def warp_planes(image: PlanarImage, correction: np.ndarray, fill: str = "black",
     """Resample a planar YUV frame by the 3×3 correction (source -> output luma pixels).
 
     Each plane is warped by its own matrix (:func:`plane_matrix`) with bilinear
-    interpolation. ``black`` fills limited-range black (:data:`stabilize.video.YUV_BLACK`),
+    interpolation. ``black`` fills limited-range black (:data:`stabilize.io.frames.YUV_BLACK`),
     ``reflect`` and ``replicate`` extend each plane by its own edge. The planes are written
     into ``out`` (same format and size; a new frame when None), which is returned.
     """

@@ -28,14 +28,14 @@ import numpy as np
 from . import residual, shake
 from .config import Settings
 from .errors import StabilizeError
-from .files import (
+from .geometry import similarity_readout
+from .io import (
     all_or_nothing,
     check_writable_folder,
     publish,
     temp_path_for,
     write_text_atomic,
 )
-from .geometry import similarity_readout
 from .log import MotionLog, _jsonable, read_log, reasons_of
 from .report_page import fmt_sig, render_page
 
@@ -521,7 +521,7 @@ def pick_frames(motion: MotionLog, settings: Settings, fps: float, count: int = 
 
 
 def _read_frames(video: Path, wanted: list[int], width: int) -> dict[int, np.ndarray]:
-    from .video import iter_frames, probe
+    from .io import iter_frames, probe
 
     info = probe(video)
     size = (width, max(2, int(round(info.height * width / info.width))))

@@ -44,8 +44,8 @@ import numpy as np
 
 from .config import Settings
 from .errors import StabilizeError
+from .io import VideoInfo, iter_frame_range
 from .motion import MotionTrack, analyse, fill_failed, stand_ins, warm_up_frames
-from .video import VideoInfo, iter_frame_range
 
 #: Keyframe spacing in seconds of nominal frame rate. Each restart costs what the first frames
 #: of a clip cost (fresh tracks with no history, no prior, overlays to be found again), so it

@@ -8,7 +8,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from stabilize.video import VideoWriter, ffmpeg_exe
+from stabilize.io import VideoWriter
+from stabilize.io.process import ffmpeg_exe
 
 
 def tone(path: Path, seconds: float) -> Path:

@@ -32,8 +32,15 @@ import pytest
 
 from stabilize import cli
 from stabilize.errors import StabilizeError
-from stabilize.files import all_or_nothing, check_writable_folder, publish, temp_path_for
-from stabilize.video import ffmpeg_exe, iter_frames, probe
+from stabilize.io import (
+    all_or_nothing,
+    check_writable_folder,
+    iter_frames,
+    probe,
+    publish,
+    temp_path_for,
+)
+from stabilize.io.process import ffmpeg_exe
 
 # ----------------------------------------------------------------------------- inputs
 

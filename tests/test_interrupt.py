@@ -17,7 +17,7 @@ from pathlib import Path
 
 import pytest
 
-from stabilize.video import ffmpeg_exe
+from stabilize.io.process import ffmpeg_exe
 
 
 @pytest.fixture(scope="module")

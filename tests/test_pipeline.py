@@ -12,9 +12,11 @@ import pytest
 
 import stabilize
 from stabilize.framing import covered
+from stabilize.io import iter_frames, probe
+from stabilize.io.colour import ColourTags
+from stabilize.io.process import ffmpeg_exe
 from stabilize.log import read_log
 from stabilize.synth import SceneSpec, SyntheticClip, grid_transfer_error
-from stabilize.video import ColourTags, ffmpeg_exe, iter_frames, probe
 
 from .conftest import write_clip
 

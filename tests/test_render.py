@@ -12,18 +12,12 @@ import numpy as np
 import pytest
 
 import stabilize
+from stabilize.io import PlanarImage, VideoWriter, iter_frame_range, iter_frames, probe
+from stabilize.io.encode import output_pix_fmt
+from stabilize.io.frames import YUV_BLACK
+from stabilize.io.process import ffmpeg_exe
 from stabilize.render import plane_matrix, side_by_side, warp, warp_planes
 from stabilize.render import render as render_frames
-from stabilize.video import (
-    YUV_BLACK,
-    PlanarImage,
-    VideoWriter,
-    ffmpeg_exe,
-    iter_frame_range,
-    iter_frames,
-    output_pix_fmt,
-    probe,
-)
 
 from .conftest import noise_frames, write_clip
 

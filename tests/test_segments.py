@@ -7,8 +7,8 @@ import numpy as np
 import pytest
 
 from stabilize import segments
+from stabilize.io import iter_frame_range, iter_frames, probe
 from stabilize.pipeline import measure
-from stabilize.video import iter_frame_range, iter_frames, probe
 
 from .conftest import noise_frames, write_clip
 
@@ -129,7 +129,7 @@ def test_dask_local_cluster_gives_the_same_log(long_clip, one_worker):
 
 def test_ranges_in_any_grouping_merge_to_the_same_track(long_clip, one_worker):
     from stabilize.config import Settings
-    from stabilize.video import analysis_size
+    from stabilize.io.decode import analysis_size
 
     info = probe(long_clip)
     st = Settings()
@@ -154,15 +154,15 @@ def test_frame_range_seeks_instead_of_decoding_from_the_start(tmp_path, monkeypa
     # A clip with B-frames and a range running past where the timestamp listing stops:
     # the range must come from the seek, not from the fallback that decodes everything
     # before it (exact too, but as slow as a full pass).
-    import stabilize.video as video
+    import stabilize.io.seek as seek
 
     clip = write_clip(tmp_path / "bframes.mp4", noise_frames(220, 96, 64, shift_px=0.9), 30.0)
     info = probe(clip)
     ref = list(iter_frames(clip, size=(96, 64), gray=True, info=info))[100:200]
     calls = []
-    real = video.iter_frames
-    monkeypatch.setattr(video, "iter_frames", lambda *a, **k: calls.append(1) or real(*a, **k))
-    got = list(video.iter_frame_range(clip, 100, 200, size=(96, 64), gray=True, info=info))
+    real = seek.iter_frames
+    monkeypatch.setattr(seek, "iter_frames", lambda *a, **k: calls.append(1) or real(*a, **k))
+    got = list(seek.iter_frame_range(clip, 100, 200, size=(96, 64), gray=True, info=info))
     assert [f.index for f in got] == list(range(100, 200))
     assert [f.time_s for f in got] == [f.time_s for f in ref]
     assert all(np.array_equal(a.image, b.image) for a, b in zip(got, ref, strict=True))
@@ -172,8 +172,8 @@ def test_frame_range_seeks_instead_of_decoding_from_the_start(tmp_path, monkeypa
 def test_frame_range_seeks_in_a_variable_rate_clip(tmp_path, monkeypatch):
     # Irregular frame times (as phones and some drones write): the frames before the range
     # are dropped inside ffmpeg by their time, and the range still comes from the seek.
-    import stabilize.video as video
-    from stabilize.video import VideoWriter
+    import stabilize.io.seek as seek
+    from stabilize.io import VideoWriter
 
     rng = np.random.default_rng(5)
     times = np.concatenate([[0.0], np.cumsum(rng.integers(200, 900, 159))]) / 15360
@@ -185,11 +185,11 @@ def test_frame_range_seeks_in_a_variable_rate_clip(tmp_path, monkeypatch):
     info = probe(clip)
     ref = list(iter_frames(clip, size=(96, 64), gray=True, info=info))
     calls = []
-    real = video.iter_frames
-    monkeypatch.setattr(video, "iter_frames", lambda *a, **k: calls.append(1) or real(*a, **k))
+    real = seek.iter_frames
+    monkeypatch.setattr(seek, "iter_frames", lambda *a, **k: calls.append(1) or real(*a, **k))
     for start, stop in ((37, 90), (121, None)):
         calls.clear()
-        got = list(video.iter_frame_range(clip, start, stop, size=(96, 64), gray=True,
+        got = list(seek.iter_frame_range(clip, start, stop, size=(96, 64), gray=True,
                                           info=info))
         want = ref[start:stop]
         assert [f.index for f in got] == [f.index for f in want]

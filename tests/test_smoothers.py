@@ -18,6 +18,7 @@ from stabilize.geometry import (
     from_similarity,
     similarity_readout,
 )
+from stabilize.io import iter_frames
 from stabilize.log import MotionLog
 from stabilize.path import accumulate, encode, smooth_path
 from stabilize.pipeline import plan_corrections
@@ -26,7 +27,6 @@ from stabilize.smoothers.kalman import kalman_smooth
 from stabilize.smoothers.l1 import L1Settings, l1_smooth
 from stabilize.smoothers.lockoff import hold_pose
 from stabilize.synth import MotionSpec, SceneSpec, ShakeSpec, SyntheticClip
-from stabilize.video import iter_frames
 
 from .conftest import write_clip
 

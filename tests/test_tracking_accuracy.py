@@ -11,6 +11,7 @@ import numpy as np
 import pytest
 
 import stabilize
+from stabilize.io import VideoWriter, iter_frames
 from stabilize.synth import (
     MotionSpec,
     Mover,
@@ -20,7 +21,6 @@ from stabilize.synth import (
     grid_transfer_error,
     movers_covering,
 )
-from stabilize.video import VideoWriter, iter_frames
 
 pytestmark = pytest.mark.slow
 

@@ -1,26 +1,27 @@
 """Streaming reader and writer over the bundled ffmpeg."""
 
+import ast
 import subprocess
 from contextlib import closing
+from pathlib import Path
 
 import numpy as np
 import pytest
 
 from stabilize.errors import StabilizeError
-from stabilize.video import (
-    ColourTags,
-    DecodeStats,
+from stabilize.io import (
+    PlanarImage,
     VideoWriter,
-    analysis_size,
-    constant_rate,
-    ffmpeg_exe,
+    iter_frame_range,
     iter_frames,
-    looks_truncated,
-    output_colour,
-    parse_colour,
     probe,
     stop_children,
 )
+from stabilize.io.colour import ColourTags, parse_colour
+from stabilize.io.decode import DecodeStats, analysis_size, looks_truncated
+from stabilize.io.encode import _encoder_env, output_colour
+from stabilize.io.probing import constant_rate
+from stabilize.io.process import ffmpeg_exe
 
 from .conftest import noise_frames, write_clip
 
@@ -164,9 +165,39 @@ def test_stop_children_ends_a_running_decoder(small_clip):
     frames.close()
 
 
-def test_encoder_env_adds_the_malloc_threshold_and_keeps_other_tunables(monkeypatch):
-    from stabilize.video import _encoder_env
+def test_closing_a_range_early_stops_its_decoders(tmp_path):
+    # The seek decodes through the same loop as a whole pass: closing the generator part-way
+    # must leave no ffmpeg running (the listing, the look at frame 0 and the seek).
+    clip = write_clip(tmp_path / "range.mp4", noise_frames(40, 64, 48), 25.0)
+    frames = iter_frame_range(clip, 20, 30, size=(32, 24), gray=True)
+    first = next(frames)
+    assert (first.index, first.image.shape) == (20, (24, 32))
+    frames.close()
+    assert stop_children() == 0
 
+
+def test_an_unknown_codec_is_named_as_a_setting(tmp_path):
+    with pytest.raises(StabilizeError, match="codec 'vp9' is not one of h264") as err:
+        VideoWriter(tmp_path / "x.mp4", 64, 48, 25.0, codec="vp9")
+    assert "--" not in str(err.value)
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_only_the_io_package_starts_processes():
+    package = Path(__file__).resolve().parents[1] / "stabilize"
+    offenders = []
+    for path in package.rglob("*.py"):
+        if "io" in path.relative_to(package).parts[:1]:
+            continue
+        for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+            names = ([a.name for a in node.names] if isinstance(node, ast.Import)
+                     else [node.module or ""] if isinstance(node, ast.ImportFrom) else [])
+            offenders += [f"{path.name}: {n}" for n in names
+                          if n.split(".")[0] in ("subprocess", "imageio_ffmpeg")]
+    assert offenders == []
+
+
+def test_encoder_env_adds_the_malloc_threshold_and_keeps_other_tunables(monkeypatch):
     monkeypatch.delenv("GLIBC_TUNABLES", raising=False)
     assert _encoder_env()["GLIBC_TUNABLES"] == "glibc.malloc.mmap_threshold=1048576"
     monkeypatch.setenv("GLIBC_TUNABLES", "glibc.malloc.arena_max=2")
@@ -220,8 +251,6 @@ def _ff_rgb(path):
 
 @pytest.mark.parametrize("times", [None, np.arange(5) / 25.0 + np.array([0, 0, 0.01, 0, 0])])
 def test_writer_tags_colour_and_pixel_shape_without_touching_the_pixels(tmp_path, times):
-    from stabilize.video import PlanarImage
-
     rng = np.random.default_rng(0)
     frames = [PlanarImage.wrap(bytearray(rng.integers(16, 236, 64 * 48 * 3 // 2, np.uint8)
                                          .tobytes()), "yuv420p", 64, 48) for _ in range(5)]

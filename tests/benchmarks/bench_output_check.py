@@ -20,9 +20,9 @@ import cv2
 import numpy as np
 
 from stabilize.geometry import frame_centre, similarity_readout
+from stabilize.io import VideoWriter, iter_frames
 from stabilize.residual import RenderCheck
 from stabilize.synth import SceneSpec, SyntheticClip
-from stabilize.video import VideoWriter, iter_frames
 
 
 def main() -> None:

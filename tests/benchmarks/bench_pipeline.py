@@ -24,8 +24,9 @@ from pathlib import Path
 
 import psutil
 
+from stabilize.io import VideoWriter, iter_frames
+from stabilize.io.process import ffmpeg_exe
 from stabilize.synth import SceneSpec, SyntheticClip
-from stabilize.video import VideoWriter, ffmpeg_exe, iter_frames
 
 
 def peak_rss_mib(cmd: list[str]) -> tuple[float, float]:

@@ -1,4 +1,4 @@
-"""Safe output files: write under a temporary name in the destination folder, then rename.
+"""Publishing output files whole: write under a temporary name beside the final one, then rename.
 
 An interrupted or failed run therefore never leaves a half-written file under a final name.
 Every temporary this process creates is remembered until it is renamed into place or removed,
@@ -19,7 +19,12 @@ import threading
 from collections.abc import Iterator
 from pathlib import Path
 
-from .errors import StabilizeError
+from ..errors import StabilizeError
+
+__all__ = [
+    "TEMP_MARK", "all_or_nothing", "check_writable_folder", "discard", "publish",
+    "remove_temporaries", "temp_path_for", "write_text_atomic",
+]
 
 #: Every temporary name that ends up on disk contains this, so a folder can be checked for
 #: leftovers with ``glob("*.partial*")``.
@@ -33,7 +38,22 @@ _staged: contextvars.ContextVar[list[tuple[Path, Path]] | None] = contextvars.Co
 
 
 def temp_path_for(final: Path) -> Path:
-    """A fresh, empty temporary file beside ``final``, keeping its extension."""
+    """A fresh, empty temporary file beside ``final``, keeping its extension.
+
+    Parameters
+    ----------
+    final : the name the finished file will have; its folder must exist.
+
+    Returns
+    -------
+    The temporary's path (``.<stem>.<random>.partial<suffix>``), remembered until it is
+    published or discarded.
+
+    Raises
+    ------
+    StabilizeError
+        When ``final``'s folder does not take new files.
+    """
     final = Path(final)
     try:
         fd, name = tempfile.mkstemp(
@@ -49,7 +69,12 @@ def temp_path_for(final: Path) -> Path:
 
 
 def discard(tmp: Path) -> None:
-    """Remove a temporary (if it is still there) and forget it."""
+    """Remove a temporary (if it is still there) and forget it.
+
+    Parameters
+    ----------
+    tmp : a path from :func:`temp_path_for`.
+    """
     with _lock:
         _live.discard(tmp)
     with contextlib.suppress(FileNotFoundError):
@@ -60,6 +85,10 @@ def remove_temporaries() -> list[Path]:
     """Remove every temporary of this process that was not renamed into place; returns them.
 
     Called by the command line when a run fails or is interrupted; a no-op after a clean run.
+
+    Returns
+    -------
+    The temporaries that were still there to remove, sorted.
     """
     with _lock:
         left = sorted(_live)
@@ -85,6 +114,11 @@ def publish(tmp: Path, final: Path) -> None:
     Inside :func:`all_or_nothing` the rename waits for the end of the job: ``tmp`` is moved to
     another temporary name (so the caller's usual ``if tmp.exists(): tmp.unlink()`` clean-up
     does not remove the finished file) and renamed over ``final`` when the job succeeds.
+
+    Parameters
+    ----------
+    tmp : the finished temporary (from :func:`temp_path_for`).
+    final : the name it is to have.
     """
     staged = _staged.get()
     if staged is None:
@@ -137,7 +171,13 @@ def _block_interrupts() -> bool:
 
 
 def write_text_atomic(final: Path, text: str) -> None:
-    """Write a whole text file so that it appears complete or not at all."""
+    """Write a whole text file so that it appears complete or not at all.
+
+    Parameters
+    ----------
+    final : the file's name.
+    text : its whole content, written as UTF-8 with line endings as given.
+    """
     tmp = temp_path_for(final)
     try:
         with open(tmp, "w", encoding="utf-8", newline="") as fh:
@@ -153,6 +193,15 @@ def check_writable_folder(path: Path) -> None:
 
     Permission bits do not stop the superuser, so the test that counts is whether a file can
     really be created there: a temporary is made and removed at once.
+
+    Parameters
+    ----------
+    path : an output file to be written later.
+
+    Raises
+    ------
+    StabilizeError
+        Naming ``path`` when its folder is missing, is a file, or takes no new files.
     """
     folder = path.parent if str(path.parent) else Path(".")
     if not folder.exists():
