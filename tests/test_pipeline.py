@@ -13,7 +13,7 @@ import pytest
 import stabilize
 from stabilize.framing import covered
 from stabilize.log import read_log
-from stabilize.synth import SceneSpec, SyntheticClip, grid_transfer_error
+from stabilize.synthetic import SceneSpec, SyntheticClip, grid_transfer_error
 from stabilize.video import ColourTags, ffmpeg_exe, iter_frames, probe
 
 from .conftest import write_clip

@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 
 import stabilize
-from stabilize.synth import (
+from stabilize.synthetic import (
     MotionSpec,
     Mover,
     SceneSpec,

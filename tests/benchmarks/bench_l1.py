@@ -20,7 +20,7 @@ from stabilize.log import MotionLog
 from stabilize.path import accumulate, smooth_path
 from stabilize.pipeline import plan_corrections
 from stabilize.shake import shake_component
-from stabilize.synth import MotionSpec, SceneSpec, ShakeSpec, SyntheticClip
+from stabilize.synthetic import MotionSpec, SceneSpec, ShakeSpec, SyntheticClip
 
 
 def main() -> None:

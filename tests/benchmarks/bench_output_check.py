@@ -21,7 +21,7 @@ import numpy as np
 
 from stabilize.geometry import frame_centre, similarity_readout
 from stabilize.residual import RenderCheck
-from stabilize.synth import SceneSpec, SyntheticClip
+from stabilize.synthetic import SceneSpec, SyntheticClip
 from stabilize.video import VideoWriter, iter_frames
 
 

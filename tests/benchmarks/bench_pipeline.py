@@ -24,7 +24,7 @@ from pathlib import Path
 
 import psutil
 
-from stabilize.synth import SceneSpec, SyntheticClip
+from stabilize.synthetic import SceneSpec, SyntheticClip
 from stabilize.video import VideoWriter, ffmpeg_exe, iter_frames
 
 

@@ -38,7 +38,7 @@ VOLATILE = ("created", "elapsed_s", "version", "path", "outputs", "run")
 
 def make_clip(kind: str, dest: Path) -> Path:
     """Write the golden input clip ``kind`` (``truss`` or ``field``) to ``dest``."""
-    from stabilize.synth import Mover, SceneSpec, SyntheticClip
+    from stabilize.synthetic import Mover, SceneSpec, SyntheticClip
     from stabilize.video import VideoWriter
 
     if kind == "truss":
