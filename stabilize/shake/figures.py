@@ -68,7 +68,18 @@ def peak_to_peak(shots: list[np.ndarray], fps: float, above_hz: float) -> float 
     """Largest minus smallest shake over the shots, leaving out 1 / ``above_hz`` seconds at
     each end of every shot at least four times that long: there the zero-phase filter runs
     on its padding (an odd extension of the shot), and its start-up and run-out would count
-    as shake. Shorter shots count whole. None when there is no shot."""
+    as shake. Shorter shots count whole. None when there is no shot.
+
+    Parameters
+    ----------
+    shots : shake series per shot, pixels or degrees.
+    fps : sampling rate, samples per second.
+    above_hz : the shake cut-off, Hz.
+
+    Returns
+    -------
+    float or None : in the unit of the series.
+    """
     if not shots:
         return None
     edge = int(math.ceil(fps / above_hz))
@@ -91,6 +102,22 @@ def path_figures(path_xyd: np.ndarray, cuts: np.ndarray, *, fps: float, above_hz
     ``fps`` is the real mean frame rate; ``time_s`` (the frame times, seconds) is given only
     when they are irregular, and each shot is then resampled onto an even grid at ``fps``
     before it is filtered.
+
+    Parameters
+    ----------
+    path_xyd : (n, 3+) path readout: x, y pixels, angle degrees.
+    cuts : (n,) bool, scene cuts.
+    fps : real mean frame rate, frames per second.
+    above_hz : the shake cut-off, Hz.
+    width : frame width, pixels (for degrees).
+    fov_deg : horizontal field of view, degrees, or None.
+    suffix : appended to every key.
+    bands : also the band powers and the spectrum resolution.
+    time_s : (n,) frame times, seconds, only when irregular.
+
+    Returns
+    -------
+    dict : summary key → float or None.
     """
     out: dict = {}
     n_total = 0
@@ -124,7 +151,20 @@ def axis_shake(path_xyd: np.ndarray, cuts: np.ndarray, *, fps: float, above_hz: 
     """The shake series of each axis (``x``, ``y`` pixels, ``rot`` degrees) of a path readout,
     per shot between scene cuts and joined; None for an axis too short to filter. With
     ``time_s`` (irregular frame times) each shot is resampled first, as in
-    :func:`path_figures`, so the series no longer has one value per frame."""
+    :func:`path_figures`, so the series no longer has one value per frame.
+
+    Parameters
+    ----------
+    path_xyd : (n, 3+) path readout: x, y pixels, angle degrees.
+    cuts : (n,) bool, scene cuts.
+    fps : real mean frame rate, frames per second.
+    above_hz : the shake cut-off, Hz.
+    time_s : (n,) frame times, seconds, only when irregular.
+
+    Returns
+    -------
+    dict : ``x``, ``y``, ``rot`` → shake series or None.
+    """
     return {axis: _segmented_shake(path_xyd[:, j], cuts, fps, above_hz, time_s)
             for j, axis in enumerate(AXES)}
 
@@ -132,7 +172,20 @@ def axis_shake(path_xyd: np.ndarray, cuts: np.ndarray, *, fps: float, above_hz: 
 def shake_times(cuts: np.ndarray, time_s: np.ndarray, *, fps: float, above_hz: float,
                 resampled: bool) -> np.ndarray | None:
     """The times (s) of the samples of :func:`axis_shake`'s series: the frame times of the
-    shots long enough to filter, or with ``resampled`` their even grids."""
+    shots long enough to filter, or with ``resampled`` their even grids.
+
+    Parameters
+    ----------
+    cuts : (n,) bool, scene cuts.
+    time_s : (n,) frame times, seconds.
+    fps : real mean frame rate, frames per second.
+    above_hz : the shake cut-off, Hz.
+    resampled : whether :func:`axis_shake` resampled (irregular times).
+
+    Returns
+    -------
+    (m,) times, seconds, or None when no shot can be filtered.
+    """
     t = np.asarray(time_s, dtype=np.float64)
     if resampled:
         parts = [g for g, _ in _shots(t, cuts, fps, above_hz, t)]
@@ -152,7 +205,18 @@ def readout_path(readout: np.ndarray, cuts: np.ndarray, width: int,
     similarities about the frame centre ((n, 3) dx, dy pixels, degrees; nan where not
     measured), per shot between ``cuts``, as the raw path is from ``H_t``. Gaps are filled by
     linear interpolation over time; None when fewer than :data:`MIN_MEASURED_SHARE` of the
-    frame pairs were measured."""
+    frame pairs were measured.
+
+    Parameters
+    ----------
+    readout : (n, 3) per-frame dx, dy (pixels) and angle (degrees); nan where not measured.
+    cuts : (n,) bool, scene cuts.
+    width, height : frame size, pixels.
+
+    Returns
+    -------
+    (n, 3) x, y pixels and degrees, or None.
+    """
     filled = filled_motion(readout, cuts)
     if filled is None:
         return None
@@ -164,7 +228,17 @@ def readout_path(readout: np.ndarray, cuts: np.ndarray, width: int,
 
 def filled_motion(readout: np.ndarray, cuts: np.ndarray) -> np.ndarray | None:
     """Measured per-frame motion with its gaps interpolated; the first frame of each shot
-    (no predecessor) holds no motion. None when too little was measured."""
+    (no predecessor) holds no motion. None when too little was measured.
+
+    Parameters
+    ----------
+    readout : (n, 3+) per-frame dx, dy (pixels) and angle (degrees); nan where not measured.
+    cuts : (n,) bool, scene cuts.
+
+    Returns
+    -------
+    (n, 3) float64, or None when under :data:`MIN_MEASURED_SHARE` of the pairs were measured.
+    """
     m = np.array(readout, dtype=np.float64)[:, :3]
     start = np.asarray(cuts, bool).copy()
     if len(start):

@@ -45,13 +45,32 @@ AXES: tuple[str, ...] = ("x", "y", "rot")
 
 
 def axis_unit(axis: str) -> str:
-    """Unit of a path axis: ``deg`` for the rotation, ``px`` for x and y."""
+    """Unit of a path axis: ``deg`` for the rotation, ``px`` for x and y.
+
+    Parameters
+    ----------
+    axis : one of :data:`AXES`.
+
+    Returns
+    -------
+    str : ``"deg"`` or ``"px"``.
+    """
     return "deg" if axis == "rot" else "px"
 
 
 def band_key(axis: str, lo_hz: float, hi_hz: float | None) -> str:
     """Summary key of one shake band, e.g. ``shake_power_x_1_3hz_px2`` or
-    ``shake_power_rot_above_12hz_deg2`` (power in pixels² or degrees²)."""
+    ``shake_power_rot_above_12hz_deg2`` (power in pixels² or degrees²).
+
+    Parameters
+    ----------
+    axis : one of :data:`AXES`.
+    lo_hz, hi_hz : the band's edges, Hz; ``hi_hz`` None for the open top band.
+
+    Returns
+    -------
+    str : the summary key.
+    """
     unit = axis_unit(axis) + "2"
     if hi_hz is None:
         return f"shake_power_{axis}_above_{lo_hz:g}hz_{unit}"
@@ -61,7 +80,17 @@ def band_key(axis: str, lo_hz: float, hi_hz: float | None) -> str:
 def welch_segment(n: int, fps: float) -> int:
     """Welch segment length (frames) for a series of ``n`` frames: 8 s where the clip allows,
     at least 16 frames. Longer segments resolve frequency finer (fps / segment Hz); 8 s is a
-    compromise of this project between resolution and averaging for clips of tens of seconds."""
+    compromise of this project between resolution and averaging for clips of tens of seconds.
+
+    Parameters
+    ----------
+    n : samples in the series.
+    fps : sampling rate, samples per second.
+
+    Returns
+    -------
+    int : segment length, samples.
+    """
     return int(min(n, max(16, round(8.0 * fps))))
 
 
@@ -105,6 +134,15 @@ def welch_dof(n: int, fps: float) -> float:
     The constant taken out of each segment costs a little more, not counted here. Checked by
     simulation of white noise at 30 fps: ν = 13.4 predicted, 13.2 observed for 1,000
     frames; 55.0 and 55.4 for 3,600.
+
+    Parameters
+    ----------
+    n : samples in the series.
+    fps : sampling rate, samples per second.
+
+    Returns
+    -------
+    float : ν, the equivalent degrees of freedom of each bin.
     """
     seg = welch_segment(n, fps)
     step = seg - seg // 2
@@ -250,7 +288,18 @@ def shake_peaks(shake: np.ndarray, fps: float, above_hz: float,
 def dominant_hz(shake: np.ndarray, fps: float, above_hz: float) -> float | None:
     """Frequency (Hz) of the strongest clear peak of the shake's Welch power spectral density
     (:func:`shake_peaks`), placed between bins by a parabola through the peak bin and its
-    neighbours (log power); None when no peak stands out of the background."""
+    neighbours (log power); None when no peak stands out of the background.
+
+    Parameters
+    ----------
+    shake : (n,) shake series, pixels or degrees.
+    fps : sampling rate, samples per second.
+    above_hz : the shake cut-off, Hz.
+
+    Returns
+    -------
+    float or None : Hz.
+    """
     peaks = shake_peaks(shake, fps, above_hz, count=1)
     return peaks[0][0] if peaks else None
 
@@ -273,6 +322,15 @@ def band_powers(shake: np.ndarray | None, fps: float) -> list[float | None]:
     the Nyquist frequency fps / 2) times the bin width, so the bands add up to the shake's
     variance, about its RMS squared. A band that starts at or above the Nyquist frequency
     cannot be measured from the frames and is None, as is every band of a series too short.
+
+    Parameters
+    ----------
+    shake : (n,) shake series, pixels or degrees, or None.
+    fps : sampling rate, samples per second.
+
+    Returns
+    -------
+    list of float or None : one power per band, unit².
     """
     nyquist = 0.5 * fps
     spec = None if shake is None else shake_spectrum(shake, fps)

@@ -83,6 +83,10 @@ def motion_noise(rms_px: np.ndarray | None, inliers: np.ndarray | None, status: 
     inliers : (n,) the log's ``inliers``, or None.
     status : (n,) frame status.
     width, height : frame size, full-resolution pixels.
+
+    Returns
+    -------
+    (pixels, degrees) : the noise per axis of translation and of rotation.
     """
     noise = NOISE_FLOOR_PX
     if rms_px is not None and inliers is not None:
@@ -97,7 +101,16 @@ def motion_noise(rms_px: np.ndarray | None, inliers: np.ndarray | None, status: 
 
 def measured_frames(status: np.ndarray) -> np.ndarray:
     """(n,) bool: frames whose motion was measured, so not frame 0 (no motion), not a cut
-    (motion across it is not camera motion) and not failed (a stand-in)."""
+    (motion across it is not camera motion) and not failed (a stand-in).
+
+    Parameters
+    ----------
+    status : (n,) frame status strings.
+
+    Returns
+    -------
+    (n,) bool
+    """
     keep = (status != "cut") & (status != "failed")
     if len(keep):
         keep[0] = False
@@ -107,7 +120,19 @@ def measured_frames(status: np.ndarray) -> np.ndarray:
 def stability_figures(motion_readout: np.ndarray, suffix: str,
                       noise: tuple[float, float] | None = None) -> dict:
     """Stability scores of per-frame motion (dx, dy, degrees): translation takes the worse.
-    ``noise`` is the measurement noise (pixels, degrees) of :func:`motion_noise`."""
+    ``noise`` is the measurement noise (pixels, degrees) of :func:`motion_noise`.
+
+    Parameters
+    ----------
+    motion_readout : (n, 3) per-frame dx, dy (pixels) and angle (degrees) of measured frames.
+    suffix : appended to every key.
+    noise : (pixels, degrees) or None.
+
+    Returns
+    -------
+    dict : ``stability_translation`` and ``stability_rotation`` (with ``suffix``) → score or
+    None.
+    """
     n_px, n_deg = (None, None) if noise is None else noise
     sx = stability(motion_readout[:, 0], n_px)
     sy = stability(motion_readout[:, 1], n_px)
@@ -117,7 +142,17 @@ def stability_figures(motion_readout: np.ndarray, suffix: str,
 
 
 def output_motion(matrices: np.ndarray, corrections: np.ndarray) -> np.ndarray:
-    """Inter-frame motion of the output video: C_t · H_t · C_{t−1}⁻¹ (frame 0: identity)."""
+    """Inter-frame motion of the output video: C_t · H_t · C_{t−1}⁻¹ (frame 0: identity).
+
+    Parameters
+    ----------
+    matrices : (n, 3, 3) inter-frame transforms H_t, pixels.
+    corrections : (n, 3, 3) corrections C_t.
+
+    Returns
+    -------
+    (n, 3, 3) normalised to h33 = 1.
+    """
     out = np.empty_like(matrices)
     out[0] = np.eye(3)
     if len(matrices) > 1:
@@ -128,7 +163,16 @@ def output_motion(matrices: np.ndarray, corrections: np.ndarray) -> np.ndarray:
 
 def correction_figures(corrections: np.ndarray) -> dict:
     """Cropping ratio (mean of 1 / scale) and distortion (smallest σ_min / σ_max of the 2×2
-    part), after Liu et al., SIGGRAPH 2013."""
+    part), after Liu et al., SIGGRAPH 2013.
+
+    Parameters
+    ----------
+    corrections : (n, 3, 3) corrections C_t.
+
+    Returns
+    -------
+    dict : ``cropping_ratio`` and ``distortion``, both dimensionless.
+    """
     a = corrections[:, :2, :2]
     scale = np.sqrt(np.abs(np.linalg.det(a)))
     sv = np.linalg.svd(a, compute_uv=False)

@@ -69,6 +69,11 @@ def summarise(
         :mod:`stabilize.residual`). When given, the ``_out`` figures describe it, and the
         figures of the plan (the smoothed path and the corrections) move to ``_planned``
         keys; the ``_out`` figures are null when too little of the output could be measured.
+
+    Returns
+    -------
+    dict : the summary block, keys as documented in the motion-log format, with the verdict
+    of :func:`trust_verdict`.
     """
     centre = frame_centre(width, height)
     cuts = status == "cut"

@@ -121,7 +121,16 @@ def frame_rate(time_s: np.ndarray | None, nominal_fps: float) -> float:
 
 def timestamps_irregular(time_s: np.ndarray | None) -> bool:
     """True when the frame intervals spread by more than :data:`IRREGULAR_SPREAD` of their
-    mean (standard deviation over mean, of the intervals :func:`frame_rate` uses)."""
+    mean (standard deviation over mean, of the intervals :func:`frame_rate` uses).
+
+    Parameters
+    ----------
+    time_s : (n,) frame times, seconds, or None.
+
+    Returns
+    -------
+    bool : False for None or fewer than three usable times.
+    """
     dt = _rate_intervals(time_s)
     if dt is None:
         return False
@@ -169,7 +178,18 @@ def resample_even(time_s: np.ndarray, values: np.ndarray,
 def filterable(n: int, fps: float, above_hz: float) -> bool:
     """True when :func:`shake_component` can filter ``n`` samples at ``fps`` (samples per
     second) with a cut-off of ``above_hz`` (Hz): at least 8 samples, and the cut-off between
-    0 and the Nyquist frequency."""
+    0 and the Nyquist frequency.
+
+    Parameters
+    ----------
+    n : samples.
+    fps : sampling rate, samples per second.
+    above_hz : the cut-off, Hz.
+
+    Returns
+    -------
+    bool
+    """
     return n >= 8 and 0 < above_hz < 0.5 * fps
 
 
@@ -179,6 +199,16 @@ def shake_component(x: np.ndarray, fps: float, above_hz: float) -> np.ndarray | 
     A straight line through the series is taken out first (its high-pass is zero anyway), so
     a steady pan does not leave filter start-up transients at the clip ends. Returns None when
     the cut-off is not below the Nyquist frequency or the series is too short to filter.
+
+    Parameters
+    ----------
+    x : (n,) series, pixels or degrees, one value per sample.
+    fps : sampling rate, samples per second.
+    above_hz : the cut-off, Hz.
+
+    Returns
+    -------
+    (n,) float64 shake in the unit of ``x``, or None.
     """
     x = np.asarray(x, dtype=np.float64)
     n = len(x)
@@ -193,6 +223,16 @@ def shake_component(x: np.ndarray, fps: float, above_hz: float) -> np.ndarray | 
 
 def shake_filter_gain(f_hz: np.ndarray, above_hz: float) -> np.ndarray:
     """Power gain of :func:`shake_component` at ``f_hz``: the series minus its 4th-order
-    Butterworth low-pass run forward and backward passes (r⁸ / (1 + r⁸))², r = f / above_hz."""
+    Butterworth low-pass run forward and backward passes (r⁸ / (1 + r⁸))², r = f / above_hz.
+
+    Parameters
+    ----------
+    f_hz : frequencies, Hz.
+    above_hz : the shake cut-off, Hz.
+
+    Returns
+    -------
+    array of the shape of ``f_hz``: power gains in [0, 1).
+    """
     r8 = (np.asarray(f_hz, dtype=np.float64) / above_hz) ** 8
     return (r8 / (1.0 + r8)) ** 2

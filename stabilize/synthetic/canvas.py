@@ -71,7 +71,19 @@ def _c(color) -> tuple[float, float, float]:
 
 def fbm(rng: np.random.Generator, hb: int, wb: int, cell_lo: float, cell_hi: float,
          gain: float = 0.55) -> np.ndarray:
-    """Fractal value noise in [0, 1], float32 (hb, wb); cells in canvas pixels."""
+    """Fractal value noise in [0, 1], float32 (hb, wb); cells in canvas pixels.
+
+    Parameters
+    ----------
+    rng : seeded generator.
+    hb, wb : canvas size, pixels.
+    cell_lo, cell_hi : smallest and largest cell, canvas pixels (octaves halve the cell).
+    gain : amplitude factor per octave.
+
+    Returns
+    -------
+    (hb, wb) float32 in [0, 1].
+    """
     acc = np.zeros((hb, wb), np.float32)
     amp, total, cell = 1.0, 0.0, float(cell_hi)
     while cell >= cell_lo:
@@ -93,7 +105,19 @@ def smoothstep(a: float, b: float, x: np.ndarray) -> np.ndarray:
 def draw_sky(rng: np.random.Generator, hb: int, wb: int, k: int,
              clouds: bool = True) -> np.ndarray:
     """A blue sky gradient (float32 RGB, (hb, wb, 3), canvas pixels) with fractal clouds, or
-    without them a faintly mottled plain sky."""
+    without them a faintly mottled plain sky.
+
+    Parameters
+    ----------
+    rng : seeded generator.
+    hb, wb : canvas size, pixels.
+    k : supersampling factor (scales the noise cells).
+    clouds : draw clouds.
+
+    Returns
+    -------
+    (hb, wb, 3) float32 RGB, 0–255.
+    """
     y = np.linspace(0.0, 1.0, hb, dtype=np.float32)[:, None, None]
     top, low = np.array([62, 112, 186], np.float32), np.array([186, 208, 232], np.float32)
     img = np.broadcast_to(top * (1 - y) + low * y, (hb, wb, 3)).astype(np.float32)

@@ -40,6 +40,16 @@ def grid_transfer_error(
     The grid spans pixel centres ``x ∈ [0, width-1]``, ``y ∈ [0, height-1]``. Accepts single
     3×3 matrices (returns a float) or broadcastable stacks ``(k,3,3)`` (returns a ``(k,)`` array).
     NaN matrices give NaN.
+
+    Parameters
+    ----------
+    H_true, H_est : (3, 3) or (k, 3, 3) homographies, frame pixels.
+    width, height : frame size, pixels.
+    n : grid points per side.
+
+    Returns
+    -------
+    float or (k,) array : mean distance, pixels.
     """
     a = np.asarray(H_true, float)
     b = np.asarray(H_est, float)

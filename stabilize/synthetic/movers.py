@@ -55,6 +55,19 @@ def movers_covering(
 
     Sizes are chosen so that the summed bounding-box area is ``share · width · height`` pixels²;
     positions and directions are drawn from ``seed``; speeds are ``speed_px_s`` (px/s).
+
+    Parameters
+    ----------
+    share : covered share of the frame area, in [0, 0.8).
+    width, height : frame size, pixels.
+    count : number of movers.
+    speed_px_s : speed, pixels per second.
+    seed : positions, directions and textures.
+    anchor : ``"frame"`` or ``"world"`` (see :class:`Mover`).
+
+    Returns
+    -------
+    tuple of Mover
     """
     if not 0.0 <= share < 0.8:
         raise ValueError("share must be in [0, 0.8)")
