@@ -29,6 +29,7 @@ from typing import Any
 from .config import Settings
 from .errors import StabilizeError
 from .io import write_text_atomic
+from .runner import default_workers, parallel_map
 
 log = logging.getLogger("stabilize")
 
@@ -269,8 +270,6 @@ def run_batch(inputs: str | os.PathLike, out_dir: str | os.PathLike, *,
               scheduler: str | None = None,
               progress: ProgressFactory | None = None) -> BatchResult:
     """Process every clip of ``inputs`` into ``out_dir``; see the module docstring."""
-    from .segments import default_workers, parallel_map
-
     out = Path(out_dir)
     if out.exists() and not out.is_dir():
         raise StabilizeError(f"{out}: --out-dir must be a folder")

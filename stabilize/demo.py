@@ -9,7 +9,10 @@ from __future__ import annotations
 from pathlib import Path
 from typing import Any
 
+from .demo_scene import write_demo_clip
 from .log import MotionLog
+from .pipeline import steady
+from .report import make_report
 
 DEMO_NAME = "truss_pass.mp4"
 
@@ -19,8 +22,6 @@ def demo_clip(out_dir: Path) -> Path:
     bundled = Path(__file__).resolve().parent.parent / "demo_clips" / DEMO_NAME
     if bundled.is_file():
         return bundled
-    from .demo_scene import write_demo_clip
-
     target = out_dir / DEMO_NAME
     if not target.is_file():
         write_demo_clip(target)
@@ -31,9 +32,6 @@ def run_demo(out: str | Path | None = None, *, config: str | None = None,
              progress: Any = None, **options: Any) -> tuple[MotionLog, Any]:
     """Steady the demo clip into ``out`` (default ``./stabilize-demo``) and write its shake
     report there; returns the log and the report."""
-    from .pipeline import steady
-    from .report import make_report
-
     out_dir = Path(out) if out else Path("stabilize-demo")
     out_dir.mkdir(parents=True, exist_ok=True)
     clip = demo_clip(out_dir)

@@ -1,6 +1,6 @@
 """The bundled demo clip: an invented drone inspection pass along a steel truss bridge.
 
-The scene is drawn procedurally by :mod:`stabilize.synth`: a multirotor flies sideways along the
+The scene is drawn procedurally by :mod:`stabilize.synthetic`: a multirotor flies sideways along the
 near truss of a through-truss bridge in gusty wind, a small car drives across the deck and a
 worker in a hard hat walks the other way, and the drone's on-screen display burns a telemetry
 strip into the bottom of the picture. 640×360 px, 30 fps, 5 s.
@@ -18,7 +18,8 @@ from pathlib import Path
 
 import numpy as np
 
-from .synth import (
+from .io import VideoWriter
+from .synthetic import (
     TRUSS_DECK_FRAC,
     MotionSpec,
     Mover,
@@ -27,11 +28,22 @@ from .synth import (
     SyntheticClip,
 )
 
+__all__ = ["DURATION_S", "FPS", "HEIGHT", "WIDTH", "demo_spec", "main", "write_demo_clip"]
+
 WIDTH, HEIGHT, FPS, DURATION_S = 640, 360, 30.0, 5.0
 
 
 def demo_spec(seed: int = 0) -> SceneSpec:
-    """The :class:`~stabilize.synth.SceneSpec` of the demo pass for ``seed``."""
+    """The :class:`~stabilize.synthetic.SceneSpec` of the demo pass for ``seed``.
+
+    Parameters
+    ----------
+    seed : the scene's seed.
+
+    Returns
+    -------
+    SceneSpec
+    """
     deck_y = TRUSS_DECK_FRAC * HEIGHT  # deck surface in the shake-free first frame, px
     car = Mover("vehicle", (58.0, 27.0), (-40.0, deck_y - 13.0), (165.0, 0.0), "world", seed)
     worker = Mover("person", (12.0, 30.0), (520.0, deck_y - 14.0), (-22.0, 0.0), "world",
@@ -61,9 +73,17 @@ def write_demo_clip(path: str | os.PathLike, seed: int = 0,
 
     With ``truth_path`` the ground truth of :meth:`SyntheticClip.ground_truth` (inter-frame
     homographies in pixel coordinates, camera path, flags) is saved there with ``np.savez``.
-    """
-    from .io import VideoWriter
 
+    Parameters
+    ----------
+    path : the output video file.
+    seed : the scene's seed.
+    truth_path : an ``.npz`` file for the ground truth, or None.
+
+    Returns
+    -------
+    Path : ``path``.
+    """
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     clip = SyntheticClip(demo_spec(seed))
@@ -76,6 +96,16 @@ def write_demo_clip(path: str | os.PathLike, seed: int = 0,
 
 
 def main(argv: list[str] | None = None) -> int:
+    """Draw the demo clip from the command line (``python -m stabilize.demo_scene``).
+
+    Parameters
+    ----------
+    argv : the arguments, or None for ``sys.argv[1:]``.
+
+    Returns
+    -------
+    int : exit status 0.
+    """
     ap = argparse.ArgumentParser(prog="python -m stabilize.demo_scene",
                                  description="Draw the demo inspection clip.")
     ap.add_argument("path", help="output video file, e.g. demo_clips/truss_pass.mp4")

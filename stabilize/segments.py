@@ -1,4 +1,4 @@
-"""Segment-parallel analysis of one long clip, and the worker pools both it and batch use.
+"""The keyframe scheme: one long clip's analysis split at keyframes, run over workers, merged.
 
 The per-frame analysis carries state from frame to frame (live tracks and their history of
 moving with the camera, static-overlay evidence, the previous frame's motion as a prior, the
@@ -8,36 +8,29 @@ fixed *keyframes*, every ``keyframe_every`` frames counted from frame 0, exactly
 analysis began a short lead-in before each keyframe (:func:`stabilize.motion.warm_up_frames`
 frames before the frame before it, so that its tracks arrive with a history of what moved
 with the scene). A single pass runs that second analysis alongside over the lead-in and hands
-over at the keyframe; a segment simply starts there and drops the lead-in's frames. The
-motion from frame k−1 to keyframe k is still measured, and every keyframe interval depends on
-its own frames and its lead-in only. Any grouping of intervals into segments,
-analysed in any order on any worker, gives the same log; so does one process going through
-them in turn.
+over at the keyframe (:func:`single_pass_options`); a segment simply starts there and drops
+the lead-in's frames. The motion from frame k−1 to keyframe k is still measured, and every
+keyframe interval depends on its own frames and its lead-in only. Any grouping of intervals
+into segments, analysed in any order on any worker, gives the same log; so does one process
+going through them in turn.
 
 Per-frame random seeds are ``[seed, frame index in the clip]``, so a segment draws what a
 single pass draws at the same frames.
 
-Workers: local processes (``concurrent.futures`` with the forkserver or spawn start method,
-never fork: the parent may hold threads and ffmpeg pipes), a Dask ``LocalCluster``
-(``scheduler="local"``) or an existing Dask cluster (``scheduler="tcp://host:port"``), whose
-workers must see the same paths and have stabilize installed. A worker is one core: OpenCV
-runs single-threaded in it, so ``workers=1`` is one single-threaded pass (in this process)
-and ``workers=N`` asks for N cores. Without workers, :func:`stabilize.pipeline.measure` runs
-one pass that spreads its tracking over every core through OpenCV's own threads.
+The runs are handed to workers by :mod:`stabilize.runner` (local processes or a Dask
+cluster). A worker is one core: OpenCV runs single-threaded in it, so ``workers=1`` is one
+single-threaded pass (in this process) and ``workers=N`` asks for N cores. Without workers,
+:func:`stabilize.pipeline.measure` runs one pass that spreads its tracking over every core
+through OpenCV's own threads.
 """
 
 from __future__ import annotations
 
 import math
-import multiprocessing
 import os
-import time
-from collections.abc import Callable, Iterable, Iterator
-from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
-from contextlib import contextmanager
+from collections.abc import Callable, Iterable
 from dataclasses import dataclass, field
 from pathlib import Path
-from queue import Empty
 from typing import Any
 
 import numpy as np
@@ -46,6 +39,21 @@ from .config import Settings
 from .errors import StabilizeError
 from .io import VideoInfo, iter_frame_range
 from .motion import MotionTrack, analyse, fill_failed, stand_ins, warm_up_frames
+from .runner import ProgressCounter, default_workers, opencv_threads, parallel_map
+
+__all__ = [
+    "KEYFRAME_S",
+    "MIN_KEYFRAME_FRAMES",
+    "SegmentResult",
+    "SegmentTask",
+    "analyse_range",
+    "analyse_segments",
+    "keyframe_frames",
+    "lead_in_start",
+    "merge",
+    "plan_segments",
+    "single_pass_options",
+]
 
 #: Keyframe spacing in seconds of nominal frame rate. Each restart costs what the first frames
 #: of a clip cost (fresh tracks with no history, no prior, overlays to be found again), so it
@@ -55,22 +63,33 @@ MIN_KEYFRAME_FRAMES = 30
 
 
 def keyframe_frames(fps: float, keyframe_s: float = KEYFRAME_S) -> int:
-    """Keyframe spacing in frames for a clip of nominal frame rate ``fps`` (frames/second)."""
+    """Keyframe spacing in frames for a clip of nominal frame rate ``fps``.
+
+    Parameters
+    ----------
+    fps : nominal frame rate, frames per second.
+    keyframe_s : spacing, seconds.
+
+    Returns
+    -------
+    int : frames between keyframes, at least :data:`MIN_KEYFRAME_FRAMES`.
+    """
     return max(MIN_KEYFRAME_FRAMES, int(round(keyframe_s * fps)))
 
 
 def single_pass_options(info: VideoInfo) -> dict[str, Any]:
     """Keyword options that make a single pass restart at the keyframes a segmented pass
-    uses, so both give the same log."""
+    uses, so both give the same log.
+
+    Parameters
+    ----------
+    info : the clip's probe; its nominal ``fps`` (frames per second) sets the spacing.
+
+    Returns
+    -------
+    dict : ``{"keyframe_every": frames}`` for :func:`stabilize.motion.analyse`.
+    """
     return {"keyframe_every": keyframe_frames(info.fps)}
-
-
-def default_workers() -> int:
-    """The cores this process may use."""
-    try:
-        return max(1, len(os.sched_getaffinity(0)))
-    except AttributeError:  # not on Linux
-        return max(1, os.cpu_count() or 1)
 
 
 # ------------------------------------------------------------------- one range
@@ -101,31 +120,22 @@ def analyse_range(task: SegmentTask, on_frame: Callable[[int], None] | None = No
                   single_thread: bool = False) -> SegmentResult:
     """Analyse frames ``[task.start, task.stop)`` with restarts at every keyframe.
 
-    ``task.start`` must be a keyframe (a multiple of ``keyframe_every``) or 0.
-    ``single_thread`` keeps OpenCV and the decoder to one thread each, for worker processes
-    sharing the cores.
+    Parameters
+    ----------
+    task : the range; ``task.start`` must be a keyframe (a multiple of ``keyframe_every``)
+        or 0.
+    on_frame : called with the count of frames analysed as they go (lead-in included).
+    single_thread : keep OpenCV and the decoder to one thread each, for worker processes
+        sharing the cores.
+
+    Returns
+    -------
+    SegmentResult : the per-frame arrays of frames ``task.start`` onwards.
     """
     if task.start % task.keyframe_every:
         raise ValueError("a segment must start at a keyframe")
     with opencv_threads(1 if single_thread else None):
         return _analyse_range(task, on_frame, decode_threads=1 if single_thread else None)
-
-
-@contextmanager
-def opencv_threads(count: int | None) -> Iterator[None]:
-    """Run the block with OpenCV limited to ``count`` threads (None: leave it as it is),
-    and restore the previous setting afterwards."""
-    if count is None:
-        yield
-        return
-    import cv2
-
-    before = cv2.getNumThreads()
-    cv2.setNumThreads(count)
-    try:
-        yield
-    finally:
-        cv2.setNumThreads(before)
 
 
 def _analyse_range(task: SegmentTask, on_frame: Callable[[int], None] | None,
@@ -153,7 +163,17 @@ def _analyse_range(task: SegmentTask, on_frame: Callable[[int], None] | None,
 def lead_in_start(start: int, keyframe_every: int) -> int:
     """First frame a run starting at keyframe ``start`` reads: the analysis starts
     :func:`~stabilize.motion.warm_up_frames` frames before the frame before the keyframe,
-    as a single pass's second analysis does, and its frames before ``start`` are dropped."""
+    as a single pass's second analysis does, and its frames before ``start`` are dropped.
+
+    Parameters
+    ----------
+    start : the run's first kept frame, a keyframe or 0.
+    keyframe_every : keyframe spacing, frames.
+
+    Returns
+    -------
+    int : the frame index to start decoding at (0 for ``start`` 0).
+    """
     if start <= 0:
         return 0
     return max(0, start - 1 - warm_up_frames(keyframe_every))
@@ -204,6 +224,16 @@ def plan_segments(frames_estimate: int, keyframe_every: int,
     the end even when the clip is not a whole number of intervals long or some intervals
     cost more than others; a run costs one seek and a fresh decoder, small beside an
     interval's analysis.
+
+    Parameters
+    ----------
+    frames_estimate : the clip's frame count as probed (may be off).
+    keyframe_every : keyframe spacing, frames.
+    workers : workers that will share the runs.
+
+    Returns
+    -------
+    list of (start, stop) : frame ranges ``[start, stop)``; the last ``stop`` is None.
     """
     intervals = max(1, math.ceil(frames_estimate / keyframe_every))
     if workers <= 1:
@@ -220,7 +250,21 @@ def analyse_segments(clip: str | os.PathLike, info: VideoInfo, analysis_size: tu
     of workers. Without a ``scheduler``, one worker or a clip of one keyframe interval is
     analysed in this process.
 
-    ``keyframe_every`` defaults to :func:`keyframe_frames` of the clip's nominal frame rate.
+    Parameters
+    ----------
+    clip : the video file.
+    info : its probe.
+    analysis_size : (width, height) of the analysed frames, pixels.
+    settings : the analysis settings.
+    workers : cores to use (default: every core this process may use).
+    scheduler : None, ``"local"`` or a Dask scheduler address (:func:`parallel_map`).
+    keyframe_every : keyframe spacing, frames; default :func:`keyframe_frames` of the
+        clip's nominal frame rate.
+    on_frame : called in this process with counts of frames analysed.
+
+    Returns
+    -------
+    MotionTrack : the whole clip's per-frame motion, as one pass gives it.
     """
     workers = default_workers() if workers is None else int(workers)
     if workers < 1:
@@ -260,7 +304,7 @@ def analyse_segments(clip: str | os.PathLike, info: VideoInfo, analysis_size: tu
 def _analyse_in_worker(task: SegmentTask) -> SegmentResult:
     # A run after the first re-reads the frames before it (the lead-in), which it does not
     # keep and so does not count.
-    counter = _ProgressCounter(skip=task.start - lead_in_start(task.start, task.keyframe_every))
+    counter = ProgressCounter(skip=task.start - lead_in_start(task.start, task.keyframe_every))
     try:
         return analyse_range(task, counter, single_thread=True)
     finally:
@@ -270,7 +314,18 @@ def _analyse_in_worker(task: SegmentTask) -> SegmentResult:
 def merge(results: list[SegmentResult], settings: Settings,
           full_size: tuple[int, int]) -> MotionTrack:
     """Join segment results in frame order. Stand-ins for failed frames are worked out again
-    over the whole clip: near a join they depend on neighbours in the next segment."""
+    over the whole clip: near a join they depend on neighbours in the next segment.
+
+    Parameters
+    ----------
+    results : the segments' results, in any order.
+    settings : the analysis settings.
+    full_size : (width, height) of the clip, full-resolution pixels.
+
+    Returns
+    -------
+    MotionTrack : the joined track.
+    """
     results = sorted(results, key=lambda r: r.start)
     kept: list[MotionTrack] = []
     expected = 0
@@ -289,166 +344,3 @@ def merge(results: list[SegmentResult], settings: Settings,
         track.matrices = fill_failed(track.matrices, track.status, full_size,
                                      stand_in=stand_ins(track.status, track.reason))
     return track
-
-
-# ------------------------------------------------------------------ workers
-def _context() -> multiprocessing.context.BaseContext:
-    methods = multiprocessing.get_all_start_methods()
-    return multiprocessing.get_context("forkserver" if "forkserver" in methods else "spawn")
-
-
-def parallel_map(fn: Callable[[Any], Any], items: list[Any], *, workers: int,
-                 scheduler: str | None = None,
-                 on_progress: Callable[[int, int], None] | None = None,
-                 ) -> Iterator[tuple[int, Any]]:
-    """Run ``fn`` on every item on local processes or a Dask cluster; yield (index, result)
-    as each finishes, the result being the exception when the call (or its worker) failed.
-
-    ``scheduler``: None for a local process pool of ``workers`` processes, ``"local"`` for a
-    Dask LocalCluster of ``workers`` single-threaded processes started here, or the address of
-    a running Dask scheduler (``tcp://host:port``).
-
-    ``on_progress(index, n)`` is called in this process, between results, with the counts
-    that ``fn`` reported through :class:`_ProgressCounter` while working on item ``index``;
-    local processes only (Dask workers report nothing before they finish). Counts for an
-    item may still arrive after its result.
-    """
-    if not items:
-        return
-    if scheduler is None:
-        yield from _pool_map(fn, items, workers, on_progress)
-    else:
-        yield from _dask_map(fn, items, workers, scheduler)
-
-
-# ------------------------------------------------------------------ progress
-#: In a local pool's worker: where progress goes (set by the pool's initializer), and the
-#: item the worker is on. None elsewhere (this process, Dask workers).
-_progress_queue: Any = None
-_current_item: list[int] = [-1]
-
-#: A worker sends its count at most this often (seconds): a bar needs no more, and each
-#: message costs a pickle and a pipe write.
-PROGRESS_EVERY_S = 0.5
-
-
-def _init_pool_worker(queue: Any) -> None:
-    global _progress_queue
-    _progress_queue = queue
-
-
-class _ProgressCounter:
-    """An ``on_frame`` for work inside a pool worker: adds up the counts (after skipping the
-    first ``skip``) and sends them to the pool's owner every :data:`PROGRESS_EVERY_S`; a
-    no-op where there is no pool."""
-
-    def __init__(self, skip: int = 0) -> None:
-        self.skip, self.pending, self.sent_at = skip, 0, time.monotonic()
-
-    def __call__(self, n: int) -> None:
-        if self.skip:
-            used = min(self.skip, n)
-            self.skip, n = self.skip - used, n - used
-        self.pending += n
-        if time.monotonic() - self.sent_at >= PROGRESS_EVERY_S:
-            self.flush()
-
-    def flush(self) -> None:
-        if _progress_queue is not None and self.pending:
-            _progress_queue.put((_current_item[0], self.pending))
-        self.pending, self.sent_at = 0, time.monotonic()
-
-
-def _run_item(fn: Callable[[Any], Any], index: int, item: Any) -> Any:
-    _current_item[0] = index
-    return fn(item)
-
-
-# A worker is one core: numerical libraries in it must not start threads of their own, or
-# the workers oversubscribe the cores they share (common practice; here it gained about 8%).
-_ONE_THREAD_ENV = {"OPENBLAS_NUM_THREADS": "1", "OMP_NUM_THREADS": "1", "MKL_NUM_THREADS": "1"}
-
-
-@contextmanager
-def _worker_environment() -> Iterator[None]:
-    """Start worker processes with :data:`_ONE_THREAD_ENV` (settings the user made win),
-    leaving this process's environment as it was."""
-    saved = {k: os.environ.get(k) for k in _ONE_THREAD_ENV}
-    for k, v in _ONE_THREAD_ENV.items():
-        os.environ.setdefault(k, v)
-    try:
-        yield
-    finally:
-        for k, v in saved.items():
-            if v is None:
-                os.environ.pop(k, None)
-            else:
-                os.environ[k] = v
-
-
-def _pool_map(fn, items, workers, on_progress=None):
-    ctx = _context()
-    queue = ctx.Queue() if on_progress else None
-    with _worker_environment(), ProcessPoolExecutor(
-            max_workers=min(workers, len(items)), mp_context=ctx,
-            initializer=_init_pool_worker, initargs=(queue,)) as pool:
-        futures = {pool.submit(_run_item, fn, i, item): i for i, item in enumerate(items)}
-        pending = set(futures)
-        try:
-            while pending:
-                done, pending = wait(pending, timeout=PROGRESS_EVERY_S if queue else None,
-                                     return_when=FIRST_COMPLETED)
-                _drain(queue, on_progress)
-                for fut in done:
-                    exc = fut.exception()
-                    yield futures[fut], exc if exc is not None else fut.result()
-        finally:
-            for fut in pending:
-                fut.cancel()
-    if queue is not None:
-        _drain(queue, on_progress)
-        queue.close()
-
-
-def _drain(queue, on_progress) -> None:
-    while queue is not None:
-        try:
-            index, n = queue.get_nowait()
-        except Empty:
-            return
-        on_progress(index, n)
-
-
-def _dask_map(fn, items, workers, scheduler):
-    try:
-        from distributed import Client, LocalCluster, as_completed
-    except ImportError:
-        raise StabilizeError("option --scheduler needs Dask: pip install "
-                             "'stabilize[cluster]'") from None
-    cluster = None
-    try:
-        if scheduler == "local":
-            with _worker_environment():
-                cluster = LocalCluster(n_workers=workers, threads_per_worker=1,
-                                       processes=True, dashboard_address=None)
-            client = Client(cluster)
-        else:
-            try:
-                client = Client(scheduler, timeout="10s")
-            except (OSError, TimeoutError, ValueError) as exc:
-                raise StabilizeError(f"option --scheduler: cannot reach a Dask scheduler at "
-                                     f"{scheduler} ({exc})") from None
-        with client:
-            futures = [client.submit(fn, item, pure=False) for item in items]
-            index = {f.key: i for i, f in enumerate(futures)}
-            try:
-                for fut in as_completed(futures):
-                    if fut.status == "error":
-                        yield index[fut.key], fut.exception()
-                    else:
-                        yield index[fut.key], fut.result()
-            finally:
-                client.cancel([f for f in futures if not f.done()])
-    finally:
-        if cluster is not None:
-            cluster.close()

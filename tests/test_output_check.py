@@ -22,7 +22,7 @@ import pytest
 import stabilize
 from stabilize import shake
 from stabilize.log import read_log
-from stabilize.synth import SceneSpec, SyntheticClip
+from stabilize.synthetic import SceneSpec, SyntheticClip
 
 from .conftest import write_clip
 

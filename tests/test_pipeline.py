@@ -16,7 +16,7 @@ from stabilize.io import iter_frames, probe
 from stabilize.io.colour import ColourTags
 from stabilize.io.process import ffmpeg_exe
 from stabilize.log import read_log
-from stabilize.synth import SceneSpec, SyntheticClip, grid_transfer_error
+from stabilize.synthetic import SceneSpec, SyntheticClip, grid_transfer_error
 
 from .conftest import write_clip
 

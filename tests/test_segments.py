@@ -6,7 +6,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from stabilize import segments
+from stabilize import runner, segments
 from stabilize.io import iter_frame_range, iter_frames, probe
 from stabilize.pipeline import measure
 
@@ -58,7 +58,7 @@ def test_a_clip_of_one_interval_starts_no_pool(long_clip, one_worker, monkeypatc
     def no_pool(*args, **kwargs):
         raise AssertionError("a pool was started for a single run")
 
-    monkeypatch.setattr(segments, "_pool_map", no_pool)
+    monkeypatch.setattr(runner, "_pool_map", no_pool)
     whole = measure(long_clip, workers=2, keyframe_every=100)
     assert whole.frames == 70
     # The same log as one worker gives.
@@ -82,7 +82,7 @@ def test_progress_counts_every_kept_frame_once(long_clip, one_worker):
 
 
 def _count_in_worker(n: int) -> int:
-    counter = segments._ProgressCounter(skip=1)
+    counter = runner.ProgressCounter(skip=1)
     for _ in range(n):
         counter(1)
     counter.flush()
@@ -95,7 +95,7 @@ def test_pool_workers_report_progress_per_item():
     def on_progress(i, n):
         got[i] = got.get(i, 0) + n
 
-    results = dict(segments.parallel_map(_count_in_worker, [5, 9, 3], workers=2,
+    results = dict(runner.parallel_map(_count_in_worker, [5, 9, 3], workers=2,
                                          on_progress=on_progress))
     assert results == {0: 5, 1: 9, 2: 3}
     # Each item's counts, less the one frame skipped (the overlap a later run re-reads).
@@ -109,10 +109,10 @@ def test_progress_counter_skips_and_sends_in_batches(monkeypatch):
         def put(self, item):
             sent.append(item)
 
-    monkeypatch.setattr(segments, "_progress_queue", Queue())
-    monkeypatch.setattr(segments, "_current_item", [7])
-    monkeypatch.setattr(segments, "PROGRESS_EVERY_S", 3600.0)
-    counter = segments._ProgressCounter(skip=2)
+    monkeypatch.setattr(runner, "_progress_queue", Queue())
+    monkeypatch.setattr(runner, "_current_item", [7])
+    monkeypatch.setattr(runner, "PROGRESS_EVERY_S", 3600.0)
+    counter = runner.ProgressCounter(skip=2)
     for _ in range(5):
         counter(1)
     assert sent == []  # not due yet

@@ -28,7 +28,7 @@ from stabilize.shake import (
     trust_verdict,
     uncertainty_notes,
 )
-from stabilize.synth import MotionSpec, SceneSpec, ShakeSpec, Sinusoid, SyntheticClip
+from stabilize.synthetic import MotionSpec, SceneSpec, ShakeSpec, Sinusoid, SyntheticClip
 
 from .conftest import write_clip
 

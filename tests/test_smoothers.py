@@ -26,7 +26,7 @@ from stabilize.shake import shake_component
 from stabilize.smoothers.kalman import kalman_smooth
 from stabilize.smoothers.l1 import L1Settings, l1_smooth
 from stabilize.smoothers.lockoff import hold_pose
-from stabilize.synth import MotionSpec, SceneSpec, ShakeSpec, SyntheticClip
+from stabilize.synthetic import MotionSpec, SceneSpec, ShakeSpec, SyntheticClip
 
 from .conftest import write_clip
 

@@ -10,7 +10,7 @@ import pytest
 from hypothesis import given
 from hypothesis import strategies as st
 
-from stabilize.synth import (
+from stabilize.synthetic import (
     MotionSpec,
     Mover,
     SceneSpec,

@@ -1,6 +1,6 @@
 """The motion log as a measurement, on footage-like synthetic clips with exact ground truth.
 
-Each clip is drawn by :mod:`stabilize.synth` (exact camera motion), encoded with H.264 at our
+Each clip is drawn by :mod:`stabilize.synthetic` (exact camera motion), encoded with H.264 at our
 default quality (CRF 18, preset medium), decoded and measured as users would.
 """
 
@@ -12,7 +12,7 @@ import pytest
 
 import stabilize
 from stabilize.io import VideoWriter, iter_frames
-from stabilize.synth import (
+from stabilize.synthetic import (
     MotionSpec,
     Mover,
     SceneSpec,

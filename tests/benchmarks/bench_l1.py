@@ -1,7 +1,7 @@
 """Time the L1-optimal smoother on a 5-minute log (9000 frames at 30 fps) and print it.
 
 A benchmark, not a test: run it by hand, ``python tests/benchmarks/bench_l1.py``. The camera
-path is a synthetic drone flight (``stabilize.synth``: a slow pan, wind buffeting, airframe
+path is a synthetic drone flight (``stabilize.synthetic``: a slow pan, wind buffeting, airframe
 vibration and gimbal drift) at 1920×1080; the clip itself is never rendered. The target is
 under 30 s on a 2-core machine for the smoothing and the margin check together.
 """
@@ -20,7 +20,7 @@ from stabilize.log import MotionLog
 from stabilize.path import accumulate, smooth_path
 from stabilize.pipeline import plan_corrections
 from stabilize.shake import shake_component
-from stabilize.synth import MotionSpec, SceneSpec, ShakeSpec, SyntheticClip
+from stabilize.synthetic import MotionSpec, SceneSpec, ShakeSpec, SyntheticClip
 
 
 def main() -> None:

@@ -22,7 +22,7 @@ import numpy as np
 from stabilize.geometry import frame_centre, similarity_readout
 from stabilize.io import VideoWriter, iter_frames
 from stabilize.residual import RenderCheck
-from stabilize.synth import SceneSpec, SyntheticClip
+from stabilize.synthetic import SceneSpec, SyntheticClip
 
 
 def main() -> None:

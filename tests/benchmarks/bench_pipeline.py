@@ -26,7 +26,7 @@ import psutil
 
 from stabilize.io import VideoWriter, iter_frames
 from stabilize.io.process import ffmpeg_exe
-from stabilize.synth import SceneSpec, SyntheticClip
+from stabilize.synthetic import SceneSpec, SyntheticClip
 
 
 def peak_rss_mib(cmd: list[str]) -> tuple[float, float]:

@@ -39,7 +39,7 @@ VOLATILE = ("created", "elapsed_s", "version", "path", "outputs", "run")
 def make_clip(kind: str, dest: Path) -> Path:
     """Write the golden input clip ``kind`` (``truss`` or ``field``) to ``dest``."""
     from stabilize.io import VideoWriter
-    from stabilize.synth import Mover, SceneSpec, SyntheticClip
+    from stabilize.synthetic import Mover, SceneSpec, SyntheticClip
 
     if kind == "truss":
         spec = SceneSpec(style="truss", width=320, height=180, fps=24.0, duration_s=2.5, seed=3,
