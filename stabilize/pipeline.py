@@ -23,7 +23,7 @@ from .errors import StabilizeError
 from .files import all_or_nothing, check_writable_folder, discard, publish, temp_path_for
 from .geometry import rescale, similarity_readout
 from .log import MotionLog, frame_reasons, json_path_for, read_log, reasons_of
-from .motion import analyse, measurable
+from .motion import fit_motion, measurable
 from .path import smooth_path
 from .render import compare_size
 from .render import render as render_frames
@@ -162,7 +162,7 @@ def _analyse(clip: Path, info: VideoInfo, settings: Settings,
             # is stopped there and then, not whenever the generator is collected.
             with closing(iter_frames(clip, size=size, gray=True, info=info,
                                      stats=stats)) as frames:
-                track = analyse(
+                track = fit_motion(
                     frames, full_size=(info.width, info.height), analysis_size=size,
                     settings=settings, on_frame=bar.update, **single_pass_options(info),
                 )
@@ -194,9 +194,7 @@ def _analyse(clip: Path, info: VideoInfo, settings: Settings,
                     "object moving in front of it; their motion is a stand-in (status weak)",
                     clip, n_fore)
     return MotionLog(
-        time_s=track.time_s, matrices=track.matrices, tracked=track.tracked,
-        inliers=track.inliers, inlier_ratio=track.inlier_ratio, rms_px=track.rms_px,
-        rounds=track.rounds, status=track.status,
+        **track.log_columns(),
         source=_source_dict(info, n, track.time_s, truncated),
         settings=settings.to_dict(),
         extra={"excluded": track.excluded, "frame_reasons": frame_reasons(reasons)},

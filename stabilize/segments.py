@@ -40,11 +40,10 @@ from pathlib import Path
 from queue import Empty
 from typing import Any
 
-import numpy as np
-
 from .config import Settings
 from .errors import StabilizeError
-from .motion import MotionTrack, analyse, fill_failed, stand_ins, warm_up_frames
+from .motion import fit_motion, warm_up_frames
+from .motion_track import MotionTrack, fill_failed, stand_ins
 from .video import VideoInfo, iter_frame_range
 
 #: Keyframe spacing in seconds of nominal frame rate. Each restart costs what the first frames
@@ -139,15 +138,16 @@ def _analyse_range(task: SegmentTask, on_frame: Callable[[int], None] | None,
     parts: list[MotionTrack] = []
     regions: list[list[int]] = []
     try:
-        track = analyse(frames, on_frame=on_frame, keyframe_every=task.keyframe_every,
+        track = fit_motion(frames, on_frame=on_frame, keyframe_every=task.keyframe_every,
                         first_index=read_from, **common)
         if task.start > read_from and len(track.time_s):
-            track = _drop_first(track, task.start - read_from)
+            track = track.select(slice(task.start - read_from, None))
         parts.append(track)
         regions += track.excluded.get("static_overlay", [])
     finally:
         frames.close()
-    return SegmentResult(task.start, _concat(parts, task.settings), _unique(regions))
+    ignored = {"ignore": [list(r) for r in task.settings.ignore]}
+    return SegmentResult(task.start, MotionTrack.concatenate(parts, ignored), _unique(regions))
 
 
 def lead_in_start(start: int, keyframe_every: int) -> int:
@@ -157,32 +157,6 @@ def lead_in_start(start: int, keyframe_every: int) -> int:
     if start <= 0:
         return 0
     return max(0, start - 1 - warm_up_frames(keyframe_every))
-
-
-def _drop_first(track: MotionTrack, k: int) -> MotionTrack:
-    return MotionTrack(time_s=track.time_s[k:], matrices=track.matrices[k:],
-                       tracked=track.tracked[k:], inliers=track.inliers[k:],
-                       inlier_ratio=track.inlier_ratio[k:], rms_px=track.rms_px[k:],
-                       rounds=track.rounds[k:], status=track.status[k:],
-                       excluded=track.excluded,
-                       reason=None if track.reason is None else track.reason[k:])
-
-
-def _concat(parts: list[MotionTrack], settings: Settings) -> MotionTrack:
-    def cat(name: str, empty: np.ndarray) -> np.ndarray:
-        arrays = [getattr(p, name) for p in parts]
-        return np.concatenate(arrays) if arrays else empty
-
-    return MotionTrack(
-        time_s=cat("time_s", np.empty(0)), matrices=cat("matrices", np.empty((0, 3, 3))),
-        tracked=cat("tracked", np.empty(0, int)), inliers=cat("inliers", np.empty(0, int)),
-        inlier_ratio=cat("inlier_ratio", np.empty(0)), rms_px=cat("rms_px", np.empty(0)),
-        rounds=cat("rounds", np.empty(0, int)), status=cat("status", np.empty(0, "<U6")),
-        excluded={"ignore": [list(r) for r in settings.ignore]},
-        reason=np.concatenate([p.reason if p.reason is not None
-                               else np.full(len(p.status), "", "<U12") for p in parts])
-        if parts else np.empty(0, "<U12"),
-    )
 
 
 def _unique(regions: Iterable[list[int]]) -> list[list[int]]:
@@ -283,7 +257,7 @@ def merge(results: list[SegmentResult], settings: Settings,
                                  f"{expected - 1}: the clip decodes inconsistently")
         kept.append(r.track)
         expected += n
-    track = _concat(kept, settings)
+    track = MotionTrack.concatenate(kept, {"ignore": [list(r) for r in settings.ignore]})
     track.excluded["static_overlay"] = _unique(reg for r in results for reg in r.overlays)
     if len(track.status):
         track.matrices = fill_failed(track.matrices, track.status, full_size,
