@@ -29,7 +29,7 @@ from .cuts import CutSettings
 from .motion_models import model_named
 from .motion_pass import AnalysisPass, FrameRecord, PassContext
 from .motion_track import MotionTrack, fill_failed, stand_ins
-from .overlap import read_ahead
+from .prefetch import read_ahead
 from .track import TrackSettings, ignore_mask
 from .video import Frame
 

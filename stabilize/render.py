@@ -16,7 +16,7 @@ import cv2
 import numpy as np
 
 from .geometry import rescale
-from .overlap import WriteBehind, read_ahead
+from .prefetch import WriteBehind, read_ahead
 from .video import YUV_BLACK, Frame, PlanarImage, VideoWriter
 
 # Frames waiting between the decoding, warping and encoding threads. Every extra one is a
@@ -166,7 +166,7 @@ def render(
     """Warp every frame by its correction and write it; returns the number of frames written.
 
     Frames are planar YUV (:class:`PlanarImage`, the writers fed the same format) or RGB
-    arrays. Decoding runs ahead and encoding behind the warp (see :mod:`stabilize.overlap`).
+    arrays. Decoding runs ahead and encoding behind the warp (see :mod:`stabilize.prefetch`).
     Frames beyond the corrections (a clip that decodes longer than its log) reuse the last one.
     ``check`` is called with (frame index, source frame, output frame, correction) for every
     frame, before the output is handed to the encoder (its buffer is reused afterwards), e.g.

@@ -1,4 +1,4 @@
-"""Run the stages of a pass side by side: decode ahead of the warp, encode behind it.
+"""Prefetching: read items ahead and write them behind in threads, so decode, warp, encode overlap.
 
 ffmpeg decodes and encodes in processes of its own, and OpenCV's warps release the GIL, so a
 thread that keeps the next frames read and one that keeps the encoder fed let the three work
@@ -11,6 +11,8 @@ import queue
 import threading
 from collections.abc import Callable, Iterable, Iterator
 from typing import Any, TypeVar
+
+__all__ = ["WriteBehind", "read_ahead"]
 
 T = TypeVar("T")
 _DONE = object()
