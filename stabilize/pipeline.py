@@ -143,7 +143,7 @@ def _source_dict(info: VideoInfo, frames: int, time_s: np.ndarray,
     return d
 
 
-def _analyse(clip: Path, info: VideoInfo, settings: Settings,
+def _measure_motion(clip: Path, info: VideoInfo, settings: Settings,
              progress: ProgressFactory | None, parallel: dict[str, Any] | None = None
              ) -> MotionLog:
     size = analysis_size(info, settings.analysis_width)
@@ -151,9 +151,9 @@ def _analyse(clip: Path, info: VideoInfo, settings: Settings,
     stats = DecodeStats()
     try:
         if parallel:
-            from .segments import analyse_segments
+            from .segments import fit_in_segments
 
-            track = analyse_segments(clip, info, size, settings, on_frame=bar.update,
+            track = fit_in_segments(clip, info, size, settings, on_frame=bar.update,
                                      **parallel)
         else:
             from .segments import single_pass_options
@@ -425,7 +425,7 @@ def measure(clip: str | os.PathLike, *, config: str | None = None,
             # This process only waits on the workers: the summary's import is done by then
             # (1.2–1.5 s less after the analysis, measured; a single pass gained nothing).
             shake.prefetch()
-    motion = _analyse(clip, info, settings, progress, parallel)
+    motion = _measure_motion(clip, info, settings, progress, parallel)
     _summarise(motion, settings, info.fps)
     return motion
 
@@ -447,7 +447,7 @@ def steady(clip: str | os.PathLike, out: str | os.PathLike | None = None, *,
                            compare=settings.compare)
     check_outputs(clip, outputs, settings.force)
     info = probe(clip)
-    motion = _analyse(clip, info, settings, progress)
+    motion = _measure_motion(clip, info, settings, progress)
     return _correct_and_write(clip, info, motion, settings, outputs, progress)
 
 

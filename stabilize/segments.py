@@ -96,7 +96,7 @@ class SegmentResult:
     overlays: list[list[int]] = field(default_factory=list)
 
 
-def analyse_range(task: SegmentTask, on_frame: Callable[[int], None] | None = None,
+def fit_segment(task: SegmentTask, on_frame: Callable[[int], None] | None = None,
                   single_thread: bool = False) -> SegmentResult:
     """Analyse frames ``[task.start, task.stop)`` with restarts at every keyframe.
 
@@ -107,7 +107,7 @@ def analyse_range(task: SegmentTask, on_frame: Callable[[int], None] | None = No
     if task.start % task.keyframe_every:
         raise ValueError("a segment must start at a keyframe")
     with opencv_threads(1 if single_thread else None):
-        return _analyse_range(task, on_frame, decode_threads=1 if single_thread else None)
+        return _fit_segment_frames(task, on_frame, decode_threads=1 if single_thread else None)
 
 
 @contextmanager
@@ -127,7 +127,7 @@ def opencv_threads(count: int | None) -> Iterator[None]:
         cv2.setNumThreads(before)
 
 
-def _analyse_range(task: SegmentTask, on_frame: Callable[[int], None] | None,
+def _fit_segment_frames(task: SegmentTask, on_frame: Callable[[int], None] | None,
                    decode_threads: int | None) -> SegmentResult:
     info = task.info
     read_from = lead_in_start(task.start, task.keyframe_every)
@@ -186,7 +186,7 @@ def plan_segments(frames_estimate: int, keyframe_every: int,
     return [(s, starts[i + 1] if i + 1 < len(starts) else None) for i, s in enumerate(starts)]
 
 
-def analyse_segments(clip: str | os.PathLike, info: VideoInfo, analysis_size: tuple[int, int],
+def fit_in_segments(clip: str | os.PathLike, info: VideoInfo, analysis_size: tuple[int, int],
                      settings: Settings, *, workers: int | None = None,
                      scheduler: str | None = None, keyframe_every: int | None = None,
                      on_frame: Callable[[int], None] | None = None) -> MotionTrack:
@@ -208,7 +208,7 @@ def analyse_segments(clip: str | os.PathLike, info: VideoInfo, analysis_size: tu
     if (workers == 1 or len(tasks) == 1) and scheduler is None:
         # One worker is one core, here as in a pool: the same work a pool's worker does.
         # A clip of one keyframe interval is one run, which a pool would only delay.
-        results = [analyse_range(t, on_frame, single_thread=True) for t in tasks]
+        results = [fit_segment(t, on_frame, single_thread=True) for t in tasks]
     else:
         results = [None] * len(tasks)
         # Frames each run reported while under way (local workers report as they go; Dask
@@ -220,7 +220,7 @@ def analyse_segments(clip: str | os.PathLike, info: VideoInfo, analysis_size: tu
                 told[i] += n
                 on_frame(n)
 
-        for i, outcome in parallel_map(_analyse_in_worker, tasks, workers=workers,
+        for i, outcome in parallel_map(_fit_segment_in_worker, tasks, workers=workers,
                                        scheduler=scheduler,
                                        on_progress=under_way if on_frame else None):
             if isinstance(outcome, BaseException):
@@ -231,12 +231,12 @@ def analyse_segments(clip: str | os.PathLike, info: VideoInfo, analysis_size: tu
     return merge(results, settings, (info.width, info.height))
 
 
-def _analyse_in_worker(task: SegmentTask) -> SegmentResult:
+def _fit_segment_in_worker(task: SegmentTask) -> SegmentResult:
     # A run after the first re-reads the frames before it (the lead-in), which it does not
     # keep and so does not count.
     counter = _ProgressCounter(skip=task.start - lead_in_start(task.start, task.keyframe_every))
     try:
-        return analyse_range(task, counter, single_thread=True)
+        return fit_segment(task, counter, single_thread=True)
     finally:
         counter.flush()
 
