@@ -19,6 +19,11 @@ from .geometry import rescale
 from .prefetch import WriteBehind, read_ahead
 from .video import YUV_BLACK, Frame, PlanarImage, VideoWriter
 
+__all__ = [
+    "BORDERS", "QUEUE_FRAMES", "compare_size", "plane_matrix", "render", "side_by_side", "warp",
+    "warp_planes",
+]
+
 # Frames waiting between the decoding, warping and encoding threads. Every extra one is a
 # whole frame in memory (12 MiB at 4K); one each way ran as fast as two at 1080p and 4K
 # (measured), the encoder's pipe and ffmpeg's own queues taking up the jitter.
