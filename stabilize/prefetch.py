@@ -99,11 +99,13 @@ class WriteBehind:
                     self._error = exc
 
     def put(self, item: Any) -> None:
+        """Queue ``item`` for the sink; raises what the sink raised on an earlier item."""
         if self._error is not None:
             raise self._error
         self._q.put(item)
 
     def close(self) -> None:
+        """Wait until every queued item is written; raises what the sink raised."""
         self._q.put(_DONE)
         self._thread.join()
         if self._error is not None:

@@ -169,6 +169,7 @@ def _centred(mom: list[float]) -> tuple[float, list[float], dict[str, float]]:
 
 
 def translation_refit(feat: Array, z: Array, mask: NDArray[np.bool_]) -> Array | None:
+    """Least-squares translation: the mean displacement of the points in ``mask``."""
     mom = _moments(feat, mask)
     cnt = mom[_M["n"]]
     if cnt < 1:
@@ -352,12 +353,14 @@ def _unflat(x: Array) -> Array:
 
 
 def normalise_h(h: Array) -> Array | None:
+    """``h`` (3, 3) scaled to h33 = 1, or None when it is not finite or h33 is near 0."""
     if not np.all(np.isfinite(h)) or abs(h[2, 2]) < 1e-12:
         return None
     return h / h[2, 2]
 
 
 def translation_project(h: Array) -> Array | None:
+    """The translation part of ``h`` (3, 3), or None for an unusable ``h``."""
     h = normalise_h(h)
     if h is None:
         return None
@@ -368,6 +371,8 @@ def translation_project(h: Array) -> Array | None:
 
 
 def similarity_project(h: Array) -> Array | None:
+    """The similarity nearest to ``h``'s linear part (its rotation-and-scale component),
+    with ``h``'s translation; None for an unusable ``h``."""
     h = normalise_h(h)
     if h is None:
         return None
@@ -377,6 +382,7 @@ def similarity_project(h: Array) -> Array | None:
 
 
 def affine_project(h: Array) -> Array | None:
+    """``h`` (3, 3) with its perspective row dropped; None for an unusable ``h``."""
     h = normalise_h(h)
     if h is None:
         return None
