@@ -18,6 +18,11 @@ from dataclasses import dataclass
 import cv2
 import numpy as np
 
+__all__ = [
+    "CutSettings", "collapsed", "corner_strength", "grey_histogram", "histogram_distance", "is_cut",
+    "is_textureless",
+]
+
 
 @dataclass(frozen=True)
 class CutSettings:

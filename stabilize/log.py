@@ -396,7 +396,7 @@ def read_log(csv_path: str | Path) -> MotionLog:
 
 def frame_reasons(reasons: np.ndarray) -> dict[str, list[int]]:
     """Frames that are weak or failed for a stated reason, by reason (see
-    :data:`stabilize.motion.REASONS`): ``{"foreground": [12, 13], ...}``."""
+    :data:`stabilize.motion_track.REASONS`): ``{"foreground": [12, 13], ...}``."""
     return {str(r): np.flatnonzero(reasons == r).tolist()
             for r in sorted(set(reasons.tolist())) if r}
 

@@ -24,6 +24,8 @@ import numpy as np
 
 from .track import cell_index
 
+__all__ = ["OverlayFinder", "OverlaySettings", "still_band"]
+
 
 @dataclass(frozen=True)
 class OverlaySettings:

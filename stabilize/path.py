@@ -15,7 +15,7 @@ import logging
 
 import numpy as np
 
-from .geometry import frame_centre, from_corners, from_similarity, to_corners, to_similarity
+from .motion_models import MotionModel, model_named
 
 _log = logging.getLogger("stabilize")
 
@@ -53,23 +53,20 @@ def segments(cuts: np.ndarray) -> list[slice]:
 
 
 # ------------------------------------------------------------- parameterisations
-def uses_corners(model: str) -> bool:
+def uses_corners(model: str | MotionModel) -> bool:
     """Whether paths of this motion model are smoothed as corner trajectories."""
-    return model in ("affine", "homography")
+    return model_named(model).uses_corners
 
 
-def encode(p: np.ndarray, model: str, width: int, height: int) -> np.ndarray:
-    """Path matrices -> the smoothing parameterisation of ``model``."""
-    if uses_corners(model):
-        return to_corners(p, width, height)
-    return to_similarity(p, frame_centre(width, height))
+def encode(p: np.ndarray, model: str | MotionModel, width: int, height: int) -> np.ndarray:
+    """Path matrices (n, 3, 3) -> the smoothing parameterisation of ``model``
+    (:meth:`stabilize.motion_models.MotionModel.encode`)."""
+    return model_named(model).encode(p, width, height)
 
 
-def decode(q: np.ndarray, model: str, width: int, height: int) -> np.ndarray:
-    """Inverse of :func:`encode`."""
-    if uses_corners(model):
-        return from_corners(q, width, height)
-    return from_similarity(q, frame_centre(width, height))
+def decode(q: np.ndarray, model: str | MotionModel, width: int, height: int) -> np.ndarray:
+    """Inverse of :func:`encode` (:meth:`stabilize.motion_models.MotionModel.decode`)."""
+    return model_named(model).decode(q, width, height)
 
 
 # ------------------------------------------------------------------ smoothers

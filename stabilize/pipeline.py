@@ -36,7 +36,7 @@ from .io.decode import DecodeStats, analysis_size, looks_truncated
 from .io.encode import output_colour, output_pix_fmt
 from .io.probing import check_input, constant_rate
 from .log import MotionLog, frame_reasons, json_path_for, read_log, reasons_of
-from .motion import analyse, measurable
+from .motion import fit_motion, measurable
 from .path import smooth_path
 from .render import compare_size
 from .render import render as render_frames
@@ -143,7 +143,7 @@ def _source_dict(info: VideoInfo, frames: int, time_s: np.ndarray,
     return d
 
 
-def _analyse(clip: Path, info: VideoInfo, settings: Settings,
+def _measure_motion(clip: Path, info: VideoInfo, settings: Settings,
              progress: ProgressFactory | None, parallel: dict[str, Any] | None = None
              ) -> MotionLog:
     size = analysis_size(info, settings.analysis_width)
@@ -151,9 +151,9 @@ def _analyse(clip: Path, info: VideoInfo, settings: Settings,
     stats = DecodeStats()
     try:
         if parallel:
-            from .segments import analyse_segments
+            from .segments import fit_in_segments
 
-            track = analyse_segments(clip, info, size, settings, on_frame=bar.update,
+            track = fit_in_segments(clip, info, size, settings, on_frame=bar.update,
                                      **parallel)
         else:
             from .segments import single_pass_options
@@ -162,7 +162,7 @@ def _analyse(clip: Path, info: VideoInfo, settings: Settings,
             # is stopped there and then, not whenever the generator is collected.
             with closing(iter_frames(clip, size=size, gray=True, info=info,
                                      stats=stats)) as frames:
-                track = analyse(
+                track = fit_motion(
                     frames, full_size=(info.width, info.height), analysis_size=size,
                     settings=settings, on_frame=bar.update, **single_pass_options(info),
                 )
@@ -194,9 +194,7 @@ def _analyse(clip: Path, info: VideoInfo, settings: Settings,
                     "object moving in front of it; their motion is a stand-in (status weak)",
                     clip, n_fore)
     return MotionLog(
-        time_s=track.time_s, matrices=track.matrices, tracked=track.tracked,
-        inliers=track.inliers, inlier_ratio=track.inlier_ratio, rms_px=track.rms_px,
-        rounds=track.rounds, status=track.status,
+        **track.log_columns(),
         source=_source_dict(info, n, track.time_s, truncated),
         settings=settings.to_dict(),
         extra={"excluded": track.excluded, "frame_reasons": frame_reasons(reasons)},
@@ -427,7 +425,7 @@ def measure(clip: str | os.PathLike, *, config: str | None = None,
             # This process only waits on the workers: the summary's import is done by then
             # (1.2–1.5 s less after the analysis, measured; a single pass gained nothing).
             shake.prefetch()
-    motion = _analyse(clip, info, settings, progress, parallel)
+    motion = _measure_motion(clip, info, settings, progress, parallel)
     _summarise(motion, settings, info.fps)
     return motion
 
@@ -449,7 +447,7 @@ def steady(clip: str | os.PathLike, out: str | os.PathLike | None = None, *,
                            compare=settings.compare)
     check_outputs(clip, outputs, settings.force)
     info = probe(clip)
-    motion = _analyse(clip, info, settings, progress)
+    motion = _measure_motion(clip, info, settings, progress)
     return _correct_and_write(clip, info, motion, settings, outputs, progress)
 
 

@@ -18,7 +18,12 @@ import numpy as np
 from .geometry import rescale
 from .io import Frame, PlanarImage, VideoWriter
 from .io.frames import YUV_BLACK
-from .overlap import WriteBehind, read_ahead
+from .prefetch import WriteBehind, read_ahead
+
+__all__ = [
+    "BORDERS", "QUEUE_FRAMES", "compare_size", "plane_matrix", "render", "side_by_side", "warp",
+    "warp_planes",
+]
 
 # Frames waiting between the decoding, warping and encoding threads. Every extra one is a
 # whole frame in memory (12 MiB at 4K); one each way ran as fast as two at 1080p and 4K
@@ -167,7 +172,7 @@ def render(
     """Warp every frame by its correction and write it; returns the number of frames written.
 
     Frames are planar YUV (:class:`PlanarImage`, the writers fed the same format) or RGB
-    arrays. Decoding runs ahead and encoding behind the warp (see :mod:`stabilize.overlap`).
+    arrays. Decoding runs ahead and encoding behind the warp (see :mod:`stabilize.prefetch`).
     Frames beyond the corrections (a clip that decodes longer than its log) reuse the last one.
     ``check`` is called with (frame index, source frame, output frame, correction) for every
     frame, before the output is handed to the encoder (its buffer is reused afterwards), e.g.

@@ -39,8 +39,9 @@ from dataclasses import dataclass
 import cv2
 import numpy as np
 
-from .consensus import estimate
+from . import shake
 from .geometry import frame_centre, similarity_readout
+from .motion_models import SIMILARITY
 from .track import to_full_resolution
 
 __all__ = [
@@ -273,9 +274,9 @@ def pair_motion(
     n = int(np.count_nonzero(keep))
     if n < s.min_inliers:
         return PairMotion(np.eye(3), np.full(3, np.nan), False, n, 0, dst[keep])
-    fit = estimate(src_f[keep], dst_f[keep], model="similarity",
-                   inlier_px=s.inlier_px / min(scale), max_rounds=s.max_rounds, seed=seed,
-                   frame_size=(float(w), float(h)))
+    fit = SIMILARITY.estimate(src_f[keep], dst_f[keep], inlier_px=s.inlier_px / min(scale),
+                              max_rounds=s.max_rounds, seed=seed,
+                              frame_size=(float(w), float(h)))
     ok = bool(fit.ok) and fit.n_inliers >= s.min_inliers
     readout = (similarity_readout(fit.matrix, frame_centre(w, h))[:3] if ok
                else np.full(3, np.nan))
@@ -456,8 +457,6 @@ def steadiness(output_readout: np.ndarray | None, source_readout: np.ndarray | N
     ``jitter_rms_y_px_src_check`` (the source's shake RMS as the check measured it) and
     ``output_pairs_measured`` (share of frame pairs measured on the output, 0–1).
     """
-    from . import shake
-
     out: dict = {"output_steadier": None, "shake_reduction_x": None, "shake_reduction_y": None,
                  "jitter_rms_x_px_src_check": None, "jitter_rms_y_px_src_check": None,
                  "output_pairs_measured": None}

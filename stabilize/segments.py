@@ -33,12 +33,11 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-import numpy as np
-
 from .config import Settings
 from .errors import StabilizeError
 from .io import VideoInfo, iter_frame_range
-from .motion import MotionTrack, analyse, fill_failed, stand_ins, warm_up_frames
+from .motion import fit_motion, warm_up_frames
+from .motion_track import MotionTrack, fill_failed, stand_ins
 from .runner import ProgressCounter, default_workers, opencv_threads, parallel_map
 
 __all__ = [
@@ -46,8 +45,8 @@ __all__ = [
     "MIN_KEYFRAME_FRAMES",
     "SegmentResult",
     "SegmentTask",
-    "analyse_range",
-    "analyse_segments",
+    "fit_in_segments",
+    "fit_segment",
     "keyframe_frames",
     "lead_in_start",
     "merge",
@@ -87,7 +86,7 @@ def single_pass_options(info: VideoInfo) -> dict[str, Any]:
 
     Returns
     -------
-    dict : ``{"keyframe_every": frames}`` for :func:`stabilize.motion.analyse`.
+    dict : ``{"keyframe_every": frames}`` for :func:`stabilize.motion.fit_motion`.
     """
     return {"keyframe_every": keyframe_frames(info.fps)}
 
@@ -116,7 +115,7 @@ class SegmentResult:
     overlays: list[list[int]] = field(default_factory=list)
 
 
-def analyse_range(task: SegmentTask, on_frame: Callable[[int], None] | None = None,
+def fit_segment(task: SegmentTask, on_frame: Callable[[int], None] | None = None,
                   single_thread: bool = False) -> SegmentResult:
     """Analyse frames ``[task.start, task.stop)`` with restarts at every keyframe.
 
@@ -135,10 +134,10 @@ def analyse_range(task: SegmentTask, on_frame: Callable[[int], None] | None = No
     if task.start % task.keyframe_every:
         raise ValueError("a segment must start at a keyframe")
     with opencv_threads(1 if single_thread else None):
-        return _analyse_range(task, on_frame, decode_threads=1 if single_thread else None)
+        return _fit_segment_frames(task, on_frame, decode_threads=1 if single_thread else None)
 
 
-def _analyse_range(task: SegmentTask, on_frame: Callable[[int], None] | None,
+def _fit_segment_frames(task: SegmentTask, on_frame: Callable[[int], None] | None,
                    decode_threads: int | None) -> SegmentResult:
     info = task.info
     read_from = lead_in_start(task.start, task.keyframe_every)
@@ -149,15 +148,16 @@ def _analyse_range(task: SegmentTask, on_frame: Callable[[int], None] | None,
     parts: list[MotionTrack] = []
     regions: list[list[int]] = []
     try:
-        track = analyse(frames, on_frame=on_frame, keyframe_every=task.keyframe_every,
+        track = fit_motion(frames, on_frame=on_frame, keyframe_every=task.keyframe_every,
                         first_index=read_from, **common)
         if task.start > read_from and len(track.time_s):
-            track = _drop_first(track, task.start - read_from)
+            track = track.select(slice(task.start - read_from, None))
         parts.append(track)
         regions += track.excluded.get("static_overlay", [])
     finally:
         frames.close()
-    return SegmentResult(task.start, _concat(parts, task.settings), _unique(regions))
+    ignored = {"ignore": [list(r) for r in task.settings.ignore]}
+    return SegmentResult(task.start, MotionTrack.concatenate(parts, ignored), _unique(regions))
 
 
 def lead_in_start(start: int, keyframe_every: int) -> int:
@@ -177,32 +177,6 @@ def lead_in_start(start: int, keyframe_every: int) -> int:
     if start <= 0:
         return 0
     return max(0, start - 1 - warm_up_frames(keyframe_every))
-
-
-def _drop_first(track: MotionTrack, k: int) -> MotionTrack:
-    return MotionTrack(time_s=track.time_s[k:], matrices=track.matrices[k:],
-                       tracked=track.tracked[k:], inliers=track.inliers[k:],
-                       inlier_ratio=track.inlier_ratio[k:], rms_px=track.rms_px[k:],
-                       rounds=track.rounds[k:], status=track.status[k:],
-                       excluded=track.excluded,
-                       reason=None if track.reason is None else track.reason[k:])
-
-
-def _concat(parts: list[MotionTrack], settings: Settings) -> MotionTrack:
-    def cat(name: str, empty: np.ndarray) -> np.ndarray:
-        arrays = [getattr(p, name) for p in parts]
-        return np.concatenate(arrays) if arrays else empty
-
-    return MotionTrack(
-        time_s=cat("time_s", np.empty(0)), matrices=cat("matrices", np.empty((0, 3, 3))),
-        tracked=cat("tracked", np.empty(0, int)), inliers=cat("inliers", np.empty(0, int)),
-        inlier_ratio=cat("inlier_ratio", np.empty(0)), rms_px=cat("rms_px", np.empty(0)),
-        rounds=cat("rounds", np.empty(0, int)), status=cat("status", np.empty(0, "<U6")),
-        excluded={"ignore": [list(r) for r in settings.ignore]},
-        reason=np.concatenate([p.reason if p.reason is not None
-                               else np.full(len(p.status), "", "<U12") for p in parts])
-        if parts else np.empty(0, "<U12"),
-    )
 
 
 def _unique(regions: Iterable[list[int]]) -> list[list[int]]:
@@ -242,7 +216,7 @@ def plan_segments(frames_estimate: int, keyframe_every: int,
     return [(s, starts[i + 1] if i + 1 < len(starts) else None) for i, s in enumerate(starts)]
 
 
-def analyse_segments(clip: str | os.PathLike, info: VideoInfo, analysis_size: tuple[int, int],
+def fit_in_segments(clip: str | os.PathLike, info: VideoInfo, analysis_size: tuple[int, int],
                      settings: Settings, *, workers: int | None = None,
                      scheduler: str | None = None, keyframe_every: int | None = None,
                      on_frame: Callable[[int], None] | None = None) -> MotionTrack:
@@ -278,7 +252,7 @@ def analyse_segments(clip: str | os.PathLike, info: VideoInfo, analysis_size: tu
     if (workers == 1 or len(tasks) == 1) and scheduler is None:
         # One worker is one core, here as in a pool: the same work a pool's worker does.
         # A clip of one keyframe interval is one run, which a pool would only delay.
-        results = [analyse_range(t, on_frame, single_thread=True) for t in tasks]
+        results = [fit_segment(t, on_frame, single_thread=True) for t in tasks]
     else:
         results = [None] * len(tasks)
         # Frames each run reported while under way (local workers report as they go; Dask
@@ -290,7 +264,7 @@ def analyse_segments(clip: str | os.PathLike, info: VideoInfo, analysis_size: tu
                 told[i] += n
                 on_frame(n)
 
-        for i, outcome in parallel_map(_analyse_in_worker, tasks, workers=workers,
+        for i, outcome in parallel_map(_fit_segment_in_worker, tasks, workers=workers,
                                        scheduler=scheduler,
                                        on_progress=under_way if on_frame else None):
             if isinstance(outcome, BaseException):
@@ -301,12 +275,12 @@ def analyse_segments(clip: str | os.PathLike, info: VideoInfo, analysis_size: tu
     return merge(results, settings, (info.width, info.height))
 
 
-def _analyse_in_worker(task: SegmentTask) -> SegmentResult:
+def _fit_segment_in_worker(task: SegmentTask) -> SegmentResult:
     # A run after the first re-reads the frames before it (the lead-in), which it does not
     # keep and so does not count.
     counter = ProgressCounter(skip=task.start - lead_in_start(task.start, task.keyframe_every))
     try:
-        return analyse_range(task, counter, single_thread=True)
+        return fit_segment(task, counter, single_thread=True)
     finally:
         counter.flush()
 
@@ -338,7 +312,7 @@ def merge(results: list[SegmentResult], settings: Settings,
                                  f"{expected - 1}: the clip decodes inconsistently")
         kept.append(r.track)
         expected += n
-    track = _concat(kept, settings)
+    track = MotionTrack.concatenate(kept, {"ignore": [list(r) for r in settings.ignore]})
     track.excluded["static_overlay"] = _unique(reg for r in results for reg in r.overlays)
     if len(track.status):
         track.matrices = fill_failed(track.matrices, track.status, full_size,

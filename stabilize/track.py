@@ -20,6 +20,11 @@ from dataclasses import dataclass
 import cv2
 import numpy as np
 
+__all__ = [
+    "MEMO_WIDTH", "Pairs", "TrackSettings", "Tracker", "bucket", "cell_index", "cell_keep",
+    "cell_maxima", "detect", "global_shift", "ignore_mask", "to_full_resolution",
+]
+
 
 @dataclass(frozen=True)
 class TrackSettings:

@@ -1,6 +1,6 @@
 """The evidence over many frames of what is scene and what moves in front of it: the
 per-track records (stabilize.anchors), the grouping over a baseline and the revision helpers
-(stabilize.motion), on point sets with exact, invented motion."""
+(stabilize.track_groups), on point sets with exact, invented motion."""
 
 from __future__ import annotations
 
@@ -10,7 +10,9 @@ import pytest
 from stabilize import anchors
 from stabilize.anchors import BaselineSettings
 from stabilize.config import Settings
-from stabilize.motion import corner_shift, group_tracks, in_mask, object_mask
+from stabilize.frame_fit import corner_shift
+from stabilize.motion_models import SIMILARITY
+from stabilize.track_groups import group_tracks, in_mask, object_mask
 
 SIZE = (640, 360)
 
@@ -76,7 +78,7 @@ def _group(start, dst, **kw):
     memo = anchors.rebase(memo, 0, start)
     k = len(dst)
     return group_tracks(dst, memo, 0, np.full(k, 0.5), np.zeros(k),
-                        settings=Settings(model="similarity"), base=BaselineSettings(),
+                        model=SIMILARITY, settings=Settings(), base=BaselineSettings(),
                         seed=[0, 1], frame_size=SIZE, **kw)
 
 
@@ -104,7 +106,8 @@ def test_no_baseline_no_grouping():
     start, dst = _scene_and_object(rng)
     memo = anchors.first_seen(_memo(len(dst)), 0.0)
     k = len(dst)
-    kw = dict(settings=Settings(), base=BaselineSettings(), seed=[0, 1], frame_size=SIZE)
+    kw = dict(model=SIMILARITY, settings=Settings(), base=BaselineSettings(), seed=[0, 1],
+              frame_size=SIZE)
     assert group_tracks(dst, memo, None, np.full(k, 0.5), np.zeros(k), **kw) is None
     assert group_tracks(dst, memo, 0, np.full(k, 0.5), np.zeros(k), **kw) is None  # all NaN
 

@@ -2,10 +2,13 @@
 
 import numpy as np
 
+from stabilize.anchors import hull_share
 from stabilize.config import Settings
 from stabilize.cuts import CutSettings, collapsed, is_cut, is_textureless
+from stabilize.frame_fit import fit_frame
 from stabilize.geometry import from_similarity, to_similarity
-from stabilize.motion import fill_failed, fit_frame, hull_share, transfer_error
+from stabilize.motion_models import SIMILARITY, transfer_error
+from stabilize.motion_track import LOG_COLUMNS, MotionTrack, fill_failed
 from stabilize.overlays import OverlayFinder, still_band
 
 W, H = 640, 360
@@ -30,8 +33,8 @@ def test_a_slow_busy_object_loses_to_the_surrounding_background():
     # the 1.5 px threshold of the still background, so counting inliers alone would pick it.
     src, dst, n_bg = _scene(1200, 1500, np.array([1.2, 0.6]), rng)
     assert n_bg < 0.5 * len(src)
-    fit = fit_frame(src, dst, np.full(len(src), 0.5), settings=Settings(), seed=[0, 1],
-                    prior=None, frame_size=(W, H))
+    fit = fit_frame(src, dst, np.full(len(src), 0.5), model=SIMILARITY, settings=Settings(),
+                    seed=[0, 1], prior=None, frame_size=(W, H))
     np.testing.assert_allclose(fit.matrix[:2, 2], 0.0, atol=0.02)
     # The tight set keeps about 95% of the true inliers (a 95% χ² threshold).
     assert fit.support[:n_bg].mean() > 0.85 and fit.support[n_bg:].mean() < 0.05
@@ -44,8 +47,8 @@ def test_history_keeps_the_background_when_spread_cannot_tell():
     obj = np.arange(800) % 2 == 0  # interleaved: both sets spread over the whole frame
     dst[obj] += [3.0, 0.0]
     history = np.where(obj, 0.1, 0.95)
-    fit = fit_frame(src, dst, history, settings=Settings(), seed=[0, 2], prior=None,
-                    frame_size=(W, H))
+    fit = fit_frame(src, dst, history, model=SIMILARITY, settings=Settings(), seed=[0, 2],
+                    prior=None, frame_size=(W, H))
     np.testing.assert_allclose(fit.matrix[:2, 2], 0.0, atol=0.02)
 
 
@@ -130,3 +133,23 @@ def test_failed_frames_get_interpolated_stand_ins():
     out = to_similarity(fill_failed(m, status, (W, H)), centre)
     assert out[3, 0] == 3.0  # halfway between its neighbours, not the wild 99
     np.testing.assert_allclose(out[[1, 2, 4, 5], 0], q[[1, 2, 4, 5], 0])
+
+
+def test_motion_track_select_and_concatenate_keep_every_column():
+    n = 5
+    rng = np.random.default_rng(9)
+    track = MotionTrack(time_s=np.arange(n) / 30.0, matrices=rng.normal(size=(n, 3, 3)),
+                        tracked=np.arange(n), inliers=np.arange(n) // 2,
+                        inlier_ratio=rng.uniform(size=n), rms_px=rng.uniform(size=n),
+                        rounds=np.arange(n) * 3, status=np.array(["ok", "weak", "ok", "failed",
+                                                                  "cut"]),
+                        excluded={"ignore": [[0, 0, 4, 4]]}, reason=None)
+    head, tail = track.select(slice(None, 2)), track.select(slice(2, None))
+    assert len(tail.time_s) == 3 and tail.reason is None and tail.excluded is track.excluded
+    whole = MotionTrack.concatenate([head, tail], {"ignore": []})
+    for name in LOG_COLUMNS:
+        np.testing.assert_array_equal(getattr(whole, name), getattr(track, name))
+    assert whole.reason.tolist() == [""] * n and whole.excluded == {"ignore": []}
+    empty = MotionTrack.concatenate([], {})
+    assert empty.matrices.shape == (0, 3, 3) and empty.status.dtype == np.dtype("<U6")
+    assert set(track.log_columns()) == set(LOG_COLUMNS)

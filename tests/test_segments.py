@@ -136,7 +136,7 @@ def test_ranges_in_any_grouping_merge_to_the_same_track(long_clip, one_worker):
     size = analysis_size(info, st.analysis_width)
     tasks = [segments.SegmentTask(str(long_clip), info, size, st, s, e, KEYFRAME)
              for s, e in [(0, 20), (20, 60), (60, None)]]
-    merged = segments.merge([segments.analyse_range(t) for t in reversed(tasks)], st,
+    merged = segments.merge([segments.fit_segment(t) for t in reversed(tasks)], st,
                             (info.width, info.height))
     assert np.array_equal(merged.matrices, one_worker.matrices)
     assert np.array_equal(merged.time_s, one_worker.time_s)

@@ -4,6 +4,7 @@ import cv2
 import numpy as np
 import pytest
 
+import stabilize.track as track
 from stabilize.geometry import rescale
 from stabilize.track import (
     Tracker,
@@ -190,8 +191,6 @@ def test_phase_correlation_restart_guess():
 def test_corner_poor_picture_is_not_searched_on_every_frame(monkeypatch):
     # Fewer corners than max_corners: the tracker must not run the detector again each
     # frame for nothing new, yet it looks again now and then for picture entering view.
-    import stabilize.track as track
-
     calls = []
     real = track.detect
     monkeypatch.setattr(track, "detect", lambda *a, **k: calls.append(1) or real(*a, **k))

@@ -192,7 +192,7 @@ def plausible(m: list[float], bounds: MotionBounds, frame: Frame) -> bool:
     return abs(rot) <= bounds.max_rotation_deg
 
 
-def point_set_problem(gram: NDArray[np.float64], n: int, model: str) -> str:
+def point_set_problem(gram: NDArray[np.float64], n: int, spread_rank: int) -> str:
     """Reason why no model of this family can be fitted to the whole set, or "".
 
     Parameters
@@ -201,10 +201,11 @@ def point_set_problem(gram: NDArray[np.float64], n: int, model: str) -> str:
         Scatter matrix of the centred (normalised) points, order (x, y, u, v).
     n : int
         Number of points.
-    model : str
-        Model name.
+    spread_rank : int
+        The family's need for spread (:attr:`stabilize.consensus.models.Model.spread_rank`):
+        0 none, 1 not all coincident, 2 not all collinear.
     """
-    if model == "translation":
+    if spread_rank == 0:
         return ""
     cov = gram.tolist()
     for i in (0, 2):
@@ -215,7 +216,7 @@ def point_set_problem(gram: NDArray[np.float64], n: int, model: str) -> str:
         lmin = max(0.5 * tr - root, 0.0)
         if lmax <= 1e-20 * n:
             return "degenerate: all points coincident"
-        if model != "similarity" and lmin <= 1e-12 * lmax:
+        if spread_rank >= 2 and lmin <= 1e-12 * lmax:
             return "degenerate: all points collinear"
     return ""
 

@@ -84,10 +84,11 @@ def _failure(n: int, rounds: int, reason: str, model: str) -> Fit:
 
 
 def _check(
-    src: ArrayLike, dst: ArrayLike, model: str, inlier_px: float, confidence: float,
+    src: ArrayLike, dst: ArrayLike, model: str | Model, inlier_px: float, confidence: float,
     max_rounds: int, prior: ArrayLike | None,
 ) -> tuple[Model, NDArray[np.float64], NDArray[np.float64], NDArray[np.float64] | None]:
-    spec = MODELS.get(model)
+    # The name is looked up here, at the edge; everything after works on the model itself.
+    spec = model if isinstance(model, Model) else MODELS.get(model)
     if spec is None:
         raise ValueError(f"unknown model {model!r}; expected one of {sorted(MODELS)}")
     s = np.asarray(src, dtype=np.float64)
@@ -111,7 +112,7 @@ def _check(
 def estimate(
     src: ArrayLike,
     dst: ArrayLike,
-    model: str = "homography",
+    model: str | Model = "homography",
     inlier_px: float = 1.5,
     confidence: float = 0.999,
     max_rounds: int = 2000,
@@ -133,8 +134,9 @@ def estimate(
     src, dst : array_like, shape (n, 2)
         Matched points ``(x, y)`` in pixels, origin at the centre of the top-left pixel.
         Rows with non-finite values are ignored (never inliers).
-    model : {"translation", "similarity", "affine", "homography"}
-        Motion model; minimal samples of 1, 2, 3 and 4 correspondences.
+    model : {"translation", "similarity", "affine", "homography"} or Model
+        Motion model, by name or as the model itself (:data:`MODELS`); minimal samples of
+        1, 2, 3 and 4 correspondences.
     inlier_px : float
         Inlier threshold on the transfer error ``|dst - H(src)|``, pixels (> 0).
     confidence : float
@@ -217,7 +219,7 @@ def _estimate(
     order = canonical_order(pts)
     pts = np.take(pts, order, axis=1)
     norm, z, gram = normalisation(pts[:2], pts[2:])
-    problem = point_set_problem(gram, n, spec.name)
+    problem = point_set_problem(gram, n, spec.spread_rank)
     if problem:
         return _failure(n_all, 0, problem, spec.name)
 

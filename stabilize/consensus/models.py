@@ -1,6 +1,7 @@
-"""Motion models: minimal solvers, least-squares refits and batched residuals.
+"""Motion models in normalised coordinates: the solver protocol, features and batched residuals.
 
-Every model follows one protocol (:class:`Model`). Models are 3x3 matrices acting on
+Every model follows one protocol (:class:`Model`); its minimal solver, refit and projection
+live in :mod:`.solvers`. Models are 3x3 matrices acting on
 normalised coordinates (see :func:`normalisation`); a batch of ``B`` hypotheses is a
 ``(B, 3, 3)`` array. Squared transfer errors for a batch come back as ``(B, n)``.
 
@@ -31,31 +32,35 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import NDArray
 
+from .solvers import (
+    MONOMIALS,
+    affine_project,
+    affine_refit,
+    affine_solve,
+    homography_polish,
+    homography_refit,
+    homography_solve,
+    normalise_h,
+    similarity_project,
+    similarity_refit,
+    similarity_solve,
+    translation_project,
+    translation_refit,
+    translation_solve,
+)
+
 __all__ = ["Model", "MODELS", "Normalisation", "normalisation"]
 
 Array = NDArray[np.float64]
-
-#: Samples whose points are closer than this (normalised units, ~0.07 px at a
-#: 1920x1080 frame) are coincident.
-EPS_LEN = 1e-4
-#: Sample triangles with twice their area below this (normalised units^2, ~0.25 px^2)
-#: are collinear.
-EPS_AREA = 1e-6
 
 # Points are stored transposed: z = (x, y, u, v, 1) as rows of a (5, n) array, so that
 # every per-point quantity is a contiguous row. The upper-triangle monomials z_i z_j
 # (i <= j) are the linear-family features; a symmetric form O gives
 # r^2 = (FAC * O[TRI]) @ F.
-_TI, _TJ = np.triu_indices(5)
+_TI, _TJ = MONOMIALS
 _TRI = _TI * 5 + _TJ
 _FAC = np.where(_TI == _TJ, 1.0, 2.0)
-_COL = {(int(i), int(j)): k for k, (i, j) in enumerate(zip(_TI, _TJ, strict=True))}
 _NEG_I2 = -np.eye(2)
-# Moment positions used by the closed-form refits (z index: x 0, y 1, u 2, v 3, 1 4).
-_M = {name: _COL[ij] for name, ij in {
-    "n": (4, 4), "x": (0, 4), "y": (1, 4), "u": (2, 4), "v": (3, 4),
-    "xx": (0, 0), "xy": (0, 1), "yy": (1, 1),
-    "xu": (0, 2), "xv": (0, 3), "yu": (1, 2), "yv": (1, 3)}.items()}
 
 # Flattened homography (9,) -> coefficients on g = (x, y, 1, ux, uy, u, vx, vy, v) for
 # (numerator x, numerator y, depth), component-major so each is a contiguous block.
@@ -67,9 +72,6 @@ for _c in range(3):
     _HOM_SEL[6 + _c, 1, 6 + _c] = -1.0
     _HOM_SEL[6 + _c, 2, _c] = 1.0
 _HOM_SEL = _HOM_SEL.reshape(9, 27)
-_ADJ_SIGN = np.array([[1.0, -1.0], [-1.0, 1.0]])
-_ROT1 = np.array([1, 2, 0])
-_ROT2 = np.array([2, 0, 1])
 
 
 @dataclass(frozen=True)
@@ -209,340 +211,6 @@ def _homography_sq_residuals_one(feat: Array, h: Array) -> Array:
     return _homography_sq_residuals(feat, h[None])[0]
 
 
-# --------------------------------------------------------------------------- minimal solvers
-# Samples arrive as (4, B, s): rows x, y (src) and u, v (dst) of B samples of s points.
-
-
-def _translation_solve(smp: Array) -> tuple[Array, NDArray[np.bool_]]:
-    """Translation from one correspondence per hypothesis."""
-    b = smp.shape[1]
-    h = np.zeros((b, 9))
-    h[:, [0, 4, 8]] = 1.0
-    h[:, [2, 5]] = (smp[2:, :, 0] - smp[:2, :, 0]).T
-    return h.reshape(b, 3, 3), np.ones(b, dtype=bool)
-
-
-def _similarity_solve(smp: Array) -> tuple[Array, NDArray[np.bool_]]:
-    """Similarity from two correspondences, closed form in complex numbers.
-
-    With points as complex numbers a similarity is ``q = a p + t``; two points give
-    ``a = (q1 - q0) / (p1 - p0)`` and ``t = q0 - a p0``.
-    """
-    p = smp[0] + 1j * smp[1]
-    q = smp[2] + 1j * smp[3]
-    dp = p[:, 1] - p[:, 0]
-    dq = q[:, 1] - q[:, 0]
-    valid = (np.abs(dp) > EPS_LEN) & (np.abs(dq) > EPS_LEN)
-    a = dq / np.where(valid, dp, 1.0)
-    t = q[:, 0] - a * p[:, 0]
-    b = len(a)
-    h = np.empty((b, 3, 3))
-    h[:, 0, 0] = h[:, 1, 1] = a.real
-    h[:, 1, 0] = a.imag
-    h[:, 0, 1] = -a.imag
-    h[:, 0, 2] = t.real
-    h[:, 1, 2] = t.imag
-    h[:, 2] = (0.0, 0.0, 1.0)
-    return h, valid
-
-
-def _affine_solve(smp: Array) -> tuple[Array, NDArray[np.bool_]]:
-    """Affine map from three correspondences via a closed-form 2x2 inverse."""
-    d = smp[:, :, 1:] - smp[:, :, :1]  # (4, B, 2): edge vectors of both triangles
-    dx1, dx2 = d[0, :, 0], d[0, :, 1]
-    dy1, dy2 = d[1, :, 0], d[1, :, 1]
-    det_s = dx1 * dy2 - dx2 * dy1
-    det_d = d[2, :, 0] * d[3, :, 1] - d[2, :, 1] * d[3, :, 0]
-    # Same orientation in both images: a reflection is not camera motion.
-    valid = (det_s * np.sign(det_d) > EPS_AREA) & (det_d * np.sign(det_s) > EPS_AREA)
-    inv = 1.0 / np.where(valid, det_s, 1.0)
-    r = d[2:]  # (2, B, 2): u and v edges
-    col0 = (r[:, :, 0] * dy2 - r[:, :, 1] * dy1) * inv
-    col1 = (r[:, :, 1] * dx1 - r[:, :, 0] * dx2) * inv
-    t = smp[2:, :, 0] - col0 * smp[0, :, 0] - col1 * smp[1, :, 0]
-    b = smp.shape[1]
-    h = np.empty((b, 3, 3))
-    h[:, :2] = np.stack((col0, col1, t), axis=-1).transpose(1, 0, 2)
-    h[:, 2] = (0.0, 0.0, 1.0)
-    return h, valid
-
-
-def _triple_dets(ph: Array) -> tuple[Array, Array]:
-    """For homogeneous 4-point samples ph (B, 4, 3) return the rows b x c, c x a, a x b
-    (B, 3, 3) and the four triple determinants (B, 4): |d b c|, |a d c|, |a b d|, |a b c|."""
-    abc = ph[:, :3]
-    u = abc[:, _ROT1]
-    v = abc[:, _ROT2]
-    cross = u[:, :, _ROT1] * v[:, :, _ROT2] - u[:, :, _ROT2] * v[:, :, _ROT1]
-    dets = np.empty((ph.shape[0], 4))
-    dets[:, :3] = np.matmul(cross, ph[:, 3, :, None])[..., 0]
-    dets[:, 3] = (abc[:, 0] * cross[:, 0]).sum(axis=1)
-    return cross, dets
-
-
-def _homography_solve(smp: Array) -> tuple[Array, NDArray[np.bool_]]:
-    """Homography from four correspondences by mapping both to the projective basis.
-
-    ``H1 = [a b c] diag(l)`` with ``l = [a b c]^-1 d`` takes the canonical basis to the
-    src points; likewise ``H2`` for dst; ``H = H2 H1^-1``. The inverse is written with
-    cross products so that no division (and no linear solve) is needed; the four
-    triple determinants come for free and drive the degeneracy and orientation checks.
-    """
-    b = smp.shape[1]
-    ph = np.empty((2, b, 4, 3))
-    ph[..., :2] = smp.reshape(2, 2, b, 4).transpose(0, 2, 3, 1)
-    ph[..., 2] = 1.0
-    cross, dets = _triple_dets(ph.reshape(2 * b, 4, 3))
-    ls, ld = dets[:b], dets[b:]
-    # General position and consistent orientation of every triple (no fold-over).
-    valid = ((ls * np.sign(ld) > EPS_AREA) & (ld * np.sign(ls) > EPS_AREA)).all(axis=1)
-    lam = ld[:, :3] * ls[:, [1, 0, 0]] * ls[:, [2, 2, 1]]
-    m2 = ph[1, :, :3].transpose(0, 2, 1)  # columns a', b', c'
-    h = np.matmul(m2 * lam[:, None, :], cross[:b])
-    return h, valid
-
-
-# --------------------------------------------------------------------------- refits
-
-
-def _moments(feat: Array, mask: NDArray[np.bool_]) -> list[float]:
-    return (feat @ mask.astype(np.float64)).tolist()
-
-
-def _centred(mom: list[float]) -> tuple[float, list[float], dict[str, float]]:
-    """Count, means (x, y, u, v) and centred second moments of the masked points."""
-    cnt = mom[_M["n"]]
-    mean = [mom[_M[k]] / cnt for k in ("x", "y", "u", "v")]
-    mx, my, mu, mv = mean
-    c = {
-        "xx": mom[_M["xx"]] - cnt * mx * mx,
-        "xy": mom[_M["xy"]] - cnt * mx * my,
-        "yy": mom[_M["yy"]] - cnt * my * my,
-        "xu": mom[_M["xu"]] - cnt * mx * mu,
-        "xv": mom[_M["xv"]] - cnt * mx * mv,
-        "yu": mom[_M["yu"]] - cnt * my * mu,
-        "yv": mom[_M["yv"]] - cnt * my * mv,
-    }
-    return cnt, mean, c
-
-
-def _translation_refit(feat: Array, z: Array, mask: NDArray[np.bool_]) -> Array | None:
-    mom = _moments(feat, mask)
-    cnt = mom[_M["n"]]
-    if cnt < 1:
-        return None
-    tx = (mom[_M["u"]] - mom[_M["x"]]) / cnt
-    ty = (mom[_M["v"]] - mom[_M["y"]]) / cnt
-    return np.array([[1.0, 0.0, tx], [0.0, 1.0, ty], [0.0, 0.0, 1.0]])
-
-
-def _similarity_refit(feat: Array, z: Array, mask: NDArray[np.bool_]) -> Array | None:
-    """Least-squares similarity (Umeyama 1991) from inlier moments.
-
-    In 2-D, with the rotation kept proper, Umeyama's rotation and scale reduce to the
-    complex least-squares ratio ``a = sum(q~ conj(p~)) / sum(|p~|^2)`` of the centred
-    points, which is what the moments give here.
-    """
-    mom = _moments(feat, mask)
-    if mom[_M["n"]] < 2:
-        return None
-    cnt, (mx, my, mu, mv), c = _centred(mom)
-    den = c["xx"] + c["yy"]
-    if den <= EPS_LEN * EPS_LEN * cnt:
-        return None
-    a = (c["xu"] + c["yv"]) / den
-    b = (c["xv"] - c["yu"]) / den
-    tx = mu - a * mx + b * my
-    ty = mv - b * mx - a * my
-    return np.array([[a, -b, tx], [b, a, ty], [0.0, 0.0, 1.0]])
-
-
-def _affine_refit(feat: Array, z: Array, mask: NDArray[np.bool_]) -> Array | None:
-    """Least-squares affine map ``A = C_qp C_pp^-1`` from inlier moments."""
-    mom = _moments(feat, mask)
-    if mom[_M["n"]] < 3:
-        return None
-    cnt, (mx, my, mu, mv), c = _centred(mom)
-    sxx, sxy, syy = c["xx"], c["xy"], c["yy"]
-    det = sxx * syy - sxy * sxy
-    if det <= EPS_AREA * EPS_AREA * cnt * cnt:
-        return None
-    ixx, ixy, iyy = syy / det, -sxy / det, sxx / det
-    sux, suy, svx, svy = c["xu"], c["yu"], c["xv"], c["yv"]
-    a00, a01 = sux * ixx + suy * ixy, sux * ixy + suy * iyy
-    a10, a11 = svx * ixx + svy * ixy, svx * ixy + svy * iyy
-    tx = mu - a00 * mx - a01 * my
-    ty = mv - a10 * mx - a11 * my
-    return np.array([[a00, a01, tx], [a10, a11, ty], [0.0, 0.0, 1.0]])
-
-
-def _homography_refit(feat: Array, z: Array, mask: NDArray[np.bool_]) -> Array | None:
-    """Normalised DLT on the inliers (Hartley 1997), via the 9x9 normal matrix.
-
-    ``A^T A`` of the DLT system is assembled from the moments ``g g^T`` so that the
-    2m x 9 design matrix is never built; the points are already normalised.
-    """
-    if np.count_nonzero(mask) < 4:
-        return None
-    gm = feat * mask
-    m = gm @ feat.T
-    ata = np.zeros((9, 9))
-    zz = m[:3, :3]
-    ata[:3, :3] = zz
-    ata[3:6, 3:6] = zz
-    ata[:3, 6:] = -m[:3, 3:6]
-    ata[3:6, 6:] = -m[:3, 6:]
-    ata[6:, :3] = -m[3:6, :3]
-    ata[6:, 3:6] = -m[6:, :3]
-    ata[6:, 6:] = m[3:6, 3:6] + m[6:, 6:]
-    _, vec = np.linalg.eigh(ata)
-    h = vec[:, 0].reshape(3, 3)
-    if abs(h[2, 2]) < 1e-12:
-        return None
-    return h / h[2, 2]
-
-
-def _lm_index() -> tuple[NDArray[np.intp], Array, NDArray[np.intp]]:
-    """Where each entry of the 8x8 normal matrix and the gradient of the transfer-error
-    least squares lives in the (6 monomials x 7 weights) moment table."""
-    mono = {(0, 0): 0, (0, 1): 1, (1, 1): 2, (0, 2): 3, (1, 2): 4, (2, 2): 5}
-
-    def mi(i: int, j: int) -> int:
-        return mono[min(i, j), max(i, j)]
-
-    zero = 42  # index of an appended 0
-    idx = np.full((8, 8), zero, dtype=np.intp)
-    sgn = np.ones((8, 8))
-    for p in range(8):
-        for q in range(8):
-            bp, bq = p // 3 if p < 6 else 2, q // 3 if q < 6 else 2
-            ip, iq = p % 3 if p < 6 else p - 6, q % 3 if q < 6 else q - 6
-            if bp < 2 and bp == bq:
-                idx[p, q] = mi(ip, iq) * 7 + 0
-            elif bp < 2 and bq == 2 or bq < 2 and bp == 2:
-                blk, i, j = (bp, ip, iq) if bq == 2 else (bq, iq, ip)
-                idx[p, q] = mi(i, j) * 7 + (1 if blk == 0 else 2)
-                sgn[p, q] = -1.0
-            elif bp == 2 and bq == 2:
-                idx[p, q] = mi(ip, iq) * 7 + 3
-    gidx = np.array([mi(i, 2) * 7 + 4 for i in range(3)] + [mi(i, 2) * 7 + 5 for i in range(3)]
-                    + [mi(i, 2) * 7 + 6 for i in range(2)])
-    return idx, sgn, gidx
-
-
-_LM_IDX, _LM_SGN, _LM_GIDX = _lm_index()
-
-
-def _homography_polish(z: Array, h: Array, mask: NDArray[np.bool_], iters: int = 3) -> Array:
-    """Levenberg-Marquardt on the transfer error of the inliers, h33 fixed to 1.
-
-    The DLT minimises an algebraic error; a few LM steps reach the maximum-likelihood
-    estimate under Gaussian noise in dst (Hartley and Zisserman 2004, A6). The normal
-    matrix ``J^T J`` and gradient ``J^T r`` are sums over points of weights times the
-    monomials ``(x^2, xy, y^2, x, y, 1)``, so each iteration is one 6 x m x 7 product
-    instead of building the 2m x 8 Jacobian.
-    """
-    zi = np.compress(mask, z, axis=1)
-    m = zi.shape[1]
-    if m < 5:
-        return h
-    x, y, u, v = zi[0], zi[1], zi[2], zi[3]
-    mono = np.empty((6, m))
-    mono[0] = x * x
-    mono[1] = x * y
-    mono[2] = y * y
-    mono[3] = x
-    mono[4] = y
-    mono[5] = 1.0
-    wts = np.empty((7, m))
-    par = (h / h[2, 2]).ravel()[:8].copy()
-
-    def resid(p: Array) -> tuple[float, Array, Array, Array, Array, Array]:
-        iw = 1.0 / (x * p[6] + y * p[7] + 1.0)
-        px = (x * p[0] + y * p[1] + p[2]) * iw
-        py = (x * p[3] + y * p[4] + p[5]) * iw
-        rx = px - u
-        ry = py - v
-        return float(rx @ rx + ry @ ry), iw, px, py, rx, ry
-
-    sse, iw, px, py, rx, ry = resid(par)
-    mu = 1e-3
-    for _ in range(iters):
-        a = iw * iw
-        wts[0] = a
-        wts[1] = px * a
-        wts[2] = py * a
-        wts[3] = (px * px + py * py) * a
-        wts[4] = rx * iw
-        wts[5] = ry * iw
-        wts[6] = -(px * rx + py * ry) * iw
-        tab = np.append((mono @ wts.T).ravel(), 0.0)
-        jtj = np.take(tab, _LM_IDX) * _LM_SGN
-        grad = np.take(tab, _LM_GIDX)
-        damp = np.diag(np.diag(jtj))
-        converged = False
-        while True:
-            try:
-                step = np.linalg.solve(jtj + mu * damp, -grad)
-            except np.linalg.LinAlgError:
-                return _unflat(par)
-            cand = par + step
-            res = resid(cand)
-            if res[0] < sse:
-                converged = sse - res[0] <= 1e-10 * sse
-                par = cand
-                sse, iw, px, py, rx, ry = res
-                mu = max(mu * 0.1, 1e-9)
-                break
-            mu *= 10.0
-            if mu > 1e6:
-                return _unflat(par)
-        if converged:
-            break
-    return _unflat(par)
-
-
-def _unflat(x: Array) -> Array:
-    return np.append(x, 1.0).reshape(3, 3)
-
-
-# --------------------------------------------------------------------------- projections
-
-
-def _normalise_h(h: Array) -> Array | None:
-    if not np.all(np.isfinite(h)) or abs(h[2, 2]) < 1e-12:
-        return None
-    return h / h[2, 2]
-
-
-def _translation_project(h: Array) -> Array | None:
-    h = _normalise_h(h)
-    if h is None:
-        return None
-    # The image of the (normalised) centroid keeps the best translation locally.
-    out = np.eye(3)
-    out[:2, 2] = h[:2, 2]
-    return out
-
-
-def _similarity_project(h: Array) -> Array | None:
-    h = _normalise_h(h)
-    if h is None:
-        return None
-    a = 0.5 * (h[0, 0] + h[1, 1])
-    b = 0.5 * (h[1, 0] - h[0, 1])
-    return np.array([[a, -b, h[0, 2]], [b, a, h[1, 2]], [0.0, 0.0, 1.0]])
-
-
-def _affine_project(h: Array) -> Array | None:
-    h = _normalise_h(h)
-    if h is None:
-        return None
-    out = h.copy()
-    out[2] = (0.0, 0.0, 1.0)
-    return out
-
-
 # --------------------------------------------------------------------------- protocol
 
 
@@ -577,6 +245,10 @@ class Model:
         ``project(h) -> h or None``: nearest member of the family (used for a prior).
     polish : callable or None
         ``polish(z, h, mask) -> h``: non-linear refinement of the final fit.
+    spread_rank : int
+        How much spread the whole point set needs for any member of the family to be
+        fitted: 0 none (translation), 1 not all coincident (similarity), 2 not all
+        collinear (affine, homography).
     """
 
     name: str
@@ -589,18 +261,19 @@ class Model:
     refit: Callable[[Array, Array, NDArray[np.bool_]], Array | None]
     project: Callable[[Array], Array | None]
     polish: Callable[[Array, Array, NDArray[np.bool_]], Array] | None = None
+    spread_rank: int = 2
 
 
 _LIN = (_linear_features, _linear_sq_residuals, _linear_sq_residuals_one)
 
 MODELS: dict[str, Model] = {
-    "translation": Model("translation", 1, 2, _LIN[0], _translation_solve, _LIN[1], _LIN[2],
-                         _translation_refit, _translation_project),
-    "similarity": Model("similarity", 2, 4, _LIN[0], _similarity_solve, _LIN[1], _LIN[2],
-                        _similarity_refit, _similarity_project),
-    "affine": Model("affine", 3, 6, _LIN[0], _affine_solve, _LIN[1], _LIN[2],
-                    _affine_refit, _affine_project),
-    "homography": Model("homography", 4, 8, _homography_features, _homography_solve,
+    "translation": Model("translation", 1, 2, _LIN[0], translation_solve, _LIN[1], _LIN[2],
+                         translation_refit, translation_project, spread_rank=0),
+    "similarity": Model("similarity", 2, 4, _LIN[0], similarity_solve, _LIN[1], _LIN[2],
+                        similarity_refit, similarity_project, spread_rank=1),
+    "affine": Model("affine", 3, 6, _LIN[0], affine_solve, _LIN[1], _LIN[2],
+                    affine_refit, affine_project),
+    "homography": Model("homography", 4, 8, _homography_features, homography_solve,
                         _homography_sq_residuals, _homography_sq_residuals_one,
-                        _homography_refit, _normalise_h, _homography_polish),
+                        homography_refit, normalise_h, homography_polish),
 }

@@ -4,7 +4,7 @@ import threading
 
 import pytest
 
-from stabilize.overlap import WriteBehind, read_ahead
+from stabilize.prefetch import WriteBehind, read_ahead
 
 
 def test_read_ahead_keeps_order_and_closes_its_source():

@@ -1,4 +1,4 @@
-"""Run the stages of a pass side by side: decode ahead of the warp, encode behind it.
+"""Prefetching: read items ahead and write them behind in threads, so decode, warp, encode overlap.
 
 ffmpeg decodes and encodes in processes of its own, and OpenCV's warps release the GIL, so a
 thread that keeps the next frames read and one that keeps the encoder fed let the three work
@@ -11,6 +11,8 @@ import queue
 import threading
 from collections.abc import Callable, Iterable, Iterator
 from typing import Any, TypeVar
+
+__all__ = ["WriteBehind", "read_ahead"]
 
 T = TypeVar("T")
 _DONE = object()
@@ -97,11 +99,13 @@ class WriteBehind:
                     self._error = exc
 
     def put(self, item: Any) -> None:
+        """Queue ``item`` for the sink; raises what the sink raised on an earlier item."""
         if self._error is not None:
             raise self._error
         self._q.put(item)
 
     def close(self) -> None:
+        """Wait until every queued item is written; raises what the sink raised."""
         self._q.put(_DONE)
         self._thread.join()
         if self._error is not None:

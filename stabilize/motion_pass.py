@@ -1,0 +1,315 @@
+"""One analysis pass: each frame tracked, checked for cuts, grouped and fitted; recent fits revised.
+
+A pass runs from a (re)start of the analysis: the tracker, overlay evidence, the previous
+motion (the prior), the texture reference and the baselines of track history are its own.
+"""
+
+from __future__ import annotations
+
+import math
+from collections import deque
+from dataclasses import dataclass
+
+import numpy as np
+
+from . import anchors
+from .anchors import BaselineSettings, hull_share
+from .config import Settings
+from .cuts import (
+    CutSettings,
+    collapsed,
+    corner_strength,
+    grey_histogram,
+    histogram_distance,
+    is_cut,
+    is_textureless,
+)
+from .frame_fit import corner_shift, fit_frame, refit
+from .geometry import rescale
+from .motion_models import MotionModel, transfer_error
+from .overlays import OverlayFinder
+from .track import Pairs, Tracker, TrackSettings, global_shift, to_full_resolution
+from .track_groups import band_overlay_tracks, group_tracks, in_mask, object_mask
+
+__all__ = ["REVISE_ATTEMPTS", "REVISE_GAIN", "REVISE_PX", "AnalysisPass", "FrameRecord",
+           "PassContext"]
+
+# A revised fit replaces the first one only when they differ by more than this much at the
+# frame's corners (full-resolution pixels): below it the revision is noise, and it was
+# fitted on fewer tracks. This project's choice.
+REVISE_PX = 0.05
+
+
+# ... and only when the tracks it keeps fit it with at most this share of the median
+# residual they had under the first fit (this project's choice).
+REVISE_GAIN = 0.7
+
+
+# A frame is refitted at most this many times while objects go on moving (cost).
+REVISE_ATTEMPTS = 8
+
+
+@dataclass
+class FrameRecord:
+    """One frame's outcome: its motion (3, 3) in full-resolution pixels, the diagnostics
+    (tracked, inliers, inlier ratio, RMS px, rounds), status and reason."""
+
+    matrix: np.ndarray
+    diag: tuple[int, int, float, float, int]
+    status: str
+    reason: str = ""
+
+
+@dataclass
+class _Recent:
+    """A recent frame's pairs, kept for a second (from the start of a pass, three) so its
+    fit can be revised when tracks it used turn out to have been moving on their own."""
+
+    index: int
+    time_s: float
+    src: np.ndarray
+    dst: np.ndarray
+    ids: np.ndarray
+    background: np.ndarray
+    used: np.ndarray
+    record: FrameRecord
+    attempts: int = 0
+
+
+@dataclass(frozen=True)
+class PassContext:
+    """What every pass of one analysis shares: the settings, the sizes (full resolution and
+    analysis copy, pixels) and the scale between them, the mask of ignored regions, and the
+    motion model."""
+
+    settings: Settings
+    scale: tuple[float, float]
+    cuts: CutSettings
+    baseline: BaselineSettings
+    full_size: tuple[int, int]
+    analysis_size: tuple[int, int]
+    track_settings: TrackSettings | None
+    user_mask: np.ndarray | None
+    model: MotionModel
+
+
+class AnalysisPass:
+    """The analysis state since its last (re)start: tracks, overlay evidence, the previous
+    motion, the texture reference and the baselines. :meth:`begin` takes the first frame;
+    :meth:`step` each next one."""
+
+    def __init__(self, ctx: PassContext) -> None:
+        self.ctx = ctx
+        self.tracker = Tracker(ctx.track_settings, ctx.user_mask)
+        self.overlays = OverlayFinder(ctx.analysis_size)
+        self.overlays_grew = False
+        self.prior: np.ndarray | None = None
+        self.texture_ref: float | None = None
+        self.steps = 0
+        self.prev_s = 0.0
+        self.started_at = 0
+        # Frames from this index on are this pass's own to revise (see _hindsight).
+        self.owned_from = 0
+        self.recent: deque[_Recent] = deque()
+        self.begin_s = 0.0
+        # Baseline slot times (seconds; NaN: not based yet) and the slot to re-base next.
+        self.slot_s = [math.nan, math.nan]
+
+    def begin(self, image: np.ndarray, time_s: float, index: int) -> None:
+        """Take the first frame (grey analysis copy) of this pass, at ``time_s`` seconds."""
+        self.tracker.step(image)
+        self.prev_s = time_s
+        self.begin_s = time_s
+        self.started_at = index
+        self.steps = 0
+
+    def _older_slot(self) -> int | None:
+        ready = [j for j in (0, 1) if math.isfinite(self.slot_s[j])]
+        if not ready:
+            return None
+        return min(ready, key=lambda j: self.slot_s[j])
+
+    def step(self, image: np.ndarray, time_s: float, index: int) -> FrameRecord:
+        """Track the next frame (grey analysis copy, frame ``index`` of the clip at
+        ``time_s`` seconds) and fit its motion."""
+        ctx = self.ctx
+        settings, scale, cuts_cfg = ctx.settings, ctx.scale, ctx.cuts
+        base = ctx.baseline
+        fw, fh = ctx.full_size
+        tracker = self.tracker
+        self.steps += 1
+        prev_s, self.prev_s = self.prev_s, time_s
+        predicted = None if self.prior is None else rescale(self.prior, scale)
+        if self.overlays_grew:
+            self.overlays_grew = False
+            tracker.set_mask(self.overlays.mask(ctx.user_mask))
+        pairs = tracker.step(image, predicted)
+        offered = tracker.live
+        strength = None
+        if self.steps % 15 == 1:
+            strength = corner_strength(image)
+            if self.texture_ref is None or not is_textureless(strength, self.texture_ref,
+                                                              cuts_cfg):
+                self.texture_ref = strength if self.texture_ref is None else (
+                    0.8 * self.texture_ref + 0.2 * strength)
+        if collapsed(len(pairs), offered, cuts_cfg):
+            response = None
+            if offered:
+                pairs, response = _restart_fast_motion(tracker, pairs)
+            if collapsed(len(pairs), offered, cuts_cfg) and is_cut(
+                    _frame_distance(tracker, cuts_cfg), response, cuts_cfg):
+                tracker.update(None)
+                tracker.reset()
+                self.prior = None
+                self.slot_s = [math.nan, math.nan]
+                return FrameRecord(np.eye(3), (len(pairs), 0, 0.0, 0.0, 0), "cut")
+        if len(pairs) < 0.3 * tracker.settings.max_corners:
+            strength = corner_strength(image) if strength is None else strength
+            if is_textureless(strength, self.texture_ref, cuts_cfg):
+                tracker.update(None)
+                self.prior = None
+                return FrameRecord(np.eye(3), (len(pairs), 0, 0.0, 0.0, 0), "failed",
+                               "textureless")
+        src = to_full_resolution(pairs.src, scale)
+        dst = to_full_resolution(pairs.dst, scale)
+        memo = anchors.first_seen(pairs.memo, prev_s)
+        seed = [settings.seed, index]
+        grouping = group_tracks(dst, memo, self._older_slot(), pairs.background,
+                                anchors.age_share(memo, time_s, base), model=ctx.model,
+                                settings=settings, base=base, seed=seed, frame_size=(fw, fh))
+        # Tracks that moved on their own, now or lately, do not speak for the camera.
+        suspect = ~anchors.trust(memo, time_s, base)
+        if grouping is not None:
+            suspect |= grouping.moved
+            memo = anchors.prove(memo, grouping.scene)
+        if grouping is not None and grouping.split:
+            slot = self._older_slot()
+            band = band_overlay_tracks(grouping, memo[:, 2 * slot:2 * slot + 2], dst, (fw, fh))
+            self.overlays_grew |= self.overlays.observe_band(pairs.src[band])
+        use = ~suspect
+        if suspect.any():
+            # Objects are about: tracks new to the picture wait until the scene's group
+            # takes them in, if enough of the scene is left without them.
+            sure = use & anchors.proven(memo)
+            if sure.sum() >= base.min_group and hull_share(dst[sure], (fw, fh)) >= 0.1:
+                use = sure
+        ambiguous = False
+        if suspect.any() and (use.sum() < base.min_group
+                              or hull_share(dst[use], (fw, fh)) < 0.02):
+            # What is left is too little to be the scene: camera and object cannot be told
+            # apart on this frame.
+            ambiguous = grouping is not None and grouping.split
+            use = np.ones(len(dst), bool)
+        fit = fit_frame(src[use], dst[use], pairs.background[use], model=ctx.model,
+                        settings=settings, seed=seed, prior=self.prior, frame_size=(fw, fh))
+        support = np.zeros(len(dst), bool)
+        support[np.flatnonzero(use)[fit.support]] = True
+        n_in = int(np.count_nonzero(transfer_error(fit.matrix, src, dst) < settings.inlier_px)
+                   ) if fit.ok else 0
+        d = (len(src), n_in, n_in / len(src) if len(src) else 0.0,
+             fit.rms_px if fit.ok else 0.0, fit.rounds)
+        if grouping is not None and grouping.split:
+            memo = anchors.strike(memo, grouping.moved, time_s)
+            slot = self._older_slot()
+            then = memo[grouping.moved, 2 * slot:2 * slot + 2]
+            where = np.concatenate([dst[grouping.moved], then[np.isfinite(then[:, 0])]])
+            self._hindsight(pairs.ids[grouping.scene], pairs.ids[grouping.moved],
+                            object_mask(where, (fw, fh)))
+        # Re-base a baseline slot every half baseline: the older one goes.
+        half = 0.5 * base.baseline_s
+        newest = max((s for s in self.slot_s if math.isfinite(s)), default=-math.inf)
+        if time_s - newest >= half or not math.isfinite(newest):
+            old = self._older_slot()
+            slot = old
+            if old is None:
+                slot = 0
+            elif not math.isfinite(self.slot_s[1 - old]):
+                slot = 1 - old
+            memo = anchors.rebase(memo, slot, dst)
+            self.slot_s[slot] = time_s
+        if not fit.ok:
+            self.prior = None
+            tracker.update(None, memo)
+            return FrameRecord(fit.matrix, d, "failed", "no_fit")
+        if ambiguous:
+            tracker.update(None, memo)
+            return FrameRecord(fit.matrix, d, "weak", "foreground")
+        self.prior = fit.matrix
+        tracker.update(support, memo)
+        if self.overlays.observe(pairs.src, pairs.dst, rescale(fit.matrix, scale)):
+            tracker.set_mask(self.overlays.mask(ctx.user_mask))
+        record = FrameRecord(fit.matrix, d, "weak" if fit.weak else "ok",
+                         "few_inliers" if fit.weak else "")
+        self.recent.append(_Recent(index, time_s, src, dst, pairs.ids, pairs.background,
+                                   use, record))
+        # The last second's fits are kept for revision; over the first three seconds of a
+        # pass, all of them (its first frames have no baseline at all).
+        if time_s - self.begin_s > 6.0 * base.baseline_s:
+            while self.recent and self.recent[0].time_s < time_s - 2.0 * base.baseline_s:
+                self.recent.popleft()
+        return record
+
+    def _hindsight(self, scene_ids: np.ndarray, moved_ids: np.ndarray,
+                   region: np.ndarray) -> None:
+        """Fit again, on the tracks now known to be the scene (``scene_ids``) alone, the
+        recent frames that used tracks now found to move on their own, or tracks inside the
+        region the moving group covered (``region``, from :func:`object_mask`: tracks on an
+        object are lost and found again under new names).
+
+        An object that starts to move drags the first frames' fits a little before its
+        motion over the baseline gives it away; those frames are refitted without it.
+        """
+        ctx = self.ctx
+        base = ctx.baseline
+        fw, fh = ctx.full_size
+        settings = ctx.settings
+        for r in self.recent:
+            if r.index < self.owned_from or r.record.status != "ok":
+                continue
+            hit = r.used & (np.isin(r.ids, moved_ids) | in_mask(region, r.dst))
+            # A few tracks more or less hardly move a fit; and a frame is refitted a few times
+            # at most while the same object goes on moving.
+            if hit.sum() < max(3, 0.05 * r.used.sum()) or r.attempts >= REVISE_ATTEMPTS:
+                continue
+            r.attempts += 1
+            keep = r.used & ~hit & np.isin(r.ids, scene_ids)
+            if keep.sum() < base.min_group or hull_share(r.dst[keep], (fw, fh)) < 0.02:
+                continue
+            fit = refit(r.src[keep], r.dst[keep], model=ctx.model, settings=settings,
+                        seed=[settings.seed, r.index, 1], prior=r.record.matrix,
+                        frame_size=(fw, fh))
+            # A slow object drags a fit by a fraction of the threshold; a faster one was
+            # parted from the scene by the frame's own consensus already.
+            shift = corner_shift(fit.matrix, r.record.matrix, (fw, fh))
+            if not fit.ok or fit.weak or not REVISE_PX < shift <= 2.0 * settings.inlier_px:
+                continue
+            # The tracks kept must fit the revision clearly better than the first fit (which
+            # a moving object dragged away from them); otherwise what is left is another
+            # motion of its own, not the scene.
+            before = np.median(transfer_error(r.record.matrix, r.src[keep], r.dst[keep]))
+            after = np.median(transfer_error(fit.matrix, r.src[keep], r.dst[keep]))
+            if after <= REVISE_GAIN * before:
+                r.record.matrix = fit.matrix
+                r.used = keep
+
+
+def _frame_distance(tracker: Tracker, cfg: CutSettings) -> float:
+    """Histogram distance between the tracker's previous and current frames (only needed
+    when tracking collapsed, so not worked out for every frame)."""
+    prev, cur = tracker.frames
+    return histogram_distance(grey_histogram(prev, cfg.bins), grey_histogram(cur, cfg.bins))
+
+
+def _restart_fast_motion(tracker: Tracker, pairs: Pairs) -> tuple[Pairs, float]:
+    """Most tracks were lost: guess the whole-frame shift by phase correlation and track
+    again from there, keeping whichever attempt kept more tracks. Also returns the phase
+    correlation's peak response (near 0 when the two frames share no picture)."""
+    prev, cur = tracker.frames
+    dx, dy, response = global_shift(prev, cur)
+    if response < 0.05:
+        return pairs, response
+    guess = np.array([[1.0, 0.0, dx], [0.0, 1.0, dy], [0.0, 0.0, 1.0]])
+    again = tracker.retry(guess)
+    if len(again) >= len(pairs):
+        return again, response
+    return tracker.retry(None), response

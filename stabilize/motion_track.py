@@ -1,0 +1,113 @@
+"""The per-frame motion record of an analysis, why frames are weak or failed, and stand-ins."""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .geometry import frame_centre, from_similarity, to_similarity
+
+__all__ = ["LOG_COLUMNS", "MotionTrack", "REASONS", "fill_failed", "stand_ins"]
+
+#: Why a frame is weak or failed, as listed in the log's JSON (``frame_reasons``).
+REASONS = {
+    "foreground": "the motion could not be told apart from an object moving in front of the "
+                  "scene; the frame's motion is a stand-in from its neighbours",
+    "few_inliers": "few inliers, or inliers bunched in a small part of the frame",
+    "textureless": "too little texture to measure motion (plain sky, water, fog, blur)",
+    "no_fit": "no trustworthy motion fit",
+    "unmeasurable": "the frame is too small to track",
+}
+
+#: The per-frame arrays of :class:`MotionTrack` that the motion log takes over as they are.
+LOG_COLUMNS = ("time_s", "matrices", "tracked", "inliers", "inlier_ratio", "rms_px", "rounds",
+               "status")
+# Shapes and dtypes of those arrays for no frames at all.
+_EMPTY = {"time_s": (0, float), "matrices": ((0, 3, 3), float), "tracked": (0, int),
+          "inliers": (0, int), "inlier_ratio": (0, float), "rms_px": (0, float),
+          "rounds": (0, int), "status": (0, "<U6")}
+
+
+@dataclass
+class MotionTrack:
+    """Per-frame arrays of one analysis pass (see :class:`stabilize.log.MotionLog`), what
+    was left out of tracking (``excluded``: full-resolution (x, y, w, h) rectangles), and why
+    a frame is weak or failed (``reason``: '' or a short code, see :data:`REASONS`).
+
+    Attributes
+    ----------
+    time_s : (n,) float, seconds. matrices : (n, 3, 3) inter-frame transforms ``H_t``,
+        full-resolution pixels. tracked, inliers, rounds : (n,) int. inlier_ratio : (n,).
+    rms_px : (n,) inlier residual RMS, full-resolution pixels. status : (n,) ``<U6``
+        (``ok``, ``weak``, ``failed``, ``cut``). reason : (n,) ``<U12`` or None.
+    """
+
+    time_s: np.ndarray
+    matrices: np.ndarray
+    tracked: np.ndarray
+    inliers: np.ndarray
+    inlier_ratio: np.ndarray
+    rms_px: np.ndarray
+    rounds: np.ndarray
+    status: np.ndarray
+    excluded: dict[str, list[list[int]]] = field(default_factory=dict)
+    reason: np.ndarray | None = None
+
+    def log_columns(self) -> dict[str, np.ndarray]:
+        """The per-frame arrays the motion log takes over as they are, by column name."""
+        return {name: getattr(self, name) for name in LOG_COLUMNS}
+
+    def select(self, frames: slice) -> MotionTrack:
+        """The frames in ``frames`` of every per-frame array; the same excluded regions."""
+        return MotionTrack(**{k: v[frames] for k, v in self.log_columns().items()},
+                           excluded=self.excluded,
+                           reason=None if self.reason is None else self.reason[frames])
+
+    @classmethod
+    def concatenate(cls, parts: Sequence[MotionTrack],
+                    excluded: dict[str, list[list[int]]]) -> MotionTrack:
+        """The per-frame arrays of ``parts`` one after the other (no reasons: ''), with the
+        excluded regions given; empty arrays of the right shapes and dtypes for no parts."""
+        if not parts:
+            return cls(**{k: np.empty(shape, dtype) for k, (shape, dtype) in _EMPTY.items()},
+                       excluded=excluded, reason=np.empty(0, "<U12"))
+        return cls(**{k: np.concatenate([getattr(p, k) for p in parts]) for k in LOG_COLUMNS},
+                   excluded=excluded,
+                   reason=np.concatenate([p.reason if p.reason is not None
+                                          else np.full(len(p.status), "", "<U12")
+                                          for p in parts]))
+
+
+def stand_ins(status: np.ndarray, reason: np.ndarray | None) -> np.ndarray:
+    """Frames whose logged motion is a stand-in: failed ones, and weak ones whose motion
+    could not be told apart from an object's."""
+    out = status == "failed"
+    if reason is not None:
+        out = out | (reason == "foreground")
+    return out
+
+
+def fill_failed(matrices: np.ndarray, status: np.ndarray, size: tuple[int, int],
+                stand_in: np.ndarray | None = None) -> np.ndarray:
+    """Stand-ins for failed frames (or the frames marked in ``stand_in``): the similarity
+    motion interpolated linearly between the nearest trustworthy neighbours (or the identity
+    with none), never a wild jump."""
+    failed = (status == "failed") if stand_in is None else np.array(stand_in, bool)
+    failed[0] = False
+    if not failed.any():
+        return matrices
+    good = np.flatnonzero(~failed & (status != "cut"))
+    good = good[good > 0]
+    out = matrices.copy()
+    idx = np.flatnonzero(failed)
+    if len(good) == 0:
+        out[idx] = np.eye(3)
+        return out
+    centre = frame_centre(*size)
+    q = to_similarity(matrices[good], centre)
+    q[:, 2] = np.angle(np.exp(1j * q[:, 2]))
+    stand_in = np.stack([np.interp(idx, good, q[:, j]) for j in range(4)], axis=1)
+    out[idx] = from_similarity(stand_in, centre)
+    return out
