@@ -14,7 +14,8 @@ then applies both, so the frame is resampled once.
 
 The map is computed exactly on a grid every ``step`` px and enlarged by ``cv2.resize``
 (bilinear, float weights): the map is a homography plus a smooth function of the row, so the
-enlargement errs by hundredths of a pixel at most (curvature × step² / 8), and the grid
+enlargement errs by curvature × step² / 8 at most; the step is chosen per frame from the
+displacement's curvature to keep that under a few thousandths of a pixel, and the grid
 reaches half a step beyond every edge so nothing is extrapolated. A planar YUV frame's
 chroma maps come from the same computation in the plane's own pixels, the correction and the
 row displacements carried there by :func:`stabilize.geometry.rescale`'s convention
@@ -67,12 +68,20 @@ def row_shift_at(rows_px: np.ndarray, shift_px: np.ndarray, y: np.ndarray, *,
     return out + below * lo_slope + above * hi_slope
 
 
-def _row_table(rows_px: np.ndarray, shift_px: np.ndarray) -> tuple[float, np.ndarray]:
-    """The displacement every whole row from the first sampled row: (first row, (n, 2))."""
+_TABLE_PAD = 32
+
+
+def _row_table(rows_px: np.ndarray, shift_px: np.ndarray) -> tuple[float, np.ndarray, float]:
+    """The displacement every whole row from a little above the first sampled row to a little
+    below the last: (first row, (n, 2) px, the largest second difference between sampled
+    rows in px per row²)."""
     r = np.asarray(rows_px, dtype=np.float64)
-    lo = float(np.floor(r[0])) - 32.0
-    grid = lo + np.arange(int(np.ceil(r[-1] - lo)) + 34, dtype=np.float64)
-    return lo, row_shift_at(r, shift_px, grid)
+    lo = float(np.floor(r[0])) - _TABLE_PAD
+    grid = lo + np.arange(int(np.ceil(r[-1] - lo)) + _TABLE_PAD + 2, dtype=np.float64)
+    table = row_shift_at(r, shift_px, grid)
+    inner = table[_TABLE_PAD:len(table) - _TABLE_PAD - 1]
+    curvature = float(np.abs(np.diff(inner, 2, axis=0)).max()) if len(inner) > 2 else 0.0
+    return lo, table, curvature
 
 
 def _lookup(lo: float, table: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -84,17 +93,27 @@ def _lookup(lo: float, table: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np
             table[i, 1] * (1.0 - f) + table[i + 1, 1] * f)
 
 
+def _grid_step(curvature: float, tolerance_px: float, largest: int) -> int:
+    """The coarsest grid step whose bilinear enlargement errs by at most ``tolerance_px``:
+    linear interpolation over a step s errs by at most curvature · s² / 8. The map's
+    homography part is smooth on a far larger scale (perspective terms of a correction are
+    tiny)."""
+    if curvature <= 0:
+        return largest
+    return int(np.clip(np.floor(np.sqrt(8.0 * tolerance_px / curvature)), 1, largest))
+
+
 def _source_of(correction: np.ndarray, x: np.ndarray, y: np.ndarray,
-               rows_px: np.ndarray | None, shift_px: np.ndarray | None,
+               row_table: tuple[float, np.ndarray, float] | None,
                iterations: int) -> tuple[np.ndarray, np.ndarray]:
     """Source pixel (vx, vy) of output pixels (x, y) (broadcast), float64."""
     inv = np.linalg.inv(np.asarray(correction, dtype=np.float64))
     den = inv[2, 0] * x + inv[2, 1] * y + inv[2, 2]
     ux = (inv[0, 0] * x + inv[0, 1] * y + inv[0, 2]) / den
     uy = (inv[1, 0] * x + inv[1, 1] * y + inv[1, 2]) / den
-    if rows_px is None or shift_px is None or len(rows_px) < 2:
+    if row_table is None:
         return ux, uy
-    lo, table = _row_table(rows_px, shift_px)
+    lo, table, _ = row_table
     vx, vy = ux, uy
     for _ in range(max(1, iterations)):
         wx, wy = _lookup(lo, table, vy)
@@ -111,13 +130,14 @@ def plain_maps(correction: np.ndarray, out_size: tuple[int, int]) -> np.ndarray:
     w, h = out_size
     x = np.arange(w, dtype=np.float64)[None, :]
     y = np.arange(h, dtype=np.float64)[:, None]
-    vx, vy = _source_of(correction, x, y, None, None, 1)
+    vx, vy = _source_of(correction, x, y, None, 1)
     return np.stack(np.broadcast_arrays(vx, vy), axis=-1).astype(np.float32)
 
 
 def row_warp_maps(correction: np.ndarray, rows_px: np.ndarray | None,
                   shift_px: np.ndarray | None, out_size: tuple[int, int], *,
-                  step: int = 8, iterations: int = 2) -> np.ndarray:
+                  step: int | None = None, tolerance_px: float = 0.004,
+                  iterations: int = 2) -> np.ndarray:
     """Maps for one ``cv2.remap`` undoing the within-frame displacement, then the correction.
 
     Parameters
@@ -129,7 +149,9 @@ def row_warp_maps(correction: np.ndarray, rows_px: np.ndarray | None,
         (:class:`stabilize.row_motion.RowMotion` gives it per frame).
     out_size : (width, height) of the output (px).
     step : the map is computed exactly every ``step`` output pixels and enlarged bilinearly
-        (1: exact at every pixel, slower).
+        (1: exact at every pixel, slower). None: the coarsest step up to 16 px whose
+        enlargement errs by at most ``tolerance_px`` for this frame's displacement.
+    tolerance_px : see ``step`` (px).
     iterations : fixed-point rounds for the source row.
 
     Returns
@@ -138,11 +160,16 @@ def row_warp_maps(correction: np.ndarray, rows_px: np.ndarray | None,
     ``cv2.remap(src, maps, None, ...)``. It may be a view of a slightly larger array.
     """
     w, h = int(out_size[0]), int(out_size[1])
-    s = max(1, int(step))
+    table = (None if rows_px is None or shift_px is None or len(rows_px) < 2
+             else _row_table(rows_px, shift_px))
+    if step is not None:
+        s = max(1, int(step))
+    else:
+        s = _grid_step(0.0 if table is None else table[2], tolerance_px, 16)
     if s == 1:
         x = np.arange(w, dtype=np.float64)[None, :]
         y = np.arange(h, dtype=np.float64)[:, None]
-        vx, vy = _source_of(correction, x, y, rows_px, shift_px, iterations)
+        vx, vy = _source_of(correction, x, y, table, iterations)
         return np.stack(np.broadcast_arrays(vx, vy), axis=-1).astype(np.float32)
     # cv2.resize by a whole factor s reads output pixel i at grid position (i + 0.5)/s − 0.5;
     # grid node j therefore sits at full-resolution (j + 0.5)·s − 0.5 − a once the result is
@@ -152,7 +179,7 @@ def row_warp_maps(correction: np.ndarray, rows_px: np.ndarray | None,
     ny = (h + a) // s + 2
     x = ((np.arange(nx) + 0.5) * s - 0.5 - a)[None, :]
     y = ((np.arange(ny) + 0.5) * s - 0.5 - a)[:, None]
-    vx, vy = _source_of(correction, x, y, rows_px, shift_px, iterations)
+    vx, vy = _source_of(correction, x, y, table, iterations)
     coarse = np.empty((ny, nx, 2), np.float32)
     coarse[..., 0] = vx
     coarse[..., 1] = vy
@@ -162,8 +189,8 @@ def row_warp_maps(correction: np.ndarray, rows_px: np.ndarray | None,
 
 def plane_maps(correction: np.ndarray, rows_px: np.ndarray | None,
                shift_px: np.ndarray | None, plane_sizes: Sequence[tuple[int, int]],
-               subsampling: tuple[int, int], *, step: int = 8,
-               iterations: int = 2) -> list[np.ndarray]:
+               subsampling: tuple[int, int], *, step: int | None = None,
+               tolerance_px: float = 0.004, iterations: int = 2) -> list[np.ndarray]:
     """:func:`row_warp_maps` for each plane of a planar YUV frame.
 
     Parameters
@@ -171,7 +198,8 @@ def plane_maps(correction: np.ndarray, rows_px: np.ndarray | None,
     correction, rows_px, shift_px : in luma pixels, as in :func:`row_warp_maps`.
     plane_sizes : (width, height) of each output plane, luma first.
     subsampling : (sub_x, sub_y) of the chroma planes (2, 2 for 4:2:0; 1, 1 for 4:4:4).
-    step, iterations : as in :func:`row_warp_maps`, in each plane's own pixels.
+    step, tolerance_px, iterations : as in :func:`row_warp_maps`, in each plane's own
+        pixels.
 
     Returns
     -------
@@ -193,7 +221,8 @@ def plane_maps(correction: np.ndarray, rows_px: np.ndarray | None,
     out = []
     for k, size in enumerate(plane_sizes):
         cm, r, sh = (correction, rows_px, shift_px) if k == 0 else chroma
-        out.append(row_warp_maps(cm, r, sh, size, step=step, iterations=iterations))
+        out.append(row_warp_maps(cm, r, sh, size, step=step, tolerance_px=tolerance_px,
+                                 iterations=iterations))
     return out
 
 
