@@ -43,6 +43,15 @@ The clip is solved in overlapping windows of ``window_frames`` frames; each wind
 frames away from its ends (``margin_frames`` on each side), so one solve touches a fixed
 number of samples and spline coefficients however long the clip. :func:`within_frame_motion`
 takes a ``frames`` selection, so a render pass can ask for a chunk at a time.
+
+Limits
+------
+The readout must be right: with a readout assumed where there is none (a global shutter),
+the smooth frame-to-frame motion is read as a within-frame shear of velocity × readout error
+(:func:`stabilize.vibration.estimate_readout` reports when no readout is observable; then
+pass 0). Vibration within a few Hz of a multiple of the frame rate repeats in every frame
+and is not recovered (the blind spots of :mod:`stabilize.vibration`). Only translation per
+row is modelled: in-plane rotation within the readout (a row-dependent rotation) is left.
 """
 
 from __future__ import annotations
@@ -55,6 +64,7 @@ __all__ = [
     "RowMotion",
     "RowMotionSettings",
     "fit_path_window",
+    "path_at",
     "within_frame_motion",
 ]
 
@@ -90,7 +100,8 @@ class RowMotion:
     convention of :mod:`stabilize.geometry`); ``shift_px`` (n, r, 2) ``w_t(y)`` (dx, dy) px:
     where the content of row ``y`` sits minus where it would sit at the reference instant
     (0 at ``ref_row_px``); ``readout_s`` the readout the samples were timed with (s).
-    Rows between samples are interpolated linearly (:func:`stabilize.row_warp.row_shift_at`).
+    Rows between samples are interpolated by a cubic spline
+    (:func:`stabilize.row_warp.row_shift_at`).
     """
 
     frames: np.ndarray
@@ -226,7 +237,8 @@ def within_frame_motion(frame_index: np.ndarray, row_px: np.ndarray, diff_px: np
     height : frame height (px).
     readout_s : first-to-last-row readout time (s); 0 (a global shutter) gives ``w = 0``.
     band_s : exposure-time span of one band sample (s): band height × readout / height.
-    weight : (m,) sample weights, e.g. the band support (default 1).
+    weight : (m,) relative sample weights, e.g. the band support (default 1); rescaled to a
+        mean of 1 over the clip, so the roughness penalty keeps its meaning.
     rows_px : (r,) rows at which to report ``w`` (default 33 rows from 0 to height − 1).
     ref_row_px : reference row (default the middle row, (height − 1) / 2).
     frames : (n,) frames wanted (default every frame from one before the first sample to the
@@ -242,6 +254,8 @@ def within_frame_motion(frame_index: np.ndarray, row_px: np.ndarray, diff_px: np
     rows = np.asarray(row_px, dtype=np.float64)
     d = np.asarray(diff_px, dtype=np.float64).reshape(len(fi), 2)
     wt = np.ones(len(fi)) if weight is None else np.asarray(weight, dtype=np.float64)
+    good = np.isfinite(wt) & (wt > 0)
+    wt = wt / (float(wt[good].mean()) if good.any() else 1.0)
     out_rows = (np.linspace(0.0, height - 1.0, 33) if rows_px is None
                 else np.asarray(rows_px, dtype=np.float64))
     ref = (height - 1) / 2.0 if ref_row_px is None else float(ref_row_px)
