@@ -87,7 +87,7 @@ REASONS = {
 
 @dataclass
 class MotionTrack:
-    """Per-frame arrays of one analysis pass (see :class:`stabilize.log.MotionLog`), what
+    """Per-frame arrays of one analysis pass (see :class:`stabilize.motion_log.MotionLog`), what
     was left out of tracking (``excluded``: full-resolution (x, y, w, h) rectangles), and why
     a frame is weak or failed (``reason``: '' or a short code, see :data:`REASONS`)."""
 

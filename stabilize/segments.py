@@ -22,7 +22,7 @@ never fork: the parent may hold threads and ffmpeg pipes), a Dask ``LocalCluster
 (``scheduler="local"``) or an existing Dask cluster (``scheduler="tcp://host:port"``), whose
 workers must see the same paths and have stabilize installed. A worker is one core: OpenCV
 runs single-threaded in it, so ``workers=1`` is one single-threaded pass (in this process)
-and ``workers=N`` asks for N cores. Without workers, :func:`stabilize.pipeline.measure` runs
+and ``workers=N`` asks for N cores. Without workers, :func:`stabilize.measure` runs
 one pass that spreads its tracking over every core through OpenCV's own threads.
 """
 

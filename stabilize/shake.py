@@ -23,7 +23,7 @@ import math
 import numpy as np
 
 from .geometry import frame_centre, from_similarity, similarity_readout
-from .path import accumulate, segments
+from .raw_path import accumulate, segments
 
 
 def _signal():

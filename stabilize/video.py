@@ -338,7 +338,7 @@ class PlanarImage:
     each row by row. ``y``, ``u``, ``v`` are 2-D (rows, columns) views into it, never copies;
     ``y`` is (height, width), ``u`` and ``v`` are :func:`plane_sizes` (height and width divided
     by the subsampling of :data:`YUV_FORMATS`, rounded up). Pixel coordinates follow the
-    convention of :mod:`stabilize.log` in each plane's own pixels. Frames decoded by
+    convention of :mod:`stabilize.motion_log` in each plane's own pixels. Frames decoded by
     :func:`iter_frames` are limited range: Y 16–235, U and V 16–240 with 128 neutral.
     """
 

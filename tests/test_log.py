@@ -7,9 +7,10 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
+from stabilize import read_log
 from stabilize.errors import StabilizeError
 from stabilize.geometry import frame_centre, similarity_readout
-from stabilize.log import BASE_COLUMNS, COLUMNS, MotionLog, read_log
+from stabilize.motion_log import BASE_COLUMNS, COLUMNS, MotionLog
 
 
 def _log(n=6, with_corrections=True):

@@ -17,8 +17,9 @@ from stabilize import shake
 from stabilize.config import Settings
 from stabilize.errors import StabilizeError
 from stabilize.geometry import frame_centre, from_similarity
-from stabilize.log import MotionLog
-from stabilize.report import make_report, report_name
+from stabilize.jobs import make_report
+from stabilize.jobs.outputs import log_name as report_name
+from stabilize.motion_log import MotionLog
 
 from .conftest import noise_frames, write_clip
 
@@ -102,7 +103,7 @@ def test_existing_outputs_are_kept_without_force(sine_report):
     log, _ = sine_report
     out = log.parent / "out"
     before = (out / "sine pass.report.html").stat().st_mtime_ns
-    with pytest.raises(StabilizeError, match="already exists.*--force"):
+    with pytest.raises(StabilizeError, match="already exists.*force"):
         make_report(log, out)
     assert (out / "sine pass.report.html").stat().st_mtime_ns == before
     wide = json.loads((out / "sine pass.shake.json").read_text())["summary"]

@@ -196,7 +196,7 @@ def test_summary_out_figures_come_from_the_measured_output():
     sway = 2.0 * np.sin(2 * np.pi * 2.5 * t)
     matrices = np.stack([_similarity(d, 0.0, 0.0, c) for d in np.diff(sway, prepend=0.0)])
     status = np.full(n, "ok")
-    from stabilize.path import accumulate
+    from stabilize.raw_path import accumulate
 
     path = accumulate(matrices)
     corrections = np.linalg.inv(path)      # a plan that removes everything

@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 
 from stabilize import segments
-from stabilize.pipeline import measure
+from stabilize.jobs import measure
 from stabilize.video import iter_frame_range, iter_frames, probe
 
 from .conftest import noise_frames, write_clip

@@ -13,7 +13,7 @@ import cv2
 import numpy as np
 from scipy.ndimage import median_filter
 
-from stabilize.log import MotionLog
+from stabilize.motion_log import MotionLog
 from stabilize.video import iter_frames
 
 __all__ = ["apply_homography", "path_excursion_px", "real_rate_hz", "region_drift_px",
