@@ -13,14 +13,13 @@ import re
 import signal
 import sys
 import threading
-from collections.abc import Callable
 from typing import Any
 
 from .config import CODECS, FILLS, MODELS, OPTION_NAMES, SMOOTHERS, resolve_settings
 from .errors import StabilizeError
 from .files import remove_temporaries
 from .jobs import make_report, measure_to_file, render, run_batch, run_demo, steady
-from .report_page import fmt_sig
+from .report_page import dominant_text, fmt_sig
 from .version import __version__
 from .video import stop_children
 
@@ -217,7 +216,7 @@ def _print_summary(summary: dict) -> None:
         angle = "" if axis == "rot" else cell(summary.get(f"jitter_rms_{axis}_deg"), "deg")
         rows.append((label, cell(summary.get(f"jitter_rms_{axis}_{unit}"), unit), angle,
                      cell(summary.get(f"jitter_p2p_{axis}_{unit}"), unit),
-                     _dominant_cell(summary, axis, cell)))
+                     dominant_text(summary, axis, lambda hz: cell(hz, "Hz"))))
     widths = [max(len(r[k]) for r in rows) for k in range(5)]
     for r in rows:
         print("  ".join([r[0].ljust(widths[0])] + [c.rjust(w) for c, w in
@@ -233,16 +232,6 @@ def _print_summary(summary: dict) -> None:
         print(f"verdict: {summary['trust']}")
         for reason in summary.get("trust_reasons") or []:
             print(f"  - {reason}")
-
-
-def _dominant_cell(summary: dict, axis: str, cell: Callable[[Any, str], str]) -> str:
-    """The dominant frequency, or "no clear peak" when the shake was measured but no peak
-    stood out of its spectrum's background."""
-    hz = summary.get(f"dominant_hz_{axis}")
-    unit = "deg" if axis == "rot" else "px"
-    if hz is None and summary.get(f"jitter_rms_{axis}_{unit}") is not None:
-        return "no clear peak"
-    return cell(hz, "Hz")
 
 
 def run(args: argparse.Namespace) -> int:

@@ -8,12 +8,15 @@ from __future__ import annotations
 
 import base64
 import math
+from collections.abc import Callable
 from html import escape
 from typing import Any
 
 from . import shake
 
-__all__ = ["CAUTIONS", "PAGE_CSS", "fmt_sig", "html_page", "html_table", "render_page"]
+__all__ = [
+    "CAUTIONS", "PAGE_CSS", "dominant_text", "fmt_sig", "html_page", "html_table", "render_page",
+]
 
 #: Cautions shown on every report page, in plain words (from the README's Cautions section).
 CAUTIONS: tuple[str, ...] = (
@@ -132,14 +135,20 @@ def _hz(v: Any, resolution_hz: Any) -> str:
     return f"{v:.{decimals}f}\u00a0Hz"
 
 
-def _dominant(s: dict[str, Any], axis: str, suffix: str = "") -> str:
-    """The dominant shake frequency of one axis, or "no clear peak" when the shake was
-    measured but no peak stood out of its spectrum's background."""
+def dominant_text(s: dict[str, Any], axis: str, fmt: Callable[[Any], str],
+                  suffix: str = "") -> str:
+    """The dominant shake frequency of one axis (``x``, ``y``, ``rot``) of a summary, written
+    by ``fmt``, or "no clear peak" when the shake was measured but no peak stood out of its
+    spectrum's background."""
     v = s.get(f"dominant_hz_{axis}{suffix}")
     unit = shake.axis_unit(axis)
     if v is None and s.get(f"jitter_rms_{axis}_{unit}{suffix}") is not None:
         return "no clear peak"
-    return _hz(v, s.get("spectrum_resolution_hz"))
+    return fmt(v)
+
+
+def _dominant(s: dict[str, Any], axis: str) -> str:
+    return dominant_text(s, axis, lambda v: _hz(v, s.get("spectrum_resolution_hz")))
 
 
 def _share(count: Any, total: Any) -> str:

@@ -90,6 +90,16 @@ def test_steady_keeps_audio_frames_fps_and_size(truss, tmp_path):
     assert s["jitter_rms_x_px_out"] < 0.2 * s["jitter_rms_x_px"]
     assert sorted(p.name for p in out.parent.iterdir()) == [
         "steadied.mp4", "truss pass.motion.csv", "truss pass.motion.json"]
+    # The log returned is the one written, assembled once in memory: reading it back gives
+    # the same arrays and the same JSON.
+    back = read_log(out.parent / "truss pass.motion.csv")
+    for name in ("matrices", "corrections", "smooth_values", "time_s", "rms_px"):
+        np.testing.assert_array_equal(getattr(log, name), getattr(back, name))
+    np.testing.assert_array_equal(log.output_check, back.output_check)
+    assert log.to_csv() == back.to_csv()
+    assert log.extra["outputs"] == {"video": str(out),
+                                    "log_csv": str(out.parent / "truss pass.motion.csv"),
+                                    "log_json": str(out.parent / "truss pass.motion.json")}
 
 
 def test_steady_keeps_the_sources_colour_tags_and_pixel_shape(truss, tmp_path):

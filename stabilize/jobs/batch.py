@@ -34,7 +34,7 @@ from ..config import Settings, setting_label
 from ..errors import StabilizeError
 from ..files import all_or_nothing, write_text_atomic
 from ..io.motion_log_files import save_log
-from ..report_page import fmt_sig, html_page, html_table
+from ..report_page import dominant_text, fmt_sig, html_page, html_table
 from ..segments import default_workers, parallel_map
 from ..version import __version__
 from .analysis import measure_clip
@@ -365,13 +365,6 @@ def _verdict_cell(row: dict[str, Any]) -> str:
            f"</span>{more}"
 
 
-def _dominant_text(summary: dict[str, Any], axis: str, fmt: Callable[[Any], str]) -> str:
-    hz = summary.get(f"dominant_hz_{axis}")
-    if hz is None and summary.get(f"jitter_rms_{axis}_px") is not None:
-        return "no clear peak"
-    return fmt(hz)
-
-
 def summary_html(results: list[ClipResult], out_dir: Path) -> str:
     """One self-contained page (no scripts, no network), in the report pages' look: a table of
     every clip with its figures and links to its report, video and log (relative, so the
@@ -390,7 +383,7 @@ def summary_html(results: list[ClipResult], out_dir: Path) -> str:
         cells = [esc(r.clip), esc(r.status), esc(str(row["frames"])), _verdict_cell(row)]
         cells += [esc(fmt_sig(r.summary.get(k))) for k in
                   ("jitter_rms_x_px", "jitter_rms_y_px", "jitter_rms_rot_deg")]
-        cells += [esc(_dominant_text(r.summary, axis, fmt_sig)) for axis in ("x", "y")]
+        cells += [esc(dominant_text(r.summary, axis, fmt_sig)) for axis in ("x", "y")]
         cells += [esc(str(row["frames_weak"])), esc(str(row["frames_failed"])), detail]
         rows.append(cells)
         classes.append(r.status)
