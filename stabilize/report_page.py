@@ -28,7 +28,7 @@ CAUTIONS: tuple[str, ...] = (
     "Shake figures describe the camera as the frames sample it. Vibration faster than half "
     "the frame rate (propellers, motors: often tens to hundreds of hertz) cannot be measured "
     "from video; it shows up at a false lower frequency or only as blur.",
-    "Figures in degrees are only as right as the field of view (--fov-deg) given.",
+    "Figures in degrees are only as right as the field of view (setting fov_deg) given.",
     "Frames marked weak or failed were measured poorly or not at all; the more of them, the "
     "less certain every figure here.",
     "Flying is governed by local aviation rules. Nothing here changes what you may fly, "
@@ -368,7 +368,8 @@ def render_page(*, name: str, source: dict[str, Any], summary: dict[str, Any], n
            + (f" — figures from {log_name}" if log_name else ""))
     x_deg = s.get("jitter_rms_x_deg")
     fov = settings.get("fov_deg")
-    fov_text = ("No field of view was given (--fov-deg), so there are no figures in degrees."
+    fov_text = ("No field of view was given (setting fov_deg), so there are no figures in "
+                "degrees."
                 if fov is None else
                 f"Figures in degrees use the horizontal field of view of {fmt_sig(fov)} deg.")
     uncertain = (s.get("frames_weak_share") or 0.0) + (s.get("frames_failed_share") or 0.0)

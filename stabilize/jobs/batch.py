@@ -3,15 +3,16 @@
 Every video under a folder (or matching a glob) is steadied or measured, with its report; a
 summary CSV and an HTML page link each clip's report.
 
-Outputs mirror the input tree under ``--out-dir``: ``ROOT/a/b/flight.mp4`` gives
+Outputs mirror the input tree under the output folder: ``ROOT/a/b/flight.mp4`` gives
 ``OUT/a/b/flight.steady.mp4``, ``flight.motion.csv`` / ``.json`` and the report files, so clips
 of equal names in different folders never collide; clips of equal names in the same folder
 (``flight.mp4``, ``flight.mov``) keep their extension in NAME (``flight.mov.steady.mp4``).
 
 A clip is done when its motion log JSON records the source's size and modification time
-(``source.size_bytes``, ``source.mtime_ns``, written last, after every other output), the
-same kind of job (``batch.job``) and the same settings, and every output is there. Such a clip
-is skipped; ``force`` redoes it. One clip's failure never stops the others.
+(``source.size_bytes``, ``source.mtime_ns``), the same kind of job (``batch.job``) and the
+same settings, and every output is there. A clip's outputs (video, log, report) are published
+together, so a log that records the source never stands without the rest. Such a clip is
+skipped; ``force`` redoes it. One clip's failure never stops the others.
 """
 
 from __future__ import annotations
