@@ -125,11 +125,6 @@ class MotionLog:
         return frame_centre(*self.size)
 
     @property
-    def cuts(self) -> np.ndarray:
-        """(frames,) bool, frames whose status is ``cut``."""
-        return self.status == "cut"
-
-    @property
     def path(self) -> np.ndarray:
         """Raw camera path P_t, (frames, 3, 3), restarting at scene cuts."""
         return accumulate(self.matrices, self.status == "cut")
