@@ -8,12 +8,12 @@ The Python API mirrors the command line::
     stabilize.steady("flight.mp4", "flight.steady.mp4", margin=0.1)
 """
 
-__version__ = "0.1.0"
-
-from .config import Settings  # noqa: E402
-from .errors import StabilizeError  # noqa: E402
-from .log import MotionLog, read_log  # noqa: E402
-from .pipeline import measure, render, steady  # noqa: E402
+from .config import Settings
+from .errors import StabilizeError
+from .io.motion_log_files import read_log
+from .jobs import measure, render, steady
+from .motion_log import MotionLog
+from .version import __version__
 
 __all__ = [
     "MotionLog", "Settings", "StabilizeError", "__version__", "measure", "read_log", "render",

@@ -1,22 +1,29 @@
-"""Command line: argument parsing and error reporting only; the work is in the library.
+"""Command line: argument parsing and error reporting only; the work is in the jobs.
 
-Errors a user can cause print one line and exit with status 2; an interruption exits with 130.
+The only module that knows the flags: library messages name a setting (``setting 'margin'``),
+and the errors printed here word it as its flag (``option --margin``). Errors a user can cause
+print one line and exit with status 2; an interruption exits with 130.
 """
 
 from __future__ import annotations
 
 import argparse
 import logging
+import re
 import signal
 import sys
 import threading
-from collections.abc import Callable
-from pathlib import Path
 from typing import Any
 
-from . import __version__
-from .config import CODECS, FILLS, MODELS, OPTION_NAMES, SMOOTHERS
+from .config import CODECS, FILLS, MODELS, OPTION_NAMES, SMOOTHERS, resolve_settings
 from .errors import StabilizeError
+from .io import remove_temporaries, stop_children
+from .jobs import make_report, measure_to_file, render, run_batch, run_demo, steady
+from .report_page import dominant_text, fmt_sig
+from .version import __version__
+
+__all__ = ["EXIT_INTERRUPTED", "EXIT_OK", "EXIT_SOME_FAILED", "EXIT_USAGE", "build_parser",
+           "flag_wording", "main", "run"]
 
 EXIT_OK, EXIT_USAGE, EXIT_SOME_FAILED, EXIT_INTERRUPTED = 0, 2, 3, 130
 
@@ -126,6 +133,14 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+_SETTING = re.compile(r"setting '([a-z_]+)'")
+
+
+def flag_wording(message: str) -> str:
+    """A library message with each ``setting 'name'`` worded as its flag, ``option --name``."""
+    return _SETTING.sub(lambda m: "option --" + m.group(1).replace("_", "-"), message)
+
+
 def _whole_number(flag: str, text: str | None) -> int | None:
     if text is None:
         return None
@@ -147,7 +162,7 @@ def _options(args: argparse.Namespace) -> dict[str, Any]:
 def _progress(quiet: bool):
     if quiet:
         return None
-    from tqdm import tqdm
+    from tqdm import tqdm  # lazy: progress bars only when they are shown
 
     def make(desc: str, total: int | None):
         return tqdm(desc=desc, total=total, unit="frame", file=sys.stderr, leave=False,
@@ -174,8 +189,6 @@ def _setup_logging(quiet: bool) -> None:
 
 def _print_summary(summary: dict) -> None:
     """The shake figures as a short table, three significant digits (no false precision)."""
-    from .report_page import fmt_sig
-
     def cell(v: Any, unit: str) -> str:
         text = fmt_sig(v)
         return text if text == "n/a" else f"{text} {unit}"
@@ -202,7 +215,7 @@ def _print_summary(summary: dict) -> None:
         angle = "" if axis == "rot" else cell(summary.get(f"jitter_rms_{axis}_deg"), "deg")
         rows.append((label, cell(summary.get(f"jitter_rms_{axis}_{unit}"), unit), angle,
                      cell(summary.get(f"jitter_p2p_{axis}_{unit}"), unit),
-                     _dominant_cell(summary, axis, cell)))
+                     dominant_text(summary, axis, lambda hz: cell(hz, "Hz"))))
     widths = [max(len(r[k]) for r in rows) for k in range(5)]
     for r in rows:
         print("  ".join([r[0].ljust(widths[0])] + [c.rjust(w) for c, w in
@@ -220,61 +233,41 @@ def _print_summary(summary: dict) -> None:
             print(f"  - {reason}")
 
 
-def _dominant_cell(summary: dict, axis: str, cell: Callable[[Any, str], str]) -> str:
-    """The dominant frequency, or "no clear peak" when the shake was measured but no peak
-    stood out of its spectrum's background."""
-    hz = summary.get(f"dominant_hz_{axis}")
-    unit = "deg" if axis == "rot" else "px"
-    if hz is None and summary.get(f"jitter_rms_{axis}_{unit}") is not None:
-        return "no clear peak"
-    return cell(hz, "Hz")
-
-
 def run(args: argparse.Namespace) -> int:
-    from . import pipeline
-
+    """Run one parsed command; returns the exit status."""
     opts = _options(args)
     progress = _progress(bool(args.quiet))
     if args.command == "steady":
-        motion = pipeline.steady(args.clip, args.output, log_path=args.log,
-                                 config=args.config, progress=progress, **opts)
+        motion = steady(args.clip, args.output, log_path=args.log, config=args.config,
+                        progress=progress, **opts)
         _report_written(motion)
     elif args.command == "measure":
-        clip = Path(args.clip)
-        settings = pipeline._settings(args.config, dict(opts))
-        outputs = pipeline.plan_outputs(clip, video_out=None, log_out=args.log,
-                                        with_video=False, compare=False)
-        pipeline.check_outputs(clip, outputs, settings.force)
         workers = _whole_number("--workers", args.workers)
-        motion = pipeline.measure(clip, progress=progress, settings=settings,
-                                  workers=workers, scheduler=args.scheduler)
-        csv_path, json_path = motion.save(outputs.log_csv)
+        motion, outputs = measure_to_file(args.clip, args.log, config=args.config,
+                                          progress=progress, workers=workers,
+                                          scheduler=args.scheduler, **opts)
         _print_summary(motion.summary)
-        print(f"motion log: {csv_path}")
-        print(f"motion log: {json_path}")
+        print(f"motion log: {outputs.log_csv}")
+        print(f"motion log: {outputs.log_json}")
     elif args.command == "render":
-        motion = pipeline.render(args.clip, args.log, args.output, config=args.config,
-                                 progress=progress, **opts)
+        motion = render(args.clip, args.log, args.output, config=args.config,
+                        progress=progress, **opts)
         _report_written(motion)
     elif args.command == "report":
-        from .report import make_report
-
         report = make_report(args.clip_or_log, args.out, config=args.config,
                              progress=progress, **opts)
         _print_summary(report.summary)
         _report_files(report)
     elif args.command == "batch":
-        from .batch import run_batch
-
         workers = _whole_number("--workers", args.workers)
         clip_bar = None
         if progress is not None:
-            from tqdm import tqdm
+            from tqdm import tqdm  # lazy: progress bars only when they are shown
 
             def clip_bar(desc: str, total: int | None):
                 return tqdm(desc=desc, total=total, unit="clip", file=sys.stderr,
                             leave=False, dynamic_ncols=True)
-        settings = pipeline._settings(args.config, dict(opts))
+        settings = resolve_settings(args.config, opts)
         result = run_batch(args.inputs, args.out_dir, settings=settings,
                            measure_only=args.measure_only, workers=workers,
                            scheduler=args.scheduler, progress=clip_bar)
@@ -287,8 +280,6 @@ def run(args: argparse.Namespace) -> int:
         if result.count("failed"):
             return EXIT_SOME_FAILED
     elif args.command == "demo":
-        from .demo import run_demo
-
         motion, report = run_demo(args.out, config=args.config, progress=progress, **opts)
         _report_written(motion)
         _report_files(report)
@@ -328,8 +319,6 @@ def _clean_up() -> None:
     A no-op after a clean run. Signals are ignored meanwhile, so a second Ctrl-C cannot cut
     the clean-up short.
     """
-    from .io import remove_temporaries, stop_children
-
     held = {}
     if threading.current_thread() is threading.main_thread():
         held = {sig: signal.signal(sig, signal.SIG_IGN) for sig in (signal.SIGINT, signal.SIGTERM)}
@@ -364,7 +353,7 @@ def main(argv: list[str] | None = None) -> int:
         status = EXIT_USAGE
         if debug:
             raise
-        print(f"stabilize: error: {_one_line(exc)}", file=sys.stderr)
+        print(f"stabilize: error: {flag_wording(_one_line(exc))}", file=sys.stderr)
     except KeyboardInterrupt:
         status = EXIT_INTERRUPTED
         _clean_up()

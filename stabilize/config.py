@@ -1,5 +1,8 @@
 """Settings: one frozen dataclass for every option, TOML presets and files, validation.
 
+Ground floor. Messages name a setting as ``setting 'window_s'``; the command line words that
+as its flag.
+
 Precedence is fixed: command-line flags win over a config file (or preset), which wins over
 the built-in defaults. Every value is validated here, so the stages can trust what they get.
 """
@@ -15,6 +18,13 @@ from pathlib import Path
 from typing import Any
 
 from .errors import StabilizeError
+
+__all__ = [
+    "AUTO_MARGIN_CAP", "CODECS", "FILLS", "MAX_MARGIN", "MODELS", "OPTION_NAMES", "PRESETS_X264",
+    "SMOOTHERS", "Region", "Settings", "build_settings", "coerce", "logged_settings",
+    "parse_region", "preset_dirs", "preset_names", "read_config", "resolve_config",
+    "resolve_settings", "setting_label", "validate",
+]
 
 MODELS = ("translation", "similarity", "affine", "homography")
 SMOOTHERS = ("gaussian", "kalman", "l1", "lockoff")
@@ -77,12 +87,13 @@ class Settings:
 OPTION_NAMES = tuple(f.name for f in dataclasses.fields(Settings))
 
 
-def _flag(name: str) -> str:
-    return "--" + name.replace("_", "-")
+def setting_label(name: str) -> str:
+    """How a message names a setting: ``setting 'window_s'`` (the CLI rewords it as a flag)."""
+    return f"setting '{name}'"
 
 
 def _bad(name: str, value: Any, allowed: str) -> StabilizeError:
-    return StabilizeError(f"option {_flag(name)}: {value!r} is not allowed; use {allowed}")
+    return StabilizeError(f"{setting_label(name)}: {value!r} is not allowed; use {allowed}")
 
 
 # What each numeric option allows, in the words its error message uses; a value that is not
@@ -232,7 +243,7 @@ def resolve_config(name_or_path: str) -> Path:
         if candidate.is_file():
             return candidate
     raise StabilizeError(
-        f"option --config: no preset named {name_or_path!r}; "
+        f"{setting_label('config')}: no preset named {name_or_path!r}; "
         f"presets: {', '.join(preset_names()) or 'none found'}, or give a .toml file"
     )
 
@@ -260,3 +271,42 @@ def build_settings(
     if overrides:
         values.update(coerce({k: v for k, v in overrides.items() if v is not None}, "option"))
     return Settings(**values)
+
+
+def resolve_settings(config: str | None, options: dict[str, Any]) -> Settings:
+    """The settings of a job called with ``config`` and keyword ``options``.
+
+    A ready :class:`Settings` passed as ``options["settings"]`` is the base (the other options
+    are laid over it, ``config`` is then not read); otherwise :func:`build_settings`.
+    ``options`` is not changed.
+    """
+    options = dict(options)
+    if isinstance(options.get("settings"), Settings):
+        base = options.pop("settings")
+        return base.replace(**{k: v for k, v in options.items() if v is not None})
+    return build_settings(config, options)
+
+
+def logged_settings(saved: dict[str, Any], config: str | None = None,
+                    options: dict[str, Any] | None = None) -> Settings:
+    """The settings a motion log was made with, the options given now laid over them.
+
+    With ``config`` the log's settings are not used (:func:`resolve_settings`). A log is data:
+    settings it holds that are no longer valid fall back to the defaults.
+
+    Parameters
+    ----------
+    saved : the log's ``settings`` mapping.
+    config : TOML file or preset name given now, or None.
+    options : options given now (None values are ignored).
+    """
+    options = options or {}
+    if config:
+        return resolve_settings(config, options)
+    base = {k: v for k, v in saved.items() if k in Settings.__dataclass_fields__}
+    try:
+        base["ignore"] = tuple(tuple(r) for r in base.get("ignore", ()))
+        logged = Settings(**base)
+    except (TypeError, ValueError, StabilizeError):
+        logged = Settings()
+    return logged.replace(**{k: v for k, v in options.items() if v is not None})

@@ -4,9 +4,9 @@ The output frame t is ``warpPerspective(source_t, C_t)`` with
 
     C_t = Z · S_t⁻¹ · P_t
 
-where P_t is the raw path, S_t the smoothed path (see :mod:`stabilize.path`) and Z a zoom about
-the frame centre by k = 1 / (1 − 2·margin), which hides the borders the correction moves in.
-The margin is a budget: where a frame's correction would still uncover output pixels, the
+where P_t is the raw path, S_t the smoothed path (see :mod:`stabilize.steady_path`) and Z a
+zoom about the frame centre by k = 1 / (1 − 2·margin), which hides the borders the correction
+moves in. The margin is a budget: where a frame's correction would still uncover output pixels, the
 smoothed path is pulled toward the raw one for that stretch until the crop window fits.
 """
 
@@ -14,8 +14,14 @@ from __future__ import annotations
 
 import numpy as np
 
+from .camera_path import blend
 from .geometry import apply, frame_centre, frame_corners
-from .path import blend, gaussian_smooth
+from .smoothers.gaussian import gaussian_smooth
+
+__all__ = [
+    "MIN_DISTORTION", "choose_margin", "corrections", "covered", "distortion", "fit_to_margin",
+    "needed_margin", "stabilising_warps", "zoom",
+]
 
 #: Smallest σ_min / σ_max of its 2×2 part a correction may have before it is eased: a bound on
 #: the shear and perspective stretch it adds (similarity corrections always have 1). Our choice.

@@ -11,7 +11,7 @@ the origin at the *centre* of the top-left pixel: pixel column j, row i has its 
 
 A 3×3 matrix M acts on homogeneous column vectors (x, y, 1) and is normalised so m33 = 1. The
 meaning of the matrices in the motion log (``H_t``, ``P_t``, ``S_t``, ``C_t``) is given in
-:mod:`stabilize.log`.
+:mod:`stabilize.motion_log`.
 
 Any such matrix is read as a similarity about the frame centre c = ((w−1)/2, (h−1)/2):
 ``dx, dy`` = M(c) − c, rotation ``atan2(m21 − m12, m11 + m22)`` in degrees, and scale

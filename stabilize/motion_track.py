@@ -32,7 +32,7 @@ _EMPTY = {"time_s": (0, float), "matrices": ((0, 3, 3), float), "tracked": (0, i
 
 @dataclass
 class MotionTrack:
-    """Per-frame arrays of one analysis pass (see :class:`stabilize.log.MotionLog`), what
+    """Per-frame arrays of one analysis pass (see :class:`stabilize.motion_log.MotionLog`), what
     was left out of tracking (``excluded``: full-resolution (x, y, w, h) rectangles), and why
     a frame is weak or failed (``reason``: '' or a short code, see :data:`REASONS`).
 

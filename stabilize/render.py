@@ -50,8 +50,9 @@ def plane_matrix(correction: np.ndarray, sub_x: int, sub_y: int) -> np.ndarray:
     """The correction as it acts on a plane subsampled by (sub_x, sub_y): D·C·D⁻¹.
 
     D maps luma pixel coordinates to the plane's own, both under the pixel-centre convention
-    of :mod:`stabilize.log`: x_c = (x + 0.5) / sub_x − 0.5, y_c = (y + 0.5) / sub_y − 0.5. The
-    result maps source plane pixels to output plane pixels; (1, 1) gives C itself.
+    of :mod:`stabilize.motion_log`: x_c = (x + 0.5) / sub_x − 0.5,
+    y_c = (y + 0.5) / sub_y − 0.5. The result maps source plane pixels to output plane pixels;
+    (1, 1) gives C itself.
 
     This assumes centre-sited chroma: a chroma sample at the centre of the luma pixels it
     covers. Other sitings (H.264's usual 4:2:0 puts chroma on the left luma column) differ

@@ -1,16 +1,41 @@
-"""The shake report's HTML page: one self-contained file (inline CSS, images as data URIs, no
-scripts, no fonts or anything else fetched from the network), laid out to read on a phone."""
+"""HTML pages: the shake report and the look every page of ours shares (CSS, page frame, tables).
+
+A page is one self-contained file (inline CSS, images as data URIs, no scripts, no fonts or
+anything else fetched from the network), laid out to read on a phone.
+"""
 
 from __future__ import annotations
 
 import base64
 import math
+from collections.abc import Callable
 from html import escape
 from typing import Any
 
 from . import shake
 
-_CSS = """
+__all__ = [
+    "CAUTIONS", "PAGE_CSS", "dominant_text", "fmt_sig", "html_page", "html_table", "render_page",
+]
+
+#: Cautions shown on every report page, in plain words (from the README's Cautions section).
+CAUTIONS: tuple[str, ...] = (
+    "Steadied footage is altered footage: every frame is shifted, rotated, scaled and cropped, "
+    "and smoothing can hide real motion (a slowly swaying structure) or invent apparent motion "
+    "at the edges. Check anything important in the original footage.",
+    "This report is an aid for reviewing video. It is not a substitute for inspection by "
+    "qualified people, and not a calibrated measurement of the structure or the aircraft.",
+    "Shake figures describe the camera as the frames sample it. Vibration faster than half "
+    "the frame rate (propellers, motors: often tens to hundreds of hertz) cannot be measured "
+    "from video; it shows up at a false lower frequency or only as blur.",
+    "Figures in degrees are only as right as the field of view (setting fov_deg) given.",
+    "Frames marked weak or failed were measured poorly or not at all; the more of them, the "
+    "less certain every figure here.",
+    "Flying is governed by local aviation rules. Nothing here changes what you may fly, "
+    "where, or how close to a structure.",
+)
+
+PAGE_CSS = """
 :root { --ink: #24323f; --muted: #5f6b76; --line: #dde2e6; --paper: #f6f7f4;
         --card: #ffffff; --accent: #1f6f8b; --warm: #e07b39; --warn-bg: #fff6e0;
         --warn-line: #f2c14e; }
@@ -47,6 +72,10 @@ tbody tr:last-child td { border-bottom: none; }
 .verdict p { margin: 0.3rem 0; }
 .verdict-rough { border-left-color: var(--warn-line); background: var(--warn-bg); }
 .verdict-unreliable { border-left-color: #c8453b; background: #fbe9e7; }
+tr.failed td { background: #fbe9e7; }
+.why { font-size: 0.8rem; color: var(--muted); white-space: normal; }
+.trust-rough { color: #8a6100; font-weight: 600; }
+.trust-unreliable { color: #b3261e; font-weight: 600; }
 figure { margin: 1rem 0; background: var(--card); border: 1px solid var(--line);
          border-radius: 8px; padding: 0.5rem; }
 figure img { display: block; width: 100%; height: auto; }
@@ -106,14 +135,20 @@ def _hz(v: Any, resolution_hz: Any) -> str:
     return f"{v:.{decimals}f}\u00a0Hz"
 
 
-def _dominant(s: dict[str, Any], axis: str, suffix: str = "") -> str:
-    """The dominant shake frequency of one axis, or "no clear peak" when the shake was
-    measured but no peak stood out of its spectrum's background."""
+def dominant_text(s: dict[str, Any], axis: str, fmt: Callable[[Any], str],
+                  suffix: str = "") -> str:
+    """The dominant shake frequency of one axis (``x``, ``y``, ``rot``) of a summary, written
+    by ``fmt``, or "no clear peak" when the shake was measured but no peak stood out of its
+    spectrum's background."""
     v = s.get(f"dominant_hz_{axis}{suffix}")
     unit = shake.axis_unit(axis)
     if v is None and s.get(f"jitter_rms_{axis}_{unit}{suffix}") is not None:
         return "no clear peak"
-    return _hz(v, s.get("spectrum_resolution_hz"))
+    return fmt(v)
+
+
+def _dominant(s: dict[str, Any], axis: str) -> str:
+    return dominant_text(s, axis, lambda v: _hz(v, s.get("spectrum_resolution_hz")))
 
 
 def _share(count: Any, total: Any) -> str:
@@ -123,10 +158,57 @@ def _share(count: Any, total: Any) -> str:
 
 
 def _table(head: list[str], rows: list[list[str]]) -> str:
+    return html_table(head, [[escape(c) for c in r] for r in rows])
+
+
+def html_table(head: list[str], rows: list[list[str]],
+               row_classes: list[str] | None = None) -> str:
+    """A table that scrolls sideways on a narrow screen.
+
+    Parameters
+    ----------
+    head : column titles (plain text). rows : cells as HTML (escape text before).
+    row_classes : a CSS class per row ('' for none), or None.
+    """
     th = "".join(f"<th>{escape(h)}</th>" for h in head)
-    body = "".join("<tr>" + "".join(f"<td>{escape(c)}</td>" for c in r) + "</tr>" for r in rows)
+    classes = row_classes or [""] * len(rows)
+    body = "".join((f'<tr class="{escape(k)}">' if k else "<tr>")
+                   + "".join(f"<td>{c}</td>" for c in r) + "</tr>"
+                   for r, k in zip(rows, classes, strict=True))
     return f'<div class="scroll"><table><thead><tr>{th}</tr></thead><tbody>{body}</tbody>' \
            f"</table></div>"
+
+
+def html_page(*, title: str, header: str, body: str, footer: str) -> str:
+    """One self-contained page in the shared look.
+
+    Parameters
+    ----------
+    title : the page title (plain text). header, body, footer : HTML of the header (under the
+        heading ``title``), the sections and the footer.
+    """
+    return f"""<!DOCTYPE html>
+<html lang="en">
+<head>
+<meta charset="utf-8">
+<meta name="viewport" content="width=device-width, initial-scale=1">
+<meta http-equiv="Content-Security-Policy"
+ content="default-src 'none'; img-src data:; style-src 'unsafe-inline'">
+<title>{escape(title)}</title>
+<style>{PAGE_CSS}</style>
+</head>
+<body>
+<main>
+<header>
+<h1>{escape(title)}</h1>
+{header}
+</header>
+{body}
+<footer>{footer}</footer>
+</main>
+</body>
+</html>
+"""
 
 
 def _card(label: str, value: str, more: str = "") -> str:
@@ -256,7 +338,7 @@ def _uncertainty_section(s: dict[str, Any], notes: list[str]) -> str:
 
 
 def render_page(*, name: str, source: dict[str, Any], summary: dict[str, Any], notes: list[str],
-                settings: dict[str, Any], cautions: tuple[str, ...], images: dict[str, bytes],
+                settings: dict[str, Any], images: dict[str, bytes],
                 log_name: str | None, tool_version: str) -> str:
     """The report page as one HTML string.
 
@@ -265,7 +347,7 @@ def render_page(*, name: str, source: dict[str, Any], summary: dict[str, Any], n
     name : the clip's NAME.
     source, summary, settings : as in the motion log's JSON (summary with the report's extra
         figures).
-    notes : notes on this clip's uncertainty; cautions : the standing cautions.
+    notes : notes on this clip's uncertainty (the standing :data:`CAUTIONS` are added).
     images : PNG bytes by plot role (``path_plot`` …), embedded as base64 data URIs.
     log_name : file name of the motion log the figures come from.
     tool_version : the version that wrote the report.
@@ -286,7 +368,8 @@ def render_page(*, name: str, source: dict[str, Any], summary: dict[str, Any], n
            + (f" — figures from {log_name}" if log_name else ""))
     x_deg = s.get("jitter_rms_x_deg")
     fov = settings.get("fov_deg")
-    fov_text = ("No field of view was given (--fov-deg), so there are no figures in degrees."
+    fov_text = ("No field of view was given (setting fov_deg), so there are no figures in "
+                "degrees."
                 if fov is None else
                 f"Figures in degrees use the horizontal field of view of {fmt_sig(fov)} deg.")
     uncertain = (s.get("frames_weak_share") or 0.0) + (s.get("frames_failed_share") or 0.0)
@@ -310,24 +393,8 @@ def render_page(*, name: str, source: dict[str, Any], summary: dict[str, Any], n
         for role, data in images.items()
     )
     settings_rows = [[k, "—" if v is None else str(v)] for k, v in settings.items()]
-    caution_items = "".join(f"<li>{escape(c)}</li>" for c in cautions)
-    return f"""<!DOCTYPE html>
-<html lang="en">
-<head>
-<meta charset="utf-8">
-<meta name="viewport" content="width=device-width, initial-scale=1">
-<meta http-equiv="Content-Security-Policy"
- content="default-src 'none'; img-src data:; style-src 'unsafe-inline'">
-<title>Shake report: {escape(name)}</title>
-<style>{_CSS}</style>
-</head>
-<body>
-<main>
-<header>
-<h1>Shake report: {escape(name)}</h1>
-<p class="sub">{escape(sub)}</p>
-</header>
-{_verdict_section(s)}
+    caution_items = "".join(f"<li>{escape(c)}</li>" for c in CAUTIONS)
+    body = f"""{_verdict_section(s)}
 <section><h2>Key figures</h2><div class="cards">{cards}</div></section>
 <section><h2>How certain these figures are</h2>{_uncertainty_section(s, other_notes)}</section>
 <section><h2>Shake per axis</h2>
@@ -348,10 +415,8 @@ motion is, not how large: see the shake figures for that.</p>
 {_steady_section(s)}</section>
 <section><h2>Plots</h2>{plots}</section>
 <section><h2>Settings used</h2>{_table(["setting", "value"], settings_rows)}</section>
-<section class="cautions"><h2>Cautions</h2><ul>{caution_items}</ul></section>
-<footer>Written by stabilize {escape(tool_version)}. This page needs no network: every image
-is inside the file.</footer>
-</main>
-</body>
-</html>
-"""
+<section class="cautions"><h2>Cautions</h2><ul>{caution_items}</ul></section>"""
+    return html_page(
+        title=f"Shake report: {name}", header=f'<p class="sub">{escape(sub)}</p>', body=body,
+        footer=f"Written by stabilize {escape(tool_version)}. This page needs no network: "
+               "every image\nis inside the file.")

@@ -19,9 +19,9 @@ motion log (which may itself be wrong):
    (:func:`stabilize.consensus.estimate`) in full-resolution pixels.
 
 The result of a pair is read as a similarity about the frame centre (``dx``, ``dy`` pixels,
-degrees; :func:`stabilize.log.similarity_readout`): the motion from frame t−1 to frame t of
+degrees; :func:`stabilize.geometry.similarity_readout`): the motion from frame t−1 to frame t of
 that stream, in the direction of the log's ``H_t``. Pixel coordinates follow the convention of
-:mod:`stabilize.log` (origin at the centre of the top-left pixel); the reduced copy maps to
+:mod:`stabilize.motion_log` (origin at the centre of the top-left pixel); the reduced copy maps to
 full resolution as in :func:`stabilize.track.to_full_resolution`.
 
 :func:`pair_motion` is the pure per-pair step; :class:`MotionCheck` keeps one stream's corners

@@ -2,7 +2,7 @@
 
 Generic: it knows nothing of motion or video, only callables and picklable items. Used by
 the segmented analysis of one long clip (:mod:`stabilize.segments`) and by batch
-(:mod:`stabilize.batch`).
+(:mod:`stabilize.jobs.batch`).
 
 Workers: local processes (``concurrent.futures`` with the forkserver or spawn start method,
 never fork: the parent may hold threads and ffmpeg pipes), a Dask ``LocalCluster``

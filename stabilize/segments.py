@@ -20,7 +20,7 @@ single pass draws at the same frames.
 The runs are handed to workers by :mod:`stabilize.runner` (local processes or a Dask
 cluster). A worker is one core: OpenCV runs single-threaded in it, so ``workers=1`` is one
 single-threaded pass (in this process) and ``workers=N`` asks for N cores. Without workers,
-:func:`stabilize.pipeline.measure` runs one pass that spreads its tracking over every core
+:func:`stabilize.measure` runs one pass that spreads its tracking over every core
 through OpenCV's own threads.
 """
 

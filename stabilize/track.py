@@ -10,7 +10,7 @@ across frames, carry a history of whether they moved with the camera, and are re
 they thin out.
 
 Points are in analysis-frame pixels; :func:`to_full_resolution` maps them to full resolution
-under the pixel-centre convention of :mod:`stabilize.log`.
+under the pixel-centre convention of :mod:`stabilize.motion_log`.
 """
 
 from __future__ import annotations

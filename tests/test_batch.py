@@ -12,7 +12,7 @@ from pathlib import Path
 
 import pytest
 
-from stabilize.batch import find_clips, output_names
+from stabilize.jobs.batch import find_clips, output_names
 
 from .conftest import noise_frames, write_clip
 

@@ -134,3 +134,13 @@ def test_the_printout_says_no_clear_peak_the_real_rate_and_the_verdict(capsys):
     assert "no clear peak" not in lines["rotation"]  # no shake measured: nothing to say
     assert "2.27 fps on average, irregular times (container: 15.0 fps)" in out
     assert "verdict: rough" in out and "  - The frame times are irregular." in out
+
+
+def test_library_messages_name_settings_and_the_cli_words_them_as_flags():
+    from stabilize.cli import flag_wording
+
+    assert flag_wording("setting 'window_s': 'x' is not allowed; use a positive number") == \
+        "option --window-s: 'x' is not allowed; use a positive number"
+    assert flag_wording("a.mp4: already exists (setting 'force' allows overwriting)") == \
+        "a.mp4: already exists (option --force allows overwriting)"
+    assert flag_wording("a.mp4: no such file") == "a.mp4: no such file"

@@ -2,6 +2,7 @@
 
 import pytest
 
+from stabilize.cli import flag_wording
 from stabilize.config import Settings, build_settings, preset_names, read_config
 from stabilize.errors import StabilizeError
 
@@ -32,23 +33,26 @@ def test_flags_override_file_over_defaults(tmp_path):
 
 
 @pytest.mark.parametrize(
-    "overrides, fragment",
+    "overrides, name",
     [
-        ({"model": "spline"}, "--model"),
-        ({"inlier_px": "-1"}, "--inlier-px"),
-        ({"margin": "0.6"}, "--margin"),
-        ({"margin": "lots"}, "--margin"),
-        ({"confidence": "1.0"}, "--confidence"),
-        ({"max_rounds": "0"}, "--max-rounds"),
-        ({"ignore": ["1,2,3"]}, "--ignore"),
-        ({"crf": "3.5"}, "--crf"),
-        ({"window_s": "nan"}, "--window-s"),
+        ({"model": "spline"}, "model"),
+        ({"inlier_px": "-1"}, "inlier_px"),
+        ({"margin": "0.6"}, "margin"),
+        ({"margin": "lots"}, "margin"),
+        ({"confidence": "1.0"}, "confidence"),
+        ({"max_rounds": "0"}, "max_rounds"),
+        ({"ignore": ["1,2,3"]}, "ignore"),
+        ({"crf": "3.5"}, "crf"),
+        ({"window_s": "nan"}, "window_s"),
     ],
 )
-def test_bad_values_name_the_option(overrides, fragment):
+def test_bad_values_name_the_setting_and_the_cli_words_it_as_a_flag(overrides, name):
     with pytest.raises(StabilizeError) as err:
         build_settings(None, overrides)
-    assert fragment in str(err.value) and "\n" not in str(err.value)
+    text = str(err.value)
+    assert f"setting '{name}'" in text and "--" not in text and "\n" not in text
+    flag = "--" + name.replace("_", "-")
+    assert flag_wording(text).startswith(f"option {flag}:")
 
 
 def test_unknown_key_and_bad_toml(tmp_path):

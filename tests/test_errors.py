@@ -419,14 +419,14 @@ def test_all_or_nothing_publishes_together_or_not_at_all(tmp_path):
 def test_failed_steady_leaves_nothing(sources, tmp_path, monkeypatch):
     """A fault after the video is finished (here: writing the log) publishes nothing."""
     import stabilize
-    from stabilize import log as log_module
+    from stabilize.jobs import rendering
 
     clip = shutil.copy(sources["clip"], tmp_path / "clip.mp4")
 
-    def broken(self, csv_path):
+    def broken(motion, csv_path):
         raise OSError(28, "No space left on device", str(csv_path))
 
-    monkeypatch.setattr(log_module.MotionLog, "save", broken)
+    monkeypatch.setattr(rendering, "save_log", broken)
     with pytest.raises(OSError):
         stabilize.steady(clip, preset="ultrafast")
     assert sorted(p.name for p in tmp_path.iterdir()) == ["clip.mp4"]

@@ -7,9 +7,10 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
+from stabilize import read_log
 from stabilize.errors import StabilizeError
 from stabilize.geometry import frame_centre, similarity_readout
-from stabilize.log import BASE_COLUMNS, COLUMNS, MotionLog, read_log
+from stabilize.motion_log import BASE_COLUMNS, COLUMNS, MotionLog
 
 
 def _log(n=6, with_corrections=True):
@@ -232,3 +233,32 @@ def test_damaged_json_fields_are_refused(tmp_path):
     json_path.write_bytes(b"\xff\xfe{}")
     with pytest.raises(StabilizeError, match="not a text file"):
         read_log(csv_path)
+
+
+def test_save_writes_what_the_file_functions_write(tmp_path):
+    """``log.save`` is the published way to write; the record hands it to the io module."""
+    from stabilize.io.motion_log_files import json_path_for, log_csv, log_json, save_log
+
+    log = _log()
+    a = log.save(tmp_path / "a.motion.csv")
+    b = save_log(log, tmp_path / "b.motion.csv")
+    assert a == (tmp_path / "a.motion.csv", json_path_for(tmp_path / "a.motion.csv"))
+    assert a[0].read_text() == b[0].read_text() == log_csv(log) == log.to_csv()
+    assert json.loads(a[1].read_text()) == json.loads(b[1].read_text()) == log.to_json()
+    assert log.to_json() == log_json(log)
+
+
+def test_the_record_is_on_the_ground_floor():
+    """The record and its schema import nothing of ours but ground-floor modules (no files)."""
+    import ast
+    from pathlib import Path
+
+    import stabilize.motion_log as record
+
+    ground = {"errors", "geometry", "config", "raw_path", "version"}
+    tree = ast.parse(Path(record.__file__).read_text(encoding="utf-8"))
+    ours = [node.module for node in ast.walk(tree)
+            if isinstance(node, ast.ImportFrom) and node.level == 1]
+    assert ours and set(ours) <= ground, ours
+    assert not [n for n in ast.walk(tree) if isinstance(n, ast.Import)
+                and any(a.name.split(".")[0] in ("os", "io", "csv", "json") for a in n.names)]

@@ -20,8 +20,7 @@ import numpy as np
 import pytest
 
 import stabilize
-from stabilize import shake
-from stabilize.log import read_log
+from stabilize import read_log, shake
 from stabilize.synthetic import SceneSpec, SyntheticClip
 
 from .conftest import write_clip

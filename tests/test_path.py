@@ -3,6 +3,7 @@
 import numpy as np
 import pytest
 
+from stabilize.camera_path import blend, decode, encode
 from stabilize.geometry import (
     frame_centre,
     from_corners,
@@ -10,16 +11,9 @@ from stabilize.geometry import (
     similarity_readout,
     to_similarity,
 )
-from stabilize.path import (
-    SMOOTHERS,
-    accumulate,
-    blend,
-    decode,
-    encode,
-    gaussian_smooth,
-    segments,
-    smooth_path,
-)
+from stabilize.raw_path import accumulate, segments
+from stabilize.smoothers.gaussian import gaussian_smooth
+from stabilize.steady_path import SMOOTHERS, smooth_path
 
 
 def _translation(dx, dy):

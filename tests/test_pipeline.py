@@ -11,11 +11,11 @@ import numpy as np
 import pytest
 
 import stabilize
+from stabilize import read_log
 from stabilize.framing import covered
 from stabilize.io import iter_frames, probe
 from stabilize.io.colour import ColourTags
 from stabilize.io.process import ffmpeg_exe
-from stabilize.log import read_log
 from stabilize.synthetic import SceneSpec, SyntheticClip, grid_transfer_error
 
 from .conftest import write_clip
@@ -92,6 +92,16 @@ def test_steady_keeps_audio_frames_fps_and_size(truss, tmp_path):
     assert s["jitter_rms_x_px_out"] < 0.2 * s["jitter_rms_x_px"]
     assert sorted(p.name for p in out.parent.iterdir()) == [
         "steadied.mp4", "truss pass.motion.csv", "truss pass.motion.json"]
+    # The log returned is the one written, assembled once in memory: reading it back gives
+    # the same arrays and the same JSON.
+    back = read_log(out.parent / "truss pass.motion.csv")
+    for name in ("matrices", "corrections", "smooth_values", "time_s", "rms_px"):
+        np.testing.assert_array_equal(getattr(log, name), getattr(back, name))
+    np.testing.assert_array_equal(log.output_check, back.output_check)
+    assert log.to_csv() == back.to_csv()
+    assert log.extra["outputs"] == {"video": str(out),
+                                    "log_csv": str(out.parent / "truss pass.motion.csv"),
+                                    "log_json": str(out.parent / "truss pass.motion.json")}
 
 
 def test_steady_keeps_the_sources_colour_tags_and_pixel_shape(truss, tmp_path):
@@ -172,23 +182,22 @@ def test_tiny_clip_passes_through(tmp_path):
 def test_irregular_frame_times_are_summarised_in_real_time_with_a_warning(caplog):
     """Frames 0.33-0.73 s apart in a container that says 15 fps: the job warns and gives the
     real mean rate, and the verdict says why the figures are rough."""
-    from stabilize import pipeline
     from stabilize.config import Settings
-    from stabilize.log import MotionLog
+    from stabilize.jobs.analysis import FrameMotion
 
     n = 80
     t = np.r_[0.0, np.cumsum(np.random.default_rng(8).uniform(0.33, 0.73, n - 1))]
     h = np.repeat(np.eye(3)[None], n, axis=0)
     h[1:, 0, 2] = 0.4 * np.sin(np.arange(1, n))
-    motion = MotionLog(time_s=t, matrices=h, tracked=np.full(n, 300), inliers=np.full(n, 250),
-                       inlier_ratio=np.full(n, 250 / 300), rms_px=np.full(n, 0.2),
-                       rounds=np.full(n, 30), status=np.array(["ok"] * n),
-                       source={"path": "late.avi", "width": 320, "height": 240, "fps": 15.0,
-                               "frames": n}, settings=Settings().to_dict())
+    motion = FrameMotion(time_s=t, matrices=h, tracked=np.full(n, 300),
+                         inliers=np.full(n, 250), inlier_ratio=np.full(n, 250 / 300),
+                         rms_px=np.full(n, 0.2), rounds=np.full(n, 30),
+                         status=np.array(["ok"] * n), reasons=np.full(n, "", "<U12"),
+                         source={"path": "late.avi", "width": 320, "height": 240, "fps": 15.0,
+                                 "frames": n})
     with caplog.at_level("WARNING", logger="stabilize"):
-        pipeline._summarise(motion, Settings(shake_above_hz=0.5), 15.0)
+        s = motion.figures(Settings(shake_above_hz=0.5), 15.0)
     rate = (n - 1) / (t[-1] - t[0])
-    s = motion.summary
     assert s["fps"] == pytest.approx(rate) and s["fps_nominal"] == 15.0
     assert s["timestamps_irregular"] is True and s["trust"] == "rough"
     warned = [r.getMessage() for r in caplog.records if r.levelname == "WARNING"]

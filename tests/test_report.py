@@ -17,8 +17,9 @@ from stabilize import shake
 from stabilize.config import Settings
 from stabilize.errors import StabilizeError
 from stabilize.geometry import frame_centre, from_similarity
-from stabilize.log import MotionLog
-from stabilize.report import make_report, report_name
+from stabilize.jobs import make_report
+from stabilize.jobs.outputs import log_name as report_name
+from stabilize.motion_log import MotionLog
 
 from .conftest import noise_frames, write_clip
 
@@ -28,6 +29,14 @@ W, H, FPS = 640, 360, 30.0
 def _sine_log(folder: Path, f_hz: float = 3.5, seconds: float = 10.0,
               fov_deg: float | None = 70.0) -> Path:
     """A motion log of a camera panning with sinusoidal shake, written without any video."""
+    csv_path, _ = _sine_motion(folder, f_hz, seconds, fov_deg).save(
+        folder / "sine pass.motion.csv")
+    return csv_path
+
+
+def _sine_motion(folder: Path, f_hz: float = 3.5, seconds: float = 10.0,
+                 fov_deg: float | None = 70.0) -> MotionLog:
+    """The log of :func:`_sine_log`, in memory."""
     n = int(FPS * seconds)
     t = np.arange(n) / FPS
     x = 4.0 * np.sin(2 * np.pi * f_hz * t) + 12.0 * t
@@ -53,8 +62,7 @@ def _sine_log(folder: Path, f_hz: float = 3.5, seconds: float = 10.0,
                     source={"path": str(folder / "not-here.mp4"), "width": W, "height": H,
                             "fps": FPS, "frames": n, "duration_s": seconds},
                     settings=settings, summary=summary)
-    csv_path, _ = log.save(folder / "sine pass.motion.csv")
-    return csv_path
+    return log
 
 
 @pytest.fixture(scope="module")
@@ -102,7 +110,7 @@ def test_existing_outputs_are_kept_without_force(sine_report):
     log, _ = sine_report
     out = log.parent / "out"
     before = (out / "sine pass.report.html").stat().st_mtime_ns
-    with pytest.raises(StabilizeError, match="already exists.*--force"):
+    with pytest.raises(StabilizeError, match="already exists.*force"):
         make_report(log, out)
     assert (out / "sine pass.report.html").stat().st_mtime_ns == before
     wide = json.loads((out / "sine pass.shake.json").read_text())["summary"]
@@ -234,3 +242,41 @@ def test_a_static_shot_at_irregular_times_reads_as_such(tmp_path):
     html = rep.outputs["html"].read_text()
     assert "Verdict: rough" in html and "no clear peak" in html
     assert "irregular (the container says 15.00)" in html
+
+
+def test_figures_of_a_log_in_memory_equal_those_read_back(tmp_path):
+    """The jobs hand the log to the report in memory; the figures are those of the file."""
+    from stabilize import read_log
+    from stabilize.jobs.report import report_figures
+
+    motion = _sine_motion(tmp_path)
+    csv_path, _ = motion.save(tmp_path / "sine pass.motion.csv")
+    settings = Settings(fov_deg=40.0, shake_above_hz=0.8)
+    in_memory, fps = report_figures(motion, settings)
+    again, fps_again = report_figures(read_log(csv_path), settings)
+    assert fps == fps_again == pytest.approx(FPS)
+    assert json.dumps(in_memory, sort_keys=True) == json.dumps(again, sort_keys=True)
+    assert in_memory["fov_deg"] == 40.0 and in_memory["shake_above_hz"] == 0.8
+
+
+def test_output_names_come_from_one_place(tmp_path):
+    from stabilize.jobs.outputs import clip_files, plan_outputs, report_files
+
+    clip = tmp_path / "flight 2.mp4"
+    plan = plan_outputs(clip, video_out=None, log_out=None, with_video=True, compare=True)
+    assert plan.video == tmp_path / "flight 2.steady.mp4"
+    assert plan.log_csv == tmp_path / "flight 2.motion.csv"
+    assert plan.log_json == tmp_path / "flight 2.motion.json"
+    assert plan.compare == tmp_path / "flight 2.steady.compare.mp4"
+    moved = plan_outputs(clip, video_out=tmp_path / "o" / "x.mp4", log_out=None,
+                         with_video=True, compare=False)
+    assert moved.log_csv == tmp_path / "o" / "flight 2.motion.csv" and moved.compare is None
+    with pytest.raises(StabilizeError, match=r"\*\.csv"):
+        plan_outputs(clip, video_out=None, log_out=tmp_path / "x.txt", with_video=False,
+                     compare=False)
+    files = clip_files(tmp_path, "flight 2", with_video=True)
+    report = report_files(tmp_path, "flight 2", frames=True, log=True)
+    assert files["report"] == report["html"] == tmp_path / "flight 2.report.html"
+    assert files["shake_json"] == report["json"] == tmp_path / "flight 2.shake.json"
+    assert files["log"] == report["log_csv"] and files["video"] == plan.video
+    assert "video" not in clip_files(tmp_path, "flight 2", with_video=False)

@@ -11,7 +11,6 @@ import pytest
 
 from stabilize import shake
 from stabilize.geometry import frame_centre, similarity_readout
-from stabilize.path import accumulate
 from stabilize.residual import (
     CheckSettings,
     MotionCheck,
@@ -197,6 +196,8 @@ def test_summary_out_figures_come_from_the_measured_output():
     sway = 2.0 * np.sin(2 * np.pi * 2.5 * t)
     matrices = np.stack([_similarity(d, 0.0, 0.0, c) for d in np.diff(sway, prepend=0.0)])
     status = np.full(n, "ok")
+    from stabilize.raw_path import accumulate
+
     path = accumulate(matrices)
     corrections = np.linalg.inv(path)      # a plan that removes everything
     smooth = np.zeros((n, 4))

@@ -8,7 +8,7 @@ import pytest
 
 from stabilize import runner, segments
 from stabilize.io import iter_frame_range, iter_frames, probe
-from stabilize.pipeline import measure
+from stabilize.jobs import measure
 
 from .conftest import noise_frames, write_clip
 

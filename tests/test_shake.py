@@ -7,7 +7,7 @@ import pytest
 
 import stabilize
 from stabilize.geometry import frame_centre, from_similarity, similarity_readout
-from stabilize.path import accumulate
+from stabilize.raw_path import accumulate
 from stabilize.shake import (
     NOISE_FLOOR_PX,
     SHAKE_BANDS_HZ,
@@ -310,7 +310,7 @@ def test_a_static_shot_has_no_peak_and_is_steady():
     h[1:, 0, 0] = h[1:, 1, 1] = np.cos(a)
     h[1:, 1, 0], h[1:, 0, 1] = np.sin(a), -np.sin(a)
     status = np.array(["ok"] * n)
-    from stabilize.path import accumulate
+    from stabilize.raw_path import accumulate
 
     p = accumulate(h, status == "cut")
     s = summarise(matrices=h, path=p, status=status, fps=fps, width=768, height=576,
@@ -344,7 +344,7 @@ def test_stability_leaves_out_cuts_and_stand_ins():
     status[300:305] = "failed"
     h[200, 0, 2], h[400, 1, 2] = 300.0, -250.0  # motion across a cut is no camera motion
     h[300:305, 0, 2] = 40.0  # a bad stand-in
-    from stabilize.path import accumulate
+    from stabilize.raw_path import accumulate
 
     p = accumulate(h, status == "cut")
     s = summarise(matrices=h, path=p, status=status, fps=30.0, width=640, height=360,
@@ -366,7 +366,7 @@ def test_stability_of_the_output_is_not_spoilt_by_cuts():
     status = np.array(["ok"] * n, dtype="<U6")
     status[300] = "cut"
     h[300, 0, 2] = 200.0
-    from stabilize.path import accumulate
+    from stabilize.raw_path import accumulate
 
     p = accumulate(h, status == "cut")
     s = summarise(matrices=h, path=p, status=status, fps=30.0, width=640, height=360,

@@ -10,7 +10,8 @@ import pytest
 
 import stabilize
 from stabilize import framing
-from stabilize.config import Settings
+from stabilize.camera_path import encode
+from stabilize.config import AUTO_MARGIN_CAP, Settings
 from stabilize.geometry import (
     apply,
     frame_centre,
@@ -19,13 +20,12 @@ from stabilize.geometry import (
     similarity_readout,
 )
 from stabilize.io import iter_frames
-from stabilize.log import MotionLog
-from stabilize.path import accumulate, encode, smooth_path
-from stabilize.pipeline import plan_corrections
+from stabilize.raw_path import accumulate
 from stabilize.shake import shake_component
 from stabilize.smoothers.kalman import kalman_smooth
 from stabilize.smoothers.l1 import L1Settings, l1_smooth
 from stabilize.smoothers.lockoff import hold_pose
+from stabilize.steady_path import plan_corrections, smooth_path
 from stabilize.synthetic import MotionSpec, SceneSpec, ShakeSpec, SyntheticClip
 
 from .conftest import write_clip
@@ -193,26 +193,23 @@ def test_smooth_path_rejects_unknown_smoothers_and_l1_without_margin(still_path)
         smooth_path(still_path, smoother="l1", **args)
 
 
-def _motion_log(clip: SyntheticClip) -> MotionLog:
-    n = clip.n_frames
-    zeros = np.zeros(n)
-    return MotionLog(time_s=clip.times_s.copy(), matrices=np.array(clip.inter_frame),
-                     tracked=zeros, inliers=zeros, inlier_ratio=zeros, rms_px=zeros,
-                     rounds=zeros, status=np.array(["ok"] * n),
-                     source={"width": W, "height": H, "fps": FPS})
-
-
 @pytest.mark.parametrize("smoother", SMOOTHERS)
 def test_auto_margin_is_chosen_reported_and_respected(smoother, caplog):
-    motion = _motion_log(_clip(0.0, seconds=6.0, seed=5))
+    clip = _clip(0.0, seconds=6.0, seed=5)
+    matrices = np.array(clip.inter_frame)
+    cuts = np.zeros(clip.n_frames, bool)
+    settings = Settings(smoother=smoother)
     with caplog.at_level(logging.INFO, logger="stabilize"):
-        plan_corrections(motion, Settings(smoother=smoother), FPS)
-    margin = motion.summary["margin"]
+        plan = plan_corrections(matrices, cuts, fps=FPS, window_s=settings.window_s,
+                                model=settings.model, smoother=smoother,
+                                margin=settings.margin, width=W, height=H,
+                                auto_cap=AUTO_MARGIN_CAP)
+    margin = plan.figures()["margin"]
     assert 0.0 < margin <= 0.25
     assert any("auto chose" in r.message for r in caplog.records)
-    assert framing.covered(motion.corrections, W, H).all()
-    assert motion.summary["frames_correction_eased"] == 0
-    p = motion.path
+    assert framing.covered(plan.corrections, W, H).all()
+    assert plan.figures()["frames_correction_eased"] == 0
+    p = accumulate(matrices, cuts)
     # Smallest: a clearly smaller margin would not have covered the unconstrained path.
     ref = smooth_path(p, fps=FPS, window_s=1.0, model="similarity", width=W, height=H,
                       smoother="gaussian" if smoother == "l1" else smoother, margin=None)

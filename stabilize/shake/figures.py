@@ -12,7 +12,7 @@ import math
 import numpy as np
 
 from ..geometry import frame_centre, from_similarity, similarity_readout
-from ..path import accumulate, segments
+from ..raw_path import accumulate, segments
 from .spectra import (
     AXES,
     SHAKE_BANDS_HZ,

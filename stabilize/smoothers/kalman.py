@@ -14,8 +14,10 @@ import math
 
 import numpy as np
 
+__all__ = ["kalman_noise", "kalman_smooth"]
+
 # Half-power frequency of the smoother times window_s. 0.375 matches the half-power point of the
-# Gaussian of path.gaussian_smooth (sigma = window_s / 2: exp(-2 pi^2 f^2 sigma^2) = 1/2 at
+# Gaussian of smoothers.gaussian (sigma = window_s / 2: exp(-2 pi^2 f^2 sigma^2) = 1/2 at
 # f = sqrt(2 ln 2) / (pi window_s)), so both smoothers mean the same thing by window_s.
 _HALF_POWER_TIMES_WINDOW = math.sqrt(2.0 * math.log(2.0)) / math.pi
 

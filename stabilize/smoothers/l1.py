@@ -9,11 +9,12 @@ rotation and scale may stray from the raw ones.
 
 Differences from the paper, and why
 -----------------------------------
-* The unknowns are the smoothed path itself in the parameterisation of :func:`stabilize.path.encode`
-  (x, y, angle, log-scale for similarity; frame-corner trajectories for affine and homography),
-  not the entries of an update matrix, so the objective is exactly linear and frame-rate
-  independent. Angle and log-scale are multiplied by the half-diagonal of the frame so every
-  unknown is in pixels of corner motion (a well-scaled programme).
+* The unknowns are the smoothed path itself in the parameterisation of
+  :func:`stabilize.camera_path.encode` (x, y, angle, log-scale for similarity; frame-corner
+  trajectories for affine and homography), not the entries of an update matrix, so the
+  objective is exactly linear and frame-rate independent. Angle and log-scale are multiplied
+  by the half-diagonal of the frame so every unknown is in pixels of corner motion (a
+  well-scaled programme).
 * The inclusion constraint is linearised around the raw path (the correction is small, so the
   error is second order: about r·δ²/2 px for a rotation δ at radius r) and shrunk by
   ``safety_px``; the result is checked with :func:`stabilize.framing.covered` by the caller and
@@ -37,10 +38,13 @@ import numpy as np
 from scipy import sparse
 from scipy.optimize import linprog
 
+from ..camera_path import decode, uses_corners
 from ..geometry import apply, frame_corners
-from ..path import decode, gaussian_smooth, uses_corners
+from .gaussian import gaussian_smooth
 
-log = logging.getLogger("stabilize")
+__all__ = ["L1Settings", "l1_smooth"]
+
+_log = logging.getLogger("stabilize")
 
 
 @dataclass(frozen=True)
@@ -98,7 +102,7 @@ def _inclusion(q0: np.ndarray, p: np.ndarray, margin: float, model: str, width: 
     """Linearised positions of the crop window's corners in each source frame.
 
     With S = decode(q) the smoothed path, the output corner o maps to the source point
-    u = P⁻¹ · S · Z⁻¹ · o (see :mod:`stabilize.log`); Z⁻¹ · o is the crop-window corner w.
+    u = P⁻¹ · S · Z⁻¹ · o (see :mod:`stabilize.motion_log`); Z⁻¹ · o is the crop-window corner w.
     Returns u0 (n, 8) at q0 and the Jacobian J (n, 8, k) of u with respect to the scaled
     unknowns z = q · scale, by central differences (exact for the linear parts).
     """
@@ -178,7 +182,7 @@ def _solve_chunk(z0: np.ndarray, z_follow: np.ndarray, u0: np.ndarray, jac: np.n
     res = linprog(c, A_ub=a_ub, b_ub=b_ub, A_eq=a_eq, b_eq=b_eq, bounds=all_bounds,
                   method="highs")
     if res.status != 0:
-        log.debug("l1 chunk: linprog status %d: %s", res.status, res.message)
+        _log.debug("l1 chunk: linprog status %d: %s", res.status, res.message)
         return None
     return res.x[:nz].reshape(n, k)
 
@@ -199,7 +203,7 @@ def l1_smooth(
 
     Parameters
     ----------
-    q : (n, k) the raw path ``p`` encoded (:func:`stabilize.path.encode`).
+    q : (n, k) the raw path ``p`` encoded (:func:`stabilize.camera_path.encode`).
     p : (n, 3, 3) the raw path P_t (frame t to the segment's first frame).
     fps : frames per second. window_s : time scale, seconds (scales the weights of the second
         and third differences and the follow term).

@@ -11,10 +11,13 @@ import logging
 
 import numpy as np
 
+from ..camera_path import decode, encode
 from ..framing import covered, fit_to_margin, stabilising_warps, zoom
-from ..path import decode, encode, gaussian_smooth
+from .gaussian import gaussian_smooth
 
-log = logging.getLogger("stabilize")
+__all__ = ["hold_pose", "lockoff_path"]
+
+_log = logging.getLogger("stabilize")
 
 # Time scale of the fall-back path, in units of window_s: heavy enough to read as a nearly
 # fixed camera, light enough to stay within a reasonable margin (common practice, our choice).
@@ -65,7 +68,7 @@ def lockoff_path(
     # slowly and brings no shake of its own.
     s, kept = fit_to_margin(p, held, margin, model=model, width=width, height=height, fps=fps,
                             window_s=_FALLBACK_WINDOWS * window_s, toward=heavy)
-    log.warning("lockoff: margin %.3f cannot hold one camera pose in %d of %d frames; the "
+    _log.warning("lockoff: margin %.3f cannot hold one camera pose in %d of %d frames; the "
                 "virtual camera was eased toward a heavily smoothed path there", margin,
                 int(np.count_nonzero(kept < 1.0)), len(p))
     return s

@@ -14,12 +14,11 @@ import time
 import numpy as np
 
 from stabilize import framing
-from stabilize.config import Settings
-from stabilize.geometry import similarity_readout
-from stabilize.log import MotionLog
-from stabilize.path import accumulate, smooth_path
-from stabilize.pipeline import plan_corrections
+from stabilize.config import AUTO_MARGIN_CAP
+from stabilize.geometry import frame_centre, similarity_readout
+from stabilize.raw_path import accumulate
 from stabilize.shake import shake_component
+from stabilize.steady_path import plan_corrections, smooth_path
 from stabilize.synthetic import MotionSpec, SceneSpec, ShakeSpec, SyntheticClip
 
 
@@ -42,26 +41,24 @@ def main() -> None:
     t_smooth = time.perf_counter() - t0
 
     n = len(matrices)
-    zeros = np.zeros(n)
-    motion = MotionLog(time_s=np.arange(n) / fps, matrices=matrices, tracked=zeros,
-                       inliers=zeros, inlier_ratio=zeros, rms_px=zeros, rounds=zeros,
-                       status=np.array(["ok"] * n), source={"width": w, "height": h})
     t0 = time.perf_counter()
-    plan_corrections(motion, Settings(smoother="l1", margin=args.margin), fps)
+    plan = plan_corrections(matrices, np.zeros(n, bool), fps=fps, window_s=1.0,
+                            model="similarity", smoother="l1", margin=args.margin, width=w,
+                            height=h, auto_cap=AUTO_MARGIN_CAP)
     t_plan = time.perf_counter() - t0
 
-    uncovered = int(np.count_nonzero(~framing.covered(motion.corrections, w, h)))
+    uncovered = int(np.count_nonzero(~framing.covered(plan.corrections, w, h)))
     raw_ok = int(np.count_nonzero(framing.covered(framing.corrections(p, s, args.margin, w, h),
                                                   w, h)))
-    path_x = motion.smooth_values[:, 0]
-    raw_x = similarity_readout(p, motion.centre)[:, 0]
+    path_x = plan.smooth_values[:, 0]
+    raw_x = similarity_readout(p, frame_centre(w, h))[:, 0]
     shake_in = np.std(shake_component(raw_x, fps, 1.0))
     shake_out = np.std(shake_component(path_x, fps, 1.0))
     print(f"l1 smoother, {n} frames at {fps:g} fps ({n / fps:.0f} s), {w}x{h}, "
           f"margin {args.margin}")
     print(f"  smooth_path(l1):          {t_smooth:6.2f} s  (LP result covers {raw_ok}/{n} frames)")
     print(f"  plan_corrections (total): {t_plan:6.2f} s  uncovered frames: {uncovered}, "
-          f"eased: {motion.summary['frames_correction_eased']}")
+          f"eased: {plan.frames_eased}")
     print(f"  residual shake x: {100 * shake_out / shake_in:.2f} % of the input's")
     print("  target: under 30 s")
 

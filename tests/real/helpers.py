@@ -14,7 +14,7 @@ import numpy as np
 from scipy.ndimage import median_filter
 
 from stabilize.io import iter_frames
-from stabilize.log import MotionLog
+from stabilize.motion_log import MotionLog
 
 __all__ = ["apply_homography", "path_excursion_px", "real_rate_hz", "reference_path_px",
            "region_drift_px", "region_shifts_px"]

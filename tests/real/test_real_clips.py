@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 
 import stabilize
-from stabilize.log import MotionLog
+from stabilize.motion_log import MotionLog
 
 from .helpers import path_excursion_px, real_rate_hz, reference_path_px, region_drift_px
 

@@ -1,26 +1,8 @@
-"""The motion log: its schema, its coordinate convention, and CSV/JSON reading and writing.
+"""Motion-log files: ``NAME.motion.csv`` and the JSON beside it, written and read.
 
-Coordinate convention (stated here once; every stage uses it)
---------------------------------------------------------------
-Pixel coordinates are (x, y) in full-resolution source pixels, x to the right and y down, with
-the origin at the *centre* of the top-left pixel: pixel column j, row i has its centre at
-(j, i). This is OpenCV's convention for ``warpPerspective`` and ``remap``.
-
-A 3×3 matrix M acts on homogeneous column vectors (x, y, 1) and is normalised so m33 = 1.
-
-* ``H_t`` (the ``h11 … h33`` columns) maps pixel coordinates of frame t−1 to frame t: a scene
-  point seen at p in frame t−1 is seen at H_t·p in frame t, so
-  ``cv2.warpPerspective(frame[t-1], H_t, (w, h))`` reproduces frame t where both see the scene.
-  Frame 0's matrix is the identity.
-* The raw camera path is ``P_t = A_t⁻¹`` with ``A_t = H_t ⋯ H_1``: P_t maps pixels of frame t
-  to where they lie in frame 0. A pan to the right makes ``path_x`` grow.
-* The smoothed path ``S_t`` is the same for the virtual (steady) camera.
-* The correction ``C_t`` (``c11 … c33``) maps pixels of source frame t to pixels of output
-  frame t: the output is ``cv2.warpPerspective(frame[t], C_t, (w, h))``.
-
-Any such matrix is read as a similarity about the frame centre c = ((w−1)/2, (h−1)/2):
-``dx, dy`` = M(c) − c, rotation ``atan2(m21 − m12, m11 + m22)`` in degrees, and scale
-``sqrt(|m11·m22 − m12·m21|)`` (see :func:`similarity_readout`).
+Writing is atomic (temporary name, then rename; the CSV and its JSON together). Reading treats
+a log as data from outside: every problem is a :class:`~stabilize.errors.StabilizeError` naming
+the file and line. The record and its columns are :mod:`stabilize.motion_log`.
 """
 
 from __future__ import annotations
@@ -29,137 +11,83 @@ import csv
 import io
 import json
 import math
-from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 
-from .errors import StabilizeError
-from .geometry import frame_centre, normalise, similarity_readout
-from .io import all_or_nothing, write_text_atomic
-
-FORMAT = "stabilize-motion-log"
-VERSION = 1
-STATUSES = ("ok", "weak", "failed", "cut")
-
-_H = [f"h{r}{c}" for r in (1, 2, 3) for c in (1, 2, 3)]
-_C = [f"c{r}{c}" for r in (1, 2, 3) for c in (1, 2, 3)]
-#: The columns every version-1 log has.
-BASE_COLUMNS = (
-    ["frame", "time_s", *_H, "dx", "dy", "rotation_deg", "scale",
-     "tracked", "inliers", "inlier_ratio", "rms_px", "rounds", "status",
-     "path_x", "path_y", "path_deg", "path_scale",
-     "smooth_x", "smooth_y", "smooth_deg", "smooth_scale", *_C]
+from ..errors import StabilizeError
+from ..geometry import normalise
+from ..motion_log import (
+    BASE_COLUMNS,
+    C_COLUMNS,
+    CHECK_COLUMNS,
+    COLUMNS,
+    FORMAT,
+    H_COLUMNS,
+    OUT_CHECK,
+    SMOOTH_COLUMNS,
+    SRC_CHECK,
+    STATUSES,
+    VERSION,
+    MotionLog,
+    use_files,
 )
-#: The motion measured on the frames while rendering (:mod:`stabilize.residual`): of the
-#: output (``out_*``) and of the source (``src_check_*``), frame t−1 to t, read as a
-#: similarity about the frame centre. Written after the base columns; older logs lack them.
-OUT_CHECK = ["out_dx", "out_dy", "out_deg"]
-SRC_CHECK = ["src_check_dx", "src_check_dy", "src_check_deg"]
-CHECK_COLUMNS = [*OUT_CHECK, *SRC_CHECK]
-COLUMNS = [*BASE_COLUMNS, *CHECK_COLUMNS]
+from ..version import __version__
+from .publishing import all_or_nothing, write_text_atomic
+
+__all__ = ["json_path_for", "jsonable", "log_csv", "log_json", "read_log", "save_log"]
 
 
-@dataclass
-class MotionLog:
-    """Per-frame camera motion of one clip, with diagnostics, path and (after steady) corrections.
+# --------------------------------------------------------------------- writing
+def log_csv(motion: MotionLog) -> str:
+    """The CSV text of a log: header row, then one row per frame (:data:`COLUMNS`).
 
-    Arrays have one row per decoded frame. ``matrices`` are the inter-frame transforms H_t,
-    ``corrections`` the C_t (None before smoothing), ``smooth_values`` the smoothed path S_t
-    read as (x, y, degrees, scale) per frame (None before smoothing); see the module docstring
-    for the convention. ``output_check`` and ``source_check`` are (frames, 3) dx, dy (pixels)
-    and degrees: the inter-frame motion measured on the written output and on the source
-    frames while rendering (nan where not measured; None before rendering).
+    Numbers are written with ``repr`` (they round-trip exactly); non-finite ones as ``nan``;
+    columns a job did not fill (smoothed path, corrections, checks) are left empty.
     """
+    r = motion.readouts()
+    buf = io.StringIO()
+    writer = csv.writer(buf, lineterminator="\n")
+    writer.writerow(COLUMNS)
+    h = normalise(motion.matrices).reshape(-1, 9)
+    cm = None if motion.corrections is None else normalise(motion.corrections).reshape(-1, 9)
+    for t in range(motion.frames):
+        row: list[Any] = [t, _num(motion.time_s[t])]
+        row += [_num(v) for v in h[t]]
+        row += [_num(v) for v in r["motion"][t]]
+        row += [int(motion.tracked[t]), int(motion.inliers[t]), _num(motion.inlier_ratio[t]),
+                _num(motion.rms_px[t]), int(motion.rounds[t]), str(motion.status[t])]
+        row += [_num(v) for v in r["path"][t]]
+        row += [_num(v) for v in r["smooth"][t]] if "smooth" in r else [""] * 4
+        row += [_num(v) for v in cm[t]] if cm is not None else [""] * 9
+        for check in (motion.output_check, motion.source_check):
+            row += [_num(v) for v in check[t]] if check is not None else [""] * 3
+        writer.writerow(row)
+    return buf.getvalue()
 
-    time_s: np.ndarray
-    matrices: np.ndarray
-    tracked: np.ndarray
-    inliers: np.ndarray
-    inlier_ratio: np.ndarray
-    rms_px: np.ndarray
-    rounds: np.ndarray
-    status: np.ndarray
-    source: dict[str, Any] = field(default_factory=dict)
-    settings: dict[str, Any] = field(default_factory=dict)
-    summary: dict[str, Any] = field(default_factory=dict)
-    smooth_values: np.ndarray | None = None
-    corrections: np.ndarray | None = None
-    extra: dict[str, Any] = field(default_factory=dict)
-    output_check: np.ndarray | None = None
-    source_check: np.ndarray | None = None
 
-    @property
-    def frames(self) -> int:
-        return len(self.time_s)
+def log_json(motion: MotionLog) -> dict[str, Any]:
+    """The JSON document of a log: format, version, source, settings, summary, tool version,
+    then the log's ``extra`` keys."""
+    doc = {
+        "format": FORMAT, "version": VERSION, "source": motion.source,
+        "settings": motion.settings, "summary": jsonable(motion.summary),
+        "tool_version": __version__,
+    }
+    doc.update(jsonable(motion.extra))
+    return doc
 
-    @property
-    def size(self) -> tuple[int, int]:
-        return int(self.source["width"]), int(self.source["height"])
 
-    @property
-    def centre(self) -> np.ndarray:
-        return frame_centre(*self.size)
-
-    @property
-    def path(self) -> np.ndarray:
-        """Raw camera path P_t, (frames, 3, 3), restarting at scene cuts."""
-        from .path import accumulate
-
-        return accumulate(self.matrices, self.status == "cut")
-
-    def readouts(self) -> dict[str, np.ndarray]:
-        """The derived columns: per-frame motion and path read as similarities."""
-        c = self.centre
-        out = {"motion": similarity_readout(self.matrices, c),
-               "path": similarity_readout(self.path, c)}
-        if self.smooth_values is not None:
-            out["smooth"] = np.asarray(self.smooth_values, dtype=np.float64)
-        return out
-
-    # ----------------------------------------------------------------- writing
-    def to_csv(self) -> str:
-        r = self.readouts()
-        buf = io.StringIO()
-        writer = csv.writer(buf, lineterminator="\n")
-        writer.writerow(COLUMNS)
-        h = normalise(self.matrices).reshape(-1, 9)
-        cm = None if self.corrections is None else normalise(self.corrections).reshape(-1, 9)
-        for t in range(self.frames):
-            row: list[Any] = [t, _num(self.time_s[t])]
-            row += [_num(v) for v in h[t]]
-            row += [_num(v) for v in r["motion"][t]]
-            row += [int(self.tracked[t]), int(self.inliers[t]), _num(self.inlier_ratio[t]),
-                    _num(self.rms_px[t]), int(self.rounds[t]), str(self.status[t])]
-            row += [_num(v) for v in r["path"][t]]
-            row += [_num(v) for v in r["smooth"][t]] if "smooth" in r else [""] * 4
-            row += [_num(v) for v in cm[t]] if cm is not None else [""] * 9
-            for check in (self.output_check, self.source_check):
-                row += [_num(v) for v in check[t]] if check is not None else [""] * 3
-            writer.writerow(row)
-        return buf.getvalue()
-
-    def to_json(self) -> dict[str, Any]:
-        from . import __version__
-
-        doc = {
-            "format": FORMAT, "version": VERSION, "source": self.source,
-            "settings": self.settings, "summary": _jsonable(self.summary),
-            "tool_version": __version__,
-        }
-        doc.update(_jsonable(self.extra))
-        return doc
-
-    def save(self, csv_path: str | Path) -> tuple[Path, Path]:
-        """Write ``NAME.motion.csv`` and its JSON beside it; returns both paths."""
-        csv_path = Path(csv_path)
-        json_path = json_path_for(csv_path)
-        with all_or_nothing():  # the CSV and its JSON appear together or not at all
-            write_text_atomic(csv_path, self.to_csv())
-            write_text_atomic(json_path,
-                              json.dumps(self.to_json(), indent=2, allow_nan=False) + "\n")
-        return csv_path, json_path
+def save_log(motion: MotionLog, csv_path: str | Path) -> tuple[Path, Path]:
+    """Write ``NAME.motion.csv`` and its JSON beside it; returns both paths."""
+    csv_path = Path(csv_path)
+    json_path = json_path_for(csv_path)
+    with all_or_nothing():  # the CSV and its JSON appear together or not at all
+        write_text_atomic(csv_path, log_csv(motion))
+        write_text_atomic(json_path,
+                          json.dumps(log_json(motion), indent=2, allow_nan=False) + "\n")
+    return csv_path, json_path
 
 
 def json_path_for(csv_path: Path) -> Path:
@@ -174,13 +102,14 @@ def _num(v: float) -> str:
     return repr(v)
 
 
-def _jsonable(obj: Any) -> Any:
+def jsonable(obj: Any) -> Any:
+    """``obj`` with NumPy values turned into plain ones and non-finite floats into None."""
     if isinstance(obj, dict):
-        return {str(k): _jsonable(v) for k, v in obj.items()}
+        return {str(k): jsonable(v) for k, v in obj.items()}
     if isinstance(obj, list | tuple):
-        return [_jsonable(v) for v in obj]
+        return [jsonable(v) for v in obj]
     if isinstance(obj, np.ndarray):
-        return _jsonable(obj.tolist())
+        return jsonable(obj.tolist())
     if isinstance(obj, np.integer):
         return int(obj)
     if isinstance(obj, float | np.floating):
@@ -189,11 +118,13 @@ def _jsonable(obj: Any) -> Any:
     return obj
 
 
+use_files(to_csv=log_csv, to_json=log_json, save=save_log)
+
+
 # --------------------------------------------------------------------- reading
 # Logs are data from outside: a file edited by hand, cut short, or from somewhere else. Every
 # problem found is a StabilizeError naming the file and line, never another exception.
 _INT_COLUMNS = ("tracked", "inliers", "rounds")
-_SMOOTH = ["smooth_x", "smooth_y", "smooth_deg", "smooth_scale"]
 _MAX_COUNT = 2**31 - 1
 _MAX_SIDE_PX = 1 << 16
 
@@ -271,7 +202,7 @@ def _read_rows(csv_path: Path) -> tuple[np.ndarray, np.ndarray, np.ndarray, bool
     status = np.empty(n, dtype=object)
     has_smooth = has_corr = True
     status_col = names.index("status")
-    optional = {j for j, name in enumerate(names) if name in _SMOOTH or name in _C}
+    optional = {j for j, name in enumerate(names) if name in SMOOTH_COLUMNS or name in C_COLUMNS}
     checks = {j for j, name in enumerate(names) if name in CHECK_COLUMNS}
     written: set[str] = set()
     for t, (row, line) in enumerate(zip(body, body_lines, strict=True)):
@@ -297,7 +228,7 @@ def _read_rows(csv_path: Path) -> tuple[np.ndarray, np.ndarray, np.ndarray, bool
                 written.add(name)
             if cell == "" and j in optional:
                 numeric[t, j] = np.nan
-                if name in _SMOOTH:
+                if name in SMOOTH_COLUMNS:
                     has_smooth = False
                 else:
                     has_corr = False
@@ -330,17 +261,17 @@ def _check_rows(csv_path: Path, numeric: np.ndarray, lines: np.ndarray,
         with np.errstate(invalid="ignore"):
             ok = np.isfinite(v) & (v >= 0) & (v <= _MAX_COUNT) & (v == np.round(v))
         first_bad(ok, f"{name} is not a whole number of 0 or more")
-    h = numeric[:, [col[c] for c in _H]].reshape(n, 3, 3)
+    h = numeric[:, [col[c] for c in H_COLUMNS]].reshape(n, 3, 3)
     first_bad(np.isfinite(h).reshape(n, -1).all(axis=1), "transform has a non-finite value")
     with np.errstate(all="ignore"):
         det = np.linalg.det(h)
     ok = np.isfinite(det) & (np.abs(det) > 1e-12) & (h[:, 2, 2] != 0)
     first_bad(ok, "transform is singular (it cannot be inverted)")
     if has_corr:
-        c = numeric[:, [col[name] for name in _C]]
+        c = numeric[:, [col[name] for name in C_COLUMNS]]
         first_bad(np.isfinite(c).all(axis=1), "correction has a non-finite value")
     if has_smooth:
-        sm = numeric[:, [col[name] for name in _SMOOTH]]
+        sm = numeric[:, [col[name] for name in SMOOTH_COLUMNS]]
         first_bad(np.isfinite(sm).all(axis=1), "smoothed path has a non-finite value")
 
 
@@ -362,12 +293,12 @@ def read_log(csv_path: str | Path) -> MotionLog:
     _check_rows(csv_path, numeric, lines, has_smooth, has_corr, names)
     n = len(numeric)
     col = {name: j for j, name in enumerate(names)}
-    h = numeric[:, [col[c] for c in _H]].reshape(n, 3, 3)
+    h = numeric[:, [col[c] for c in H_COLUMNS]].reshape(n, 3, 3)
     corrections = smooth_values = None
     if has_corr:
-        corrections = numeric[:, [col[c] for c in _C]].reshape(n, 3, 3)
+        corrections = numeric[:, [col[c] for c in C_COLUMNS]].reshape(n, 3, 3)
     if has_smooth:
-        smooth_values = numeric[:, [col[c] for c in _SMOOTH]]
+        smooth_values = numeric[:, [col[c] for c in SMOOTH_COLUMNS]]
     checks = {}
     for key, cols in (("output_check", OUT_CHECK), ("source_check", SRC_CHECK)):
         # Columns left empty (a log not rendered) read as absent, not as unmeasured.
@@ -392,19 +323,3 @@ def read_log(csv_path: str | Path) -> MotionLog:
                if k not in {"format", "version", "source", "settings", "summary",
                             "tool_version"}},
     )
-
-
-def frame_reasons(reasons: np.ndarray) -> dict[str, list[int]]:
-    """Frames that are weak or failed for a stated reason, by reason (see
-    :data:`stabilize.motion_track.REASONS`): ``{"foreground": [12, 13], ...}``."""
-    return {str(r): np.flatnonzero(reasons == r).tolist()
-            for r in sorted(set(reasons.tolist())) if r}
-
-
-def reasons_of(motion: MotionLog) -> np.ndarray:
-    """Per-frame reason codes ('' for none) from a log's ``frame_reasons``."""
-    out = np.full(len(motion.status), "", "<U12")
-    for reason, frames in (motion.extra.get("frame_reasons") or {}).items():
-        idx = np.asarray([f for f in frames if isinstance(f, int) and 0 <= f < len(out)], int)
-        out[idx] = str(reason)[:12]
-    return out

@@ -1,15 +1,18 @@
-"""Many clips: every video under a folder (or matching a glob), on local worker processes or a
-Dask cluster, resumable, with a summary CSV and an HTML page linking each clip's report.
+"""The batch job: many clips, on local worker processes or a Dask cluster, resumable.
 
-Outputs mirror the input tree under ``--out-dir``: ``ROOT/a/b/flight.mp4`` gives
+Every video under a folder (or matching a glob) is steadied or measured, with its report; a
+summary CSV and an HTML page link each clip's report.
+
+Outputs mirror the input tree under the output folder: ``ROOT/a/b/flight.mp4`` gives
 ``OUT/a/b/flight.steady.mp4``, ``flight.motion.csv`` / ``.json`` and the report files, so clips
 of equal names in different folders never collide; clips of equal names in the same folder
 (``flight.mp4``, ``flight.mov``) keep their extension in NAME (``flight.mov.steady.mp4``).
 
 A clip is done when its motion log JSON records the source's size and modification time
-(``source.size_bytes``, ``source.mtime_ns``, written last, after every other output), the
-same kind of job (``batch.job``) and the same settings, and every output is there. Such a clip
-is skipped; ``force`` redoes it. One clip's failure never stops the others.
+(``source.size_bytes``, ``source.mtime_ns``), the same kind of job (``batch.job``) and the
+same settings, and every output is there. A clip's outputs (video, log, report) are published
+together, so a log that records the source never stands without the rest. Such a clip is
+skipped; ``force`` redoes it. One clip's failure never stops the others.
 """
 
 from __future__ import annotations
@@ -26,12 +29,27 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from .config import Settings
-from .errors import StabilizeError
-from .io import write_text_atomic
-from .runner import default_workers, parallel_map
+import cv2
 
-log = logging.getLogger("stabilize")
+from ..config import Settings, setting_label
+from ..errors import StabilizeError
+from ..io import all_or_nothing, write_text_atomic
+from ..io.motion_log_files import save_log
+from ..report_page import dominant_text, fmt_sig, html_page, html_table
+from ..runner import default_workers, parallel_map
+from ..version import __version__
+from .analysis import measure_clip
+from .outputs import check_job_outputs, check_outputs, clip_files, plan_outputs, report_files
+from .rendering import steady_clip
+from .report import find_videos, report_for_log
+
+__all__ = [
+    "COLUMNS", "FIGURES", "VIDEO_EXTENSIONS", "BatchResult", "ClipJob", "ClipResult",
+    "done_before", "find_clips", "fingerprint", "output_names", "process_clip", "run_batch",
+    "summary_csv", "summary_html",
+]
+
+_log = logging.getLogger("stabilize")
 
 #: File endings taken as video (compared case-insensitively).
 VIDEO_EXTENSIONS = frozenset({
@@ -120,12 +138,8 @@ class ClipJob:
         return "measure" if self.measure_only else "steady"
 
     def outputs(self) -> dict[str, Path]:
-        d, n = Path(self.folder), self.name
-        outs = {"log": d / f"{n}.motion.csv", "log_json": d / f"{n}.motion.json",
-                "report": d / f"{n}.report.html", "shake_json": d / f"{n}.shake.json"}
-        if not self.measure_only:
-            outs["video"] = d / f"{n}.steady.mp4"
-        return outs
+        """The clip's files by role (:func:`stabilize.jobs.outputs.clip_files`)."""
+        return clip_files(Path(self.folder), self.name, with_video=not self.measure_only)
 
 
 @dataclass
@@ -199,13 +213,34 @@ class _Collect(logging.Handler):
         self.messages.append(record.getMessage())
 
 
+def _do_clip(job: ClipJob, clip: Path, settings: Settings) -> dict:
+    """The clip's log and report, published together; returns the log's summary. The log
+    records the source's fingerprint, which marks the clip as done (:func:`done_before`)."""
+    outs = job.outputs()
+    stamp = dict(source_extra=fingerprint(clip), extra={"batch": {"job": job.job}})
+    with all_or_nothing():
+        if job.measure_only:
+            motion = measure_clip(clip, settings, None, **stamp)
+            save_log(motion, outs["log"])
+        else:
+            outputs = plan_outputs(clip, video_out=outs["video"], log_out=outs["log"],
+                                   with_video=True, compare=settings.compare)
+            check_job_outputs(clip, outputs, settings.force)
+            motion = steady_clip(clip, outputs, settings, **stamp)
+        folder = Path(job.folder)
+        videos = find_videos(motion, None, outs["log"], job.name)
+        files = report_files(folder, job.name, frames=videos[0] is not None, log=False)
+        check_outputs([p for p in (outs["log"], outs["log_json"], *videos) if p is not None],
+                      files, settings.force)
+        report_for_log(motion, settings, files, name=job.name, log_csv=outs["log"],
+                       clip=videos[0], steadied=videos[1])
+    return motion.summary
+
+
 def process_clip(job: ClipJob) -> ClipResult:
     """Do one clip (``steady`` or ``measure``, then its report); never raises: a failure is a
     ``failed`` result with a one-line error. Warnings are returned, not printed, so the
     caller reports them (a worker process has no terminal of its own)."""
-    from . import pipeline
-    from .report import make_report
-
     logger = logging.getLogger("stabilize")
     collect = _Collect()
     logger.addHandler(collect)
@@ -217,21 +252,10 @@ def process_clip(job: ClipJob) -> ClipResult:
     outs = job.outputs()
     try:
         Path(job.folder).mkdir(parents=True, exist_ok=True)
-        fp = fingerprint(clip)
         # The batch owns its out dir: stale or partial outputs of its own are replaced.
         settings = job.settings.replace(force=True, quiet=True)
-        if job.measure_only:
-            motion = pipeline.measure(clip, settings=settings)
-            motion.save(outs["log"])
-        else:
-            motion = pipeline.steady(clip, outs["video"], log_path=outs["log"],
-                                     settings=settings)
-        make_report(outs["log"], job.folder, force=True, quiet=True)
-        # Written last: a log that records the source marks the clip as done.
-        motion.source.update(fp)
-        motion.extra["batch"] = {"job": job.job}
-        motion.save(outs["log"])
-        return ClipResult(job.label, "done", summary=motion.summary,
+        summary = _do_clip(job, clip, settings)
+        return ClipResult(job.label, "done", summary=summary,
                           outputs={k: str(v) for k, v in outs.items()},
                           warnings=collect.messages)
     except StabilizeError as exc:
@@ -245,8 +269,6 @@ def process_clip(job: ClipJob) -> ClipResult:
 
 
 def _process_in_worker(job: ClipJob) -> ClipResult:
-    import cv2
-
     # Workers share the cores: one OpenCV thread each, or they oversubscribe.
     cv2.setNumThreads(1)
     return process_clip(job)
@@ -272,10 +294,10 @@ def run_batch(inputs: str | os.PathLike, out_dir: str | os.PathLike, *,
     """Process every clip of ``inputs`` into ``out_dir``; see the module docstring."""
     out = Path(out_dir)
     if out.exists() and not out.is_dir():
-        raise StabilizeError(f"{out}: --out-dir must be a folder")
+        raise StabilizeError(f"{out}: not a folder (the batch's outputs need one)")
     workers = default_workers() if workers is None else int(workers)
     if workers < 1:
-        raise StabilizeError(f"option --workers: {workers} is not a positive number")
+        raise StabilizeError(f"{setting_label('workers')}: {workers} is not a positive number")
     root, clips = find_clips(inputs, out)
     out.mkdir(parents=True, exist_ok=True)
     names = output_names(root, clips)
@@ -308,9 +330,9 @@ def run_batch(inputs: str | os.PathLike, out_dir: str | os.PathLike, *,
                 outcome = ClipResult(jobs[i].label, "failed", error=f"worker failed: "
                                      f"{type(outcome).__name__}: {outcome}")
             for message in outcome.warnings:
-                log.warning("%s", message)
+                _log.warning("%s", message)
             if outcome.status == "failed":
-                log.warning("%s: failed: %s", jobs[i].label, outcome.error)
+                _log.warning("%s: failed: %s", jobs[i].label, outcome.error)
             results[i] = outcome
             if bar is not None:
                 bar.update(1)
@@ -344,24 +366,15 @@ def _verdict_cell(row: dict[str, Any]) -> str:
            f"</span>{more}"
 
 
-def _dominant_text(summary: dict[str, Any], axis: str, fmt: Callable[[Any], str]) -> str:
-    hz = summary.get(f"dominant_hz_{axis}")
-    if hz is None and summary.get(f"jitter_rms_{axis}_px") is not None:
-        return "no clear peak"
-    return fmt(hz)
-
-
 def summary_html(results: list[ClipResult], out_dir: Path) -> str:
-    """One self-contained page (no scripts, no network): a table of every clip with its
-    figures and links to its report, video and log (relative, so the folder can move)."""
-    from . import __version__
-    from .report_page import fmt_sig
-
+    """One self-contained page (no scripts, no network), in the report pages' look: a table of
+    every clip with its figures and links to its report, video and log (relative, so the
+    folder can move)."""
     esc = html.escape
-    heads = ("clip", "status", "frames", "verdict", "shake x (px)", "shake y (px)",
+    heads = ["clip", "status", "frames", "verdict", "shake x (px)", "shake y (px)",
              "shake rot (deg)", "dominant x (Hz)", "dominant y (Hz)", "weak", "failed",
-             "files")
-    rows = []
+             "files"]
+    rows, classes = [], []
     for r in results:
         row = r.row(out_dir)
         links = " ".join(f'<a href="{esc(row[k])}">{label}</a>'
@@ -371,34 +384,15 @@ def summary_html(results: list[ClipResult], out_dir: Path) -> str:
         cells = [esc(r.clip), esc(r.status), esc(str(row["frames"])), _verdict_cell(row)]
         cells += [esc(fmt_sig(r.summary.get(k))) for k in
                   ("jitter_rms_x_px", "jitter_rms_y_px", "jitter_rms_rot_deg")]
-        cells += [esc(_dominant_text(r.summary, axis, fmt_sig)) for axis in ("x", "y")]
+        cells += [esc(dominant_text(r.summary, axis, fmt_sig)) for axis in ("x", "y")]
         cells += [esc(str(row["frames_weak"])), esc(str(row["frames_failed"])), detail]
-        rows.append(f'<tr class="{esc(r.status)}">' + "".join(f"<td>{c}</td>" for c in cells)
-                    + "</tr>")
+        rows.append(cells)
+        classes.append(r.status)
     counts = {s: sum(r.status == s for r in results) for s in ("done", "skipped", "failed")}
-    return f"""<!DOCTYPE html>
-<html lang="en"><head><meta charset="utf-8">
-<meta name="viewport" content="width=device-width, initial-scale=1">
-<title>stabilize batch summary</title>
-<style>
-body {{ font-family: sans-serif; color: #24323f; margin: 1rem; }}
-table {{ border-collapse: collapse; font-size: 0.9rem; }}
-th, td {{ border-bottom: 1px solid #d0d6dc; padding: 0.3rem 0.5rem; text-align: left; }}
-tr.failed td {{ background: #fbe9e7; }}
-.why {{ font-size: 0.8rem; color: #5f6b76; white-space: normal; }}
-.trust-rough {{ color: #8a6100; font-weight: 600; }}
-.trust-unreliable {{ color: #b3261e; font-weight: 600; }}
-.wrap {{ overflow-x: auto; }}
-</style></head><body>
-<h1>Batch summary</h1>
-<p>{len(results)} clips: {counts['done']} done, {counts['skipped']} skipped (done before),
-{counts['failed']} failed. Shake figures describe the camera as the frames sample it. The
-verdict says how far each clip's figures can be trusted (sound, rough or unreliable) and
-why; each clip's report says more.</p>
-<div class="wrap"><table>
-<tr>{''.join(f'<th>{esc(h)}</th>' for h in heads)}</tr>
-{chr(10).join(rows)}
-</table></div>
-<p>stabilize {esc(__version__)}</p>
-</body></html>
-"""
+    intro = (f"<p>{len(results)} clips: {counts['done']} done, {counts['skipped']} skipped "
+             f"(done before), {counts['failed']} failed. Shake figures describe the camera as "
+             "the frames sample it. The verdict says how far each clip's figures can be "
+             "trusted (sound, rough or unreliable) and why; each clip's report says more.</p>")
+    return html_page(title="Batch summary", header="", body=intro + html_table(heads, rows,
+                                                                              classes),
+                     footer=f"Written by stabilize {esc(__version__)}.")

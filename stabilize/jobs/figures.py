@@ -1,0 +1,64 @@
+"""The shake figures of a job's log: the summary block, composed from the shake and
+steadiness stages over the log's per-frame arrays."""
+
+from __future__ import annotations
+
+import logging
+from typing import Any
+
+import numpy as np
+
+from .. import residual, shake
+from ..raw_path import accumulate
+
+__all__ = ["shake_summary", "warn_if_irregular"]
+
+_log = logging.getLogger("stabilize")
+
+
+def shake_summary(*, matrices: np.ndarray, status: np.ndarray, time_s: np.ndarray,
+                  rms_px: np.ndarray, inliers: np.ndarray, reasons: np.ndarray,
+                  width: int, height: int, fps_nominal: float, above_hz: float,
+                  fov_deg: float | None, smooth_values: np.ndarray | None = None,
+                  corrections: np.ndarray | None = None,
+                  output_check: np.ndarray | None = None,
+                  source_check: np.ndarray | None = None,
+                  steadiness: bool = False) -> dict[str, Any]:
+    """Shake figures of one clip (:func:`stabilize.shake.summarise`), in real time (the
+    frames' own timestamps), and with ``steadiness`` the comparison of the written video
+    with its source (:func:`stabilize.residual.steadiness`).
+
+    Parameters
+    ----------
+    matrices : (n, 3, 3) H_t. status, reasons : (n,) status and reason codes.
+    time_s : (n,) frame times, s. rms_px : (n,) fit residual, px. inliers : (n,) counts.
+    width, height : frame size, px. fps_nominal : the container's rate, frames per second.
+    above_hz : shake cut-off, Hz. fov_deg : horizontal field of view, degrees, or None.
+    smooth_values : (n, 4) smoothed path readout; corrections : (n, 3, 3) C_t; None before
+        smoothing. output_check, source_check : (n, 3) motion measured while rendering.
+    steadiness : whether to add the figures of the written video against its source.
+
+    Returns
+    -------
+    dict : the summary keys (the verdict is added by the job, over every key it has).
+    """
+    cuts = status == "cut"
+    summary = shake.summarise(
+        matrices=matrices, path=accumulate(matrices, cuts), status=status, fps=fps_nominal,
+        width=width, height=height, above_hz=above_hz, fov_deg=fov_deg,
+        smooth_readout=smooth_values, corrections=corrections, time_s=time_s, rms_px=rms_px,
+        inliers=inliers, reasons=reasons, output_motion_readout=output_check,
+    )
+    if steadiness:
+        summary |= residual.steadiness(output_check, source_check, cuts=cuts,
+                                       fps=summary["fps"], above_hz=above_hz, width=width,
+                                       height=height)
+    return summary
+
+
+def warn_if_irregular(where: Any, summary: dict[str, Any], nominal_fps: float) -> None:
+    """Say so when the frame times are irregular (the figures use their real mean rate)."""
+    if summary.get("timestamps_irregular"):
+        _log.warning("%s: the frame times are irregular; the figures and the smoothing use "
+                     "their real mean rate of %.3g fps, not the container's %.3g fps",
+                     where, summary["fps"], nominal_fps)

@@ -1,0 +1,255 @@
+"""The report job: shake figures as JSON, plots as PNG, and one self-contained HTML page.
+
+``stabilize report CLIP_OR_LOG`` reads a motion log (or measures the clip first), works out the
+shake figures again from the log's per-frame data (:mod:`stabilize.jobs.figures`), draws the
+plots (:mod:`stabilize.report_plots`) and writes, into the output folder:
+
+* ``NAME.shake.json``: the summary, the notes on its uncertainty and the settings used;
+* ``NAME.path.png``, ``NAME.spectrum.png``, ``NAME.fit.png`` and, when the video is at hand,
+  ``NAME.frames.png``;
+* ``NAME.report.html``: everything above on one page (:mod:`stabilize.report_page`), the
+  images embedded as data URIs, with no network access, readable on a phone.
+
+Every file is written under a temporary name and renamed when complete.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from .. import report_plots, shake
+from ..config import Settings, logged_settings, resolve_settings
+from ..errors import StabilizeError
+from ..geometry import similarity_readout
+from ..io import all_or_nothing, publish, temp_path_for, write_text_atomic
+from ..io.motion_log_files import json_path_for, jsonable, read_log, save_log
+from ..motion_log import MotionLog, reasons_of
+from ..report_page import CAUTIONS, render_page
+from ..version import __version__
+from .analysis import ProgressFactory, measure_clip
+from .figures import shake_summary
+from .outputs import check_outputs, log_name, motion_log, report_files, steady_video
+
+__all__ = [
+    "FORMAT", "VERSION", "Report", "find_videos", "make_report", "report_figures",
+    "report_for_log",
+]
+
+FORMAT = "stabilize-shake-report"
+VERSION = 1
+
+
+@dataclass
+class Report:
+    """What :func:`make_report` wrote: output paths by role, the summary and its notes."""
+
+    outputs: dict[str, Path]
+    summary: dict[str, Any]
+    notes: list[str]
+    settings: dict[str, Any] = field(default_factory=dict)
+
+
+def _nominal_fps(motion: MotionLog) -> float:
+    """The container's frame rate of a log (frames per second): its source's, else the one
+    its summary was computed with; 0 when none is known."""
+    for fps in (motion.source.get("fps"), motion.summary.get("fps_nominal"),
+                motion.summary.get("fps")):
+        if isinstance(fps, int | float) and not isinstance(fps, bool) and fps > 0:
+            return float(fps)
+    return 0.0
+
+
+def report_figures(motion: MotionLog, settings: Settings) -> tuple[dict[str, Any], float]:
+    """The log's summary with the shake figures worked out again from its per-frame data, so a
+    report honours the field of view and shake cut-off given now and shows figures added
+    since the log was written. Keys only the writing job knows (margin …) are kept.
+
+    Returns the summary and the real frame rate (Hz) of the log's timestamps
+    (:func:`stabilize.shake.frame_rate`).
+    """
+    nominal = _nominal_fps(motion)
+    fps = shake.frame_rate(motion.time_s, nominal)
+    if not fps > 0:
+        raise StabilizeError("the motion log has no usable frame rate (source fps missing)")
+    w, h = motion.size
+    fresh = shake_summary(
+        matrices=motion.matrices, status=motion.status, time_s=motion.time_s,
+        rms_px=motion.rms_px, inliers=motion.inliers, reasons=reasons_of(motion), width=w,
+        height=h, fps_nominal=nominal or fps, above_hz=settings.shake_above_hz,
+        fov_deg=settings.fov_deg, smooth_values=motion.smooth_values,
+        corrections=motion.corrections, output_check=motion.output_check,
+        source_check=motion.source_check,
+        steadiness=motion.output_check is not None and motion.corrections is not None)
+    out = dict(motion.summary)
+    out.update(fresh)
+    # Keys only later stages know (output_steadier …) count in the verdict too.
+    out.update(shake.trust_verdict(out))
+    out["fov_deg"] = settings.fov_deg
+    finite = np.isfinite(motion.inlier_ratio) & (motion.tracked > 0)
+    out["inlier_ratio_median"] = (float(np.median(motion.inlier_ratio[finite]))
+                                  if finite.any() else None)
+    good = np.isfinite(motion.rms_px) & (motion.status != "failed")
+    out["fit_rms_px_median"] = float(np.median(motion.rms_px[good])) if good.any() else None
+    return out, fps
+
+
+def _existing(path: str | os.PathLike | None, *, base: Path) -> Path | None:
+    if not path:
+        return None
+    p = Path(path)
+    if not p.is_absolute() and not p.exists():
+        p = base / p
+    return p if p.is_file() else None
+
+
+def find_videos(motion: MotionLog, clip: Path | None, log_csv: Path | None,
+            name: str) -> tuple[Path | None, Path | None]:
+    """The source clip and the steadied video of a log, where they can still be found."""
+    base = log_csv.parent if log_csv else Path(".")
+    if clip is None:
+        clip = _existing(motion.source.get("path"), base=base)
+    steadied = _existing(motion.extra.get("outputs", {}).get("video"), base=base)
+    if steadied is None:
+        for folder in {base, *([clip.parent] if clip else [])}:
+            candidate = steady_video(folder, name)
+            if candidate.is_file():
+                steadied = candidate
+                break
+    return clip, steadied
+
+
+def _write_bytes_atomic(final: Path, data: bytes) -> None:
+    tmp = temp_path_for(final)
+    try:
+        tmp.write_bytes(data)
+        publish(tmp, final)
+    finally:
+        if tmp.exists():
+            tmp.unlink()
+
+
+def report_for_log(motion: MotionLog, settings: Settings, outputs: dict[str, Path], *,
+                   name: str, log_csv: Path | None, clip: Path | None,
+                   steadied: Path | None) -> Report:
+    """Work out the figures, draw the plots and write the report files of a log in memory.
+
+    ``outputs`` are the files by role (:func:`stabilize.jobs.outputs.report_files`), already
+    checked; ``frames_plot`` is dropped when no frame can be read.
+    """
+    outputs = dict(outputs)
+    summary, fps = report_figures(motion, settings)
+    notes = shake.uncertainty_notes(summary)
+    raw = similarity_readout(motion.path, motion.centre)
+    cuts = motion.status == "cut"
+    above = settings.shake_above_hz
+    images = {
+        "path_plot": report_plots.plot_path(time_s=motion.time_s, raw=raw,
+                                            smooth=motion.smooth_values, cuts=cuts, fps=fps,
+                                            above_hz=above),
+        "spectrum_plot": report_plots.plot_spectrum(
+            time_s=motion.time_s, raw=raw, cuts=cuts, fps=fps, above_hz=above,
+            resolution_hz=summary.get("spectrum_resolution_hz")),
+        "fit_plot": report_plots.plot_fit(time_s=motion.time_s, tracked=motion.tracked,
+                                          inlier_ratio=motion.inlier_ratio,
+                                          status=motion.status),
+    }
+    if "frames_plot" in outputs:
+        wanted = report_plots.pick_frames(raw, cuts, fps=fps, above_hz=above)
+        frames_png = report_plots.plot_frames(time_s=motion.time_s, wanted=wanted, clip=clip,
+                                              steadied=steadied)
+        if frames_png is None:
+            del outputs["frames_plot"]
+        else:
+            images["frames_plot"] = frames_png
+    for role, data in images.items():
+        _write_bytes_atomic(outputs[role], data)
+
+    settings_used = settings.to_dict()
+    doc = {
+        "format": FORMAT, "version": VERSION,
+        "source": motion.source, "log": str(log_csv) if log_csv else None,
+        "settings": settings_used, "summary": summary, "notes": notes,
+        "cautions": list(CAUTIONS),
+        "plots": {role: outputs[role].name for role in images},
+        "tool_version": __version__,
+    }
+    write_text_atomic(outputs["json"],
+                      json.dumps(jsonable(doc), indent=2, allow_nan=False) + "\n")
+    html = render_page(name=name, source=motion.source, summary=summary, notes=notes,
+                       settings=settings_used, images=images,
+                       log_name=log_csv.name if log_csv else None, tool_version=__version__)
+    write_text_atomic(outputs["html"], html)
+    return Report(outputs=outputs, summary=summary, notes=notes, settings=settings_used)
+
+
+@all_or_nothing()
+def make_report(clip_or_log: str | os.PathLike, out_dir: str | os.PathLike | None = None, *,
+                config: str | None = None, progress: ProgressFactory | None = None,
+                **options: Any) -> Report:
+    """Write the shake report of a clip or of its motion log.
+
+    Parameters
+    ----------
+    clip_or_log : a motion log (``NAME.motion.csv`` or its ``.json``), or a clip. For a clip,
+        ``NAME.motion.csv`` beside it is read when it exists; otherwise the clip is measured
+        first and the new log is written into ``out_dir`` too.
+    out_dir : folder for the outputs (created when missing); default: beside the input.
+    config : TOML settings file or preset name, as for the other jobs.
+    progress : progress-bar factory, as for :func:`stabilize.measure`.
+    **options : the jobs' options; ``fov_deg`` and ``shake_above_hz`` change the figures,
+        ``force`` allows overwriting earlier outputs.
+
+    Returns
+    -------
+    Report : the paths written, the summary and the notes on its uncertainty.
+    """
+    src = Path(clip_or_log)
+    if not src.is_file():
+        raise StabilizeError(f"{src}: no such file")
+    name = log_name(src)
+    clip: Path | None = None
+    log_csv: Path | None = None
+    motion: MotionLog | None = None
+    if src.suffix.lower() in (".csv", ".json"):
+        log_csv = src.with_suffix(".csv") if src.suffix.lower() == ".json" else src
+    else:
+        clip = src
+        beside = motion_log(src.parent, name)
+        log_csv = beside if beside.is_file() else None
+    if log_csv is not None:
+        motion = read_log(log_csv)
+        settings = logged_settings(motion.settings, config, options)
+    else:
+        settings = resolve_settings(config, options)
+    folder = Path(out_dir) if out_dir else src.parent
+    if folder.exists() and not folder.is_dir():
+        raise StabilizeError(f"{folder}: not a folder (the report's outputs need one)")
+    folder.mkdir(parents=True, exist_ok=True)
+
+    # Before the (possibly long) measurement, settle every output and refuse clashes.
+    if motion is None:
+        video_at_hand: tuple[Path | None, Path | None] = (clip, None)
+        steady_guess = steady_video(src.parent, name)
+        if steady_guess.is_file():
+            video_at_hand = (clip, steady_guess)
+    else:
+        video_at_hand = find_videos(motion, clip, log_csv, name)
+    inputs = [p for p in (src, log_csv, *video_at_hand) if p is not None]
+    if log_csv is not None:
+        inputs.append(json_path_for(log_csv))
+    outputs = report_files(folder, name, frames=video_at_hand[0] is not None,
+                           log=motion is None)
+    check_outputs(inputs, outputs, settings.force)
+
+    if motion is None:
+        motion = measure_clip(src, settings, progress)
+        save_log(motion, outputs["log_csv"])
+        log_csv = outputs["log_csv"]
+    return report_for_log(motion, settings, outputs, name=name, log_csv=log_csv,
+                          clip=video_at_hand[0], steadied=video_at_hand[1])

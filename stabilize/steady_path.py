@@ -1,0 +1,187 @@
+"""The steady camera path: smooth the raw path, settle the margin, plan the corrections C_t.
+
+A stage over arrays: it takes the inter-frame transforms, the scene cuts, the frame rate, the
+time scale and the margin budget, and returns a new :class:`CorrectionPlan`. Conventions are
+those of :mod:`stabilize.motion_log`; the smoothers work segment by segment between cuts.
+"""
+
+from __future__ import annotations
+
+import logging
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from . import framing
+from .camera_path import decode, encode
+from .config import SMOOTHERS
+from .geometry import frame_centre, similarity_readout
+from .raw_path import accumulate, segments
+from .smoothers.gaussian import gaussian_smooth
+from .smoothers.kalman import kalman_smooth
+from .smoothers.lockoff import lockoff_path
+
+__all__ = ["SMOOTHERS", "CorrectionPlan", "plan_corrections", "smooth_path", "unchanged_plan"]
+
+_log = logging.getLogger("stabilize")
+
+
+def smooth_path(
+    p: np.ndarray,
+    *,
+    fps: float,
+    window_s: float,
+    model: str,
+    width: int,
+    height: int,
+    cuts: np.ndarray | None = None,
+    smoother: str = "gaussian",
+    margin: float | None = None,
+) -> np.ndarray:
+    """Smoothed camera path S_t (n, 3, 3) of a raw path P_t, segment by segment between cuts.
+
+    Parameters
+    ----------
+    p : (n, 3, 3) raw path (:func:`stabilize.raw_path.accumulate`).
+    fps : frames per second. window_s : smoothing time scale, seconds.
+    model : motion model; fixes the parameterisation (:func:`stabilize.camera_path.encode`).
+    width, height : frame size, pixels.
+    cuts : (n,) bool, frames that start a new shot; every shot is smoothed on its own.
+    smoother : ``gaussian`` (zero-phase Gaussian, σ = window_s / 2), ``kalman``
+        (constant-velocity Kalman filter + RTS pass), ``l1`` (L1-optimal path with the
+        framing constraint; needs ``margin``) or ``lockoff`` (one held pose per shot; with a
+        ``margin`` it eases toward a heavy smoothing where the margin cannot hold it).
+    margin : crop budget, fraction per side, for the smoothers that respect it in their own
+        solve (``l1``, ``lockoff``); the others ignore it (:func:`stabilize.framing.fit_to_margin`
+        applies the budget to every smoother afterwards).
+
+    Returns
+    -------
+    (n, 3, 3) S_t.
+    """
+    if smoother not in SMOOTHERS:
+        raise ValueError(f"unknown smoother {smoother!r}")
+    if smoother == "l1" and margin is None:
+        raise ValueError("the l1 smoother needs a margin")
+    n = len(p)
+    cuts = np.zeros(n, bool) if cuts is None else np.asarray(cuts, bool)
+    out = np.empty_like(p)
+    for seg in segments(cuts):
+        ps = p[seg]
+        if smoother == "lockoff":
+            out[seg] = lockoff_path(ps, fps=fps, window_s=window_s, margin=margin, model=model,
+                                    width=width, height=height)
+            continue
+        q = encode(ps, model, width, height)
+        if smoother == "kalman":
+            qs = kalman_smooth(q, fps, window_s)
+        elif smoother == "l1":
+            # lazy: SciPy's optimiser, which a run with another smoother should not pay for.
+            from .smoothers.l1 import l1_smooth
+
+            qs = l1_smooth(q, ps, fps=fps, window_s=window_s, margin=float(margin),
+                           model=model, width=width, height=height)
+            if qs is None:
+                _log.warning("l1: the linear programme could not be solved for frames %d-%d; "
+                             "used the Gaussian path there", seg.start, seg.stop - 1)
+                qs = gaussian_smooth(q, fps, window_s)
+        else:
+            qs = gaussian_smooth(q, fps, window_s)
+        out[seg] = decode(qs, model, width, height)
+    return out
+
+
+@dataclass(frozen=True)
+class CorrectionPlan:
+    """The steady path of a clip and the corrections that take each source frame to it.
+
+    Attributes
+    ----------
+    corrections : (n, 3, 3) C_t, source frame t to output frame t (pixels).
+    smooth_values : (n, 4) the smoothed path S_t read as a similarity about the frame centre
+        (x, y in pixels, degrees, scale).
+    margin : the margin used, fraction cut from each side; None when the clip is passed
+        through unchanged.
+    frames_eased : frames whose correction was eased to fit the margin; None when passed
+        through.
+    """
+
+    corrections: np.ndarray
+    smooth_values: np.ndarray
+    margin: float | None = None
+    frames_eased: int | None = None
+
+    def figures(self) -> dict[str, Any]:
+        """The plan's keys of the log's summary: ``margin``, ``frames_correction_eased``."""
+        if self.margin is None:
+            return {}
+        return {"margin": self.margin, "frames_correction_eased": self.frames_eased}
+
+
+def plan_corrections(matrices: np.ndarray, cuts: np.ndarray, *, fps: float, window_s: float,
+                     model: str, smoother: str, margin: str | float, width: int, height: int,
+                     auto_cap: float) -> CorrectionPlan:
+    """Smooth the path, settle the margin, and plan S_t and C_t.
+
+    ``margin="auto"`` takes the smallest constant margin, up to ``auto_cap``, that the
+    smoother's unconstrained path needs: its own path for ``gaussian``, ``kalman`` and
+    ``lockoff`` (the held pose), and the Gaussian path at the same time scale for ``l1``
+    (whose path, being constrained by the margin, would otherwise fit any margin by doing
+    nothing). The budget is then enforced on every smoother by :func:`framing.fit_to_margin`.
+
+    Parameters
+    ----------
+    matrices : (n, 3, 3) inter-frame transforms H_t (pixels).
+    cuts : (n,) bool, frames that start a new shot.
+    fps : real frame rate, frames per second. window_s : smoothing time scale, seconds.
+    model, smoother : motion model and smoother names.
+    margin : ``"auto"`` or the fraction cut from each side.
+    width, height : frame size, pixels.
+    auto_cap : the largest margin ``"auto"`` may choose.
+
+    Returns
+    -------
+    CorrectionPlan
+    """
+    w, h = width, height
+    p = accumulate(matrices, cuts)
+    common = dict(fps=fps, window_s=window_s, model=model, width=w, height=h, cuts=cuts)
+    s = None
+    if margin == "auto":
+        reference = "gaussian" if smoother == "l1" else smoother
+        s_ref = smooth_path(p, smoother=reference, margin=None, **common)
+        margin = framing.choose_margin(p, s_ref, w, h, auto_cap)
+        _log.info("margin: auto chose %.4f (%.1f%% cut from each side)", margin, 100.0 * margin)
+        if smoother in ("gaussian", "kalman"):
+            s = s_ref
+    else:
+        margin = float(margin)
+    if s is None:
+        s = smooth_path(p, smoother=smoother, margin=margin, **common)
+    s, kept = framing.fit_to_margin(p, s, margin, model=model, width=w, height=h,
+                                    fps=fps, window_s=window_s,
+                                    min_distortion=framing.MIN_DISTORTION)
+    eased = int(np.count_nonzero(kept < 1.0))
+    if np.any(kept < 1.0):
+        _log.warning("margin %.3f too small for the full correction in %d frames; the "
+                     "correction was eased there", margin, eased)
+    return CorrectionPlan(corrections=framing.corrections(p, s, margin, w, h),
+                          smooth_values=similarity_readout(s, frame_centre(w, h)),
+                          margin=margin, frames_eased=eased)
+
+
+def unchanged_plan(matrices: np.ndarray, cuts: np.ndarray, width: int,
+                   height: int) -> CorrectionPlan:
+    """The plan of a clip passed through unchanged (too short or small to steady): identity
+    corrections, and the raw path as the smoothed one.
+
+    Parameters
+    ----------
+    matrices : (n, 3, 3) inter-frame transforms. cuts : (n,) bool.
+    width, height : frame size, pixels.
+    """
+    n = len(matrices)
+    return CorrectionPlan(
+        corrections=np.repeat(np.eye(3)[None], n, axis=0),
+        smooth_values=similarity_readout(accumulate(matrices, cuts), frame_centre(width, height)))
