@@ -4,4 +4,6 @@ import sys
 
 from .cli import main
 
+__all__: list[str] = []
+
 sys.exit(main())

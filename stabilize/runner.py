@@ -220,7 +220,7 @@ def _dask_map(fn, items, workers, scheduler):
         # lazy: Dask is an optional extra and takes seconds to import.
         from distributed import Client, LocalCluster, as_completed
     except ImportError:
-        raise StabilizeError("option --scheduler needs Dask: pip install "
+        raise StabilizeError("setting 'scheduler' needs Dask: pip install "
                              "'stabilize[cluster]'") from None
     cluster = None
     try:
@@ -233,7 +233,7 @@ def _dask_map(fn, items, workers, scheduler):
             try:
                 client = Client(scheduler, timeout="10s")
             except (OSError, TimeoutError, ValueError) as exc:
-                raise StabilizeError(f"option --scheduler: cannot reach a Dask scheduler at "
+                raise StabilizeError(f"setting 'scheduler': cannot reach a Dask scheduler at "
                                      f"{scheduler} ({exc})") from None
         with client:
             futures = [client.submit(fn, item, pure=False) for item in items]

@@ -242,7 +242,7 @@ def fit_in_segments(clip: str | os.PathLike, info: VideoInfo, analysis_size: tup
     """
     workers = default_workers() if workers is None else int(workers)
     if workers < 1:
-        raise StabilizeError(f"option --workers: {workers} is not a positive number")
+        raise StabilizeError(f"setting 'workers': {workers} is not a positive number")
     k = int(keyframe_every or keyframe_frames(info.fps))
     if k < 2:
         raise StabilizeError(f"keyframe spacing {k} frames is too short (at least 2)")

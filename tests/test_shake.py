@@ -147,7 +147,7 @@ def test_notes_say_when_the_figures_are_uncertain():
     status[5] = "failed"
     notes = uncertainty_notes(_summary_of(p, status=status.astype(str), fov_deg=None))
     text = " ".join(notes)
-    assert "not reliable" in text and "stand-in" in text and "--fov-deg" in text
+    assert "not reliable" in text and "stand-in" in text and "fov_deg" in text
     assert uncertainty_notes(_summary_of(p)) == []
     # A peak near the Nyquist frequency may be faster vibration folded down.
     near = uncertainty_notes(_summary_of(_sine_path(13.5, 2.0)))
