@@ -17,18 +17,52 @@ __all__ = ["blend", "decode", "encode", "uses_corners"]
 
 
 def uses_corners(model: str | MotionModel) -> bool:
-    """Whether paths of this motion model are smoothed as corner trajectories."""
+    """Whether paths of this motion model are smoothed as corner trajectories.
+
+    Parameters
+    ----------
+    model : motion-model name or object (:func:`stabilize.motion_models.model_named`).
+
+    Returns
+    -------
+    True for corner trajectories (affine, homography), False for the similarity about the
+    frame centre (translation, similarity).
+    """
     return model_named(model).uses_corners
 
 
 def encode(p: np.ndarray, model: str | MotionModel, width: int, height: int) -> np.ndarray:
-    """Path matrices (n, 3, 3) -> the smoothing parameterisation of ``model``
-    (:meth:`stabilize.motion_models.MotionModel.encode`)."""
+    """Path matrices (n, 3, 3) -> the smoothing parameterisation of ``model``.
+
+    See :meth:`stabilize.motion_models.MotionModel.encode`.
+
+    Parameters
+    ----------
+    p : (n, 3, 3) path matrices, pixels (convention of :mod:`stabilize.geometry`).
+    model : motion-model name or object.
+    width, height : frame size, pixels.
+
+    Returns
+    -------
+    (n, 4) x, y (pixels), angle (radians), log-scale, or (n, 8) corner trajectories x0, y0, …
+    x3, y3 (pixels), as :func:`uses_corners` says.
+    """
     return model_named(model).encode(p, width, height)
 
 
 def decode(q: np.ndarray, model: str | MotionModel, width: int, height: int) -> np.ndarray:
-    """Inverse of :func:`encode` (:meth:`stabilize.motion_models.MotionModel.decode`)."""
+    """Inverse of :func:`encode` (:meth:`stabilize.motion_models.MotionModel.decode`).
+
+    Parameters
+    ----------
+    q : (n, 4) or (n, 8) values in the parameterisation of ``model`` (see :func:`encode`).
+    model : motion-model name or object.
+    width, height : frame size, pixels.
+
+    Returns
+    -------
+    (n, 3, 3) path matrices, pixels, m33 = 1.
+    """
     return model_named(model).decode(q, width, height)
 
 

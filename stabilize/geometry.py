@@ -33,7 +33,16 @@ __all__ = [
 
 
 def frame_centre(width: int, height: int) -> np.ndarray:
-    """Centre of a width × height frame under the pixel-centre convention, (x, y) pixels."""
+    """Centre of a width × height frame under the pixel-centre convention.
+
+    Parameters
+    ----------
+    width, height : frame size, pixels.
+
+    Returns
+    -------
+    (2,) the centre (x, y) = ((w−1)/2, (h−1)/2), pixels, in the convention of this module.
+    """
     return np.array([(width - 1) / 2.0, (height - 1) / 2.0])
 
 
@@ -62,14 +71,33 @@ def similarity_readout(m: np.ndarray, centre: np.ndarray) -> np.ndarray:
 
 
 def normalise(m: np.ndarray) -> np.ndarray:
-    """Scale (..., 3, 3) matrices so their bottom-right element is 1."""
+    """Scale 3×3 matrices so their bottom-right element is 1.
+
+    Parameters
+    ----------
+    m : (..., 3, 3) matrices (any units; m33 must be non-zero).
+
+    Returns
+    -------
+    (..., 3, 3) float64 copies divided by their own m33.
+    """
     m = np.asarray(m, dtype=np.float64)
     return m / m[..., 2:3, 2:3]
 
 
 def to_similarity(p: np.ndarray, centre: np.ndarray) -> np.ndarray:
-    """(n, 3, 3) -> (n, 4): x, y (pixels, where the centre goes minus the centre), angle
-    (radians) and log-scale of the matrices read as similarities about ``centre``."""
+    """Read path matrices as similarities about ``centre``: (n, 3, 3) -> (n, 4).
+
+    Parameters
+    ----------
+    p : (n, 3, 3) matrices in pixels (convention of this module).
+    centre : (2,) the frame centre (x, y), pixels (:func:`frame_centre`).
+
+    Returns
+    -------
+    (n, 4) x, y (pixels, where the centre goes minus the centre), angle (radians, unwrapped
+    along the n frames) and log-scale (natural log of sqrt |det| of the 2×2 part).
+    """
     cx, cy = centre
     w = p[:, 2, 0] * cx + p[:, 2, 1] * cy + p[:, 2, 2]
     x = (p[:, 0, 0] * cx + p[:, 0, 1] * cy + p[:, 0, 2]) / w - cx
@@ -81,7 +109,17 @@ def to_similarity(p: np.ndarray, centre: np.ndarray) -> np.ndarray:
 
 
 def from_similarity(q: np.ndarray, centre: np.ndarray) -> np.ndarray:
-    """Inverse of :func:`to_similarity`: (n, 4) -> (n, 3, 3) similarities about ``centre``."""
+    """Inverse of :func:`to_similarity`: (n, 4) -> (n, 3, 3) similarities about ``centre``.
+
+    Parameters
+    ----------
+    q : (n, 4) x, y (pixels), angle (radians) and log-scale, as :func:`to_similarity` gives.
+    centre : (2,) the frame centre (x, y), pixels.
+
+    Returns
+    -------
+    (n, 3, 3) similarity matrices with m33 = 1 (perspective terms zero).
+    """
     cx, cy = centre
     s = np.exp(q[:, 3])
     cos, sin = s * np.cos(q[:, 2]), s * np.sin(q[:, 2])
@@ -94,24 +132,64 @@ def from_similarity(q: np.ndarray, centre: np.ndarray) -> np.ndarray:
 
 
 def frame_corners(width: int, height: int) -> np.ndarray:
-    """The four corner pixel centres (4, 2), clockwise from the top-left."""
+    """The four corner pixel centres, clockwise on screen from the top-left.
+
+    Parameters
+    ----------
+    width, height : frame size, pixels.
+
+    Returns
+    -------
+    (4, 2) corners (x, y) in pixels under the pixel-centre convention: top-left (0, 0),
+    top-right, bottom-right (w−1, h−1), bottom-left.
+    """
     return np.array([[0.0, 0.0], [width - 1.0, 0.0], [width - 1.0, height - 1.0],
                      [0.0, height - 1.0]])
 
 
 def apply(m: np.ndarray, pts: np.ndarray) -> np.ndarray:
-    """Map points (k, 2) by matrices (n, 3, 3) -> (n, k, 2), with perspective division."""
+    """Map points by each of several matrices, with perspective division.
+
+    Parameters
+    ----------
+    m : (n, 3, 3) matrices acting on homogeneous column vectors (x, y, 1).
+    pts : (k, 2) points (x, y), pixels.
+
+    Returns
+    -------
+    (n, k, 2) the mapped points, pixels.
+    """
     h = np.einsum("nij,kj->nki", m[:, :, :2], pts) + m[:, None, :, 2]
     return h[..., :2] / h[..., 2:3]
 
 
 def to_corners(p: np.ndarray, width: int, height: int) -> np.ndarray:
-    """(n, 3, 3) -> (n, 8): where the frame corners land under each matrix."""
+    """Where the frame corners land under each matrix: (n, 3, 3) -> (n, 8).
+
+    Parameters
+    ----------
+    p : (n, 3, 3) matrices in pixels.
+    width, height : frame size, pixels.
+
+    Returns
+    -------
+    (n, 8) x0, y0, … x3, y3 (pixels) of the corners of :func:`frame_corners`, in that order.
+    """
     return apply(p, frame_corners(width, height)).reshape(len(p), 8)
 
 
 def from_corners(corners: np.ndarray, width: int, height: int) -> np.ndarray:
-    """(n, 8) -> (n, 3, 3): the homographies taking the frame corners to ``corners``."""
+    """The homographies taking the frame corners to ``corners``: (n, 8) -> (n, 3, 3).
+
+    Parameters
+    ----------
+    corners : (n, 8) x0, y0, … x3, y3, pixels, in the order of :func:`frame_corners`.
+    width, height : frame size, pixels.
+
+    Returns
+    -------
+    (n, 3, 3) homographies with m33 = 1 (inverse of :func:`to_corners`).
+    """
     src = frame_corners(width, height)
     dst = corners.reshape(-1, 4, 2)
     n = len(dst)
@@ -139,6 +217,7 @@ def rescale(matrices: np.ndarray, scale: tuple[float, float], *,
     ----------
     matrices : (..., 3, 3) transforms between frames in the original pixels.
     scale : (sx, sy), new pixels per original pixel along x and y.
+    normalised : divide the result by its m33 (default True).
 
     Returns
     -------

@@ -39,13 +39,31 @@ MIN_SIDE_PX = 24
 
 
 def measurable(width: int, height: int) -> bool:
-    """Whether frames of this size carry enough picture to track at all."""
+    """Whether frames of this size carry enough picture to track at all.
+
+    Parameters
+    ----------
+    width, height : frame size, pixels.
+
+    Returns
+    -------
+    bool : True when the shorter side is at least :data:`MIN_SIDE_PX` pixels.
+    """
     return min(width, height) >= MIN_SIDE_PX
 
 
 def warm_up_frames(keyframe_every: int) -> int:
     """Frames a fresh analysis runs before a keyframe so that it takes over there with
-    tracks that have a history (about a sixteenth of the interval: 0.6 s of a 10-s one)."""
+    tracks that have a history (about a sixteenth of the interval: 0.6 s of a 10-s one).
+
+    Parameters
+    ----------
+    keyframe_every : keyframe interval, frames.
+
+    Returns
+    -------
+    int : warm-up length, frames (at least 2).
+    """
     return max(2, keyframe_every // 16)
 
 
@@ -70,6 +88,8 @@ def fit_motion(
     settings : model, consensus threshold (full-resolution pixels), confidence, rounds, seed,
         ignored regions.
     on_frame : called with 1 after each frame (progress).
+    track_settings : feature-tracking settings; None for the defaults.
+    cut_settings : scene-cut detection settings; None for the defaults.
     first_index : index in the clip of the first frame given; per-frame seeds are
         ``[seed, first_index + t]``, so a segment of a clip draws what a single pass draws.
     keyframe_every : restart every ``keyframe_every`` frames of the clip (at indices that are

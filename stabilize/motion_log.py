@@ -74,7 +74,14 @@ _FILES: dict[str, Callable[..., Any]] = {}
 
 def use_files(*, to_csv: Callable[[MotionLog], str], to_json: Callable[[MotionLog], dict],
               save: Callable[[MotionLog, Path], tuple[Path, Path]]) -> None:
-    """Set the functions behind :meth:`MotionLog.to_csv`, ``to_json`` and ``save``."""
+    """Set the functions behind :meth:`MotionLog.to_csv`, ``to_json`` and ``save``.
+
+    Parameters
+    ----------
+    to_csv : log -> CSV text.
+    to_json : log -> JSON document (a dict).
+    save : (log, CSV path) -> (CSV path, JSON path) written.
+    """
     _FILES.update(to_csv=to_csv, to_json=to_json, save=save)
 
 
@@ -111,26 +118,55 @@ class MotionLog:
 
     @property
     def frames(self) -> int:
-        """Number of frames (rows)."""
+        """Number of frames (rows).
+
+        Returns
+        -------
+        int : the length of ``time_s``.
+        """
         return len(self.time_s)
 
     @property
     def size(self) -> tuple[int, int]:
-        """Source frame (width, height), pixels."""
+        """Source frame (width, height), pixels.
+
+        Returns
+        -------
+        (int, int) : ``source["width"]``, ``source["height"]``, pixels.
+        """
         return int(self.source["width"]), int(self.source["height"])
 
     @property
     def centre(self) -> np.ndarray:
-        """Frame centre ((w−1)/2, (h−1)/2), pixels."""
+        """Frame centre ((w−1)/2, (h−1)/2), pixels.
+
+        Returns
+        -------
+        (2,) the centre (x, y), pixels (:func:`stabilize.geometry.frame_centre`).
+        """
         return frame_centre(*self.size)
 
     @property
     def path(self) -> np.ndarray:
-        """Raw camera path P_t, (frames, 3, 3), restarting at scene cuts."""
+        """Raw camera path P_t, restarting at scene cuts.
+
+        Returns
+        -------
+        (frames, 3, 3) P_t, frame t to the shot's first frame, pixels
+        (:func:`stabilize.raw_path.accumulate`; frames with status ``cut`` restart it).
+        """
         return accumulate(self.matrices, self.status == "cut")
 
     def readouts(self) -> dict[str, np.ndarray]:
-        """The derived columns: per-frame motion and path read as similarities."""
+        """The derived columns: per-frame motion and path read as similarities.
+
+        Returns
+        -------
+        dict : ``"motion"`` (H_t) and ``"path"`` (P_t), each (frames, 4) dx, dy (pixels),
+        rotation (degrees), scale, read about the frame centre
+        (:func:`stabilize.geometry.similarity_readout`); and ``"smooth"``, the
+        (frames, 4) ``smooth_values``, when the log has them.
+        """
         c = self.centre
         out = {"motion": similarity_readout(self.matrices, c),
                "path": similarity_readout(self.path, c)}
@@ -140,33 +176,84 @@ class MotionLog:
 
     # ------------------------------------------------- files (stabilize.io.motion_log_files)
     def to_csv(self) -> str:
-        """The CSV text of the log (:func:`stabilize.io.motion_log_files.log_csv`)."""
+        """The CSV text of the log (:func:`stabilize.io.motion_log_files.log_csv`).
+
+        Returns
+        -------
+        str : the CSV file's text.
+        """
         return _FILES["to_csv"](self)
 
     def to_json(self) -> dict[str, Any]:
-        """The JSON document of the log (:func:`stabilize.io.motion_log_files.log_json`)."""
+        """The JSON document of the log (:func:`stabilize.io.motion_log_files.log_json`).
+
+        Returns
+        -------
+        dict : the JSON file's document.
+        """
         return _FILES["to_json"](self)
 
     def save(self, csv_path: str | Path) -> tuple[Path, Path]:
-        """Write ``NAME.motion.csv`` and its JSON beside it; returns both paths."""
+        """Write ``NAME.motion.csv`` and its JSON beside it; returns both paths.
+
+        See :func:`stabilize.io.motion_log_files.save_log`.
+
+        Parameters
+        ----------
+        csv_path : where the CSV goes; the JSON takes the same name with ``.json``.
+
+        Returns
+        -------
+        (Path, Path) : the CSV and JSON paths written.
+        """
         return _FILES["save"](self, Path(csv_path))
 
 
 def frame_reasons(reasons: np.ndarray) -> dict[str, list[int]]:
-    """Frames that are weak or failed for a stated reason, by reason (see
-    :data:`stabilize.motion.REASONS`): ``{"foreground": [12, 13], ...}``."""
+    """Frames that are weak or failed for a stated reason, by reason.
+
+    See :data:`stabilize.motion.REASONS`.
+
+    Parameters
+    ----------
+    reasons : (n,) str, per-frame reason codes ('' for none).
+
+    Returns
+    -------
+    dict : reason -> sorted frame indices, e.g. ``{"foreground": [12, 13], ...}``; reasons in
+    alphabetical order, '' left out.
+    """
     return {str(r): np.flatnonzero(reasons == r).tolist()
             for r in sorted(set(reasons.tolist())) if r}
 
 
 def reasons_of(motion: MotionLog) -> np.ndarray:
-    """Per-frame reason codes ('' for none) from a log's ``frame_reasons``."""
+    """Per-frame reason codes ('' for none) from a log's ``frame_reasons``.
+
+    Parameters
+    ----------
+    motion : the log; its ``extra["frame_reasons"]`` is read.
+
+    Returns
+    -------
+    (frames,) ``<U12`` reason codes (:func:`reason_codes`).
+    """
     return reason_codes(motion.extra.get("frame_reasons"), len(motion.status))
 
 
 def reason_codes(by_reason: dict[str, list[int]] | None, n: int) -> np.ndarray:
-    """Per-frame reason codes, (n,) ``<U12`` ('' for none), from :func:`frame_reasons`'
-    mapping (entries that are not frame numbers in range are passed over)."""
+    """Per-frame reason codes from :func:`frame_reasons`' mapping.
+
+    Parameters
+    ----------
+    by_reason : reason -> frame indices, or None for none. Entries that are not frame
+        numbers in range are passed over; reasons are cut to 12 characters.
+    n : number of frames.
+
+    Returns
+    -------
+    (n,) ``<U12`` reason codes ('' for none).
+    """
     out = np.full(n, "", "<U12")
     for reason, frames in (by_reason or {}).items():
         idx = np.asarray([f for f in frames if isinstance(f, int) and 0 <= f < len(out)], int)

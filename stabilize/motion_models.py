@@ -82,12 +82,22 @@ class MotionModel:
 
     @property
     def dof(self) -> int:
-        """Degrees of freedom."""
+        """Degrees of freedom.
+
+        Returns
+        -------
+        int : 2 (translation), 4 (similarity), 6 (affine) or 8 (homography).
+        """
         return self.solver.dof
 
     @property
     def sample_size(self) -> int:
-        """Correspondences in a minimal sample."""
+        """Correspondences in a minimal sample.
+
+        Returns
+        -------
+        int : matched point pairs the minimal solver needs.
+        """
         return self.solver.sample_size
 
     def estimate(self, src: ArrayLike, dst: ArrayLike, **options: Any) -> Fit:
@@ -106,15 +116,33 @@ class MotionModel:
         return estimate(src, dst, model=self.solver, **options)
 
     def residuals(self, matrix: np.ndarray, src: np.ndarray, dst: np.ndarray) -> np.ndarray:
-        """Transfer error (n,) in pixels of ``matrix`` on matched points (n, 2) pixels."""
+        """Transfer error of ``matrix`` on matched points (:func:`transfer_error`).
+
+        Parameters
+        ----------
+        matrix : (3, 3) transform, pixels to pixels.
+        src, dst : (n, 2) matched points, pixels.
+
+        Returns
+        -------
+        (n,) transfer error, pixels.
+        """
         return transfer_error(matrix, src, dst)
 
     def params(self, matrix: ArrayLike) -> np.ndarray:
-        """The model's parameters of (..., 3, 3) matrices, (..., dof).
+        """The model's parameters of 3×3 matrices.
 
         translation: tx, ty (pixels); similarity: a, b, tx, ty with linear part
         [[a, −b], [b, a]]; affine: the top two rows; homography: the first eight entries
         (m33 = 1).
+
+        Parameters
+        ----------
+        matrix : (..., 3, 3) transforms, pixels; normalised to m33 = 1 first.
+
+        Returns
+        -------
+        (..., dof) the parameters in the order above (translations in pixels).
         """
         m = np.asarray(matrix, dtype=np.float64)
         m = m / m[..., 2:3, 2:3]
@@ -125,13 +153,34 @@ class MotionModel:
 
         Corner trajectories (pixels) when :attr:`uses_corners`, otherwise the similarity
         about the centre of the ``width`` × ``height`` frame.
+
+        Parameters
+        ----------
+        p : (n, 3, 3) path matrices, pixels (convention of :mod:`stabilize.geometry`).
+        width, height : frame size, pixels.
+
+        Returns
+        -------
+        (n, 8) corners x0, y0, … x3, y3 in pixels (:func:`stabilize.geometry.to_corners`),
+        or (n, 4) x, y (pixels), angle (radians), log-scale
+        (:func:`stabilize.geometry.to_similarity`).
         """
         if self.uses_corners:
             return to_corners(p, width, height)
         return to_similarity(p, frame_centre(width, height))
 
     def decode(self, q: np.ndarray, width: int, height: int) -> np.ndarray:
-        """Inverse of :meth:`encode`: (n, 4) or (n, 8) -> path matrices (n, 3, 3)."""
+        """Inverse of :meth:`encode`: (n, 4) or (n, 8) -> path matrices (n, 3, 3).
+
+        Parameters
+        ----------
+        q : (n, 8) corner trajectories or (n, 4) similarity values, as :meth:`encode` gives.
+        width, height : frame size, pixels.
+
+        Returns
+        -------
+        (n, 3, 3) path matrices, pixels, m33 = 1.
+        """
         if self.uses_corners:
             return from_corners(q, width, height)
         return from_similarity(q, frame_centre(width, height))
@@ -153,6 +202,10 @@ def model_named(model: str | MotionModel) -> MotionModel:
     Parameters
     ----------
     model : one of :data:`MOTION_MODELS`' names, or a :class:`MotionModel`.
+
+    Returns
+    -------
+    MotionModel : the model (the same object when one was given).
 
     Raises
     ------

@@ -8,7 +8,16 @@ __all__ = ["gaussian_kernel", "gaussian_smooth"]
 
 
 def gaussian_kernel(sigma_frames: float) -> np.ndarray:
-    """Normalised Gaussian taps of standard deviation ``sigma_frames`` (frames), radius 3σ."""
+    """Normalised Gaussian taps of standard deviation ``sigma_frames`` (frames), radius 3σ.
+
+    Parameters
+    ----------
+    sigma_frames : standard deviation, frames.
+
+    Returns
+    -------
+    (2r + 1,) taps summing to 1, r = max(1, ⌈3σ⌉) frames.
+    """
     radius = max(1, int(np.ceil(3.0 * sigma_frames)))
     x = np.arange(-radius, radius + 1, dtype=np.float64)
     k = np.exp(-0.5 * (x / max(sigma_frames, 1e-9)) ** 2)
@@ -36,12 +45,13 @@ def gaussian_smooth(values: np.ndarray, fps: float, window_s: float) -> np.ndarr
 
     Parameters
     ----------
-    values : (n, k) path parameters, one row per frame.
-    fps : frame rate, frames per second. window_s : time scale, seconds.
+    values : (n, k) path parameters, one row per frame (units of the parameterisation).
+    fps : frame rate, frames per second (Hz).
+    window_s : time scale, seconds.
 
     Returns
     -------
-    (n, k) smoothed values.
+    (n, k) smoothed values (a copy of ``values`` when n < 3).
     """
     values = np.asarray(values, dtype=np.float64)
     n = len(values)

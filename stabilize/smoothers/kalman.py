@@ -34,8 +34,9 @@ def kalman_noise(fps: float, window_s: float) -> tuple[float, float]:
     Parameters
     ----------
     fps : frame rate, frames per second.
-    window_s : smoothing time scale, seconds; the half-power frequency is about
-        0.375 / ``window_s`` hertz.
+    window_s : smoothing time scale, seconds; the frequency at which the smoother's gain is
+        one half (−6 dB; the half-power point of the gain squared is lower) is about
+        0.375 / ``window_s`` hertz, as for :func:`stabilize.smoothers.gaussian.gaussian_smooth`.
 
     Returns
     -------
@@ -65,7 +66,7 @@ def kalman_smooth(values: np.ndarray, fps: float, window_s: float) -> np.ndarray
 
     Returns
     -------
-    (n, k) smoothed positions.
+    (n, k) smoothed positions (a copy of ``values`` when n < 3).
     """
     values = np.asarray(values, dtype=np.float64)
     n = len(values)

@@ -21,7 +21,8 @@ Differences from the paper, and why
   repaired by :func:`stabilize.framing.fit_to_margin` if needed.
 * A small L1 pull toward the Gaussian path of the same time scale (``follow_s``) picks, among
   the many equally flat paths the paper's objective allows, the one that stays central in the
-  budget and follows slow deliberate motion lasting longer than about ``follow_s`` seconds;
+  budget and follows slow deliberate motion lasting longer than about ``follow_s · window_s``
+  seconds;
   it is firmer at a chunk's ends, where the first-difference term would otherwise slow a pan
   down by starting ahead of the camera and ending behind it.
 * Long clips are solved in overlapping chunks; each chunk's first frames are fixed to the
@@ -204,17 +205,20 @@ def l1_smooth(
     Parameters
     ----------
     q : (n, k) the raw path ``p`` encoded (:func:`stabilize.camera_path.encode`).
-    p : (n, 3, 3) the raw path P_t (frame t to the segment's first frame).
-    fps : frames per second. window_s : time scale, seconds (scales the weights of the second
-        and third differences and the follow term).
+    p : (n, 3, 3) the raw path P_t (frame t to the segment's first frame), pixels
+        (conventions of :mod:`stabilize.motion_log` and :mod:`stabilize.geometry`).
+    fps : frame rate, frames per second (Hz).
+    window_s : time scale, seconds (scales the weights of the second and third differences
+        and the follow term).
     margin : the crop budget, fraction of width and height cut from each side.
     model, width, height : motion model and frame size in pixels.
     settings : weights, bounds and chunking (:class:`L1Settings`).
 
     Returns
     -------
-    (n, k) the smoothed path in the same parameterisation, or None when a programme could not
-    be solved (the caller falls back to another smoother).
+    (n, k) the smoothed path in the same parameterisation (a copy of ``q`` when n < 4 or
+    ``margin`` ≤ 0), or None when a programme could not be solved (the caller falls back to
+    another smoother).
     """
     q = np.asarray(q, dtype=np.float64)
     n, k = q.shape

@@ -29,6 +29,14 @@ def hold_pose(q: np.ndarray) -> np.ndarray:
 
     The mid-range minimises the largest excursion of the raw path from the held pose in each
     parameter, so it is the pose that needs the smallest margin (parameter by parameter).
+
+    Parameters
+    ----------
+    q : (n, k) the raw path encoded (:func:`stabilize.camera_path.encode`).
+
+    Returns
+    -------
+    (k,) the held pose in the same parameterisation.
     """
     q = np.asarray(q, dtype=np.float64)
     return 0.5 * (q.min(axis=0) + q.max(axis=0))
@@ -48,12 +56,17 @@ def lockoff_path(
 
     Parameters
     ----------
-    p : (n, 3, 3) raw path of the segment.
-    fps : frames per second. window_s : time scale, seconds (of the fall-back path and of the
-        easing).
+    p : (n, 3, 3) raw path of the segment, pixels (conventions of :mod:`stabilize.motion_log`).
+    fps : frame rate, frames per second (Hz).
+    window_s : time scale, seconds (of the fall-back path and of the easing).
     margin : crop budget (fraction per side); None holds the pose regardless (the caller
         chooses a margin for it).
     model, width, height : motion model and frame size in pixels.
+
+    Returns
+    -------
+    (n, 3, 3) the smoothed path S_t: the held pose, eased toward a path smoothed over
+    4 · ``window_s`` in the frames where the margin cannot hold it.
     """
     q = encode(p, model, width, height)
     held = decode(np.repeat(hold_pose(q)[None], len(q), axis=0), model, width, height)
