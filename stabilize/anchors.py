@@ -62,12 +62,27 @@ class Grouping:
 
     @property
     def split(self) -> bool:
-        """Whether a second rigid group moved against the scene."""
+        """Whether a second rigid group moved against the scene.
+
+        Returns
+        -------
+        bool : True when any pair is in ``moved``.
+        """
         return bool(self.moved.any())
 
 
 def hull_share(pts: np.ndarray, frame_size: tuple[int, int]) -> float:
-    """Area of the convex hull of ``pts`` as a share of the frame area (0 to 1)."""
+    """Area of the convex hull of ``pts`` as a share of the frame area (0 to 1).
+
+    Parameters
+    ----------
+    pts : (k, 2) points (x, y), pixels (convention of :mod:`stabilize.geometry`).
+    frame_size : (width, height) of the frame the points lie in, pixels.
+
+    Returns
+    -------
+    float : hull area / (width · height); 0 for fewer than three points.
+    """
     if len(pts) < 3:
         return 0.0
     hull = cv2.convexHull(pts.astype(np.float32).reshape(-1, 1, 2))
@@ -76,22 +91,55 @@ def hull_share(pts: np.ndarray, frame_size: tuple[int, int]) -> float:
 
 def age_share(memo: np.ndarray, now_s: float, settings: BaselineSettings) -> np.ndarray:
     """Each track's age as a share of ``settle_s`` (0 to 1): how long it has been followed
-    without moving on its own."""
+    without moving on its own.
+
+    Parameters
+    ----------
+    memo : (k, WIDTH) per-track records (see the module docstring), one row per track.
+    now_s : time of the current frame, s.
+    settings : supplies ``settle_s``.
+
+    Returns
+    -------
+    (k,) share, 0 to 1 (0 for a track with no time recorded).
+    """
     since = memo[:, SINCE_S]
     age = np.where(np.isfinite(since), np.maximum(0.0, now_s - since), 0.0)
     return np.minimum(1.0, age / max(settings.settle_s, 1e-9))
 
 
 def trust(memo: np.ndarray, now_s: float, settings: BaselineSettings) -> np.ndarray:
-    """Whether each track may speak for the scene (k,) bool: never moved on its own, or not
-    for ``regain_s``."""
+    """Whether each track may speak for the scene: never moved on its own, or not
+    for ``regain_s``.
+
+    Parameters
+    ----------
+    memo : (k, WIDTH) per-track records (see the module docstring), one row per track.
+    now_s : time of the current frame, s.
+    settings : supplies ``regain_s``.
+
+    Returns
+    -------
+    (k,) bool, True for trusted tracks.
+    """
     since = memo[:, SINCE_S]
     age = np.where(np.isfinite(since), now_s - since, np.inf)
     return (np.nan_to_num(memo[:, STRIKES]) == 0) | (age >= settings.regain_s)
 
 
 def first_seen(memo: np.ndarray, prev_s: float) -> np.ndarray:
-    """Records with tracks seen for the first time stamped with the previous frame's time."""
+    """Records with tracks seen for the first time stamped with the previous frame's time.
+
+    Parameters
+    ----------
+    memo : (k, WIDTH) per-track records (see the module docstring), one row per track.
+    prev_s : time of the previous frame, s.
+
+    Returns
+    -------
+    (k, WIDTH) a new array: tracks with no time yet get ``prev_s``, no strikes and not
+    proven; the rest as they were.
+    """
     out = np.array(memo, dtype=np.float64, copy=True)
     new = ~np.isfinite(out[:, SINCE_S])
     out[new, SINCE_S] = prev_s
@@ -101,19 +149,50 @@ def first_seen(memo: np.ndarray, prev_s: float) -> np.ndarray:
 
 
 def prove(memo: np.ndarray, scene: np.ndarray) -> np.ndarray:
-    """Records with the tracks in ``scene`` marked as found in the scene's group."""
+    """Records with the tracks in ``scene`` marked as found in the scene's group.
+
+    Parameters
+    ----------
+    memo : (k, WIDTH) per-track records (see the module docstring), one row per track.
+    scene : (k,) bool (or indices) of the tracks in the scene's group.
+
+    Returns
+    -------
+    (k, WIDTH) a new array.
+    """
     out = np.array(memo, dtype=np.float64, copy=True)
     out[scene, PROVEN] = 1.0
     return out
 
 
 def proven(memo: np.ndarray) -> np.ndarray:
-    """Whether each track has been found in the scene's group (k,) bool."""
+    """Whether each track has been found in the scene's group.
+
+    Parameters
+    ----------
+    memo : (k, WIDTH) per-track records (see the module docstring), one row per track.
+
+    Returns
+    -------
+    (k,) bool.
+    """
     return np.nan_to_num(memo[:, PROVEN]) > 0
 
 
 def strike(memo: np.ndarray, moved: np.ndarray, now_s: float) -> np.ndarray:
-    """Records with the tracks in ``moved`` marked as having moved on their own now."""
+    """Records with the tracks in ``moved`` marked as having moved on their own now.
+
+    Parameters
+    ----------
+    memo : (k, WIDTH) per-track records (see the module docstring), one row per track.
+    moved : (k,) bool (or indices) of the tracks that moved on their own.
+    now_s : time of the current frame, s.
+
+    Returns
+    -------
+    (k, WIDTH) a new array: for those tracks the time is ``now_s`` and the strike count is
+    one higher.
+    """
     out = np.array(memo, dtype=np.float64, copy=True)
     out[moved, SINCE_S] = now_s
     out[moved, STRIKES] = np.nan_to_num(out[moved, STRIKES]) + 1.0
@@ -121,7 +200,18 @@ def strike(memo: np.ndarray, moved: np.ndarray, now_s: float) -> np.ndarray:
 
 
 def rebase(memo: np.ndarray, slot: int, dst: np.ndarray) -> np.ndarray:
-    """Records with baseline ``slot`` (0 or 1) set to the tracks' positions now."""
+    """Records with baseline ``slot`` (0 or 1) set to the tracks' positions now.
+
+    Parameters
+    ----------
+    memo : (k, WIDTH) per-track records (see the module docstring), one row per track.
+    slot : baseline, 0 or 1.
+    dst : (k, 2) the tracks' positions now (x, y), full-resolution pixels.
+
+    Returns
+    -------
+    (k, WIDTH) a new array.
+    """
     out = np.array(memo, dtype=np.float64, copy=True)
     out[:, 2 * slot:2 * slot + 2] = dst
     return out

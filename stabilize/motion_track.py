@@ -56,11 +56,25 @@ class MotionTrack:
     reason: np.ndarray | None = None
 
     def log_columns(self) -> dict[str, np.ndarray]:
-        """The per-frame arrays the motion log takes over as they are, by column name."""
+        """The per-frame arrays the motion log takes over as they are, by column name.
+
+        Returns
+        -------
+        dict : :data:`LOG_COLUMNS` name -> the array itself (not a copy).
+        """
         return {name: getattr(self, name) for name in LOG_COLUMNS}
 
     def select(self, frames: slice) -> MotionTrack:
-        """The frames in ``frames`` of every per-frame array; the same excluded regions."""
+        """The frames in ``frames`` of every per-frame array; the same excluded regions.
+
+        Parameters
+        ----------
+        frames : the frame indices to keep.
+
+        Returns
+        -------
+        MotionTrack : a new record.
+        """
         return MotionTrack(**{k: v[frames] for k, v in self.log_columns().items()},
                            excluded=self.excluded,
                            reason=None if self.reason is None else self.reason[frames])
@@ -69,7 +83,17 @@ class MotionTrack:
     def concatenate(cls, parts: Sequence[MotionTrack],
                     excluded: dict[str, list[list[int]]]) -> MotionTrack:
         """The per-frame arrays of ``parts`` one after the other (no reasons: ''), with the
-        excluded regions given; empty arrays of the right shapes and dtypes for no parts."""
+        excluded regions given; empty arrays of the right shapes and dtypes for no parts.
+
+        Parameters
+        ----------
+        parts : the records, in frame order.
+        excluded : the excluded regions of the whole (full-resolution (x, y, w, h)).
+
+        Returns
+        -------
+        MotionTrack : a new record.
+        """
         if not parts:
             return cls(**{k: np.empty(shape, dtype) for k, (shape, dtype) in _EMPTY.items()},
                        excluded=excluded, reason=np.empty(0, "<U12"))
@@ -82,7 +106,17 @@ class MotionTrack:
 
 def stand_ins(status: np.ndarray, reason: np.ndarray | None) -> np.ndarray:
     """Frames whose logged motion is a stand-in: failed ones, and weak ones whose motion
-    could not be told apart from an object's."""
+    could not be told apart from an object's.
+
+    Parameters
+    ----------
+    status : (n,) per-frame status.
+    reason : (n,) per-frame reason codes, or None.
+
+    Returns
+    -------
+    (n,) bool, True for stand-ins (status ``failed`` or reason ``foreground``).
+    """
     out = status == "failed"
     if reason is not None:
         out = out | (reason == "foreground")
@@ -93,7 +127,24 @@ def fill_failed(matrices: np.ndarray, status: np.ndarray, size: tuple[int, int],
                 stand_in: np.ndarray | None = None) -> np.ndarray:
     """Stand-ins for failed frames (or the frames marked in ``stand_in``): the similarity
     motion interpolated linearly between the nearest trustworthy neighbours (or the identity
-    with none), never a wild jump."""
+    with none), never a wild jump.
+
+    Frame 0 is never replaced; cut frames are not used as neighbours. Beyond the last
+    trustworthy neighbour the nearest one's motion is held.
+
+    Parameters
+    ----------
+    matrices : (n, 3, 3) inter-frame transforms H_t, pixels (conventions of
+        :mod:`stabilize.motion_log`).
+    status : (n,) per-frame status.
+    size : (width, height) of the frame, pixels.
+    stand_in : (n,) bool, the frames to replace; None for the ``failed`` ones.
+
+    Returns
+    -------
+    (n, 3, 3) transforms with the stand-ins (``matrices`` itself when there is none to
+    replace).
+    """
     failed = (status == "failed") if stand_in is None else np.array(stand_in, bool)
     failed[0] = False
     if not failed.any():

@@ -106,7 +106,18 @@ class OverlayFinder:
 
     def observe(self, src: np.ndarray, dst: np.ndarray, camera: np.ndarray) -> bool:
         """Add one frame's pairs (analysis pixels) and its fitted camera motion (3×3, analysis
-        pixels). Returns True when the set of overlay cells grew."""
+        pixels). Returns True when the set of overlay cells grew.
+
+        Parameters
+        ----------
+        src, dst : (k, 2) matched points (x, y) in the previous and current analysis frame,
+            analysis pixels (convention of :mod:`stabilize.geometry`).
+        camera : (3, 3) the fitted inter-frame transform, analysis pixels.
+
+        Returns
+        -------
+        bool : True when the set of overlay cells grew.
+        """
         if len(src) == 0:
             return False
         s = self.settings
@@ -129,7 +140,16 @@ class OverlayFinder:
     def observe_band(self, pts: np.ndarray) -> bool:
         """Add one frame's vote for the cells holding ``pts`` (analysis pixels), the tracks of
         a group :func:`still_band` judged an overlay. Returns True when the set of overlay
-        cells grew."""
+        cells grew.
+
+        Parameters
+        ----------
+        pts : (k, 2) points (x, y), analysis pixels.
+
+        Returns
+        -------
+        bool : True when the set of overlay cells grew.
+        """
         if len(pts) == 0:
             return False
         n = len(self.band)
@@ -139,7 +159,17 @@ class OverlayFinder:
         return bool(new.any())
 
     def mask(self, base: np.ndarray | None) -> np.ndarray:
-        """uint8 mask (255 = usable) with the overlay cells (and ``base``'s zeros) cut out."""
+        """uint8 mask (255 = usable) with the overlay cells (and ``base``'s zeros) cut out.
+
+        Parameters
+        ----------
+        base : (h, w) uint8 mask in analysis pixels to start from (not changed), or None for
+            all usable.
+
+        Returns
+        -------
+        (h, w) uint8 mask of the analysis frame, 0 in overlay cells.
+        """
         w, h = self.size
         gx, gy = self.settings.grid
         out = np.full((h, w), 255, np.uint8) if base is None else base.copy()
@@ -152,7 +182,16 @@ class OverlayFinder:
 
     def regions(self, scale: tuple[float, float]) -> list[list[int]]:
         """Overlay cells as (x, y, w, h) rectangles in full-resolution pixels, with horizontal
-        runs of cells merged."""
+        runs of cells merged.
+
+        Parameters
+        ----------
+        scale : (sx, sy) analysis pixels per full-resolution pixel.
+
+        Returns
+        -------
+        list of [x, y, w, h] ints, full-resolution pixels (outward-rounded), row by row.
+        """
         w, h = self.size
         gx, gy = self.settings.grid
         sx, sy = scale

@@ -116,12 +116,32 @@ class Region:
 
     @classmethod
     def whole(cls, width: int, height: int, excluded: np.ndarray | None = None) -> Region:
-        """The whole frame (its outer pixel edges), less ``excluded``."""
+        """The whole frame (its outer pixel edges), less ``excluded``.
+
+        Parameters
+        ----------
+        width, height : frame size, pixels; the quad runs from (−0.5, −0.5) to
+            (w − 0.5, h − 0.5) under the pixel-centre convention of :mod:`stabilize.geometry`.
+        excluded : (k, 4, 2) quadrilaterals to leave out, pixels; None for none.
+
+        Returns
+        -------
+        Region
+        """
         return cls(_rect_quad(-0.5, -0.5, width, height),
                    np.zeros((0, 4, 2)) if excluded is None else excluded)
 
     def mapped(self, m: np.ndarray) -> Region:
-        """The region carried by a 3×3 matrix (pixels of one frame to another's)."""
+        """The region carried by a 3×3 matrix (pixels of one frame to another's).
+
+        Parameters
+        ----------
+        m : (3, 3) matrix, pixels of this region's frame to pixels of the other.
+
+        Returns
+        -------
+        Region : a new region, quad and excluded quads mapped with perspective division.
+        """
         return Region(_apply(m, self.quad), _apply(m, self.excluded.reshape(-1, 2))
                       .reshape(self.excluded.shape))
 
@@ -157,7 +177,19 @@ def _inside(pts: np.ndarray, quads: np.ndarray, margin: float) -> np.ndarray:
 def usable(pts: np.ndarray, region: Region, width: int, height: int,
            margin_px: float) -> np.ndarray:
     """(n,) bool: full-resolution points inside the frame and the region by ``margin_px``,
-    and at least that far from every excluded quad."""
+    and at least that far from every excluded quad.
+
+    Parameters
+    ----------
+    pts : (n, 2) points (x, y), full-resolution pixels.
+    region : where the frame shows the scene.
+    width, height : frame size, pixels.
+    margin_px : distance the points must keep from the edges, pixels.
+
+    Returns
+    -------
+    (n,) bool, True for usable points.
+    """
     if len(pts) == 0:
         return np.zeros(0, bool)
     quads = np.stack([_rect_quad(-0.5, -0.5, width, height), region.quad])
@@ -169,7 +201,8 @@ def usable(pts: np.ndarray, region: Region, width: int, height: int,
 
 def reduce_luma(luma: np.ndarray, min_width_px: int) -> tuple[np.ndarray, tuple[float, float]]:
     """The luma plane (h, w) uint8 reduced by the largest power of two k that leaves it at
-    least ``min_width_px`` wide (so between that and twice that), by k × k block averages.
+    least ``min_width_px`` wide (so between that and twice that, unless the height stops it
+    first: it is kept at least 8 rows high), by k × k block averages.
 
     The last w mod k columns and h mod k rows are left out, so every reduced pixel averages
     one whole block. The averaging is done as repeated halvings with bilinear resizing at
@@ -180,6 +213,16 @@ def reduce_luma(luma: np.ndarray, min_width_px: int) -> tuple[np.ndarray, tuple[
     :func:`stabilize.track.to_full_resolution` takes it: reduced pixel (j, i) is centred on
     full-resolution ((j + 0.5)·k − 0.5, (i + 0.5)·k − 0.5). With k = 1 the plane itself is
     returned.
+
+    Parameters
+    ----------
+    luma : (h, w) uint8 luma plane, full resolution.
+    min_width_px : smallest width of the reduced copy, pixels.
+
+    Returns
+    -------
+    small : (h // k, w // k) uint8 reduced copy (``luma`` itself when k = 1).
+    scale : (1/k, 1/k), reduced pixels per full-resolution pixel.
     """
     h, w = luma.shape[:2]
     k = 1
@@ -316,6 +359,18 @@ class MotionCheck:
         nan when it could not be measured (the first frame, too few corners).
 
         ``region`` says where this frame shows the scene; None: the whole frame.
+
+        Parameters
+        ----------
+        index : the frame's index in the clip (seeds the estimator).
+        luma : (h, w) uint8 luma plane, full resolution (copied if kept).
+        region : where the frame shows the scene, full-resolution pixels; None for all of it.
+
+        Returns
+        -------
+        (3,) dx, dy (full-resolution pixels, about the frame centre; convention of
+        :mod:`stabilize.geometry`) and rotation (degrees), frame ``index`` − 1 to ``index``;
+        nan where not measured.
         """
         s = self.settings
         w, h = self.full_size
@@ -484,7 +539,17 @@ def steadiness(output_readout: np.ndarray | None, source_readout: np.ndarray | N
 
 
 def measured_share(readout: np.ndarray, cuts: np.ndarray) -> float:
-    """Share (0–1) of the frame pairs (frames after the first of each shot) measured."""
+    """Share (0–1) of the frame pairs (frames after the first of each shot) measured.
+
+    Parameters
+    ----------
+    readout : (n, 3) per-frame dx, dy (pixels) and degrees, nan where not measured.
+    cuts : (n,) bool, frames that start a new shot.
+
+    Returns
+    -------
+    float : share of pairs with all three values finite; 0 when there is no pair.
+    """
     readout = np.asarray(readout, np.float64)
     pairs = np.ones(len(readout), bool)
     pairs[0] = False
