@@ -44,7 +44,12 @@ class ColourTags:
     def setparams_filter(self) -> str | None:
         """An ffmpeg ``setparams`` filter stamping these tags on frames (the encoder writes
         them into the stream), or None when there is nothing to stamp. Unknown names are
-        left out."""
+        left out.
+
+        Returns
+        -------
+        str or None : e.g. ``"setparams=range=tv:colorspace=bt709"``, or None.
+        """
         parts = []
         for key, option in (("range", "range"), ("space", "colorspace"),
                             ("primaries", "color_primaries"), ("trc", "color_trc")):

@@ -71,6 +71,10 @@ class PlanarImage:
         pix_fmt : one of :data:`YUV_FORMATS`.
         width, height : the picture size in pixels.
 
+        Returns
+        -------
+        PlanarImage : views into ``buf`` (a NumPy array given is used as it is).
+
         Raises
         ------
         ValueError
@@ -95,6 +99,10 @@ class PlanarImage:
         pix_fmt : one of :data:`YUV_FORMATS`.
         width, height : the picture size in pixels.
         fill : (Y, U, V) values, e.g. :data:`YUV_BLACK`; None leaves the bytes as they are.
+
+        Returns
+        -------
+        PlanarImage : over a new buffer of :func:`frame_bytes` bytes.
         """
         image = cls.wrap(np.empty(frame_bytes(pix_fmt, width, height), np.uint8), pix_fmt,
                          width, height)
@@ -105,22 +113,42 @@ class PlanarImage:
 
     @property
     def planes(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """The (Y, U, V) plane views."""
+        """The (Y, U, V) plane views.
+
+        Returns
+        -------
+        tuple : ``y`` (height, width), ``u`` and ``v`` (:func:`plane_sizes`), uint8 views.
+        """
         return self.y, self.u, self.v
 
     @property
     def width(self) -> int:
-        """Picture width in pixels (of the luma plane)."""
+        """Picture width in pixels (of the luma plane).
+
+        Returns
+        -------
+        int : columns of ``y``, pixels.
+        """
         return self.y.shape[1]
 
     @property
     def height(self) -> int:
-        """Picture height in pixels (of the luma plane)."""
+        """Picture height in pixels (of the luma plane).
+
+        Returns
+        -------
+        int : rows of ``y``, pixels.
+        """
         return self.y.shape[0]
 
     @property
     def subsampling(self) -> tuple[int, int]:
-        """Chroma subsampling (x, y): luma pixels per chroma pixel along each axis."""
+        """Chroma subsampling (x, y): luma pixels per chroma pixel along each axis.
+
+        Returns
+        -------
+        (int, int) : (2, 2) for ``yuv420p``, (1, 1) for ``yuv444p`` (:data:`YUV_FORMATS`).
+        """
         return YUV_FORMATS[self.pix_fmt]
 
 

@@ -136,8 +136,14 @@ def all_or_nothing() -> Iterator[None]:
     """Hold back every :func:`publish` in the block; rename them all when it succeeds.
 
     On any exception (an interruption included) the held files are removed and nothing
-    appears under a final name. The renames themselves run with SIGINT and SIGTERM blocked,
-    so an interruption cannot split them; it takes effect right after.
+    appears under a final name. When the block runs on the main thread, the renames
+    themselves run with SIGINT and SIGTERM blocked, so an interruption cannot split them; it
+    takes effect right after (on other threads they are not blocked). A nested block adds its
+    files to the outer one's.
+
+    Yields
+    ------
+    None
     """
     if _staged.get() is not None:  # nested: the outer block decides
         yield

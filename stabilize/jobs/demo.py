@@ -31,7 +31,16 @@ DEMO_NAME = "truss_pass.mp4"
 
 
 def demo_clip(out_dir: Path) -> Path:
-    """The bundled demo clip, or a freshly drawn one in ``out_dir`` when it is not bundled."""
+    """The bundled demo clip, or a freshly drawn one in ``out_dir`` when it is not bundled.
+
+    Parameters
+    ----------
+    out_dir : folder for a drawn clip (an existing ``truss_pass.mp4`` there is reused).
+
+    Returns
+    -------
+    Path : the clip.
+    """
     bundled = Path(__file__).resolve().parent.parent.parent / "demo_clips" / DEMO_NAME
     if bundled.is_file():
         return bundled
@@ -44,7 +53,20 @@ def demo_clip(out_dir: Path) -> Path:
 def run_demo(out: str | Path | None = None, *, config: str | None = None,
              progress: Any = None, **options: Any) -> tuple[MotionLog, Report]:
     """Steady the demo clip into ``out`` (default ``./stabilize-demo``) and write its shake
-    report there; returns the log and the report."""
+    report there; returns the log and the report.
+
+    Parameters
+    ----------
+    out : output folder (created when missing); None for ``./stabilize-demo``.
+    config : TOML settings file or preset name, as for the other jobs.
+    progress : progress-bar factory, as for :func:`stabilize.steady`.
+    **options : the jobs' options; ``force`` defaults to True here (earlier demo outputs are
+        overwritten).
+
+    Returns
+    -------
+    (MotionLog, Report) : the steadied clip's motion log and the report written.
+    """
     out_dir = Path(out) if out else Path("stabilize-demo")
     out_dir.mkdir(parents=True, exist_ok=True)
     clip = demo_clip(out_dir)

@@ -57,7 +57,14 @@ def shake_summary(*, matrices: np.ndarray, status: np.ndarray, time_s: np.ndarra
 
 
 def warn_if_irregular(where: Any, summary: dict[str, Any], nominal_fps: float) -> None:
-    """Say so when the frame times are irregular (the figures use their real mean rate)."""
+    """Say so when the frame times are irregular (the figures use their real mean rate).
+
+    Parameters
+    ----------
+    where : what to name in the warning (the clip or log).
+    summary : the shake summary; ``timestamps_irregular`` and ``fps`` (Hz) are read.
+    nominal_fps : the container's frame rate, Hz.
+    """
     if summary.get("timestamps_irregular"):
         _log.warning("%s: the frame times are irregular; the figures and the smoothing use "
                      "their real mean rate of %.3g fps, not the container's %.3g fps",

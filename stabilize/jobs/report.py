@@ -70,8 +70,22 @@ def report_figures(motion: MotionLog, settings: Settings) -> tuple[dict[str, Any
     report honours the field of view and shake cut-off given now and shows figures added
     since the log was written. Keys only the writing job knows (margin …) are kept.
 
-    Returns the summary and the real frame rate (Hz) of the log's timestamps
-    (:func:`stabilize.shake.frame_rate`).
+    Parameters
+    ----------
+    motion : the motion log (not changed).
+    settings : supplies ``fov_deg`` (degrees) and ``shake_above_hz`` (Hz).
+
+    Returns
+    -------
+    summary : dict, the log's summary with the fresh figures laid over it (pixels, degrees,
+        Hz as the keys say).
+    fps : float, the real frame rate (Hz) of the log's timestamps
+        (:func:`stabilize.shake.frame_rate`).
+
+    Raises
+    ------
+    StabilizeError
+        When the log has no usable frame rate.
     """
     nominal = _nominal_fps(motion)
     fps = shake.frame_rate(motion.time_s, nominal)
@@ -110,7 +124,21 @@ def _existing(path: str | os.PathLike | None, *, base: Path) -> Path | None:
 
 def find_videos(motion: MotionLog, clip: Path | None, log_csv: Path | None,
             name: str) -> tuple[Path | None, Path | None]:
-    """The source clip and the steadied video of a log, where they can still be found."""
+    """The source clip and the steadied video of a log, where they can still be found.
+
+    Relative paths in the log are tried as they are, then against the log's folder.
+
+    Parameters
+    ----------
+    motion : the motion log; its ``source["path"]`` and ``extra["outputs"]["video"]`` are read.
+    clip : the source clip when already known (then used as it is), or None.
+    log_csv : the log's CSV path, or None for a log only in memory (then the current folder).
+    name : the clip's name, for the default steadied-video name.
+
+    Returns
+    -------
+    (clip, steadied) : existing paths, each None when not found.
+    """
     base = log_csv.parent if log_csv else Path(".")
     if clip is None:
         clip = _existing(motion.source.get("path"), base=base)
@@ -141,6 +169,19 @@ def report_for_log(motion: MotionLog, settings: Settings, outputs: dict[str, Pat
 
     ``outputs`` are the files by role (:func:`stabilize.jobs.outputs.report_files`), already
     checked; ``frames_plot`` is dropped when no frame can be read.
+
+    Parameters
+    ----------
+    motion : the motion log (not changed).
+    settings : the report's settings (field of view, degrees; shake cut-off, Hz).
+    outputs : output path by role (``json``, ``html``, ``path_plot`` …).
+    name : the clip's name, for the page's title.
+    log_csv : the log's CSV path, or None when it was not written.
+    clip, steadied : the source clip and steadied video for the frames plot, or None.
+
+    Returns
+    -------
+    Report : the paths written, the summary and the notes on its uncertainty.
     """
     outputs = dict(outputs)
     summary, fps = report_figures(motion, settings)

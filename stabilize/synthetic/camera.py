@@ -103,6 +103,20 @@ class ShakeSpec:
         Wind buffeting 0.5–3 Hz (``wind_px`` RMS, ``roll_deg`` RMS roll, ``zoom`` RMS log-zoom,
         ``shear`` RMS shear), airframe vibration 5–12 Hz (``vibration_px`` RMS) with a rotor
         tone at 9 Hz, and slow gimbal drift 0.02–0.15 Hz (``drift_px`` RMS).
+
+        Parameters
+        ----------
+        wind_px : wind buffeting along x, pixels RMS (y gets 0.8 of it).
+        vibration_px : airframe vibration, pixels RMS (the rotor tone has half of it as
+            amplitude).
+        drift_px : gimbal drift along x, pixels RMS (y gets 0.6 of it).
+        roll_deg : roll of the wind band, degrees RMS (vibration gets 0.1 and drift 0.5 of it).
+        zoom : log-zoom of the wind band, RMS (dimensionless).
+        shear : shear of the wind band, RMS (dimensionless).
+
+        Returns
+        -------
+        ShakeSpec
         """
         return cls(
             sinusoids=(Sinusoid(9.0, x_px=0.5 * vibration_px, y_px=0.5 * vibration_px),),
@@ -117,7 +131,16 @@ class ShakeSpec:
         )
 
     def scaled(self, factor: float) -> ShakeSpec:
-        """The same shake with every amplitude multiplied by ``factor`` (phases unchanged)."""
+        """The same shake with every amplitude multiplied by ``factor`` (phases unchanged).
+
+        Parameters
+        ----------
+        factor : multiplier of every channel's amplitude (pixels, degrees, zoom, shear).
+
+        Returns
+        -------
+        ShakeSpec : a new spec; frequencies as they were.
+        """
 
         def sc(c):
             return type(c)(**{**c.__dict__, **{k: getattr(c, k) * factor for k in CHANNELS}})
@@ -262,7 +285,16 @@ def _stack(n: int) -> np.ndarray:
 
 
 def translations(tx: np.ndarray, ty: np.ndarray) -> np.ndarray:
-    """Pure translations (n, 3, 3) by ``tx``, ``ty`` (n,) pixels."""
+    """Pure translations by ``tx``, ``ty``.
+
+    Parameters
+    ----------
+    tx, ty : (n,) shifts along x (right) and y (down), pixels.
+
+    Returns
+    -------
+    (n, 3, 3) translation matrices.
+    """
     m = _stack(len(tx))
     m[:, 0, 2], m[:, 1, 2] = tx, ty
     return m

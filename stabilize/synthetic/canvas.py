@@ -22,27 +22,79 @@ class Canvas:
         self.img, self.k = img, k
 
     def pt(self, p) -> np.ndarray:
+        """Nominal pixel coordinates to OpenCV's fixed-point coordinates on the fine grid.
+
+        Parameters
+        ----------
+        p : (..., 2) points (x, y), nominal pixels (pixel-centre convention of
+            :mod:`stabilize.geometry`).
+
+        Returns
+        -------
+        (..., 2) int32 fine-grid coordinates ((p + 0.5)·k − 0.5) with 4 fractional bits.
+        """
         q = (np.asarray(p, float) + 0.5) * self.k - 0.5
         return np.round(q * (1 << _SHIFT)).astype(np.int32)
 
     def poly(self, pts, color) -> None:
+        """Fill a polygon, anti-aliased.
+
+        Parameters
+        ----------
+        pts : (m, 2) vertices (x, y), nominal pixels.
+        color : fill colour, three values in the canvas's channel order, 0–255 (clipped).
+        """
         cv2.fillPoly(self.img, [self.pt(pts).reshape(-1, 1, 2)], _c(color), cv2.LINE_AA, _SHIFT)
 
     def line(self, p0, p1, color, width: float) -> None:
+        """Draw a straight line, anti-aliased.
+
+        Parameters
+        ----------
+        p0, p1 : (2,) end points (x, y), nominal pixels.
+        color : fill colour, three values in the canvas's channel order, 0–255 (clipped).
+        width : line width, nominal pixels (at least one fine pixel).
+        """
         a, b = self.pt(p0), self.pt(p1)
         cv2.line(self.img, (int(a[0]), int(a[1])), (int(b[0]), int(b[1])), _c(color),
                  max(1, round(width * self.k)), cv2.LINE_AA, _SHIFT)
 
     def polyline(self, pts, color, width: float) -> None:
+        """Draw an open polyline, anti-aliased.
+
+        Parameters
+        ----------
+        pts : (m, 2) vertices (x, y), nominal pixels.
+        color : fill colour, three values in the canvas's channel order, 0–255 (clipped).
+        width : line width, nominal pixels (at least one fine pixel).
+        """
         cv2.polylines(self.img, [self.pt(pts).reshape(-1, 1, 2)], False, _c(color),
                       max(1, round(width * self.k)), cv2.LINE_AA, _SHIFT)
 
     def circle(self, c, r: float, color) -> None:
+        """Fill a disc, anti-aliased.
+
+        Parameters
+        ----------
+        c : (2,) centre (x, y), nominal pixels.
+        r : radius, nominal pixels.
+        color : fill colour, three values in the canvas's channel order, 0–255 (clipped).
+        """
         a = self.pt(c)
         cv2.circle(self.img, (int(a[0]), int(a[1])), max(1, round(r * self.k * (1 << _SHIFT))),
                    _c(color), -1, cv2.LINE_AA, _SHIFT)
 
     def ellipse(self, c, axes, angle_deg: float, color) -> None:
+        """Fill an ellipse, anti-aliased.
+
+        Parameters
+        ----------
+        c : (2,) centre (x, y), nominal pixels.
+        axes : (2,) half-axes, nominal pixels.
+        angle_deg : rotation of the first axis, degrees (OpenCV's sense: from +x toward +y,
+            clockwise on screen since y points down).
+        color : fill colour, three values in the canvas's channel order, 0–255 (clipped).
+        """
         a = self.pt(c)
         ax = (max(1, round(axes[0] * self.k * (1 << _SHIFT))),
               max(1, round(axes[1] * self.k * (1 << _SHIFT))))
@@ -50,10 +102,26 @@ class Canvas:
                     cv2.LINE_AA, _SHIFT)
 
     def rect(self, x0, y0, x1, y1, color) -> None:
+        """Fill an axis-aligned rectangle with corners (x0, y0) and (x1, y1).
+
+        Parameters
+        ----------
+        x0, y0, x1, y1 : corner coordinates, nominal pixels.
+        color : fill colour, three values in the canvas's channel order, 0–255 (clipped).
+        """
         self.poly([(x0, y0), (x1, y0), (x1, y1), (x0, y1)], color)
 
     def beam(self, p0, p1, width: float, color, shade: float = 0.0) -> None:
-        """A straight member as a quad, with a lit and a shadowed edge."""
+        """A straight member as a quad, with a lit and a shadowed edge.
+
+        Parameters
+        ----------
+        p0, p1 : (2,) end points (x, y) of the member's centre line, nominal pixels.
+        width : member width, nominal pixels.
+        color : fill colour, three values in the canvas's channel order, 0–255 (clipped).
+        shade : relative brightening of one edge and darkening of the other, 0 for none
+            (edges drawn only when the member is at least 3 fine pixels wide).
+        """
         p0, p1 = np.asarray(p0, float), np.asarray(p1, float)
         d = p1 - p0
         nrm = np.array([-d[1], d[0]]) / max(np.hypot(*d), 1e-9) * width / 2
@@ -97,7 +165,17 @@ def fbm(rng: np.random.Generator, hb: int, wb: int, cell_lo: float, cell_hi: flo
 
 
 def smoothstep(a: float, b: float, x: np.ndarray) -> np.ndarray:
-    """Hermite step from 0 at ``a`` to 1 at ``b`` (3t² − 2t³; common practice)."""
+    """Hermite step from 0 at ``a`` to 1 at ``b`` (3t² − 2t³; common practice).
+
+    Parameters
+    ----------
+    a, b : where the step starts and ends (units of ``x``; a ≠ b).
+    x : values to map, any shape.
+
+    Returns
+    -------
+    Array of the shape of ``x``, 0 to 1.
+    """
     t = np.clip((x - a) / (b - a), 0.0, 1.0)
     return t * t * (3 - 2 * t)
 
@@ -134,6 +212,18 @@ def draw_sky(rng: np.random.Generator, hb: int, wb: int, k: int,
 
 def draw_sky_world(rng, w, h, k, ref, view) -> np.ndarray:
     """A plain sky world (uint8 RGB, (h·k, w·k, 3)); ``ref`` and ``view`` are unused, as
-    for the other world drawers."""
+    for the other world drawers.
+
+    Parameters
+    ----------
+    rng : seeded generator.
+    w, h : world size, nominal pixels.
+    k : supersampling factor.
+    ref, view : unused (the world drawers' common signature).
+
+    Returns
+    -------
+    (h·k, w·k, 3) uint8 RGB.
+    """
     sky = draw_sky(rng, h * k, w * k, k, clouds=False)
     return np.clip(sky, 0, 255).astype(np.uint8, order="C")

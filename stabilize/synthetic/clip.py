@@ -162,7 +162,19 @@ class SyntheticClip:
         return STYLES[(STYLES.index(self.spec.style) + shot) % len(STYLES)]
 
     def world_image(self, shot: int = 0) -> np.ndarray:
-        """The world canvas of a shot, uint8 RGB at ``supersample``× nominal resolution."""
+        """The world canvas of a shot, uint8 RGB at ``supersample``× nominal resolution.
+
+        Drawn on first use (seeded by the clip seed and the shot) and kept.
+
+        Parameters
+        ----------
+        shot : shot index, 0 for the first.
+
+        Returns
+        -------
+        (H·k, W·k, 3) uint8 RGB, (W, H) = ``world_size`` in nominal world pixels and
+        k = ``supersample``.
+        """
         if shot not in self._worlds:
             w, h = self.world_size
             rng = np.random.default_rng([self.spec.seed, 1000 + shot])
@@ -180,6 +192,16 @@ class SyntheticClip:
 
         For example a photograph of the ground instead of a drawn canvas; the ground truth is
         unchanged because it depends only on the camera.
+
+        Parameters
+        ----------
+        image : (H·k, W·k, 3) uint8 RGB, (W, H) = ``world_size`` and k = ``supersample``.
+        shot : shot index, 0 for the first.
+
+        Raises
+        ------
+        ValueError
+            When the shape or dtype is not as above.
         """
         k = self.spec.supersample
         want = (self.world_size[1] * k, self.world_size[0] * k, 3)
@@ -206,6 +228,21 @@ class SyntheticClip:
 
         With ``return_mask=True`` returns ``(rgb, mask)`` where ``mask`` (h, w) bool marks pixels
         that do not follow the camera motion (movers and the telemetry strip).
+
+        Parameters
+        ----------
+        t : frame index, 0 to ``n_frames`` − 1.
+        return_mask : also return the mask.
+
+        Returns
+        -------
+        rgb : (h, w, 3) uint8 RGB, frame pixels (convention of :mod:`stabilize.geometry`).
+        mask : (h, w) bool, only with ``return_mask``.
+
+        Raises
+        ------
+        IndexError
+            For ``t`` out of range.
         """
         if not 0 <= t < self.n_frames:
             raise IndexError(f"frame {t} out of range 0..{self.n_frames - 1}")
@@ -236,7 +273,12 @@ class SyntheticClip:
         return (img, mask) if return_mask else img
 
     def frames(self) -> Iterator[tuple[int, np.ndarray]]:
-        """Yield ``(t, rgb)`` for every frame in order, rendering one at a time."""
+        """Yield ``(t, rgb)`` for every frame in order, rendering one at a time.
+
+        Yields
+        ------
+        (int, (h, w, 3) uint8) : frame index and RGB frame (:meth:`frame`).
+        """
         for t in range(self.n_frames):
             yield t, self.frame(t)
 
@@ -251,6 +293,14 @@ class SyntheticClip:
         ``x_px``, ``y_px``: world point imaged at the frame centre (before perspective tilt);
         ``roll_deg``; ``zoom`` (frame px per world px); ``shear``; ``aspect`` (ln ratio);
         ``tilt_x_deg``, ``tilt_y_deg``. ``smooth=True``: deliberate motion only.
+
+        Parameters
+        ----------
+        smooth : the deliberate motion only (no shake).
+
+        Returns
+        -------
+        dict : the keys above, each (n,) float (new arrays).
         """
         p = self._smooth if smooth else self._path
         return {
@@ -277,6 +327,10 @@ class SyntheticClip:
         frames t−1 and t show the same textured scene, so H_t is recoverable from the pixels.
         ``shot`` (n,) int. ``mover_boxes`` (n, k, 4): x0, y0, x1, y1 frame px (unclipped).
         ``telemetry_box`` (4,): x0, y0, x1, y1 of the overlay strip (pixel-centre bounds), or NaN.
+
+        Returns
+        -------
+        dict : name -> array, as listed above (copies).
         """
         gt: dict[str, np.ndarray] = {
             "times_s": np.array(self.times_s),

@@ -77,10 +77,20 @@ class SceneSpec:
 
     @property
     def n_frames(self) -> int:
-        """Number of frames, ``max(1, round(duration_s · fps))``."""
+        """Number of frames, ``max(1, round(duration_s · fps))``.
+
+        Returns
+        -------
+        int : frames.
+        """
         return max(1, round(self.duration_s * self.fps))
 
     @property
     def focal_px(self) -> float:
-        """Focal length in pixels implied by ``hfov_deg`` and ``width``."""
+        """Focal length in pixels implied by ``hfov_deg`` and ``width``.
+
+        Returns
+        -------
+        float : w / (2 · tan(hfov / 2)), pixels.
+        """
         return self.width / (2.0 * math.tan(math.radians(self.hfov_deg) / 2.0))
