@@ -69,6 +69,8 @@ def still_band(start: np.ndarray, now: np.ndarray, still: np.ndarray, moving: np
         Share of the frame (0 to 1) covered by the hull of the ``moving`` group.
     frame_size : (width, height)
         Full-resolution frame size, pixels.
+    settings : OverlaySettings or None
+        The thresholds; None for the defaults.
 
     Returns
     -------

@@ -88,7 +88,7 @@ def remove_temporaries() -> list[Path]:
 
     Returns
     -------
-    The temporaries that were still there to remove, sorted.
+    The temporaries still remembered (each removed if it was on disk), sorted.
     """
     with _lock:
         left = sorted(_live)

@@ -171,7 +171,8 @@ def iter_frame_range(
     the packets. Timestamps are reported as :func:`~stabilize.io.decode.iter_frames` reports
     them (the container's start time subtracted, in the stream's time base). When the decoded
     timestamps do not line up with the listing (a damaged or unusual file), the clip is
-    decoded from its start and the frames before ``start`` dropped: slower, always exact.
+    decoded from its start and the frames before ``start`` (and any the seek already gave)
+    dropped: slower, always exact.
     """
     info = info or probe(path)
     w, h = size or (info.width, info.height)

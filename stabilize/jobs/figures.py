@@ -30,12 +30,22 @@ def shake_summary(*, matrices: np.ndarray, status: np.ndarray, time_s: np.ndarra
 
     Parameters
     ----------
-    matrices : (n, 3, 3) H_t. status, reasons : (n,) status and reason codes.
-    time_s : (n,) frame times, s. rms_px : (n,) fit residual, px. inliers : (n,) counts.
-    width, height : frame size, px. fps_nominal : the container's rate, frames per second.
-    above_hz : shake cut-off, Hz. fov_deg : horizontal field of view, degrees, or None.
-    smooth_values : (n, 4) smoothed path readout; corrections : (n, 3, 3) C_t; None before
-        smoothing. output_check, source_check : (n, 3) motion measured while rendering.
+    matrices : (n, 3, 3) inter-frame transforms H_t, pixels (conventions of
+        :mod:`stabilize.motion_log` and :mod:`stabilize.geometry`).
+    status : (n,) per-frame status (``ok``, ``weak``, ``failed``, ``cut``).
+    time_s : (n,) frame times, s.
+    rms_px : (n,) fit residual, px.
+    inliers : (n,) counts.
+    reasons : (n,) per-frame reason codes ('' for none).
+    width, height : frame size, px.
+    fps_nominal : the container's rate, frames per second (Hz).
+    above_hz : shake cut-off, Hz.
+    fov_deg : horizontal field of view, degrees, or None.
+    smooth_values : (n, 4) smoothed path readout (x, y px, degrees, scale); None before
+        smoothing.
+    corrections : (n, 3, 3) C_t; None before smoothing.
+    output_check, source_check : (n, 3) dx, dy (px) and degrees measured while rendering, on
+        the output and on the source; None before rendering.
     steadiness : whether to add the figures of the written video against its source.
 
     Returns

@@ -204,8 +204,8 @@ def readout_path(readout: np.ndarray, cuts: np.ndarray, width: int,
     """The path (n, 3) of x, y (pixels) and degrees accumulated from per-frame motion read as
     similarities about the frame centre ((n, 3) dx, dy pixels, degrees; nan where not
     measured), per shot between ``cuts``, as the raw path is from ``H_t``. Gaps are filled by
-    linear interpolation over time; None when fewer than :data:`MIN_MEASURED_SHARE` of the
-    frame pairs were measured.
+    linear interpolation over the frame index; None when fewer than
+    :data:`MIN_MEASURED_SHARE` of the frame pairs were measured.
 
     Parameters
     ----------

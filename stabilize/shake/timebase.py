@@ -95,8 +95,8 @@ def frame_rate(time_s: np.ndarray | None, nominal_fps: float) -> float:
     Parameters
     ----------
     time_s : (n,) presentation times in seconds, as in the log's ``time_s``; or None.
-    nominal_fps : the container's frame rate, used when the times cannot say (fewer than three
-        frames, or no two distinct times), and kept when the times agree with it within 0.1 %.
+    nominal_fps : the container's frame rate, Hz, used when the times cannot say (fewer than
+        three distinct finite times), and kept when the times agree with it within 0.1 %.
 
     Returns
     -------

@@ -53,7 +53,8 @@ def movers_covering(
 ) -> tuple[Mover, ...]:
     """``count`` movers (alternately a vehicle and a person) covering ``share`` of the frame area.
 
-    Sizes are chosen so that the summed bounding-box area is ``share · width · height`` pixels²;
+    Sizes are chosen so that the summed bounding-box area is ``share · width · height`` pixels²
+    (less where a box would be over 0.9 of the frame's width or height, which caps it);
     positions and directions are drawn from ``seed``; speeds are ``speed_px_s`` (px/s).
 
     Parameters
