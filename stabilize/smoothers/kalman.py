@@ -16,10 +16,10 @@ import numpy as np
 
 __all__ = ["kalman_noise", "kalman_smooth"]
 
-# Half-power frequency of the smoother times window_s. 0.375 matches the half-power point of the
+# Frequency where the gain is one half (-6 dB), times window_s. 0.375 matches that point of the
 # Gaussian of smoothers.gaussian (sigma = window_s / 2: exp(-2 pi^2 f^2 sigma^2) = 1/2 at
 # f = sqrt(2 ln 2) / (pi window_s)), so both smoothers mean the same thing by window_s.
-_HALF_POWER_TIMES_WINDOW = math.sqrt(2.0 * math.log(2.0)) / math.pi
+_HALF_GAIN_TIMES_WINDOW = math.sqrt(2.0 * math.log(2.0)) / math.pi
 
 
 def kalman_noise(fps: float, window_s: float) -> tuple[float, float]:
@@ -43,7 +43,7 @@ def kalman_noise(fps: float, window_s: float) -> tuple[float, float]:
     (q, r): acceleration spectral density (units² / s³ per unit r) and measurement variance.
     """
     dt = 1.0 / fps
-    omega_c = 2.0 * math.pi * _HALF_POWER_TIMES_WINDOW / window_s
+    omega_c = 2.0 * math.pi * _HALF_GAIN_TIMES_WINDOW / window_s
     r = 1.0
     return omega_c**4 * r * dt, r
 
