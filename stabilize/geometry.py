@@ -59,15 +59,20 @@ def similarity_readout(m: np.ndarray, centre: np.ndarray) -> np.ndarray:
     (..., 4) array of dx, dy (pixels: where the centre moves to, minus the centre),
     rotation in degrees, and scale (sqrt of |det| of the 2×2 part).
     """
-    m = np.asarray(m, dtype=np.float64)
+    dx, dy, angle, det = _about_centre(np.asarray(m, dtype=np.float64), centre)
+    return np.stack([dx, dy, np.degrees(angle), np.sqrt(np.abs(det))], axis=-1)
+
+
+def _about_centre(m: np.ndarray, centre: np.ndarray) -> tuple[np.ndarray, ...]:
+    """The similarity reading shared by :func:`similarity_readout` and :func:`to_similarity`:
+    where the centre moves (dx, dy, pixels), the angle (radians, in (−π, π]) and the
+    determinant of the 2×2 part, each of shape ``m.shape[:-2]``."""
     cx, cy = float(centre[0]), float(centre[1])
     w = m[..., 2, 0] * cx + m[..., 2, 1] * cy + m[..., 2, 2]
     x = (m[..., 0, 0] * cx + m[..., 0, 1] * cy + m[..., 0, 2]) / w
     y = (m[..., 1, 0] * cx + m[..., 1, 1] * cy + m[..., 1, 2]) / w
     a, b, c, d = m[..., 0, 0], m[..., 0, 1], m[..., 1, 0], m[..., 1, 1]
-    rot = np.degrees(np.arctan2(c - b, a + d))
-    scale = np.sqrt(np.abs(a * d - b * c))
-    return np.stack([x - cx, y - cy, rot, scale], axis=-1)
+    return x - cx, y - cy, np.arctan2(c - b, a + d), a * d - b * c
 
 
 def normalise(m: np.ndarray) -> np.ndarray:
@@ -98,14 +103,9 @@ def to_similarity(p: np.ndarray, centre: np.ndarray) -> np.ndarray:
     (n, 4) x, y (pixels, where the centre goes minus the centre), angle (radians, unwrapped
     along the n frames) and log-scale (natural log of sqrt |det| of the 2×2 part).
     """
-    cx, cy = centre
-    w = p[:, 2, 0] * cx + p[:, 2, 1] * cy + p[:, 2, 2]
-    x = (p[:, 0, 0] * cx + p[:, 0, 1] * cy + p[:, 0, 2]) / w - cx
-    y = (p[:, 1, 0] * cx + p[:, 1, 1] * cy + p[:, 1, 2]) / w - cy
-    a, b, c, d = p[:, 0, 0], p[:, 0, 1], p[:, 1, 0], p[:, 1, 1]
-    angle = np.unwrap(np.arctan2(c - b, a + d))
-    log_s = 0.5 * np.log(np.maximum(np.abs(a * d - b * c), 1e-12))
-    return np.stack([x, y, angle, log_s], axis=1)
+    x, y, angle, det = _about_centre(p, centre)
+    log_s = 0.5 * np.log(np.maximum(np.abs(det), 1e-12))
+    return np.stack([x, y, np.unwrap(angle), log_s], axis=1)
 
 
 def from_similarity(q: np.ndarray, centre: np.ndarray) -> np.ndarray:
