@@ -17,6 +17,7 @@ from .anchors import BaselineSettings, hull_share
 from .config import Settings
 from .cuts import (
     CutSettings,
+    aligned_correlation,
     collapsed,
     corner_strength,
     grey_histogram,
@@ -153,11 +154,12 @@ class AnalysisPass:
                 self.texture_ref = strength if self.texture_ref is None else (
                     0.8 * self.texture_ref + 0.2 * strength)
         if collapsed(len(pairs), offered, cuts_cfg):
-            response = None
+            response = shift = None
             if offered:
-                pairs, response = _restart_fast_motion(tracker, pairs)
+                pairs, response, shift = _restart_fast_motion(tracker, pairs)
             if collapsed(len(pairs), offered, cuts_cfg) and is_cut(
-                    _frame_distance(tracker, cuts_cfg), response, cuts_cfg):
+                    _frame_distance(tracker, cuts_cfg), response, cuts_cfg,
+                    None if shift is None else aligned_correlation(*tracker.frames, shift)):
                 tracker.update(None)
                 tracker.reset()
                 self.prior = None
@@ -300,16 +302,18 @@ def _frame_distance(tracker: Tracker, cfg: CutSettings) -> float:
     return histogram_distance(grey_histogram(prev, cfg.bins), grey_histogram(cur, cfg.bins))
 
 
-def _restart_fast_motion(tracker: Tracker, pairs: Pairs) -> tuple[Pairs, float]:
+def _restart_fast_motion(tracker: Tracker, pairs: Pairs
+                         ) -> tuple[Pairs, float, tuple[float, float]]:
     """Most tracks were lost: guess the whole-frame shift by phase correlation and track
     again from there, keeping whichever attempt kept more tracks. Also returns the phase
-    correlation's peak response (near 0 when the two frames share no picture)."""
+    correlation's peak response (near 0 when the two frames share no picture) and its shift
+    (dx, dy), analysis pixels."""
     prev, cur = tracker.frames
     dx, dy, response = global_shift(prev, cur)
     if response < 0.05:
-        return pairs, response
+        return pairs, response, (dx, dy)
     guess = np.array([[1.0, 0.0, dx], [0.0, 1.0, dy], [0.0, 0.0, 1.0]])
     again = tracker.retry(guess)
     if len(again) >= len(pairs):
-        return again, response
-    return tracker.retry(None), response
+        return again, response, (dx, dy)
+    return tracker.retry(None), response, (dx, dy)

@@ -1,15 +1,20 @@
 """Per-frame motion: rival fits and track history, overlays, cuts, stand-ins."""
 
+import cv2
 import numpy as np
 
 from stabilize.anchors import hull_share
 from stabilize.config import Settings
-from stabilize.cuts import CutSettings, collapsed, is_cut, is_textureless
+from stabilize.cuts import CutSettings, aligned_correlation, collapsed, is_cut, is_textureless
 from stabilize.frame_fit import fit_frame
 from stabilize.geometry import from_similarity, to_similarity
+from stabilize.io import VideoWriter, iter_frames, probe
+from stabilize.io.decode import analysis_size
+from stabilize.motion import fit_motion
 from stabilize.motion_models import SIMILARITY, transfer_error
 from stabilize.motion_track import LOG_COLUMNS, MotionTrack, fill_failed
 from stabilize.overlays import OverlayFinder, still_band
+from stabilize.synthetic import Mover, SceneSpec, SyntheticClip
 
 W, H = 640, 360
 
@@ -122,6 +127,44 @@ def test_cut_and_texture_rules():
     assert is_cut(0.2, 0.02, cfg) and not is_cut(0.2, 0.5, cfg) and not is_cut(0.05, 0.02, cfg)
     assert is_textureless(1e-5, 3e-3, cfg) and not is_textureless(2e-3, 3e-3, cfg)
     assert is_textureless(1e-5, None, cfg)
+    # A phase-correlation peak that does not align the pictures (something both frames share
+    # in place) does not hide a cut; a low correlation alone, with near-equal histograms,
+    # does not make one.
+    assert is_cut(0.3, 0.2, cfg, aligned=0.02) and not is_cut(0.3, 0.2, cfg, aligned=0.6)
+    assert not is_cut(0.05, 0.2, cfg, aligned=0.0)
+
+
+def test_aligned_correlation_tells_a_shifted_view_from_another_scene():
+    rng = np.random.default_rng(4)
+    world = cv2.GaussianBlur(rng.integers(0, 256, (300, 500), np.uint8), (0, 0), 2.0)
+    other = cv2.GaussianBlur(rng.integers(0, 256, (300, 500), np.uint8), (0, 0), 2.0)
+    prev, cur = world[20:260, 30:350], world[20 + 6:260 + 6, 30 + 25:350 + 25]
+    # prev's content lies (-25, -6) px away in cur.
+    assert aligned_correlation(prev, cur, (-25.0, -6.0)) > 0.8
+    assert abs(aligned_correlation(prev, other[20:260, 30:350], (0.0, 0.0))) < 0.1
+    # A shift that leaves almost no overlap says nothing.
+    assert aligned_correlation(prev, cur, (300.0, 0.0)) == 0.0
+
+
+def test_a_cut_is_found_though_an_object_stays_put_across_it(tmp_path):
+    # A drawn clip cuts from a bridge to a solar farm while a car, fixed in the frame, crosses
+    # both shots: phase correlation locks onto the car, and the histograms are only
+    # moderately apart, so the cut rests on the aligned pictures' disagreement.
+    spec = SceneSpec(style="truss", width=320, height=180, fps=24.0, duration_s=2.5, seed=3,
+                     movers=(Mover("vehicle", (60.0, 28.0), (80.0, 120.0), (70.0, 0.0)),),
+                     cuts_s=(1.6,))
+    clip = SyntheticClip(spec)
+    path = tmp_path / "cut.mp4"
+    with VideoWriter(path, clip.width, clip.height, clip.fps, crf=14, preset="veryfast") as wr:
+        for _, frame in clip.frames():
+            wr.write(frame)
+    info = probe(path)
+    settings = Settings()
+    size = analysis_size(info, settings.analysis_width)
+    track = fit_motion(iter_frames(path, size=size, gray=True, info=info),
+                       full_size=(info.width, info.height), analysis_size=size,
+                       settings=settings)
+    assert np.flatnonzero(track.status == "cut").tolist() == np.flatnonzero(clip.cut).tolist()
 
 
 def test_failed_frames_get_interpolated_stand_ins():
