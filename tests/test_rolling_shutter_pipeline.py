@@ -128,7 +128,7 @@ def test_segments_measure_the_same_bands(small):
 @pytest.mark.slow
 @pytest.mark.parametrize("freq", [47.0, 83.0, 131.0])
 def test_acceptance_at_720p(freq, tmp_path):
-    clip = _write_clip(tmp_path / f"c{int(freq)}.mp4", freq, READOUT, 1280, 720, 48)
+    clip = _write_clip(tmp_path / f"c{int(freq)}.mp4", freq, READOUT, 1280, 720, 40)
     out = tmp_path / "steady.mp4"
     log = stabilize.steady(clip, out, readout_ms=25)
     s = log.summary
