@@ -146,3 +146,15 @@ def test_acceptance_at_720p(freq, tmp_path):
         assert auto["readout_source"] == "estimated"
         assert abs(auto["readout_ms"] - 25.0) <= 3.0
         assert 0 < auto["readout_ms_sigma"] < 3.0
+
+
+def test_report_of_a_rolling_log_has_the_vibration_plot(small, tmp_path):
+    from stabilize.jobs.report import make_report
+
+    csv_path = tmp_path / "r.motion.csv"
+    stabilize.measure(small["rolling"], readout_ms=25).save(csv_path)
+    rep = make_report(csv_path, tmp_path / "rep", fov_deg=60.0)
+    png = rep.outputs["vibration_plot"]
+    assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    assert rep.summary["vibration_deg"] is not None
+    assert "vibration above the frame rate" in rep.outputs["html"].read_text()
