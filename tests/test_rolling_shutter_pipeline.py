@@ -54,6 +54,15 @@ def small(tmp_path_factory) -> dict[str, Path]:
             "global": _write_clip(d / "global83.mp4", 83.0, 0.0, 640, 360, 40)}
 
 
+@pytest.fixture(scope="module")
+def rolling_log(small, tmp_path_factory):
+    """The rolling clip measured with its readout, and the log saved."""
+    csv_path = tmp_path_factory.mktemp("rolling_log") / "r.motion.csv"
+    log = stabilize.measure(small["rolling"], readout_ms=25)
+    log.save(csv_path)
+    return log, csv_path
+
+
 def test_readout_setting_takes_auto_numbers_and_refuses_the_rest():
     assert Settings().readout_ms == 0.0
     assert build_settings(None, {"readout_ms": "auto"}).readout_ms == "auto"
@@ -74,16 +83,14 @@ def test_readout_zero_adds_nothing(small, tmp_path):
     assert not bands_path_for(tmp_path / "a.motion.csv").exists()
 
 
-def test_vibration_and_band_log_from_a_rolling_clip(small, tmp_path):
-    log = stabilize.measure(small["rolling"], readout_ms=25)
+def test_vibration_and_band_log_from_a_rolling_clip(small, rolling_log):
+    log, csv_path = rolling_log
     s = log.summary
     assert s["readout_source"] == "given" and s["readout_ms"] == 25.0
     assert s["vibration_found"] and abs(s["vibration_hz"] - 83.0) < 1.0
     assert abs(s["vibration_px"] - 1.5) < 0.2 * 1.5
     assert s["vibration_false_alarm"] < 0.01 and s["vibration_deg"] is None
     assert [90 - 4, 90 + 4] in [[round(a), round(b)] for a, b in s["vibration_blind_hz"]]
-    csv_path = tmp_path / "r.motion.csv"
-    log.save(csv_path)
     doc = json.loads(csv_path.with_suffix(".json").read_text())
     assert doc["row_bands"]["file"] == "r.motion.bands.csv"
     assert doc["settings"]["readout_ms"] == 25.0
@@ -94,10 +101,6 @@ def test_vibration_and_band_log_from_a_rolling_clip(small, tmp_path):
     # Each band's exposure instant: the frame's time plus its row's share of the readout.
     frame, row, when = rows[:, 0].astype(int), rows[:, 2], rows[:, 3]
     assert np.allclose(when, log.time_s[frame] + row * 0.025 / 360)
-    with_fov = stabilize.measure(small["rolling"], readout_ms=25, fov_deg=60.0).summary
-    f = 320.0 / np.tan(np.radians(30.0))
-    assert with_fov["vibration_deg"] == pytest.approx(
-        np.degrees(np.arctan(with_fov["vibration_px"] / f)), rel=1e-3)
 
 
 def test_global_shutter_reports_no_vibration(small):
@@ -148,13 +151,24 @@ def test_acceptance_at_720p(freq, tmp_path):
         assert 0 < auto["readout_ms_sigma"] < 3.0
 
 
-def test_report_of_a_rolling_log_has_the_vibration_plot(small, tmp_path):
+def test_report_of_a_rolling_log_has_the_vibration_plot(rolling_log, tmp_path):
     from stabilize.jobs.report import make_report
 
-    csv_path = tmp_path / "r.motion.csv"
-    stabilize.measure(small["rolling"], readout_ms=25).save(csv_path)
+    _, csv_path = rolling_log
     rep = make_report(csv_path, tmp_path / "rep", fov_deg=60.0)
     png = rep.outputs["vibration_plot"]
     assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
-    assert rep.summary["vibration_deg"] is not None
+    f = 320.0 / np.tan(np.radians(30.0))
+    assert rep.summary["vibration_deg"] == pytest.approx(
+        np.degrees(np.arctan(rep.summary["vibration_px"] / f)), rel=1e-3)
     assert "vibration above the frame rate" in rep.outputs["html"].read_text()
+
+
+def test_render_from_a_rolling_log_removes_the_wobble(small, rolling_log, tmp_path):
+    _, csv_path = rolling_log
+    out = tmp_path / "r.steady.mp4"
+    s = stabilize.render(small["rolling"], csv_path, out).summary
+    assert s["readout_ms"] == 25.0 and s["vibration_found"]
+    assert s["wobble_px"] > 1.0
+    assert s["wobble_px_out"] <= 0.2 * s["wobble_px"]
+    assert _wobble_of_video(out) <= 0.2 * _wobble_of_video(small["rolling"])
