@@ -55,8 +55,8 @@ READOUT_GAIN = 0.8
 
 #: The readout is estimated from at most this many frames from the middle of the clip (its
 #: search refits the whole sample set for each readout tried, so its cost grows with the
-#: clip; 10 s at 30 fps hold thousands of band samples). This project's choice.
-READOUT_FRAMES = 300
+#: clip; 5 s at 30 fps hold 3600 band samples, ample for a millisecond). This project's choice.
+READOUT_FRAMES = 150
 
 
 @dataclass(frozen=True)
