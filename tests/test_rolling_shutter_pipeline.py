@@ -63,7 +63,12 @@ def rolling_log(small, tmp_path_factory):
     return log, csv_path
 
 
-def test_readout_setting_takes_auto_numbers_and_refuses_the_rest():
+def test_readout_setting_takes_auto_numbers_and_refuses_the_rest(tmp_path):
+    toml = tmp_path / "drone.toml"
+    toml.write_text('readout-ms = "auto"\n')
+    assert build_settings(str(toml)).readout_ms == "auto"
+    toml.write_text("readout_ms = 21.5\n")
+    assert build_settings(str(toml), {"readout_ms": "0"}).readout_ms == 0.0
     assert Settings().readout_ms == 0.0
     assert build_settings(None, {"readout_ms": "auto"}).readout_ms == "auto"
     assert build_settings(None, {"readout_ms": "25"}).readout_ms == 25.0
