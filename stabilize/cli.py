@@ -57,6 +57,9 @@ def _add_common(p: argparse.ArgumentParser) -> None:
     g.add_argument("--max-rounds", metavar="N", help="cap on hypotheses per frame")
     g.add_argument("--seed", metavar="N", help="random seed (equal seeds, identical logs)")
     g.add_argument("--fov-deg", metavar="DEG", help="horizontal field of view in degrees")
+    g.add_argument("--readout-ms", metavar="MS|auto",
+                   help="rolling-shutter readout time, first row to last, in ms: 0 = global "
+                   "shutter (default), auto = estimate it from the footage")
     g.add_argument("--shake-above-hz", metavar="HZ",
                    help="path motion above this frequency counts as shake")
     g.add_argument("--crf", metavar="N", help="encoder quality (lower is better)")

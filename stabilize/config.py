@@ -20,10 +20,10 @@ from typing import Any
 from .errors import StabilizeError
 
 __all__ = [
-    "AUTO_MARGIN_CAP", "CODECS", "FILLS", "MAX_MARGIN", "MODELS", "OPTION_NAMES", "PRESETS_X264",
-    "SMOOTHERS", "Region", "Settings", "build_settings", "coerce", "logged_settings",
-    "parse_region", "preset_dirs", "preset_names", "read_config", "resolve_config",
-    "resolve_settings", "setting_label", "validate",
+    "AUTO_MARGIN_CAP", "CODECS", "FILLS", "MAX_MARGIN", "MAX_READOUT_MS", "MODELS", "OPTION_NAMES",
+    "PRESETS_X264", "SMOOTHERS", "Region", "Settings", "build_settings", "coerce",
+    "logged_settings", "parse_region", "preset_dirs", "preset_names", "read_config",
+    "resolve_config", "resolve_settings", "setting_label", "validate",
 ]
 
 MODELS = ("translation", "similarity", "affine", "homography")
@@ -35,6 +35,9 @@ PRESETS_X264 = (
     "medium", "slow", "slower", "veryslow", "placebo",
 )
 MAX_MARGIN = 0.45
+#: Longest readout accepted (ms): a frame's readout never exceeds its interval, and 24 fps
+#: is the slowest common rate.
+MAX_READOUT_MS = 42.0
 AUTO_MARGIN_CAP = 0.25
 
 Region = tuple[int, int, int, int]
@@ -47,7 +50,9 @@ class Settings:
     Units are in the names: ``window_s`` seconds, ``inlier_px`` full-resolution pixels,
     ``fov_deg`` degrees, ``shake_above_hz`` hertz. ``margin`` is ``"auto"`` or the fraction of
     the frame width and height cut from each side. ``ignore`` holds (x, y, w, h) rectangles in
-    full-resolution pixels.
+    full-resolution pixels. ``readout_ms`` is the camera's first-to-last-row readout time in
+    milliseconds: 0 for a global shutter (the default: no rolling-shutter analysis), a number
+    for a known rolling shutter, or ``"auto"`` to estimate it from the footage.
     """
 
     model: str = "similarity"
@@ -63,6 +68,7 @@ class Settings:
     seed: int = 0
     fov_deg: float | None = None
     shake_above_hz: float = 1.0
+    readout_ms: str | float = 0.0
     crf: int = 18
     preset: str = "medium"
     codec: str = "h264"
@@ -77,6 +83,10 @@ class Settings:
         """Plain JSON-ready mapping of every option."""
         out = dataclasses.asdict(self)
         out["ignore"] = [list(r) for r in self.ignore]
+        if self.readout_ms == 0:
+            # A global shutter (the default) is written as the key's absence, so logs made
+            # without the rolling-shutter analysis read exactly as before it existed.
+            del out["readout_ms"]
         return out
 
     def replace(self, **changes: Any) -> Settings:
@@ -109,6 +119,7 @@ _ALLOWED = {
     "seed": "a whole number of 0 or more",
     "fov_deg": "an angle between 0 and 180 degrees",
     "crf": "a whole number from 0 to 51",
+    "readout_ms": f"'auto' or a number of milliseconds from 0 to {MAX_READOUT_MS:g}",
 }
 
 
@@ -143,6 +154,11 @@ def validate(s: Settings) -> None:
         isinstance(s.fov_deg, int | float) and 0.0 < s.fov_deg < 180.0
     ):
         raise _bad("fov_deg", s.fov_deg, _ALLOWED["fov_deg"])
+    if s.readout_ms != "auto" and not (
+        isinstance(s.readout_ms, int | float) and not isinstance(s.readout_ms, bool)
+        and 0.0 <= s.readout_ms <= MAX_READOUT_MS
+    ):
+        raise _bad("readout_ms", s.readout_ms, _ALLOWED["readout_ms"])
     if not (isinstance(s.crf, int) and 0 <= s.crf <= 51):
         raise _bad("crf", s.crf, _ALLOWED["crf"])
     for r in s.ignore:
@@ -202,6 +218,9 @@ def coerce(values: dict[str, Any], where: str) -> dict[str, Any]:
             if not isinstance(value, bool):
                 raise _bad(name, value, "true or false")
         elif name == "margin":
+            if value != "auto":
+                value = _to_number(name, value, float)
+        elif name == "readout_ms":
             if value != "auto":
                 value = _to_number(name, value, float)
         elif name == "fov_deg":

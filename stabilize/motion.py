@@ -31,6 +31,7 @@ from .motion_models import model_named
 from .motion_pass import AnalysisPass, FrameRecord, PassContext
 from .motion_track import MotionTrack, fill_failed, stand_ins
 from .prefetch import read_ahead
+from .row_bands import BandSettings
 from .track import TrackSettings, ignore_mask
 
 __all__ = ["MIN_SIDE_PX", "fit_motion", "measurable", "warm_up_frames"]
@@ -102,7 +103,8 @@ def fit_motion(
 
     Returns
     -------
-    MotionTrack : per-frame arrays (n frames), full-resolution pixels.
+    MotionTrack : per-frame arrays (n frames), full-resolution pixels; with a rolling shutter
+    asked for (``settings.readout_ms`` not 0), each fitted frame's row-band shifts too.
     """
     fw, fh = full_size
     aw, ah = analysis_size
@@ -111,7 +113,8 @@ def fit_motion(
     ctx = PassContext(settings=settings, scale=scale, cuts=cut_settings or CutSettings(),
                    baseline=BaselineSettings(), full_size=full_size,
                    analysis_size=analysis_size, track_settings=track_settings,
-                   user_mask=user_mask, model=model_named(settings.model))
+                   user_mask=user_mask, model=model_named(settings.model),
+                   bands=BandSettings() if settings.readout_ms != 0 else None)
     can_track = measurable(fw, fh) and measurable(aw, ah)
     warm = warm_up_frames(keyframe_every) if keyframe_every else 0
     main = AnalysisPass(ctx)
@@ -166,7 +169,21 @@ def fit_motion(
     )
     track.matrices = fill_failed(track.matrices, track.status, full_size,
                                  stand_in=stand_ins(track.status, why))
+    if ctx.bands is not None:
+        track.band_shift_px, track.band_support = _band_arrays(records, ctx.bands.n_bands)
     return track
+
+
+def _band_arrays(records: list[FrameRecord], n_bands: int) -> tuple[np.ndarray, np.ndarray]:
+    """Row-band shifts (n, n_bands, 2) px and support (n, n_bands) of the frames' records
+    (NaN shifts and 0 support where a frame has none)."""
+    shift = np.full((len(records), n_bands, 2), np.nan)
+    support = np.zeros((len(records), n_bands))
+    for t, r in enumerate(records):
+        if r.bands is not None:
+            shift[t] = r.bands.shift_px
+            support[t] = r.bands.support
+    return shift, support
 
 
 def _unique_regions(regions: list[list[int]]) -> list[list[int]]:

@@ -38,9 +38,9 @@ from .geometry import frame_centre, similarity_readout
 from .raw_path import accumulate
 
 __all__ = [
-    "BASE_COLUMNS", "CHECK_COLUMNS", "COLUMNS", "C_COLUMNS", "FORMAT", "H_COLUMNS", "OUT_CHECK",
-    "SMOOTH_COLUMNS", "SRC_CHECK", "STATUSES", "VERSION", "MotionLog", "frame_reasons",
-    "reason_codes", "reasons_of", "use_files",
+    "BAND_COLUMNS", "BASE_COLUMNS", "CHECK_COLUMNS", "COLUMNS", "C_COLUMNS", "FORMAT",
+    "H_COLUMNS", "OUT_CHECK", "SMOOTH_COLUMNS", "SRC_CHECK", "STATUSES", "VERSION", "MotionLog",
+    "RowBands", "frame_reasons", "reason_codes", "reasons_of", "use_files",
 ]
 
 FORMAT = "stabilize-motion-log"
@@ -65,6 +65,26 @@ OUT_CHECK = ["out_dx", "out_dy", "out_deg"]
 SRC_CHECK = ["src_check_dx", "src_check_dy", "src_check_deg"]
 CHECK_COLUMNS = [*OUT_CHECK, *SRC_CHECK]
 COLUMNS = [*BASE_COLUMNS, *CHECK_COLUMNS]
+#: The row-band sidecar (``NAME.motion.bands.csv``, rolling shutter only): one row per
+#: measured band of a frame. ``frame`` t, ``band`` b (0 at the top), ``row_px`` the band's
+#: centre row, ``time_s`` its exposure instant (the frame's ``time_s`` + row_px × readout /
+#: height), ``dx_px``, ``dy_px`` the band's shift from frame t−1 to t, ``support`` the
+#: summed weight of the tracks behind it.
+BAND_COLUMNS = ["frame", "band", "row_px", "time_s", "dx_px", "dy_px", "support"]
+
+
+@dataclass(frozen=True)
+class RowBands:
+    """Row-band shifts of a rolling-shutter clip, as the log keeps them.
+
+    ``shift_px`` (frames, bands, 2) each band's shift (dx, dy) px from frame t−1 to t (NaN
+    where not measured); ``support`` (frames, bands); ``readout_s`` the readout the bands were
+    timed with (s).
+    """
+
+    shift_px: np.ndarray
+    support: np.ndarray
+    readout_s: float
 
 # The writers of a log's files. The record does no file I/O; :mod:`stabilize.io.motion_log_files`
 # hands its writers over with :func:`use_files` when it is imported (importing ``stabilize``
@@ -94,7 +114,8 @@ class MotionLog:
     read as (x, y, degrees, scale) per frame (None before smoothing); see the module docstring
     for the convention. ``output_check`` and ``source_check`` are (frames, 3) dx, dy (pixels)
     and degrees: the inter-frame motion measured on the written output and on the source
-    frames while rendering (nan where not measured; None before rendering).
+    frames while rendering (nan where not measured; None before rendering). ``row_bands``
+    holds the per-band shifts of a rolling-shutter analysis (None without one).
 
     A job assembles the log once, at its end; nothing in the package changes a log after that.
     """
@@ -115,6 +136,7 @@ class MotionLog:
     extra: dict[str, Any] = field(default_factory=dict)
     output_check: np.ndarray | None = None
     source_check: np.ndarray | None = None
+    row_bands: RowBands | None = None
 
     @property
     def frames(self) -> int:

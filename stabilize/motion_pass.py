@@ -29,6 +29,7 @@ from .frame_fit import corner_shift, fit_frame, refit
 from .geometry import rescale
 from .motion_models import MotionModel, transfer_error
 from .overlays import OverlayFinder
+from .row_bands import BandSettings, BandShifts, track_band_shifts
 from .track import Pairs, Tracker, TrackSettings, global_shift, to_full_resolution
 from .track_groups import band_overlay_tracks, group_tracks, in_mask, object_mask
 
@@ -59,6 +60,7 @@ class FrameRecord:
     diag: tuple[int, int, float, float, int]
     status: str
     reason: str = ""
+    bands: BandShifts | None = None
 
 
 @dataclass
@@ -81,7 +83,7 @@ class _Recent:
 class PassContext:
     """What every pass of one analysis shares: the settings, the sizes (full resolution and
     analysis copy, pixels) and the scale between them, the mask of ignored regions, and the
-    motion model."""
+    motion model; ``bands`` asks for each fitted frame's row-band shifts (rolling shutter)."""
 
     settings: Settings
     scale: tuple[float, float]
@@ -92,6 +94,7 @@ class PassContext:
     track_settings: TrackSettings | None
     user_mask: np.ndarray | None
     model: MotionModel
+    bands: BandSettings | None = None
 
 
 class AnalysisPass:
@@ -242,6 +245,11 @@ class AnalysisPass:
             tracker.set_mask(self.overlays.mask(ctx.user_mask))
         record = FrameRecord(fit.matrix, d, "weak" if fit.weak else "ok",
                          "few_inliers" if fit.weak else "")
+        if ctx.bands is not None:
+            # All pairs near the frame's fit: the grouping above reads rows that a rolling
+            # shutter moved apart as objects of their own.
+            record.bands = track_band_shifts(src, dst, fit.matrix, fh, settings.inlier_px,
+                                             ctx.bands)
         self.recent.append(_Recent(index, time_s, src, dst, pairs.ids, pairs.background,
                                    use, record))
         # The last second's fits are kept for revision; over the first three seconds of a

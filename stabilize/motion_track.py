@@ -24,6 +24,8 @@ REASONS = {
 #: The per-frame arrays of :class:`MotionTrack` that the motion log takes over as they are.
 LOG_COLUMNS = ("time_s", "matrices", "tracked", "inliers", "inlier_ratio", "rms_px", "rounds",
                "status")
+# The optional row-band arrays (rolling shutter), carried along with the frames.
+_BANDS = ("band_shift_px", "band_support")
 # Shapes and dtypes of those arrays for no frames at all.
 _EMPTY = {"time_s": (0, float), "matrices": ((0, 3, 3), float), "tracked": (0, int),
           "inliers": (0, int), "inlier_ratio": (0, float), "rms_px": (0, float),
@@ -42,6 +44,9 @@ class MotionTrack:
         full-resolution pixels. tracked, inliers, rounds : (n,) int. inlier_ratio : (n,).
     rms_px : (n,) inlier residual RMS, full-resolution pixels. status : (n,) ``<U6``
         (``ok``, ``weak``, ``failed``, ``cut``). reason : (n,) ``<U12`` or None.
+    band_shift_px : (n, bands, 2) row-band shifts (dx, dy) px from the previous frame
+        (:func:`stabilize.row_bands.track_band_shifts`; NaN where a frame has none), or None
+        when the analysis did not measure them. band_support : (n, bands), or None.
     """
 
     time_s: np.ndarray
@@ -54,6 +59,8 @@ class MotionTrack:
     status: np.ndarray
     excluded: dict[str, list[list[int]]] = field(default_factory=dict)
     reason: np.ndarray | None = None
+    band_shift_px: np.ndarray | None = None
+    band_support: np.ndarray | None = None
 
     def log_columns(self) -> dict[str, np.ndarray]:
         """The per-frame arrays the motion log takes over as they are, by column name.
@@ -77,7 +84,9 @@ class MotionTrack:
         """
         return MotionTrack(**{k: v[frames] for k, v in self.log_columns().items()},
                            excluded=self.excluded,
-                           reason=None if self.reason is None else self.reason[frames])
+                           reason=None if self.reason is None else self.reason[frames],
+                           **{k: None if getattr(self, k) is None else getattr(self, k)[frames]
+                              for k in _BANDS})
 
     @classmethod
     def concatenate(cls, parts: Sequence[MotionTrack],
@@ -97,11 +106,13 @@ class MotionTrack:
         if not parts:
             return cls(**{k: np.empty(shape, dtype) for k, (shape, dtype) in _EMPTY.items()},
                        excluded=excluded, reason=np.empty(0, "<U12"))
+        bands = {k: np.concatenate([getattr(p, k) for p in parts])
+                 if all(getattr(p, k) is not None for p in parts) else None for k in _BANDS}
         return cls(**{k: np.concatenate([getattr(p, k) for p in parts]) for k in LOG_COLUMNS},
                    excluded=excluded,
                    reason=np.concatenate([p.reason if p.reason is not None
                                           else np.full(len(p.status), "", "<U12")
-                                          for p in parts]))
+                                          for p in parts]), **bands)
 
 
 def stand_ins(status: np.ndarray, reason: np.ndarray | None) -> np.ndarray:

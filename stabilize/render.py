@@ -19,6 +19,7 @@ from .geometry import rescale
 from .io import Frame, PlanarImage, VideoWriter
 from .io.frames import YUV_BLACK
 from .prefetch import WriteBehind, read_ahead
+from .row_warp import warp_rows
 
 __all__ = [
     "BORDERS", "QUEUE_FRAMES", "compare_size", "plane_matrix", "render", "side_by_side", "warp",
@@ -169,6 +170,7 @@ def render(
     compare: VideoWriter | None = None,
     on_frame: Callable[[int], None] | None = None,
     check: Callable[[int, object, object, np.ndarray], None] | None = None,
+    within_frame: Callable[[int], tuple[np.ndarray, np.ndarray] | None] | None = None,
 ) -> int:
     """Warp every frame by its correction and write it; returns the number of frames written.
 
@@ -178,6 +180,9 @@ def render(
     ``check`` is called with (frame index, source frame, output frame, correction) for every
     frame, before the output is handed to the encoder (its buffer is reused afterwards), e.g.
     a :class:`stabilize.residual.RenderCheck` measuring the motion left in the output.
+    ``within_frame`` gives a frame's within-frame displacement (rows (r,), shifts (r, 2) px,
+    :mod:`stabilize.row_motion`) or None: such a frame is resampled by
+    :func:`stabilize.row_warp.warp_rows` (rolling shutter undone) instead of the plain warp.
     """
     n = 0
     last = len(corrections) - 1
@@ -197,7 +202,12 @@ def render(
                                     depth=QUEUE_FRAMES)
                 if compare is not None:
                     cmp_q = WriteBehind(canvases.sink(compare.write), depth=QUEUE_FRAMES)
-            if outs is not None:
+            rows = None if within_frame is None else within_frame(frame.index)
+            if rows is not None:
+                fills = YUV_BLACK if outs is not None else (0, 0, 0)
+                out = warp_rows(image, c, *rows, border=BORDERS[fill], fills=fills,
+                                out=None if outs is None else outs.get())
+            elif outs is not None:
                 out = warp_planes(image, c, fill, out=outs.get())
             else:
                 out = warp(image, c, fill)

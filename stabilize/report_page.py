@@ -100,6 +100,11 @@ _PLOT_CAPTIONS = {
                      "the shake cut-off; thin lines mark the band edges.",
     "fit_plot": "Per-frame motion fit: the share of tracked points that agree with the fitted "
                 "motion, and each frame's status.",
+    "vibration_plot": "Vibration above the frame rate, measured from the rolling shutter's "
+                      "row bands: the camera's vibration amplitude implied at each frequency. "
+                      "Grey ranges near multiples of the frame rate are blind (a vibration "
+                      "there looks the same in every frame); a peak is marked only when it "
+                      "passes the significance test.",
     "frames_plot": "A few frames where the shake moved the picture furthest, as shot and (when "
                    "the steadied video was found) steadied. The thin white grid sits at the "
                    "same place in both.",
@@ -337,6 +342,20 @@ def _uncertainty_section(s: dict[str, Any], notes: list[str]) -> str:
     return body
 
 
+def _vibration_card(s: dict[str, Any]) -> str:
+    """The rolling-shutter vibration card: frequency, amplitude and the readout used."""
+    readout = f"readout {fmt_sig(s.get('readout_ms'))} ms ({s.get('readout_source')})"
+    if s.get("readout_ms_sigma") is not None:
+        readout += f" ± {fmt_sig(s['readout_ms_sigma'])} ms"
+    if not s.get("vibration_found"):
+        return _card("vibration above the frame rate", "none found", readout)
+    deg = s.get("vibration_deg")
+    more = f"{_with(s.get('vibration_px'), 'px')}" + ("" if deg is None else
+                                                       f", {fmt_sig(deg)} deg")
+    return _card("vibration above the frame rate", _with(s.get("vibration_hz"), "Hz"),
+                 f"{more}; {readout}")
+
+
 def render_page(*, name: str, source: dict[str, Any], summary: dict[str, Any], notes: list[str],
                 settings: dict[str, Any], images: dict[str, bytes],
                 log_name: str | None, tool_version: str) -> str:
@@ -384,6 +403,8 @@ def render_page(*, name: str, source: dict[str, Any], summary: dict[str, Any], n
         _card("weak or failed frames", f"{100.0 * uncertain:.1f} %",
               f"{s.get('frames_weak', 0)} weak, {s.get('frames_failed', 0)} failed"),
     ])
+    if "vibration_found" in s:
+        cards += _vibration_card(s)
     shown = set(s.get("trust_reasons") or [])
     other_notes = [n for n in notes if n not in shown]
     plots = "".join(

@@ -18,7 +18,7 @@ from .report_page import fmt_sig
 
 __all__ = [
     "INK", "MUTED", "RAW", "SMOOTH", "STATUS_COLOURS", "pick_frames", "plot_fit", "plot_frames",
-    "plot_path", "plot_spectrum",
+    "plot_path", "plot_spectrum", "plot_vibration",
 ]
 
 #: Plot colours: this project's own plain palette (ink, raw path, smoothed path, and one colour
@@ -183,6 +183,51 @@ def plot_spectrum(*, time_s: np.ndarray, raw: np.ndarray, cuts: np.ndarray, fps:
     axes[-1].set_xlabel(f"frequency (Hz) — up to the Nyquist frequency {nyquist:g} Hz"
                         f"{res_text}; faster vibration cannot be measured", color=INK,
                         fontsize=9)
+    return _png(fig)
+
+
+def plot_vibration(*, freqs_hz: np.ndarray, amplitude_px: np.ndarray, usable: np.ndarray,
+                   blind_hz: list[tuple[float, float]], fps: float,
+                   peak_hz: float | None, peak_px: float | None,
+                   false_alarm: float | None, readout_ms: float) -> bytes:
+    """Vibration spectrum from a rolling shutter's row bands: the path's vibration amplitude
+    implied at each frequency up to the band rate, blind spots near multiples of the frame
+    rate shaded, the dominant vibration marked when one passed the significance test.
+
+    Parameters
+    ----------
+    freqs_hz : (f,) Hz. amplitude_px : (f,) zero-to-peak amplitude, px. usable : (f,) bool.
+    blind_hz : blind intervals (Hz). fps : frame rate, Hz. peak_hz, peak_px : the reported
+    vibration (None: none). false_alarm : its false-alarm probability. readout_ms : the
+    readout the bands were timed with (ms).
+
+    Returns
+    -------
+    bytes : PNG.
+    """
+    fig = _figure(8.0, 3.4)
+    ax = fig.subplots(1, 1)
+    f = np.asarray(freqs_hz, dtype=np.float64)
+    a = np.where(np.asarray(usable, bool), np.asarray(amplitude_px, dtype=np.float64), np.nan)
+    for lo, hi in blind_hz:
+        ax.axvspan(lo, hi, color="#eef1f4", linewidth=0)
+    if len(f):
+        ax.plot(f, a, color=RAW, linewidth=0.9)
+        ax.set_xlim(0, float(f[-1]))
+    if peak_hz is not None and peak_px is not None:
+        ax.plot([peak_hz], [peak_px], marker="v", color=SMOOTH, markersize=7)
+        fa = "" if false_alarm is None else f", false alarm {fmt_sig(false_alarm, 2)}"
+        ax.annotate(f"{peak_hz:.1f} Hz, {peak_px:.2f} px{fa}", (peak_hz, peak_px),
+                    xytext=(5, 4), textcoords="offset points", fontsize=8, color=SMOOTH,
+                    fontweight="bold")
+    else:
+        ax.text(0.98, 0.92, "no vibration stands out of the noise", transform=ax.transAxes,
+                ha="right", va="top", fontsize=8, color=MUTED)
+    ax.set_title(f"vibration from row bands (readout {readout_ms:.1f} ms)", loc="left",
+                 fontsize=10, color=INK)
+    _style(ax, "amplitude (px)")
+    ax.set_xlabel(f"frequency (Hz); grey: blind within a few Hz of multiples of {fps:g} Hz",
+                  color=INK, fontsize=9)
     return _png(fig)
 
 

@@ -38,8 +38,17 @@ __all__ = [
     "band_phase_shifts",
     "exposure_times",
     "fit_band_shifts",
+    "track_band_shifts",
     "within_frame_wobble",
+    "BAND_REACH",
 ]
+
+#: The tracks a band fit takes, beyond those a frame's consensus kept as the scene: pairs
+#: within this many consensus thresholds of the frame's own fit. A rolling shutter moves rows
+#: a few pixels away from the one motion a frame is fitted with, so the consensus inliers
+#: alone would keep only the rows that happen to agree with it; objects the consensus set
+#: aside stay out. This project's choice.
+BAND_REACH = 4.0
 
 
 @dataclass(frozen=True)
@@ -227,3 +236,32 @@ def within_frame_wobble(shift_px: np.ndarray) -> np.ndarray:
     dev = np.where(ok, ((filled - mean[:, None, :]) ** 2).sum(axis=2), 0.0)
     with np.errstate(invalid="ignore"):
         return np.where(n > 0, np.sqrt(dev.sum(axis=1) / np.maximum(n, 1)), np.nan)
+
+
+def track_band_shifts(src: np.ndarray, dst: np.ndarray, matrix: np.ndarray, height: int,
+                      inlier_px: float, settings: BandSettings | None = None) -> BandShifts:
+    """Band shifts of one frame from the tracks its consensus kept as the scene.
+
+    Parameters
+    ----------
+    src, dst : (k, 2) pairs from frame ``t − 1`` to ``t`` that the frame's consensus took as
+        the scene (moving objects left out), full-resolution px.
+    matrix : (3, 3) the frame's fitted motion (``t − 1`` -> ``t``, full-resolution px).
+    height : frame height (px).
+    inlier_px : the consensus threshold (px); pairs farther than :data:`BAND_REACH` of it
+        from ``matrix`` are dropped, the rest weighed by the robust fit.
+    settings : :class:`BandSettings`.
+
+    Returns
+    -------
+    :class:`BandShifts` timed with readout 0 and frame time 0 (the caller times them).
+    """
+    src = np.asarray(src, dtype=np.float64).reshape(-1, 2)
+    dst = np.asarray(dst, dtype=np.float64).reshape(-1, 2)
+    m = np.asarray(matrix, dtype=np.float64)
+    p = src @ m[:2, :2].T + m[:2, 2]
+    den = src @ m[2, :2] + m[2, 2]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        err = np.linalg.norm(p / den[:, None] - dst, axis=1)
+    keep = np.isfinite(err) & (err < BAND_REACH * inlier_px)
+    return fit_band_shifts(src, dst, height, inliers=keep, settings=settings)

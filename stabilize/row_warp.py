@@ -30,6 +30,7 @@ import cv2
 import numpy as np
 
 from .geometry import rescale
+from .io import PlanarImage
 
 __all__ = [
     "plain_maps",
@@ -37,6 +38,7 @@ __all__ = [
     "remap",
     "row_shift_at",
     "row_warp_maps",
+    "warp_rows",
 ]
 
 
@@ -234,3 +236,36 @@ def remap(image: np.ndarray, maps: np.ndarray, *, border: int = cv2.BORDER_CONST
     """
     return cv2.remap(image, maps, None, cv2.INTER_LINEAR, dst=dst, borderMode=border,
                      borderValue=fill)
+
+
+def warp_rows(image: np.ndarray | PlanarImage, correction: np.ndarray, rows_px: np.ndarray,
+              shift_px: np.ndarray, *, border: int, fills: Sequence[float],
+              out: PlanarImage | None = None) -> np.ndarray | PlanarImage:
+    """One frame's render with its within-frame displacement undone: the counterpart of a
+    plain ``cv2.warpPerspective`` by ``correction``, one resampling per plane.
+
+    Parameters
+    ----------
+    image : planar YUV frame, or an (h, w[, c]) array.
+    correction : (3, 3) source -> output luma pixels (pixel-centre convention).
+    rows_px, shift_px : the frame's within-frame displacement ``w(y)`` (r,), (r, 2) px
+        (:class:`stabilize.row_motion.RowMotion`).
+    border : OpenCV border mode; fills : the value outside the source, per plane (an array
+        takes the first).
+    out : planar output frame to write into (planar input only; a new one when None).
+
+    Returns
+    -------
+    The output frame (``out`` when given).
+    """
+    if not isinstance(image, PlanarImage):
+        h, w = image.shape[:2]
+        maps = row_warp_maps(correction, rows_px, shift_px, (w, h))
+        return remap(image, maps, border=border, fill=fills[0])
+    if out is None:
+        out = PlanarImage.empty(image.pix_fmt, image.width, image.height)
+    sizes = [(p.shape[1], p.shape[0]) for p in out.planes]
+    maps = plane_maps(correction, rows_px, shift_px, sizes, image.subsampling)
+    for k, (src, dst) in enumerate(zip(image.planes, out.planes, strict=True)):
+        remap(src, maps[k], border=border, fill=fills[k], dst=dst)
+    return out

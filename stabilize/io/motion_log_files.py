@@ -19,6 +19,7 @@ import numpy as np
 from ..errors import StabilizeError
 from ..geometry import normalise
 from ..motion_log import (
+    BAND_COLUMNS,
     BASE_COLUMNS,
     C_COLUMNS,
     CHECK_COLUMNS,
@@ -31,12 +32,14 @@ from ..motion_log import (
     STATUSES,
     VERSION,
     MotionLog,
+    RowBands,
     use_files,
 )
 from ..version import __version__
 from .publishing import all_or_nothing, write_text_atomic
 
-__all__ = ["json_path_for", "jsonable", "log_csv", "log_json", "read_log", "save_log"]
+__all__ = ["bands_csv", "bands_path_for", "json_path_for", "jsonable", "log_csv", "log_json",
+           "read_bands", "read_log", "save_log"]
 
 
 # --------------------------------------------------------------------- writing
@@ -76,17 +79,53 @@ def log_json(motion: MotionLog) -> dict[str, Any]:
         "tool_version": __version__,
     }
     doc.update(jsonable(motion.extra))
+    if motion.row_bands is not None:
+        rb = motion.row_bands
+        doc["row_bands"] = {"file": None, "bands": int(rb.shift_px.shape[1]),
+                            "readout_ms": jsonable(1000.0 * rb.readout_s),
+                            "columns": list(BAND_COLUMNS)}
     return doc
+
+
+def bands_csv(motion: MotionLog) -> str:
+    """The row-band sidecar's CSV text (:data:`BAND_COLUMNS`): one row per measured band."""
+    rb = motion.row_bands
+    buf = io.StringIO()
+    writer = csv.writer(buf, lineterminator="\n")
+    writer.writerow(BAND_COLUMNS)
+    if rb is None:
+        return buf.getvalue()
+    n, nb = rb.shift_px.shape[:2]
+    h = float(motion.size[1])
+    edges = np.linspace(-0.5, h - 0.5, nb + 1)
+    rows = 0.5 * (edges[:-1] + edges[1:])
+    for t in range(n):
+        for b in range(nb):
+            dx, dy = rb.shift_px[t, b]
+            if not (math.isfinite(dx) and math.isfinite(dy)):
+                continue
+            when = float(motion.time_s[t]) + rows[b] * (rb.readout_s / h)
+            writer.writerow([t, b, _num(rows[b]), _num(when), _num(dx), _num(dy),
+                             _num(rb.support[t, b])])
+    return buf.getvalue()
+
+
+def bands_path_for(csv_path: Path) -> Path:
+    """``NAME.motion.csv`` -> ``NAME.motion.bands.csv``."""
+    return csv_path.with_suffix(".bands.csv")
 
 
 def save_log(motion: MotionLog, csv_path: str | Path) -> tuple[Path, Path]:
     """Write ``NAME.motion.csv`` and its JSON beside it; returns both paths."""
     csv_path = Path(csv_path)
     json_path = json_path_for(csv_path)
+    doc = log_json(motion)
     with all_or_nothing():  # the CSV and its JSON appear together or not at all
         write_text_atomic(csv_path, log_csv(motion))
-        write_text_atomic(json_path,
-                          json.dumps(log_json(motion), indent=2, allow_nan=False) + "\n")
+        if motion.row_bands is not None:
+            doc["row_bands"]["file"] = bands_path_for(csv_path).name
+            write_text_atomic(bands_path_for(csv_path), bands_csv(motion))
+        write_text_atomic(json_path, json.dumps(doc, indent=2, allow_nan=False) + "\n")
     return csv_path, json_path
 
 
@@ -321,5 +360,36 @@ def read_log(csv_path: str | Path) -> MotionLog:
         **checks,
         extra={k: v for k, v in meta.items()
                if k not in {"format", "version", "source", "settings", "summary",
-                            "tool_version"}},
+                            "tool_version", "row_bands"}},
+        row_bands=read_bands(csv_path, meta, n),
     )
+
+
+def read_bands(csv_path: Path, meta: dict[str, Any], frames: int) -> RowBands | None:
+    """The row-band sidecar of a log whose JSON names one (``row_bands``), else None."""
+    info = meta.get("row_bands")
+    if not isinstance(info, dict) or not isinstance(info.get("file"), str):
+        return None
+    path = csv_path.parent / Path(info["file"]).name
+    if not path.is_file():
+        raise StabilizeError(f"{path}: row-band file named in the log's JSON not found")
+    try:
+        nb = int(info["bands"])
+        readout_s = float(info["readout_ms"] or 0.0) / 1000.0
+        data = np.loadtxt(io.StringIO(_read_text(path)), delimiter=",", skiprows=1,
+                          ndmin=2, dtype=np.float64)
+    except (KeyError, TypeError, ValueError) as exc:
+        raise StabilizeError(f"{path}: not a valid row-band file ({exc})") from None
+    shift = np.full((frames, max(nb, 1), 2), np.nan)
+    support = np.zeros((frames, max(nb, 1)))
+    if len(data):
+        if data.shape[1] != len(BAND_COLUMNS):
+            raise StabilizeError(f"{path}: expected columns {','.join(BAND_COLUMNS)}")
+        t, b = data[:, 0].astype(int), data[:, 1].astype(int)
+        ok = (t >= 0) & (t < frames) & (b >= 0) & (b < nb)
+        if not ok.all():
+            raise StabilizeError(f"{path}: line {int(np.argmin(ok)) + 2}: frame or band "
+                                 "out of range")
+        shift[t, b] = data[:, 4:6]
+        support[t, b] = data[:, 6]
+    return RowBands(shift, support, readout_s)

@@ -22,8 +22,9 @@ from ..config import Settings, resolve_settings
 from ..io import VideoInfo, iter_frames, probe
 from ..io.decode import DecodeStats, analysis_size, looks_truncated
 from ..motion import fit_motion, measurable
-from ..motion_log import MotionLog, frame_reasons, reason_codes
+from ..motion_log import MotionLog, RowBands, frame_reasons, reason_codes
 from ..motion_track import LOG_COLUMNS
+from ..rolling import RollingShutter, analyse_rolling, rolling_figures
 from ..segments import fit_in_segments, single_pass_options
 from ..steady_path import CorrectionPlan
 from .figures import shake_summary, warn_if_irregular
@@ -59,7 +60,8 @@ class FrameMotion:
 
     Arrays have one row per decoded frame (see :class:`stabilize.motion_log.MotionLog`);
     ``reasons`` holds each weak or failed frame's reason code ('' for none); ``source`` is the
-    log's ``source`` block and ``extra`` its analysis keys (``excluded``, ``frame_reasons``).
+    log's ``source`` block and ``extra`` its analysis keys (``excluded``, ``frame_reasons``);
+    ``rolling`` the rolling-shutter analysis (None for a global shutter, readout 0).
     """
 
     time_s: np.ndarray
@@ -73,6 +75,7 @@ class FrameMotion:
     reasons: np.ndarray
     source: dict[str, Any]
     extra: dict[str, Any] = field(default_factory=dict)
+    rolling: RollingShutter | None = None
 
     @property
     def frames(self) -> int:
@@ -104,6 +107,8 @@ class FrameMotion:
             corrections=None if plan is None else plan.corrections,
             output_check=out_check, source_check=src_check, steadiness=plan is not None)
         summary = summary | ({} if plan is None else plan.figures())
+        if self.rolling is not None:
+            summary.update(rolling_figures(self.rolling))
         summary.update(shake.trust_verdict(summary))
         warn_if_irregular(self.source.get("path", "clip"), summary, fps_nominal)
         return summary
@@ -130,6 +135,9 @@ def assemble_log(motion: FrameMotion, settings: Settings, summary: dict[str, Any
         summary=summary, smooth_values=None if plan is None else plan.smooth_values,
         corrections=None if plan is None else plan.corrections, extra=more,
         output_check=out_check, source_check=src_check,
+        row_bands=None if motion.rolling is None else RowBands(
+            motion.rolling.band_shift_px, motion.rolling.band_support,
+            motion.rolling.readout_s),
     )
 
 
@@ -197,10 +205,19 @@ def measure_motion(clip: Path, info: VideoInfo, settings: Settings,
                      "object moving in front of it; their motion is a stand-in (status weak)",
                      clip, n_fore)
     by_reason = frame_reasons(reasons)
+    rolling = None
+    if track.band_shift_px is not None and n >= 2:
+        rolling = analyse_rolling(track.band_shift_px, track.band_support, fps=info.fps,
+                                  width=info.width, height=info.height,
+                                  readout_ms=settings.readout_ms, fov_deg=settings.fov_deg)
+        if rolling.readout_source == "not_found":
+            _log.warning("%s: no rolling-shutter readout could be estimated from the footage "
+                         "(a global shutter, or no motion faster than a frame); treated as a "
+                         "global shutter", clip)
     return FrameMotion(
         **{**track.log_columns(), "status": status}, reasons=reason_codes(by_reason, n),
         source=source_dict(info, n, track.time_s, truncated),
-        extra={"excluded": track.excluded, "frame_reasons": by_reason},
+        extra={"excluded": track.excluded, "frame_reasons": by_reason}, rolling=rolling,
     )
 
 

@@ -62,15 +62,19 @@ def compare_video(video: Path) -> Path:
     return video.with_name(f"{video.stem}.compare{video.suffix or '.mp4'}")
 
 
-def report_files(folder: Path, name: str, *, frames: bool, log: bool) -> dict[str, Path]:
+def report_files(folder: Path, name: str, *, frames: bool, log: bool,
+                 vibration: bool = False) -> dict[str, Path]:
     """The files a shake report writes into ``folder``, by role (``json``, ``html``, the plots,
-    and the motion log when the report measured the clip itself)."""
+    the vibration plot of a rolling-shutter log, and the motion log when the report measured
+    the clip itself)."""
     outs = {"json": folder / f"{name}.shake.json", "html": folder / f"{name}.report.html",
             "path_plot": folder / f"{name}.path.png",
             "spectrum_plot": folder / f"{name}.spectrum.png",
             "fit_plot": folder / f"{name}.fit.png"}
     if frames:
         outs["frames_plot"] = folder / f"{name}.frames.png"
+    if vibration:
+        outs["vibration_plot"] = folder / f"{name}.vibration.png"
     if log:
         outs["log_csv"] = motion_log(folder, name)
         outs["log_json"] = json_path_for(outs["log_csv"])

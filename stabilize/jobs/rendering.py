@@ -36,6 +36,8 @@ from ..motion_log import MotionLog
 from ..motion_track import LOG_COLUMNS
 from ..render import compare_size
 from ..render import render as render_frames
+from ..rolling import analyse_rolling, within_frame
+from ..row_check import WobbleCheck, wobble_figures
 from ..steady_path import CorrectionPlan, plan_corrections, unchanged_plan
 from .analysis import (
     FrameMotion,
@@ -59,9 +61,11 @@ RENDER_DECODE_THREADS = 1
 
 def _render_video(clip: Path, info: VideoInfo, motion: FrameMotion, plan: CorrectionPlan,
                   settings: Settings, outputs: Outputs, progress: ProgressFactory | None,
-                  excluded: list[list[float]]) -> tuple[np.ndarray, np.ndarray]:
+                  excluded: list[list[float]]) -> tuple[tuple[np.ndarray, np.ndarray],
+                                                        dict[str, Any]]:
     """Render the steadied video (and the comparison); returns the motion measured on the
-    output and on the source frames while rendering, each (frames, 3)."""
+    output and on the source frames while rendering, each (frames, 3), and the wobble
+    figures of a rolling-shutter render (empty otherwise)."""
     # Frames stay in the encoder's own planar YUV from decoder to encoder: no colour
     # conversion on either side, half the bytes of RGB per frame.
     yuv = output_pix_fmt(settings.codec, info.width, info.height)
@@ -83,18 +87,34 @@ def _render_video(clip: Path, info: VideoInfo, motion: FrameMotion, plan: Correc
     # after steadying (see stabilize.residual).
     check = residual.RenderCheck(motion.frames, (info.width, info.height), cuts=motion.cuts,
                                  excluded=excluded, seed=settings.seed)
+    # A rolling shutter: each frame's rows are put back where the middle row's instant saw
+    # them, in the same resampling as the correction, and the wobble is measured as it goes.
+    rows = None if motion.rolling is None else within_frame(motion.rolling)
+    rolling: dict[str, Any] = {}
+    wobble = None
+    if rows is not None:
+        wobble = WobbleCheck(motion.frames)
+        last = len(rows.frames) - 1
+
+        def both(i: int, src: object, out: object, c: np.ndarray) -> None:
+            check(i, src, out, c)
+            wobble(i, src, out, c)
+
+        rolling = dict(check=both, within_frame=lambda i: (rows.rows_px,
+                                                           rows.shift_px[min(i, last)]))
     bar = progress_bar(progress, "render", motion.frames)
     try:
         with video, closing(iter_frames(clip, info=info, yuv=yuv,
                                         decode_threads=RENDER_DECODE_THREADS)) as frames:
             if compare is None:
                 n = render_frames(frames, plan.corrections, video,
-                                  fill=settings.fill, on_frame=bar.update, check=check)
+                                  fill=settings.fill, on_frame=bar.update,
+                                  **({"check": check} | rolling))
             else:
                 with compare:
                     n = render_frames(frames, plan.corrections, video,
                                       fill=settings.fill, compare=compare, on_frame=bar.update,
-                                      check=check)
+                                      **({"check": check} | rolling))
     finally:
         bar.close()
     if n != motion.frames:
@@ -103,7 +123,7 @@ def _render_video(clip: Path, info: VideoInfo, motion: FrameMotion, plan: Correc
         _log.debug("output check: %.2f ms per frame (%.2f ms of processor time)",
                    1000.0 * check.seconds / check.checked,
                    1000.0 * check.cpu_seconds / check.checked)
-    return check.output, check.source
+    return (check.output, check.source), ({} if wobble is None else wobble_figures(wobble))
 
 
 def excluded_regions(extra: dict[str, Any]) -> list[list[float]]:
@@ -164,6 +184,7 @@ def _correct_and_write(clip: Path, info: VideoInfo, motion: FrameMotion, setting
     fps = shake.frame_rate(motion.time_s, info.fps)  # real time for the smoothing window
     w, h = int(motion.source["width"]), int(motion.source["height"])
     checks = None
+    wobble: dict[str, Any] = {}
     if motion.frames < 2 or not measurable(info.width, info.height):
         plan = unchanged_plan(motion.matrices, motion.cuts, w, h)
         _copy_unchanged(clip, outputs.video)
@@ -174,8 +195,9 @@ def _correct_and_write(clip: Path, info: VideoInfo, motion: FrameMotion, setting
                                 window_s=settings.window_s, model=settings.model,
                                 smoother=settings.smoother, margin=settings.margin, width=w,
                                 height=h, auto_cap=AUTO_MARGIN_CAP)
-        checks = _render_video(clip, info, motion, plan, settings, outputs, progress, excluded)
-    summary = motion.figures(settings, info.fps, plan=plan, checks=checks)
+        checks, wobble = _render_video(clip, info, motion, plan, settings, outputs, progress,
+                                       excluded)
+    summary = motion.figures(settings, info.fps, plan=plan, checks=checks) | wobble
     if checks is not None and checks[0] is not None:
         _warn_if_not_steadier(clip, summary)
     log = assemble_log(motion, settings, summary, plan=plan, checks=checks, outputs=outputs,
@@ -243,8 +265,16 @@ def render(clip: str | os.PathLike, log_file: str | os.PathLike | MotionLog,
         excluded = [[x * fx, y * fy, w * fx, h * fy] for x, y, w, h in excluded]
     # The new log keeps the saved per-frame diagnostics but not the saved analysis's keys
     # (its frame reasons and left-out regions belong to that log).
+    rolling = None
+    rb = saved.row_bands
+    if rb is not None and rb.readout_s > 0 and saved.size == (info.width, info.height):
+        # The log's readout and band shifts, as measured (a log of another size is not
+        # rescaled: its frames are rendered without the within-frame correction).
+        rolling = analyse_rolling(rb.shift_px, rb.support, fps=info.fps, width=info.width,
+                                  height=info.height, readout_ms=1000.0 * rb.readout_s,
+                                  fov_deg=settings.fov_deg)
     motion = FrameMotion(
         **{**{k: getattr(saved, k) for k in LOG_COLUMNS}, "matrices": matrices},
         reasons=np.full(saved.frames, "", "<U12"),
-        source=source_dict(info, saved.frames, saved.time_s))
+        source=source_dict(info, saved.frames, saved.time_s), rolling=rolling)
     return _correct_and_write(clip, info, motion, settings, outputs, progress, excluded)

@@ -31,6 +31,7 @@ from ..io import all_or_nothing, publish, temp_path_for, write_text_atomic
 from ..io.motion_log_files import json_path_for, jsonable, read_log, save_log
 from ..motion_log import MotionLog, reasons_of
 from ..report_page import CAUTIONS, render_page
+from ..rolling import RollingShutter, analyse_rolling, rolling_figures
 from ..version import __version__
 from .analysis import ProgressFactory, measure_clip
 from .figures import shake_summary
@@ -104,6 +105,9 @@ def report_figures(motion: MotionLog, settings: Settings) -> tuple[dict[str, Any
     out.update(fresh)
     # Keys only later stages know (output_steadier …) count in the verdict too.
     out.update(shake.trust_verdict(out))
+    rolling = log_rolling(motion, settings)
+    if rolling is not None:
+        out.update(rolling_figures(rolling))
     out["fov_deg"] = settings.fov_deg
     finite = np.isfinite(motion.inlier_ratio) & (motion.tracked > 0)
     out["inlier_ratio_median"] = (float(np.median(motion.inlier_ratio[finite]))
@@ -111,6 +115,29 @@ def report_figures(motion: MotionLog, settings: Settings) -> tuple[dict[str, Any
     good = np.isfinite(motion.rms_px) & (motion.status != "failed")
     out["fit_rms_px_median"] = float(np.median(motion.rms_px[good])) if good.any() else None
     return out, fps
+
+
+def log_rolling(motion: MotionLog, settings: Settings) -> RollingShutter | None:
+    """The rolling-shutter analysis of a log's row bands at the readout it was timed with
+    (None without row bands or with readout 0)."""
+    rb = motion.row_bands
+    fps = _nominal_fps(motion)
+    if rb is None or rb.readout_s <= 0 or not fps > 0:
+        return None
+    w, h = motion.size
+    return analyse_rolling(rb.shift_px, rb.support, fps=fps, width=w, height=h,
+                           readout_ms=1000.0 * rb.readout_s, fov_deg=settings.fov_deg)
+
+
+def _vibration_png(rolling: RollingShutter | None, summary: dict[str, Any]) -> bytes | None:
+    if rolling is None or rolling.vibration is None:
+        return None
+    spec = rolling.vibration.spectrum
+    return report_plots.plot_vibration(
+        freqs_hz=spec.freqs_hz, amplitude_px=spec.amplitude_px, usable=spec.usable,
+        blind_hz=list(spec.blind_hz), fps=rolling.fps, peak_hz=summary.get("vibration_hz"),
+        peak_px=summary.get("vibration_px"), false_alarm=summary.get("vibration_false_alarm"),
+        readout_ms=1000.0 * rolling.readout_s)
 
 
 def _existing(path: str | os.PathLike | None, *, base: Path) -> Path | None:
@@ -200,6 +227,12 @@ def report_for_log(motion: MotionLog, settings: Settings, outputs: dict[str, Pat
                                           inlier_ratio=motion.inlier_ratio,
                                           status=motion.status),
     }
+    if "vibration_plot" in outputs:
+        vib_png = _vibration_png(log_rolling(motion, settings), summary)
+        if vib_png is None:
+            del outputs["vibration_plot"]
+        else:
+            images["vibration_plot"] = vib_png
     if "frames_plot" in outputs:
         wanted = report_plots.pick_frames(raw, cuts, fps=fps, above_hz=above)
         frames_png = report_plots.plot_frames(time_s=motion.time_s, wanted=wanted, clip=clip,
@@ -285,7 +318,9 @@ def make_report(clip_or_log: str | os.PathLike, out_dir: str | os.PathLike | Non
     if log_csv is not None:
         inputs.append(json_path_for(log_csv))
     outputs = report_files(folder, name, frames=video_at_hand[0] is not None,
-                           log=motion is None)
+                           log=motion is None,
+                           vibration=(motion.row_bands is not None if motion is not None
+                                      else settings.readout_ms != 0))
     check_outputs(inputs, outputs, settings.force)
 
     if motion is None:
