@@ -28,7 +28,14 @@ from .frame_fit import corner_shift, fit_frame, refit
 from .geometry import rescale
 from .motion_models import MotionModel, transfer_error
 from .overlays import OverlayFinder
-from .track import Pairs, Tracker, TrackSettings, global_shift, to_full_resolution
+from .track import (
+    Pairs,
+    Tracker,
+    TrackSettings,
+    global_shift,
+    to_full_resolution,
+    track_settings_for,
+)
 from .track_groups import band_overlay_tracks, group_tracks, in_mask, object_mask
 
 __all__ = ["REVISE_ATTEMPTS", "REVISE_GAIN", "REVISE_PX", "AnalysisPass", "FrameRecord",
@@ -80,7 +87,7 @@ class _Recent:
 class PassContext:
     """What every pass of one analysis shares: the settings, the sizes (full resolution and
     analysis copy, pixels) and the scale between them, the mask of ignored regions, and the
-    motion model."""
+    motion model. ``track_settings`` None: those of the settings' analysis level."""
 
     settings: Settings
     scale: tuple[float, float]
@@ -100,7 +107,8 @@ class AnalysisPass:
 
     def __init__(self, ctx: PassContext) -> None:
         self.ctx = ctx
-        self.tracker = Tracker(ctx.track_settings, ctx.user_mask)
+        self.tracker = Tracker(ctx.track_settings or track_settings_for(ctx.settings.analysis),
+                               ctx.user_mask)
         self.overlays = OverlayFinder(ctx.analysis_size)
         self.overlays_grew = False
         self.prior: np.ndarray | None = None
@@ -263,13 +271,20 @@ class AnalysisPass:
         base = ctx.baseline
         fw, fh = ctx.full_size
         settings = ctx.settings
-        for r in self.recent:
-            if r.index < self.owned_from or r.record.status != "ok":
-                continue
-            hit = r.used & (np.isin(r.ids, moved_ids) | in_mask(region, r.dst))
+        open_ = [r for r in self.recent if r.index >= self.owned_from
+                 and r.record.status == "ok" and r.attempts < REVISE_ATTEMPTS]
+        if not open_:
+            return
+        # The tracks hit in every open frame at once (one membership test, one mask lookup).
+        ends = np.cumsum([len(r.ids) for r in open_])
+        used = np.concatenate([r.used for r in open_])
+        hits = used & (np.isin(np.concatenate([r.ids for r in open_]), moved_ids)
+                       | in_mask(region, np.concatenate([r.dst for r in open_])))
+        for r, end in zip(open_, ends, strict=True):
+            hit = hits[end - len(r.ids):end]
             # A few tracks more or less hardly move a fit; and a frame is refitted a few times
             # at most while the same object goes on moving.
-            if hit.sum() < max(3, 0.05 * r.used.sum()) or r.attempts >= REVISE_ATTEMPTS:
+            if hit.sum() < max(3, 0.05 * r.used.sum()):
                 continue
             r.attempts += 1
             keep = r.used & ~hit & np.isin(r.ids, scene_ids)

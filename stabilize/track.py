@@ -23,6 +23,7 @@ import numpy as np
 __all__ = [
     "MEMO_WIDTH", "Pairs", "TrackSettings", "Tracker", "bucket", "cell_index", "cell_keep",
     "cell_maxima", "detect", "global_shift", "ignore_mask", "to_full_resolution",
+    "track_settings_for",
 ]
 
 
@@ -52,8 +53,10 @@ class TrackSettings:
     this many frames (picture entering the frame);
     ``empty_cells_share``: re-seed when more than this share of the grid cells that had
     corners lost them all; ``min_eig``: Lucas–Kanade's minimum eigenvalue threshold;
-    ``back_win_size``, ``back_levels``: window and coarsest pyramid level of the backward
-    check; ``predicted_levels``: coarsest pyramid level when a predicted motion gives the
+    ``backward_check``: track each point back and drop those that do not return (off: the
+    photometric check alone guards against slips); ``back_win_size``, ``back_levels``:
+    window and coarsest pyramid level of the backward check; ``predicted_levels``: coarsest
+    pyramid level when a predicted motion gives the
     starting points, and ``fallback_share``: below this share of surviving tracks, the whole
     pyramid is tried as well. The spacing, window and levels were chosen on the synthetic
     accuracy clips of ``tests/test_tracking_accuracy.py`` for the least error per unit of time.
@@ -79,6 +82,7 @@ class TrackSettings:
     lk_iterations: int = 20
     lk_epsilon: float = 0.01
     min_eig: float = 1e-4
+    backward_check: bool = True
     back_win_size: int = 21
     back_levels: int = 0
     predicted_levels: int = 0
@@ -376,14 +380,16 @@ class Tracker:
         # does not return there slid or jumped. Started at the origin, the check needs no
         # coarser levels; it keeps the forward window, since on sharp patterns another
         # window settles a few tenths of a pixel elsewhere and would read as a failure.
-        back, st_back, _ = cv2.calcOpticalFlowPyrLK(
-            cur, prev, dst, src.copy(), winSize=(s.back_win_size, s.back_win_size),
-            maxLevel=s.back_levels, criteria=criteria, minEigThreshold=s.min_eig,
-            flags=cv2.OPTFLOW_USE_INITIAL_FLOW)
-        fb = np.linalg.norm(back - src, axis=1)
         h, w = self._gray.shape
         err = err.ravel()
-        keep = (st.ravel() == 1) & (st_back.ravel() == 1) & (fb < s.fb_max_px)
+        keep = st.ravel() == 1
+        if s.backward_check:
+            back, st_back, _ = cv2.calcOpticalFlowPyrLK(
+                cur, prev, dst, src.copy(), winSize=(s.back_win_size, s.back_win_size),
+                maxLevel=s.back_levels, criteria=criteria, minEigThreshold=s.min_eig,
+                flags=cv2.OPTFLOW_USE_INITIAL_FLOW)
+            fb = np.linalg.norm(back - src, axis=1)
+            keep &= (st_back.ravel() == 1) & (fb < s.fb_max_px)
         keep &= (dst[:, 0] >= 0) & (dst[:, 0] <= w - 1) & (dst[:, 1] >= 0) & (dst[:, 1] <= h - 1)
         if keep.any():
             # Photometric check: a patch that changed much (occlusion, a reflection, a
@@ -462,6 +468,28 @@ class Tracker:
         self._had_cells = counts > 0
         self._reached = len(self._pts)
         self._since_detect = 0
+
+
+#: Tracking at each analysis level (:data:`stabilize.config.ANALYSIS_LEVELS`). ``thorough``
+#: follows three times the tracks with a wider window; ``balanced`` fewer tracks with a
+#: 15-px window, still checked backwards; ``fast`` drops the backward check as well. Figures
+#: for each on the 720p accuracy clip and real footage are in the README (measured).
+_LEVELS = {
+    "fast": TrackSettings(max_corners=500, win_size=15, back_win_size=15,
+                          backward_check=False),
+    "balanced": TrackSettings(max_corners=500, win_size=15, back_win_size=15),
+    "thorough": TrackSettings(),
+}
+
+
+def track_settings_for(level: str) -> TrackSettings:
+    """The tracking settings of an analysis level (``"fast"``, ``"balanced"``,
+    ``"thorough"``)."""
+    try:
+        return _LEVELS[level]
+    except KeyError:
+        raise ValueError(f"unknown analysis level {level!r}; expected one of "
+                         f"{', '.join(_LEVELS)}") from None
 
 
 def to_full_resolution(pts: np.ndarray, scale: tuple[float, float]) -> np.ndarray:
