@@ -16,6 +16,7 @@ import numpy as np
 from .anchors import hull_share
 from .config import Settings
 from .consensus import Fit
+from .consensus.metrics import median
 from .motion_models import MotionModel, transfer_error
 
 __all__ = ["BACKGROUND_HISTORY", "TIGHT_K", "FrameFit", "background_score", "corner_shift",
@@ -125,7 +126,7 @@ def fit_frame(src: np.ndarray, dst: np.ndarray, background: np.ndarray, *,
     # Rivals are sought at the noise scale of the first fit: two motions a pixel apart both
     # pass a 1.5 px threshold, but not a threshold of a few tenths.
     err = transfer_error(best.matrix, src, dst)
-    noise_px = min(settings.inlier_px, max(0.05, TIGHT_K * float(np.median(err[best.support]))
+    noise_px = min(settings.inlier_px, max(0.05, TIGHT_K * median(err[best.support])
                                            / 1.1774))
     kw_rival = {**kw, "inlier_px": noise_px}
     rivals: list[FrameFit | None] = []
@@ -193,7 +194,7 @@ def _noise_adaptive_refit(model: MotionModel, src: np.ndarray, dst: np.ndarray, 
     rounds = fit.rounds
     for k in range(passes):
         err = transfer_error(m, src, dst)
-        sigma = float(np.median(err[tight_set])) / 1.1774
+        sigma = median(err[tight_set]) / 1.1774
         tight = min(kw["inlier_px"], max(TIGHT_K * sigma, 0.05))
         if tight >= kw["inlier_px"] * 0.999:
             break

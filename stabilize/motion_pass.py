@@ -15,6 +15,7 @@ import numpy as np
 from . import anchors
 from .anchors import BaselineSettings, hull_share
 from .config import Settings
+from .consensus.metrics import median
 from .cuts import (
     CutSettings,
     collapsed,
@@ -301,8 +302,8 @@ class AnalysisPass:
             # The tracks kept must fit the revision clearly better than the first fit (which
             # a moving object dragged away from them); otherwise what is left is another
             # motion of its own, not the scene.
-            before = np.median(transfer_error(r.record.matrix, r.src[keep], r.dst[keep]))
-            after = np.median(transfer_error(fit.matrix, r.src[keep], r.dst[keep]))
+            before = median(transfer_error(r.record.matrix, r.src[keep], r.dst[keep]))
+            after = median(transfer_error(fit.matrix, r.src[keep], r.dst[keep]))
             if after <= REVISE_GAIN * before:
                 r.record.matrix = fit.matrix
                 r.used = keep

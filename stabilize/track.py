@@ -20,6 +20,8 @@ from dataclasses import dataclass
 import cv2
 import numpy as np
 
+from .consensus.metrics import median
+
 __all__ = [
     "MEMO_WIDTH", "Pairs", "TrackSettings", "Tracker", "bucket", "cell_index", "cell_keep",
     "cell_maxima", "detect", "global_shift", "ignore_mask", "to_full_resolution",
@@ -394,8 +396,8 @@ class Tracker:
         if keep.any():
             # Photometric check: a patch that changed much (occlusion, a reflection, a
             # blinking light) is not a trustworthy match even when the flow converged.
-            med = float(np.median(err[keep]))
-            mad = float(np.median(np.abs(err[keep] - med))) + 1e-6
+            med = median(err[keep])
+            mad = median(np.abs(err[keep] - med)) + 1e-6
             keep &= err <= max(s.photo_max, med + 5.0 * 1.4826 * mad)
         return dst, keep, err
 
