@@ -19,11 +19,17 @@ from .consensus import Fit
 from .consensus.metrics import median
 from .motion_models import MotionModel, transfer_error
 
-__all__ = ["BACKGROUND_HISTORY", "TIGHT_K", "FrameFit", "background_score", "corner_shift",
-           "fit_frame", "refit"]
+__all__ = ["BACKGROUND_HISTORY", "REFIT_PASSES", "TIGHT_K", "FrameFit", "background_score",
+           "corner_shift", "fit_frame", "refit"]
 
 # A track whose history says it moved with the camera at least this often is "background".
 BACKGROUND_HISTORY = 0.65
+
+
+# Passes of the noise-adaptive refit by analysis level: the first two settle the noise scale
+# on clean footage (the third moved the 720p accuracy clip's median error by 0.0003 px,
+# measured); the thorough level keeps a third for footage where it keeps moving.
+REFIT_PASSES = {"fast": 2, "balanced": 2, "thorough": 3}
 
 
 # Tight threshold in units of the tracking noise σ: sqrt(5.99), the 95% point of a χ² with
@@ -121,7 +127,8 @@ def fit_frame(src: np.ndarray, dst: np.ndarray, background: np.ndarray, *,
         if found is not None:
             best = dataclasses.replace(found, rounds=best.rounds + found.rounds,
                                        weak=best.weak or found.weak)
-    best = _noise_adaptive_refit(model, src, dst, best, kw, seed)
+    passes = REFIT_PASSES[settings.analysis]
+    best = _noise_adaptive_refit(model, src, dst, best, kw, seed, passes)
     n = len(src)
     # Rivals are sought at the noise scale of the first fit: two motions a pixel apart both
     # pass a 1.5 px threshold, but not a threshold of a few tenths.
@@ -143,7 +150,7 @@ def fit_frame(src: np.ndarray, dst: np.ndarray, background: np.ndarray, *,
     for i, r in enumerate(rivals):
         if r is None:
             continue
-        r = _noise_adaptive_refit(model, src, dst, r, kw_rival, [*seed, 10 + i])
+        r = _noise_adaptive_refit(model, src, dst, r, kw_rival, [*seed, 10 + i], passes)
         rounds += r.rounds
         s = background_score(r, src, background, frame_size)
         if s > score:
@@ -161,7 +168,9 @@ def refit(src: np.ndarray, dst: np.ndarray, *, model: MotionModel, settings: Set
     :func:`fit_frame`)."""
     first, kw = _consensus(model, src, dst, settings=settings, seed=seed, prior=prior,
                            frame_size=frame_size)
-    return _noise_adaptive_refit(model, src, dst, first, kw, seed) if first.ok else first
+    if not first.ok:
+        return first
+    return _noise_adaptive_refit(model, src, dst, first, kw, seed, REFIT_PASSES[settings.analysis])
 
 
 def _consensus(model: MotionModel, src: np.ndarray, dst: np.ndarray, *, settings: Settings,
