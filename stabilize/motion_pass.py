@@ -54,9 +54,9 @@ REVISE_GAIN = 0.7
 
 
 # A frame is refitted at most this many times while objects go on moving (cost), by analysis
-# level: the first revisions move a fit most (this project's choice, measured on the 720p
-# accuracy clip: two revisions instead of eight left its median error unchanged).
-REVISE_ATTEMPTS = {"fast": 2, "balanced": 2, "thorough": 8}
+# level (this project's choice: two instead of eight left the 720p accuracy clip's median
+# error unchanged, but a slowly moving foreground on real footage needs all eight, measured).
+REVISE_ATTEMPTS = {"fast": 2, "balanced": 8, "thorough": 8}
 
 
 @dataclass
