@@ -174,7 +174,7 @@ class AnalysisPass:
                 self.prior = None
                 self.slot_s = [math.nan, math.nan]
                 return FrameRecord(np.eye(3), (len(pairs), 0, 0.0, 0.0, 0), "cut")
-        if len(pairs) < 0.3 * tracker.settings.max_corners:
+        if len(pairs) < tracker.settings.texture_check_share * tracker.settings.max_corners:
             strength = corner_strength(image) if strength is None else strength
             if is_textureless(strength, self.texture_ref, cuts_cfg):
                 tracker.update(None)

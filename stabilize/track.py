@@ -60,8 +60,11 @@ class TrackSettings:
     window and coarsest pyramid level of the backward check; ``predicted_levels``: coarsest
     pyramid level when a predicted motion gives the
     starting points, and ``fallback_share``: below this share of surviving tracks, the whole
-    pyramid is tried as well. The spacing, window and levels were chosen on the synthetic
-    accuracy clips of ``tests/test_tracking_accuracy.py`` for the least error per unit of time.
+    pyramid is tried as well. ``texture_check_share``: when fewer pairs than this share of
+    ``max_corners`` survive, the frame's texture is checked (plain sky yields a few tracks of
+    noise, more of them with a small window). The spacing, window and levels were chosen on
+    the synthetic accuracy clips of ``tests/test_tracking_accuracy.py`` for the least error
+    per unit of time.
     """
 
     max_corners: int = 1500
@@ -85,6 +88,7 @@ class TrackSettings:
     lk_epsilon: float = 0.01
     min_eig: float = 1e-4
     backward_check: bool = True
+    texture_check_share: float = 0.3
     back_win_size: int = 21
     back_levels: int = 0
     predicted_levels: int = 0
@@ -480,9 +484,9 @@ class Tracker:
 #: footage (figures in the README, measured).
 _LEVELS = {
     "fast": TrackSettings(max_corners=500, win_size=11, refresh_frames=30,
-                          backward_check=False),
+                          backward_check=False, texture_check_share=0.6),
     "balanced": TrackSettings(max_corners=500, win_size=11, back_win_size=11,
-                              refresh_frames=30),
+                              refresh_frames=30, texture_check_share=0.6),
     "thorough": TrackSettings(),
 }
 
