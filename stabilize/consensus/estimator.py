@@ -225,7 +225,7 @@ class _Prepared(NamedTuple):
 # thresholds), and getting them ready costs as much as a refit.
 _RECENT: list[tuple[Model, NDArray[np.float64], NDArray[np.float64], NDArray[np.float64],
                     NDArray[np.float64], _Prepared]] = []
-_RECENT_SIZE = 4
+_RECENT_SIZE = 2
 
 
 def _prepared(spec: Model, src: NDArray[np.float64], dst: NDArray[np.float64]) -> _Prepared:
