@@ -31,8 +31,8 @@ def test_default_and_every_level_is_known_everywhere():
         assert track_settings_for(level).max_corners > 0
         assert level in REFIT_PASSES and level in REVISE_ATTEMPTS
     assert track_settings_for("thorough").max_corners > track_settings_for("fast").max_corners
-    assert not track_settings_for("fast").backward_check
-    assert track_settings_for("balanced").backward_check
+    # Every level checks each track backwards: without it tracks survive scene cuts.
+    assert all(track_settings_for(level).backward_check for level in ANALYSIS_LEVELS)
 
 
 def test_unknown_level_is_refused_in_plain_words(tmp_path):
