@@ -15,7 +15,15 @@ import sys
 import threading
 from typing import Any
 
-from .config import CODECS, FILLS, MODELS, OPTION_NAMES, SMOOTHERS, resolve_settings
+from .config import (
+    ANALYSIS_LEVELS,
+    CODECS,
+    FILLS,
+    MODELS,
+    OPTION_NAMES,
+    SMOOTHERS,
+    resolve_settings,
+)
 from .errors import StabilizeError
 from .io import remove_temporaries, stop_children
 from .jobs import make_report, measure_to_file, render, run_batch, run_demo, steady
@@ -49,6 +57,9 @@ def _add_common(p: argparse.ArgumentParser) -> None:
     g.add_argument("--fill", choices=FILLS, help="fill for uncovered pixels")
     g.add_argument("--analysis-width", metavar="PX",
                    help="width frames are reduced to for tracking (0 = full resolution)")
+    g.add_argument("--analysis", choices=ANALYSIS_LEVELS,
+                   help="effort spent tracking each frame: fast, balanced (default) or "
+                        "thorough (most accurate, about twice the analysis time)")
     g.add_argument("--ignore", metavar="X,Y,W,H", action="append",
                    help="region excluded from tracking, full-resolution pixels (repeatable)")
     g.add_argument("--inlier-px", metavar="PX", help="consensus inlier threshold in pixels")

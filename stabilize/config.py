@@ -20,15 +20,19 @@ from typing import Any
 from .errors import StabilizeError
 
 __all__ = [
-    "AUTO_MARGIN_CAP", "CODECS", "FILLS", "MAX_MARGIN", "MAX_READOUT_MS", "MODELS", "OPTION_NAMES",
-    "PRESETS_X264", "SMOOTHERS", "Region", "Settings", "build_settings", "coerce",
-    "logged_settings", "parse_region", "preset_dirs", "preset_names", "read_config",
-    "resolve_config", "resolve_settings", "setting_label", "validate",
+    "ANALYSIS_LEVELS", "AUTO_MARGIN_CAP", "CODECS", "FILLS", "MAX_MARGIN", "MAX_READOUT_MS",
+    "MODELS", "OPTION_NAMES", "PRESETS_X264", "SMOOTHERS", "Region", "Settings",
+    "build_settings", "coerce", "logged_settings", "parse_region", "preset_dirs",
+    "preset_names", "read_config", "resolve_config", "resolve_settings", "setting_label",
+    "validate",
 ]
 
 MODELS = ("translation", "similarity", "affine", "homography")
 SMOOTHERS = ("gaussian", "kalman", "l1", "lockoff")
 FILLS = ("black", "reflect", "replicate")
+#: How much work the analysis puts into each frame, quickest first (see
+#: :func:`stabilize.track.track_settings_for`).
+ANALYSIS_LEVELS = ("fast", "balanced", "thorough")
 CODECS = ("h264", "h265", "ffv1")
 PRESETS_X264 = (
     "ultrafast", "superfast", "veryfast", "faster", "fast",
@@ -52,7 +56,9 @@ class Settings:
     the frame width and height cut from each side. ``ignore`` holds (x, y, w, h) rectangles in
     full-resolution pixels. ``readout_ms`` is the camera's first-to-last-row readout time in
     milliseconds: 0 for a global shutter (the default: no rolling-shutter analysis), a number
-    for a known rolling shutter, or ``"auto"`` to estimate it from the footage.
+    for a known rolling shutter, or ``"auto"`` to estimate it from the footage. ``analysis``
+    is one of :data:`ANALYSIS_LEVELS`: the effort spent on tracking each frame, trading
+    analysis time for accuracy.
     """
 
     model: str = "similarity"
@@ -61,6 +67,7 @@ class Settings:
     margin: str | float = "auto"
     fill: str = "black"
     analysis_width: int = 960
+    analysis: str = "balanced"
     ignore: tuple[Region, ...] = field(default_factory=tuple)
     inlier_px: float = 1.5
     confidence: float = 0.999
@@ -127,7 +134,7 @@ def validate(s: Settings) -> None:
     """Raise StabilizeError naming the first bad option and the values it allows."""
     choices = {
         "model": MODELS, "smoother": SMOOTHERS, "fill": FILLS, "codec": CODECS,
-        "preset": PRESETS_X264,
+        "preset": PRESETS_X264, "analysis": ANALYSIS_LEVELS,
     }
     for name, allowed in choices.items():
         if getattr(s, name) not in allowed:

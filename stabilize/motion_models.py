@@ -51,7 +51,7 @@ def transfer_error(m: np.ndarray, src: np.ndarray, dst: np.ndarray) -> np.ndarra
     -------
     (n,) transfer error, pixels.
     """
-    h = np.c_[src, np.ones(len(src))] @ m.T
+    h = src @ m[:, :2].T + m[:, 2]
     return np.linalg.norm(h[:, :2] / h[:, 2:3] - dst, axis=1)
 
 

@@ -20,9 +20,12 @@ from dataclasses import dataclass
 import cv2
 import numpy as np
 
+from .consensus.metrics import median
+
 __all__ = [
     "MEMO_WIDTH", "Pairs", "TrackSettings", "Tracker", "bucket", "cell_index", "cell_keep",
     "cell_maxima", "detect", "global_shift", "ignore_mask", "to_full_resolution",
+    "track_settings_for",
 ]
 
 
@@ -52,11 +55,16 @@ class TrackSettings:
     this many frames (picture entering the frame);
     ``empty_cells_share``: re-seed when more than this share of the grid cells that had
     corners lost them all; ``min_eig``: Lucas–Kanade's minimum eigenvalue threshold;
-    ``back_win_size``, ``back_levels``: window and coarsest pyramid level of the backward
-    check; ``predicted_levels``: coarsest pyramid level when a predicted motion gives the
+    ``backward_check``: track each point back and drop those that do not return (off: the
+    photometric check alone guards against slips); ``back_win_size``, ``back_levels``:
+    window and coarsest pyramid level of the backward check; ``predicted_levels``: coarsest
+    pyramid level when a predicted motion gives the
     starting points, and ``fallback_share``: below this share of surviving tracks, the whole
-    pyramid is tried as well. The spacing, window and levels were chosen on the synthetic
-    accuracy clips of ``tests/test_tracking_accuracy.py`` for the least error per unit of time.
+    pyramid is tried as well. ``texture_check_share``: when fewer pairs than this share of
+    ``max_corners`` survive, the frame's texture is checked (plain sky yields a few tracks of
+    noise, more of them with a small window). The spacing, window and levels were chosen on
+    the synthetic accuracy clips of ``tests/test_tracking_accuracy.py`` for the least error
+    per unit of time.
     """
 
     max_corners: int = 1500
@@ -79,6 +87,8 @@ class TrackSettings:
     lk_iterations: int = 20
     lk_epsilon: float = 0.01
     min_eig: float = 1e-4
+    backward_check: bool = True
+    texture_check_share: float = 0.3
     back_win_size: int = 21
     back_levels: int = 0
     predicted_levels: int = 0
@@ -376,20 +386,22 @@ class Tracker:
         # does not return there slid or jumped. Started at the origin, the check needs no
         # coarser levels; it keeps the forward window, since on sharp patterns another
         # window settles a few tenths of a pixel elsewhere and would read as a failure.
-        back, st_back, _ = cv2.calcOpticalFlowPyrLK(
-            cur, prev, dst, src.copy(), winSize=(s.back_win_size, s.back_win_size),
-            maxLevel=s.back_levels, criteria=criteria, minEigThreshold=s.min_eig,
-            flags=cv2.OPTFLOW_USE_INITIAL_FLOW)
-        fb = np.linalg.norm(back - src, axis=1)
         h, w = self._gray.shape
         err = err.ravel()
-        keep = (st.ravel() == 1) & (st_back.ravel() == 1) & (fb < s.fb_max_px)
+        keep = st.ravel() == 1
+        if s.backward_check:
+            back, st_back, _ = cv2.calcOpticalFlowPyrLK(
+                cur, prev, dst, src.copy(), winSize=(s.back_win_size, s.back_win_size),
+                maxLevel=s.back_levels, criteria=criteria, minEigThreshold=s.min_eig,
+                flags=cv2.OPTFLOW_USE_INITIAL_FLOW)
+            fb = np.linalg.norm(back - src, axis=1)
+            keep &= (st_back.ravel() == 1) & (fb < s.fb_max_px)
         keep &= (dst[:, 0] >= 0) & (dst[:, 0] <= w - 1) & (dst[:, 1] >= 0) & (dst[:, 1] <= h - 1)
         if keep.any():
             # Photometric check: a patch that changed much (occlusion, a reflection, a
             # blinking light) is not a trustworthy match even when the flow converged.
-            med = float(np.median(err[keep]))
-            mad = float(np.median(np.abs(err[keep] - med))) + 1e-6
+            med = median(err[keep])
+            mad = median(np.abs(err[keep] - med)) + 1e-6
             keep &= err <= max(s.photo_max, med + 5.0 * 1.4826 * mad)
         return dst, keep, err
 
@@ -462,6 +474,33 @@ class Tracker:
         self._had_cells = counts > 0
         self._reached = len(self._pts)
         self._since_detect = 0
+
+
+#: Tracking at each analysis level (:data:`stabilize.config.ANALYSIS_LEVELS`). ``thorough``
+#: follows 1500 tracks with a 21-px window and looks for new corners every 10 frames;
+#: ``balanced`` 500 tracks with an 11-px window, still checked backwards, new corners every
+#: 30 frames (unless tracks thin out); ``fast`` 400 such tracks. Without the backward check
+#: tracks survive scene cuts (none of the five cuts of a real clip was found, measured), so
+#: every level keeps it. Chosen
+#: on the 720p accuracy clip of ``tests/test_tracking_accuracy.py`` and checked on real
+#: footage (figures in the README, measured).
+_LEVELS = {
+    "fast": TrackSettings(max_corners=400, win_size=11, back_win_size=11, refresh_frames=30,
+                          texture_check_share=0.6),
+    "balanced": TrackSettings(max_corners=500, win_size=11, back_win_size=11,
+                              refresh_frames=30, texture_check_share=0.6),
+    "thorough": TrackSettings(),
+}
+
+
+def track_settings_for(level: str) -> TrackSettings:
+    """The tracking settings of an analysis level (``"fast"``, ``"balanced"``,
+    ``"thorough"``)."""
+    try:
+        return _LEVELS[level]
+    except KeyError:
+        raise ValueError(f"unknown analysis level {level!r}; expected one of "
+                         f"{', '.join(_LEVELS)}") from None
 
 
 def to_full_resolution(pts: np.ndarray, scale: tuple[float, float]) -> np.ndarray:

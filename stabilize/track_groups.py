@@ -11,6 +11,7 @@ import numpy as np
 
 from .anchors import BaselineSettings, Grouping, hull_share
 from .config import Settings
+from .consensus.metrics import median, quantile
 from .frame_fit import TIGHT_K
 from .motion_models import MotionModel, transfer_error
 from .overlays import still_band
@@ -72,7 +73,7 @@ def group_tracks(dst: np.ndarray, memo: np.ndarray, slot: int | None, background
     err = transfer_error(np.asarray(first.matrix, float), start[has], dst[has])
     # The lower quartile: a compromise between two groups inflates the median. For 2-D
     # Gaussian errors the quartile distance is sqrt(2 ln(4/3)) σ = 0.7585 σ.
-    sigma = float(np.percentile(err[first.inliers], 25)) / 0.7585
+    sigma = quantile(err[first.inliers], 0.25) / 0.7585
     group_px = min(settings.inlier_px, max(GROUP_SHARE * settings.inlier_px,
                                            2.0 * TIGHT_K * sigma))
     if group_px < settings.inlier_px:
@@ -96,7 +97,7 @@ def group_tracks(dst: np.ndarray, memo: np.ndarray, slot: int | None, background
     # Only a motion clearly apart from the first is a second group; one just past the
     # threshold is the same scene seen through tracking noise or lens distortion.
     apart = transfer_error(np.asarray(first.matrix, float), start[b], dst[b])
-    if float(np.median(apart)) < SEPARATION * group_px:
+    if median(apart) < SEPARATION * group_px:
         return Grouping(a, none, spread_a, 0.0)
     spread_b = hull_share(dst[b], frame_size)
 

@@ -228,14 +228,14 @@ def occupied_cells(xy: NDArray[np.float64], frame: Frame, grid: int = SPREAD_GRI
     """
     if xy.shape[1] == 0:
         return 0
-    c = xy - ((frame.x0,), (frame.y0,))
-    c *= ((grid / frame.width,), (grid * grid / frame.height,))
-    # Row y is pre-multiplied by grid: cell = grid * floor(y') + floor(x').
-    np.maximum(c, 0.0, out=c)
-    np.minimum(c, ((grid - 0.5,), (grid * (grid - 0.5),)), out=c)
-    ci = c.astype(np.intp)
-    ci[1] -= ci[1] % grid
-    return int(np.count_nonzero(np.bincount(ci[0] + ci[1])))
+    gx = (xy[0] - frame.x0) * (grid / frame.width)
+    gy = (xy[1] - frame.y0) * (grid / frame.height)
+    top = grid - 0.5
+    cells = np.minimum(np.maximum(gx, 0.0, out=gx), top, out=gx).astype(np.intp)
+    cells += grid * np.minimum(np.maximum(gy, 0.0, out=gy), top, out=gy).astype(np.intp)
+    occupied = np.zeros(grid * grid, dtype=bool)
+    occupied[cells] = True
+    return int(np.count_nonzero(occupied))
 
 
 def weakness(n_inliers: int, n: int, cells: int) -> str:

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass, field
+from typing import NamedTuple
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -25,7 +26,7 @@ from .degeneracy import (
     weakness,
 )
 from .local_opt import Candidate, evaluate, local_optimise
-from .models import MODELS, Model, normalisation
+from .models import MODELS, Model, Normalisation, normalisation
 from .sampling import canonical_order, draw_samples
 from .scoring import inlier_mask, msac_costs
 from .termination import FIRST_GUESS_OUTLIERS, next_batch_size, rounds_needed
@@ -81,6 +82,12 @@ class Fit:
 def _failure(n: int, rounds: int, reason: str, model: str) -> Fit:
     return Fit(np.eye(3), np.zeros(n, dtype=bool), rounds, float("nan"), float("inf"),
                False, True, reason, model)
+
+
+def _det3(m: NDArray[np.float64]) -> float:
+    """Determinant of a 3x3 matrix, written out (a tenth of the cost of numpy's LU)."""
+    (a, b, c), (d, e, f), (g, h, i) = m.tolist()
+    return a * (e * i - f * h) - b * (d * i - f * g) + c * (d * h - e * g)
 
 
 def _check(
@@ -197,14 +204,45 @@ def estimate(
                          int(max_rounds), seed, prior_a, bounds or DEFAULT_BOUNDS, frame_size)
 
 
-def _estimate(
-    spec: Model, src: NDArray[np.float64], dst: NDArray[np.float64], t_px: float,
-    confidence: float, max_rounds: int, seed: int | Sequence[int] | np.random.Generator | None,
-    prior: NDArray[np.float64] | None, bounds: MotionBounds,
-    frame_size: tuple[float, float] | None,
-) -> Fit:
+class _Prepared(NamedTuple):
+    """The point set of one call made ready for a model: the finite rows kept (None: all),
+    their count, canonical order, the ordered points (4, n), the normalisation, the
+    normalised points (5, n), why no model of the family fits them ("" when one may) and
+    the model's features."""
+
+    keep: NDArray[np.intp] | None
+    n: int
+    order: NDArray[np.intp] | None
+    pts: NDArray[np.float64]
+    norm: Normalisation | None
+    z: NDArray[np.float64] | None
+    problem: str
+    feat: NDArray[np.float64] | None
+
+
+# The last few point sets made ready, with the arrays they came from: a frame's fit calls
+# the estimator several times on the same pairs (a consensus, then refits at other
+# thresholds), and getting them ready costs as much as a refit.
+_RECENT: list[tuple[Model, NDArray[np.float64], NDArray[np.float64], NDArray[np.float64],
+                    NDArray[np.float64], _Prepared]] = []
+_RECENT_SIZE = 2
+
+
+def _prepared(spec: Model, src: NDArray[np.float64], dst: NDArray[np.float64]) -> _Prepared:
+    """The point set made ready (:class:`_Prepared`), reused when the same arrays with the
+    same values were given for the same model lately (its arrays are read-only)."""
+    for m, s_ref, d_ref, s_copy, d_copy, ready in _RECENT:
+        if (m is spec and s_ref is src and d_ref is dst and np.array_equal(s_copy, src)
+                and np.array_equal(d_copy, dst)):
+            return ready
+    ready = _prepare(spec, src, dst)
+    _RECENT.insert(0, (spec, src, dst, src.copy(), dst.copy(), ready))
+    del _RECENT[_RECENT_SIZE:]
+    return ready
+
+
+def _prepare(spec: Model, src: NDArray[np.float64], dst: NDArray[np.float64]) -> _Prepared:
     n_all = len(src)
-    s = spec.sample_size
     pts = np.empty((4, n_all))
     pts[:2] = src.T
     pts[2:] = dst.T
@@ -213,13 +251,31 @@ def _estimate(
         keep = np.flatnonzero(np.isfinite(pts).all(axis=0))
         pts = np.take(pts, keep, axis=1)
     n = pts.shape[1]
-    if n < s:
-        return _failure(n_all, 0, f"too few points ({n} < {s})", spec.name)
-
+    if n < spec.sample_size:
+        return _Prepared(keep, n, None, pts, None, None, "", None)
     order = canonical_order(pts)
     pts = np.take(pts, order, axis=1)
     norm, z, gram = normalisation(pts[:2], pts[2:])
     problem = point_set_problem(gram, n, spec.spread_rank)
+    feat = None if problem else spec.features(z)
+    for a in (keep, order, pts, z, feat):
+        if a is not None:
+            a.flags.writeable = False
+    return _Prepared(keep, n, order, pts, norm, z, problem, feat)
+
+
+def _estimate(
+    spec: Model, src: NDArray[np.float64], dst: NDArray[np.float64], t_px: float,
+    confidence: float, max_rounds: int, seed: int | Sequence[int] | np.random.Generator | None,
+    prior: NDArray[np.float64] | None, bounds: MotionBounds,
+    frame_size: tuple[float, float] | None,
+) -> Fit:
+    n_all = len(src)
+    s = spec.sample_size
+    prepared = _prepared(spec, src, dst)
+    keep, n, order, pts, norm, z, problem, feat = prepared
+    if n < s:
+        return _failure(n_all, 0, f"too few points ({n} < {s})", spec.name)
     if problem:
         return _failure(n_all, 0, problem, spec.name)
 
@@ -234,9 +290,10 @@ def _estimate(
         m = to_frame_centred(h.ravel().tolist(), scale, src_off, dst_off)
         return plausible(m, bounds, frame)
 
-    feat = spec.features(z)
     zs = z[:4]
-    rng = np.random.default_rng(seed)
+    # Made on first use: a refit from a prior alone draws nothing, and seeding costs as
+    # much as scoring a batch.
+    rng: np.random.Generator | None = None
 
     best: Candidate | None = None
     rounds = 0
@@ -256,8 +313,8 @@ def _estimate(
     if prior is not None:
         rounds += 1
         hp = None
-        if np.all(np.isfinite(prior)) and abs(np.linalg.det(prior)) > 1e-300:
-            hp = spec.project(norm.t_dst() @ prior @ np.linalg.inv(norm.t_src()))
+        if np.isfinite(prior).all() and abs(_det3(prior)) > 1e-300:
+            hp = spec.project(norm.t_dst() @ prior @ norm.t_src_inv())
         if hp is not None and ok_motion(hp):
             n_valid += 1
             adopt(evaluate(spec, feat, hp, t2))
@@ -270,6 +327,8 @@ def _estimate(
             batch = next_batch_size(rounds, needed, max_rounds, True)
         if batch <= 0:
             break
+        if rng is None:
+            rng = np.random.default_rng(seed)
         idx = draw_samples(rng, n, s, batch)
         rounds += batch
         hyp, valid = spec.solve(np.take(zs, idx, axis=1))

@@ -94,6 +94,12 @@ class Normalisation:
         """3x3 matrix taking dst pixels to normalised coordinates."""
         return _norm_matrix(self.dst_centre, self.scale)
 
+    def t_src_inv(self) -> Array:
+        """3x3 matrix taking normalised src coordinates back to pixels."""
+        cx, cy = self.src_centre
+        s = 1.0 / self.scale
+        return np.array([[s, 0.0, cx], [0.0, s, cy], [0.0, 0.0, 1.0]])
+
     def t_dst_inv(self) -> Array:
         """3x3 matrix taking normalised dst coordinates back to pixels."""
         cx, cy = self.dst_centre

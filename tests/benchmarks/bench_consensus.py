@@ -91,7 +91,7 @@ def speed(reps: int, datasets: int = 10) -> None:
           f"median of {reps * datasets} interleaved calls")
     default_threads = cv2.getNumThreads()
     print(f"{'model':<12}{'cv threads':>11}{'ours ms':>10}{'cv ms':>9}{'ratio':>8}  target")
-    targets = {"similarity": 1.5, "homography": 1.0}
+    targets = {"similarity": 1.0, "homography": 0.7}
     for model in MODELS:
         rng = np.random.default_rng([7, MODELS.index(model)])
         data = [make_matches(rng, model, n=1000, outliers=0.3)[1:3] for _ in range(datasets)]
