@@ -18,11 +18,14 @@ from .camera_path import decode, encode
 from .config import SMOOTHERS
 from .geometry import frame_centre, similarity_readout
 from .raw_path import accumulate, segments
-from .smoothers.gaussian import gaussian_smooth
+from .smoothers.gaussian import gaussian_kernel, gaussian_smooth
 from .smoothers.kalman import kalman_smooth
 from .smoothers.lockoff import lockoff_path
 
-__all__ = ["SMOOTHERS", "CorrectionPlan", "plan_corrections", "smooth_path", "unchanged_plan"]
+__all__ = [
+    "SMOOTHERS", "CorrectionPlan", "look_ahead_frames", "plan_corrections", "smooth_path",
+    "unchanged_plan",
+]
 
 _log = logging.getLogger("stabilize")
 
@@ -169,6 +172,38 @@ def plan_corrections(matrices: np.ndarray, cuts: np.ndarray, *, fps: float, wind
     return CorrectionPlan(corrections=framing.corrections(p, s, margin, w, h),
                           smooth_values=similarity_readout(s, frame_centre(w, h)),
                           margin=margin, frames_eased=eased)
+
+
+def look_ahead_frames(smoother: str, margin: str | float, fps: float,
+                      window_s: float) -> int | None:
+    """Frames of look-ahead after which a frame's correction no longer changes, or None when
+    the smoother needs the whole path.
+
+    For ``gaussian`` with a fixed margin, the correction of frame t depends on the raw path
+    within the Gaussian's radius (3σ, σ = window_s / 2) and, where the margin binds, on the
+    easing of :func:`stabilize.framing.fit_to_margin` (a running minimum over a quarter window
+    each side, then a Gaussian of σ = window_s / 4). Planned on the frames up to t + L only
+    (L the value returned), frame t's correction is then bit for bit the whole clip's, as
+    long as the margin binds nowhere in the clip: where it binds anywhere, every frame's path
+    is blended (share ≈ 1 included), which a plan made before seeing that frame cannot know.
+    ``kalman`` (the Rauch–Tung–Striebel pass runs back from the clip's end), ``l1``,
+    ``lockoff`` and ``margin="auto"`` need the whole path: None.
+
+    Parameters
+    ----------
+    smoother : smoother name. margin : ``"auto"`` or the fraction cut from each side.
+    fps : frames per second. window_s : smoothing time scale, seconds.
+
+    Returns
+    -------
+    L in frames, or None.
+    """
+    if smoother != "gaussian" or margin == "auto":
+        return None
+    radius = len(gaussian_kernel(0.5 * window_s * fps)) // 2
+    half = max(1, int(round(0.25 * window_s * fps)))
+    ease = len(gaussian_kernel(0.25 * window_s * fps)) // 2
+    return radius + 2 * half + ease
 
 
 def unchanged_plan(matrices: np.ndarray, cuts: np.ndarray, width: int,
