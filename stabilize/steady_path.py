@@ -23,8 +23,8 @@ from .smoothers.kalman import kalman_smooth
 from .smoothers.lockoff import lockoff_path
 
 __all__ = [
-    "SMOOTHERS", "CorrectionPlan", "look_ahead_frames", "plan_corrections", "smooth_path",
-    "unchanged_plan",
+    "SMOOTHERS", "CorrectionPlan", "FixedLagPlanner", "look_ahead_frames", "plan_corrections",
+    "plan_path", "smooth_path", "unchanged_plan",
 ]
 
 _log = logging.getLogger("stabilize")
@@ -147,8 +147,17 @@ def plan_corrections(matrices: np.ndarray, cuts: np.ndarray, *, fps: float, wind
     -------
     CorrectionPlan
     """
+    return plan_path(accumulate(matrices, cuts), cuts, fps=fps, window_s=window_s, model=model,
+                     smoother=smoother, margin=margin, width=width, height=height,
+                     auto_cap=auto_cap)
+
+
+def plan_path(p: np.ndarray, cuts: np.ndarray, *, fps: float, window_s: float, model: str,
+              smoother: str, margin: str | float, width: int, height: int,
+              auto_cap: float) -> CorrectionPlan:
+    """:func:`plan_corrections` from the raw path P_t (:func:`stabilize.raw_path.accumulate`)
+    instead of the inter-frame transforms; the other parameters are the same."""
     w, h = width, height
-    p = accumulate(matrices, cuts)
     common = dict(fps=fps, window_s=window_s, model=model, width=w, height=h, cuts=cuts)
     s = None
     if margin == "auto":
@@ -204,6 +213,64 @@ def look_ahead_frames(smoother: str, margin: str | float, fps: float,
     half = max(1, int(round(0.25 * window_s * fps)))
     ease = len(gaussian_kernel(0.25 * window_s * fps)) // 2
     return radius + 2 * half + ease
+
+
+class FixedLagPlanner:
+    """The Gaussian plan at a fixed margin, made while frames arrive: each frame's correction
+    as soon as the frames :func:`look_ahead_frames` past it are known.
+
+    :meth:`extend` appends inter-frame transforms (and cut flags) in order; the raw path is
+    chained as :func:`stabilize.raw_path.accumulate` chains it. :meth:`plan` returns the
+    corrections of the frames from ``first`` on that no later frame changes, planned on a
+    window reaching ``2 L`` frames back. They equal the whole clip's bit for bit as long as
+    the margin binds nowhere (see :func:`look_ahead_frames`); :attr:`eased` says whether it
+    bound somewhere in a window planned so far.
+
+    Parameters
+    ----------
+    fps, window_s, model, margin, width, height : as for :func:`plan_corrections`.
+    """
+
+    def __init__(self, *, fps: float, window_s: float, model: str, margin: float, width: int,
+                 height: int) -> None:
+        self.lag = look_ahead_frames("gaussian", margin, fps, window_s)
+        self._common = dict(fps=fps, window_s=window_s, model=model, smoother="gaussian",
+                            margin=float(margin), width=width, height=height, auto_cap=0.0)
+        self._paths: list[np.ndarray] = []
+        self._cuts: list[bool] = []
+        self._p = np.eye(3)
+        self.eased = False
+
+    @property
+    def frames(self) -> int:
+        """Frames known so far."""
+        return len(self._paths)
+
+    def extend(self, matrices: np.ndarray, cuts: np.ndarray) -> None:
+        """Append inter-frame transforms (k, 3, 3) H_t and their cut flags (k,) bool."""
+        inverses = np.linalg.inv(matrices)
+        for inv, cut in zip(inverses, cuts, strict=True):
+            if not self._paths or cut:
+                p = np.eye(3)
+            else:
+                p = self._p @ inv
+                p = p / p[2, 2]
+            self._p = p
+            self._paths.append(p)
+            self._cuts.append(bool(cut))
+
+    def plan(self, first: int, final: bool = False) -> np.ndarray:
+        """Corrections (k, 3, 3) C_t of frames ``first`` … ``first + k − 1``: those settled by
+        the frames known (all of them when ``final``, the clip having ended)."""
+        n = len(self._paths)
+        ready = n if final else n - self.lag
+        if ready <= first:
+            return np.empty((0, 3, 3))
+        a = max(0, first - 2 * self.lag)
+        cuts = np.array(self._cuts[a:n])
+        plan = plan_path(np.array(self._paths[a:n]), cuts, **self._common)
+        self.eased = self.eased or bool(plan.frames_eased)
+        return plan.corrections[first - a:ready - a]
 
 
 def unchanged_plan(matrices: np.ndarray, cuts: np.ndarray, width: int,

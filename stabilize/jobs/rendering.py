@@ -41,13 +41,17 @@ from .analysis import (
     FrameMotion,
     ProgressFactory,
     assemble_log,
+    excluded_regions,
     measure_motion,
     progress_bar,
     source_dict,
 )
 from .outputs import Outputs, check_job_outputs, clip_name, plan_outputs, render_log
+from .single_decode import frames_to_hold, steady_single_decode
 
-__all__ = ["RENDER_DECODE_THREADS", "excluded_regions", "render", "steady", "steady_clip"]
+__all__ = [
+    "RENDER_DECODE_THREADS", "SINGLE_DECODE", "excluded_regions", "render", "steady", "steady_clip",
+]
 
 _log = logging.getLogger("stabilize")
 
@@ -55,6 +59,11 @@ _log = logging.getLogger("stabilize")
 # every extra frame-decoding thread holds pictures of its own (at 4K, 30–50 MiB measured on
 # two cores, more where ffmpeg would start one thread per core).
 RENDER_DECODE_THREADS = 1
+
+#: Whether ``steady`` may analyse and render from one decoding pass where the smoother allows
+#: it (:func:`~stabilize.jobs.single_decode.frames_to_hold`); the video and the log are the
+#: same either way, bit for bit.
+SINGLE_DECODE = True
 
 
 def _render_video(clip: Path, info: VideoInfo, motion: FrameMotion, plan: CorrectionPlan,
@@ -106,23 +115,6 @@ def _render_video(clip: Path, info: VideoInfo, motion: FrameMotion, plan: Correc
     return check.output, check.source
 
 
-def excluded_regions(extra: dict[str, Any]) -> list[list[float]]:
-    """Rectangles (x, y, w, h) left out of tracking, full-resolution pixels, from a log's
-    ``excluded`` key (anything but four finite numbers is passed over: a log is data)."""
-    found = extra.get("excluded")
-    out: list[list[float]] = []
-    if isinstance(found, dict):
-        for rects in found.values():
-            for r in rects if isinstance(rects, list) else ():
-                try:
-                    vals = [float(v) for v in r]
-                except (TypeError, ValueError):
-                    continue
-                if len(vals) == 4 and all(np.isfinite(vals)) and vals[2] > 0 and vals[3] > 0:
-                    out.append(vals)
-    return out
-
-
 def _copy_unchanged(clip: Path, dest: Path) -> None:
     """The input's bytes, unchanged, as ``dest`` (for clips too short or small to steady)."""
     tmp = temp_path_for(dest)
@@ -158,13 +150,17 @@ def _warn_if_not_steadier(clip: Path, summary: dict[str, Any]) -> None:
 def _correct_and_write(clip: Path, info: VideoInfo, motion: FrameMotion, settings: Settings,
                        outputs: Outputs, progress: ProgressFactory | None,
                        excluded: list[list[float]], source_extra: dict[str, Any] | None = None,
-                       extra: dict[str, Any] | None = None) -> MotionLog:
+                       extra: dict[str, Any] | None = None,
+                       rendered: tuple[CorrectionPlan, Any] | None = None) -> MotionLog:
     """Plan the corrections and render them (or pass a clip too short or small to steady
-    through unchanged), then summarise, assemble the log and write it."""
+    through unchanged), then summarise, assemble the log and write it. ``rendered`` is the
+    plan and output check of a video already written from a single decoding pass."""
     fps = shake.frame_rate(motion.time_s, info.fps)  # real time for the smoothing window
     w, h = int(motion.source["width"]), int(motion.source["height"])
     checks = None
-    if motion.frames < 2 or not measurable(info.width, info.height):
+    if rendered is not None:
+        plan, checks = rendered
+    elif motion.frames < 2 or not measurable(info.width, info.height):
         plan = unchanged_plan(motion.matrices, motion.cuts, w, h)
         _copy_unchanged(clip, outputs.video)
         if outputs.compare is not None:
@@ -191,9 +187,18 @@ def steady_clip(clip: Path, outputs: Outputs, settings: Settings,
     """Measure, smooth and render one clip into ``outputs`` (already checked) and write its
     log, with ``source_extra`` and ``extra`` keys added to it; returns the log."""
     info = probe(clip)
-    motion = measure_motion(clip, info, settings, progress)
+    hold = frames_to_hold(info, settings) if SINGLE_DECODE else None
+    rendered = None
+    if hold is not None:
+        # One decoding pass feeds the analysis and the render (two when it cannot give the
+        # same video; see stabilize.jobs.single_decode).
+        motion, plan, checks = steady_single_decode(clip, info, settings, outputs, progress,
+                                                    hold)
+        rendered = None if plan is None else (plan, checks)
+    else:
+        motion = measure_motion(clip, info, settings, progress)
     return _correct_and_write(clip, info, motion, settings, outputs, progress,
-                              excluded_regions(motion.extra), source_extra, extra)
+                              excluded_regions(motion.extra), source_extra, extra, rendered)
 
 
 # Every output of one job appears together when the job succeeds, or none does.

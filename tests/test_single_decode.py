@@ -1,0 +1,63 @@
+"""``steady`` from one decoding pass gives the two-pass result bit for bit: the same motion log
+(CSV, and JSON but for the run's own keys) and the same decoded frames, whether the single
+pass is kept or given up for a second pass."""
+
+from __future__ import annotations
+
+import json
+import logging
+from pathlib import Path
+
+import pytest
+
+import stabilize
+from stabilize.io import VideoWriter
+from stabilize.jobs import rendering
+from stabilize.synthetic import Mover, SceneSpec, SyntheticClip
+from tests.golden.cases import _scrub, frame_digest
+
+KEPT = "analysed and rendered from one decoding pass"
+GIVEN_UP = "single decoding pass given up"
+
+
+@pytest.fixture(scope="module")
+def long_clip(tmp_path_factory) -> Path:
+    """Eight seconds (longer than the render's look-ahead), a mover and a cut."""
+    dest = tmp_path_factory.mktemp("single") / "truss.mp4"
+    spec = SceneSpec(style="truss", width=320, height=180, fps=24.0, duration_s=8.0, seed=7,
+                     movers=(Mover("vehicle", (60.0, 28.0), (80.0, 120.0), (40.0, 0.0)),),
+                     cuts_s=(5.2,))
+    clip = SyntheticClip(spec)
+    with VideoWriter(dest, clip.width, clip.height, clip.fps, crf=14, preset="veryfast") as wr:
+        for _, frame in clip.frames():
+            wr.write(frame)
+    return dest
+
+
+def _steady(clip: Path, work: Path, single: bool, monkeypatch, **options) -> dict[str, str]:
+    monkeypatch.setattr(rendering, "SINGLE_DECODE", single)
+    work.mkdir()
+    out, log_csv = work / "out.mp4", work / "out.motion.csv"
+    stabilize.steady(clip, out, log_path=log_csv, seed=0, **options)
+    summary = json.loads(log_csv.with_suffix(".json").read_text())
+    return {"csv": log_csv.read_text(), "json": json.dumps(_scrub(summary), sort_keys=True),
+            "frames": "\n".join(frame_digest(out))}
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("margin,route", [(0.1, KEPT), (0.004, GIVEN_UP)])
+def test_one_pass_equals_two_passes(long_clip, tmp_path, monkeypatch, caplog, margin, route):
+    options = dict(model="similarity", smoother="gaussian", margin=margin)
+    with caplog.at_level(logging.DEBUG, logger="stabilize"):
+        one = _steady(long_clip, tmp_path / "one", True, monkeypatch, **options)
+    assert route in caplog.text
+    two = _steady(long_clip, tmp_path / "two", False, monkeypatch, **options)
+    assert len(one["frames"].splitlines()) == 192
+    for part in ("csv", "json", "frames"):
+        assert one[part] == two[part], part
+
+
+def test_whole_path_smoothers_take_two_passes(long_clip, tmp_path, monkeypatch, caplog):
+    with caplog.at_level(logging.DEBUG, logger="stabilize"):
+        _steady(long_clip, tmp_path / "k", True, monkeypatch, smoother="kalman", margin=0.1)
+    assert KEPT not in caplog.text and GIVEN_UP not in caplog.text
