@@ -61,3 +61,35 @@ def test_whole_path_smoothers_take_two_passes(long_clip, tmp_path, monkeypatch, 
     with caplog.at_level(logging.DEBUG, logger="stabilize"):
         _steady(long_clip, tmp_path / "k", True, monkeypatch, smoother="kalman", margin=0.1)
     assert KEPT not in caplog.text and GIVEN_UP not in caplog.text
+
+
+def test_twin_decoder_streams_equal_two_decoding_passes(long_clip):
+    import hashlib
+    import threading
+
+    from stabilize.io import iter_frames, probe
+    from stabilize.io.twin_decode import TwinDecoder
+
+    info = probe(long_clip)
+    size = (160, 90)
+    want_a = [(f.time_s, f.image.tobytes()) for f in iter_frames(long_clip, size=size,
+                                                                 gray=True, info=info)]
+    want_r = [hashlib.sha1(bytes(f.image.data)).hexdigest()
+              for f in iter_frames(long_clip, yuv="yuv420p", info=info)]
+    got_r: list[str] = []
+    with TwinDecoder(long_clip, info, size, yuv="yuv420p") as twin:
+        reader = threading.Thread(target=lambda: got_r.extend(
+            hashlib.sha1(bytes(f.image.data)).hexdigest() for f in twin.render()))
+        reader.start()
+        got_a = [(f.time_s, f.image.tobytes()) for f in twin.analysis()]
+        reader.join()
+    assert len(want_a) == 192
+    assert got_a == want_a
+    assert got_r == want_r
+
+
+def test_render_decoding_threads_follow_the_cores():
+    assert rendering.render_decode_threads(2) == 1
+    assert rendering.render_decode_threads(6) == 1
+    assert rendering.render_decode_threads(16) == 3
+    assert rendering.render_decode_threads(128) == 4

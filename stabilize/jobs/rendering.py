@@ -50,15 +50,31 @@ from .outputs import Outputs, check_job_outputs, clip_name, plan_outputs, render
 from .single_decode import frames_to_hold, steady_single_decode
 
 __all__ = [
-    "RENDER_DECODE_THREADS", "SINGLE_DECODE", "excluded_regions", "render", "steady", "steady_clip",
+    "RENDER_DECODE_THREADS", "SINGLE_DECODE", "excluded_regions", "render", "render_decode_threads",
+    "steady", "steady_clip",
 ]
 
 _log = logging.getLogger("stabilize")
 
-# One decoding thread for the render pass: the encoder, not the decoder, sets its pace, and
-# every extra frame-decoding thread holds pictures of its own (at 4K, 30–50 MiB measured on
-# two cores, more where ffmpeg would start one thread per core).
+# One decoding thread for the render pass per six cores it is given, at most four: on two
+# cores the encoder, not the decoder, sets the pace, and every extra frame-decoding thread
+# holds pictures of its own (at 4K, 30–50 MiB measured on two cores). At 1080p the render
+# costs about 49 ms of processor time per frame (decode 6.6, warp 5.4, output check 3.7,
+# pipes 2.9, x264 veryfast 30.8; measured), so one decoding thread (6.6 ms per frame)
+# would pace a render spread over more than 49 / 6.6 ≈ 7 cores (docs/performance.md).
 RENDER_DECODE_THREADS = 1
+_CORES_PER_DECODE_THREAD = 6
+_MAX_DECODE_THREADS = 4
+
+
+def render_decode_threads(cores: int | None = None) -> int:
+    """Decoding threads of the render pass for ``cores`` cores (None: those this process may
+    run on): :data:`RENDER_DECODE_THREADS` per six cores, at most four."""
+    if cores is None:
+        cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") \
+            else (os.cpu_count() or 1)
+    return min(_MAX_DECODE_THREADS,
+               RENDER_DECODE_THREADS * max(1, -(-int(cores) // _CORES_PER_DECODE_THREAD)))
 
 #: Whether ``steady`` may analyse and render from one decoding pass where the smoother allows
 #: it (:func:`~stabilize.jobs.single_decode.frames_to_hold`); the video and the log are the
@@ -95,7 +111,7 @@ def _render_video(clip: Path, info: VideoInfo, motion: FrameMotion, plan: Correc
     bar = progress_bar(progress, "render", motion.frames)
     try:
         with video, closing(iter_frames(clip, info=info, yuv=yuv,
-                                        decode_threads=RENDER_DECODE_THREADS)) as frames:
+                                        decode_threads=render_decode_threads())) as frames:
             if compare is None:
                 n = render_frames(frames, plan.corrections, video,
                                   fill=settings.fill, on_frame=bar.update, check=check)
