@@ -59,9 +59,9 @@ _log = logging.getLogger("stabilize")
 # One decoding thread for the render pass per six cores it is given, at most four: on two
 # cores the encoder, not the decoder, sets the pace, and every extra frame-decoding thread
 # holds pictures of its own (at 4K, 30–50 MiB measured on two cores). At 1080p the render
-# costs about 49 ms of processor time per frame (decode 6.6, warp 5.4, output check 3.7,
-# pipes 2.9, x264 veryfast 30.8; measured), so one decoding thread (6.6 ms per frame)
-# would pace a render spread over more than 49 / 6.6 ≈ 7 cores (docs/performance.md).
+# costs about 46 ms of processor time per frame (decode 6.6, warp 5.4, pipes 2.9, x264
+# veryfast 30.8; measured), so one decoding thread (6.6 ms per frame) would pace a render
+# spread over more than 46 / 6.6 ≈ 7 cores (docs/performance.md).
 RENDER_DECODE_THREADS = 1
 _CORES_PER_DECODE_THREAD = 6
 _MAX_DECODE_THREADS = 4
