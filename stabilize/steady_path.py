@@ -236,6 +236,8 @@ class FixedLagPlanner:
         self.lag = look_ahead_frames("gaussian", margin, fps, window_s)
         self._common = dict(fps=fps, window_s=window_s, model=model, smoother="gaussian",
                             margin=float(margin), width=width, height=height, auto_cap=0.0)
+        # Only the frames a later window can reach are kept: _paths[0] is frame _base.
+        self._base = 0
         self._paths: list[np.ndarray] = []
         self._cuts: list[bool] = []
         self._p = np.eye(3)
@@ -244,13 +246,13 @@ class FixedLagPlanner:
     @property
     def frames(self) -> int:
         """Frames known so far."""
-        return len(self._paths)
+        return self._base + len(self._paths)
 
     def extend(self, matrices: np.ndarray, cuts: np.ndarray) -> None:
         """Append inter-frame transforms (k, 3, 3) H_t and their cut flags (k,) bool."""
         inverses = np.linalg.inv(matrices)
         for inv, cut in zip(inverses, cuts, strict=True):
-            if not self._paths or cut:
+            if self.frames == 0 or cut:
                 p = np.eye(3)
             else:
                 p = self._p @ inv
@@ -262,14 +264,18 @@ class FixedLagPlanner:
     def plan(self, first: int, final: bool = False) -> np.ndarray:
         """Corrections (k, 3, 3) C_t of frames ``first`` … ``first + k − 1``: those settled by
         the frames known (all of them when ``final``, the clip having ended)."""
-        n = len(self._paths)
+        n = self.frames
         ready = n if final else n - self.lag
         if ready <= first:
             return np.empty((0, 3, 3))
-        a = max(0, first - 2 * self.lag)
-        cuts = np.array(self._cuts[a:n])
-        plan = plan_path(np.array(self._paths[a:n]), cuts, **self._common)
+        a = max(self._base, first - 2 * self.lag)
+        lo = a - self._base
+        plan = plan_path(np.array(self._paths[lo:]), np.array(self._cuts[lo:]), **self._common)
         self.eased = self.eased or bool(plan.frames_eased)
+        # Later windows start at ready - 2 L or after.
+        drop = max(0, ready - 2 * self.lag - self._base)
+        del self._paths[:drop], self._cuts[:drop]
+        self._base += drop
         return plan.corrections[first - a:ready - a]
 
 

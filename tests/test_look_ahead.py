@@ -59,3 +59,21 @@ def test_look_ahead_grows_with_the_time_scale():
     assert look_ahead_frames("gaussian", 0.1, 30.0, 1.0) == 45 + 16 + 23
     assert look_ahead_frames("gaussian", 0.1, 30.0, 2.0) > look_ahead_frames(
         "gaussian", 0.1, 30.0, 1.0)
+
+
+def test_fixed_lag_planner_fed_in_steps_gives_the_whole_clips_corrections():
+    from stabilize.steady_path import FixedLagPlanner
+
+    n = 400
+    m = _shaky(n, 3)
+    cuts = np.zeros(n, bool)
+    cuts[230] = True
+    planner = FixedLagPlanner(fps=30.0, window_s=1.0, model="similarity", margin=0.1,
+                              width=640, height=360)
+    got: list[np.ndarray] = []
+    for start in range(0, n, 13):
+        stop = min(n, start + 13)
+        planner.extend(m[start:stop], cuts[start:stop])
+        got.extend(planner.plan(len(got), final=stop == n))
+    assert not planner.eased
+    assert np.array_equal(np.array(got), _plan(m, cuts))

@@ -161,6 +161,8 @@ class _Settler:
                  cuts: np.ndarray) -> None:
         self.shared, self.planner, self.size = shared, planner, full_size
         self.cuts = cuts                # the output check's cut flags, filled as frames settle
+        # Settled frames from frame `base` on (older ones are no longer needed).
+        self.base = 0
         self.matrices: list[np.ndarray] = []
         self.status: list[str] = []
         self.stand: list[bool] = []
@@ -169,30 +171,34 @@ class _Settler:
 
     def __call__(self, settled: int, records: list[FrameRecord],
                  excluded_now: Callable[[], dict]) -> None:
-        if self.shared.give_up is not None or settled < len(self.matrices) + _STEP:
+        known = self.base + len(self.matrices)
+        if self.shared.give_up is not None or settled < known + _STEP:
             return
-        for r in records[len(self.matrices):settled]:
+        for r in records[known:settled]:
             self.matrices.append(r.matrix)
             self.status.append(r.status)
             self.stand.append(r.status == "failed" or r.reason == "foreground")
         # A stand-in is interpolated between trustworthy neighbours (frame 0 and cuts are
         # not among them): those after the last trustworthy frame wait for the next one.
-        first, n = self.planner.frames, len(self.matrices)
+        first, n, o = self.planner.frames, settled, self.base
         good = [t for t in range(max(1, first), n)
-                if not self.stand[t] and self.status[t] != "cut"]
-        if any(self.stand[first:n]):
+                if not self.stand[t - o] and self.status[t - o] != "cut"]
+        if any(self.stand[first - o:n - o]):
             if not good:
                 return
             upto = good[-1] + 1
         else:
             upto = n
         b = max(0, self.last_good - 1)
-        status = np.array(self.status[b:upto])
-        filled = fill_failed(np.array(self.matrices[b:upto]), status, self.size,
-                             stand_in=np.array(self.stand[b:upto]))[first - b:]
+        status = np.array(self.status[b - o:upto - o])
+        filled = fill_failed(np.array(self.matrices[b - o:upto - o]), status, self.size,
+                             stand_in=np.array(self.stand[b - o:upto - o]))[first - b:]
         if good:
             self.last_good = good[-1]
         self._add(filled, status[first - b:] == "cut", excluded_now, final=False)
+        drop = max(0, self.last_good - 1) - self.base
+        del self.matrices[:drop], self.status[:drop], self.stand[:drop]
+        self.base += drop
 
     def finish(self, matrices: np.ndarray, status: np.ndarray,
                excluded_now: Callable[[], dict]) -> None:
