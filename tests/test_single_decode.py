@@ -93,3 +93,22 @@ def test_render_decoding_threads_follow_the_cores():
     assert rendering.render_decode_threads(6) == 1
     assert rendering.render_decode_threads(16) == 3
     assert rendering.render_decode_threads(128) == 4
+
+
+def test_frames_held_fit_the_memory_budget(long_clip):
+    import dataclasses
+
+    from stabilize.config import Settings
+    from stabilize.io import probe
+    from stabilize.jobs.single_decode import frames_to_hold
+
+    info = probe(long_clip)
+    fixed = Settings(smoother="gaussian", margin=0.1)
+    at = {size: frames_to_hold(dataclasses.replace(info, width=size[0], height=size[1],
+                                                   fps=30.0), fixed)
+          for size in ((320, 180), (1280, 720), (1920, 1080))}
+    # 84 frames of look-ahead, 90 of the analysis's revision window, 20 in flight.
+    assert at[(320, 180)] == at[(1280, 720)] == 194
+    assert at[(1920, 1080)] is None  # 194 frames of 3 MiB are over the budget
+    assert frames_to_hold(info, Settings(smoother="kalman", margin=0.1)) is None
+    assert frames_to_hold(info, Settings(smoother="gaussian")) is None  # margin auto

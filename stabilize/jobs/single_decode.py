@@ -72,8 +72,10 @@ def frames_to_hold(info: VideoInfo, settings: Settings) -> int | None:
     The hold is the plan's look-ahead plus the analysis's revision window, which over the
     first 6 ``baseline_s`` of a pass keeps every fit open (:mod:`stabilize.motion_pass`).
     """
+    if not (math.isfinite(info.fps) and info.fps > 0):
+        return None
     lag = look_ahead_frames(settings.smoother, settings.margin, info.fps, settings.window_s)
-    if lag is None or not measurable(info.width, info.height) or info.fps <= 0:
+    if lag is None or not measurable(info.width, info.height):
         return None
     revise = int(math.ceil(6.0 * BaselineSettings().baseline_s * info.fps))
     hold = lag + revise + _STEP + _SLACK
