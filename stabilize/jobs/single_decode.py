@@ -255,15 +255,9 @@ def steady_single_decode(clip: Path, info: VideoInfo, settings: Settings, output
     rbar = progress_bar(progress, "render", info.frames_estimate)
 
     def analyse(tw: TwinDecoder) -> None:
-        excluded_now: Callable[[], dict] = dict
         try:
-            def on_settled(settled, records, now):
-                nonlocal excluded_now
-                excluded_now = now
-                settler(settled, records, now)
-
             track = fit_motion(tw.analysis(), full_size=(w, h), analysis_size=size,
-                               settings=settings, on_frame=abar.update, on_settled=on_settled,
+                               settings=settings, on_frame=abar.update, on_settled=settler,
                                **single_pass_options(info))
             result["track"] = track
             if shared.give_up is None:
@@ -296,6 +290,7 @@ def steady_single_decode(clip: Path, info: VideoInfo, settings: Settings, output
                        input_pix_fmt=yuv, colour=output_colour(info), sar=info.sar)
     rendered = 0
     kept: tuple[CorrectionPlan, Any] | None = None
+    motion: FrameMotion | None = None
     with TwinDecoder(clip, info, size, yuv=yuv, stats=stats) as tw:
         threads = [threading.Thread(target=analyse, args=(tw,), daemon=True),
                    threading.Thread(target=read, args=(tw,), daemon=True)]
@@ -316,9 +311,11 @@ def steady_single_decode(clip: Path, info: VideoInfo, settings: Settings, output
                 rendered = render_frames(shared.ready_frames(), _Corrections(shared), video,
                                          fill=settings.fill, compare=compare,
                                          on_frame=rbar.update, check=check_frame)
-                threads[0].join()
+                for t in threads:
+                    t.join()
                 if "error" in result:
                     raise result["error"]
+                tw.close()  # both streams ended: the decoder's complaints are all in
                 motion = motion_from_track(clip, info, result["track"], stats)
                 kept = _verify(motion, info, settings, shared, settler, check, rendered)
                 if kept is None:
@@ -340,7 +337,8 @@ def steady_single_decode(clip: Path, info: VideoInfo, settings: Settings, output
                 t.join()
     if "track" not in result:
         raise result.get("error") or RuntimeError("the analysis gave no result")
-    motion = motion_from_track(clip, info, result["track"], stats) if kept is None else motion
+    if motion is None:
+        motion = motion_from_track(clip, info, result["track"], stats)
     if kept is None:
         return motion, None, None
     return motion, kept[0], kept[1]
