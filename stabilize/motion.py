@@ -79,6 +79,7 @@ def fit_motion(
     cut_settings: CutSettings | None = None,
     first_index: int = 0,
     keyframe_every: int | None = None,
+    on_settled: Callable[[int, list[FrameRecord], Callable[[], dict]], None] | None = None,
 ) -> MotionTrack:
     """Fit the inter-frame motion of a stream of grey analysis frames.
 
@@ -153,6 +154,11 @@ def fit_motion(
         last = frame.image
         if on_frame:
             on_frame(1)
+        if on_settled:
+            pending = (r.index for r in main.recent if r.index >= main.owned_from)
+            on_settled(next(pending, first_index + len(records)) - first_index, records,
+                       lambda m=main, o=overlay_regions: _excluded(
+                           settings, o + m.overlays.regions(scale)))
     n = len(times)
     d = np.array([r.diag for r in records], dtype=np.float64).reshape(n, 5)
     why = np.array([r.reason for r in records], dtype="<U12")
@@ -162,9 +168,7 @@ def fit_motion(
         matrices=np.array([r.matrix for r in records], dtype=np.float64).reshape(n, 3, 3),
         tracked=d[:, 0].astype(int), inliers=d[:, 1].astype(int), inlier_ratio=d[:, 2],
         rms_px=d[:, 3], rounds=d[:, 4].astype(int), status=status,
-        excluded={"ignore": [list(r) for r in settings.ignore],
-                  "static_overlay": _unique_regions(overlay_regions
-                                                    + main.overlays.regions(scale))},
+        excluded=_excluded(settings, overlay_regions + main.overlays.regions(scale)),
         reason=why,
     )
     track.matrices = fill_failed(track.matrices, track.status, full_size,
@@ -184,6 +188,12 @@ def _band_arrays(records: list[FrameRecord], n_bands: int) -> tuple[np.ndarray, 
             shift[t] = r.bands.shift_px
             support[t] = r.bands.support
     return shift, support
+
+
+def _excluded(settings: Settings, overlays: list[list[int]]) -> dict[str, list]:
+    """The track's ``excluded``: the ignored regions and the static overlays found."""
+    return {"ignore": [list(r) for r in settings.ignore],
+            "static_overlay": _unique_regions(overlays)}
 
 
 def _unique_regions(regions: list[list[int]]) -> list[list[int]]:

@@ -18,11 +18,14 @@ from .camera_path import decode, encode
 from .config import SMOOTHERS
 from .geometry import frame_centre, similarity_readout
 from .raw_path import accumulate, segments
-from .smoothers.gaussian import gaussian_smooth
+from .smoothers.gaussian import gaussian_kernel, gaussian_smooth
 from .smoothers.kalman import kalman_smooth
 from .smoothers.lockoff import lockoff_path
 
-__all__ = ["SMOOTHERS", "CorrectionPlan", "plan_corrections", "smooth_path", "unchanged_plan"]
+__all__ = [
+    "SMOOTHERS", "CorrectionPlan", "FixedLagPlanner", "look_ahead_frames", "plan_corrections",
+    "plan_path", "smooth_path", "unchanged_plan",
+]
 
 _log = logging.getLogger("stabilize")
 
@@ -144,8 +147,17 @@ def plan_corrections(matrices: np.ndarray, cuts: np.ndarray, *, fps: float, wind
     -------
     CorrectionPlan
     """
+    return plan_path(accumulate(matrices, cuts), cuts, fps=fps, window_s=window_s, model=model,
+                     smoother=smoother, margin=margin, width=width, height=height,
+                     auto_cap=auto_cap)
+
+
+def plan_path(p: np.ndarray, cuts: np.ndarray, *, fps: float, window_s: float, model: str,
+              smoother: str, margin: str | float, width: int, height: int,
+              auto_cap: float) -> CorrectionPlan:
+    """:func:`plan_corrections` from the raw path P_t (:func:`stabilize.raw_path.accumulate`)
+    instead of the inter-frame transforms; the other parameters are the same."""
     w, h = width, height
-    p = accumulate(matrices, cuts)
     common = dict(fps=fps, window_s=window_s, model=model, width=w, height=h, cuts=cuts)
     s = None
     if margin == "auto":
@@ -169,6 +181,102 @@ def plan_corrections(matrices: np.ndarray, cuts: np.ndarray, *, fps: float, wind
     return CorrectionPlan(corrections=framing.corrections(p, s, margin, w, h),
                           smooth_values=similarity_readout(s, frame_centre(w, h)),
                           margin=margin, frames_eased=eased)
+
+
+def look_ahead_frames(smoother: str, margin: str | float, fps: float,
+                      window_s: float) -> int | None:
+    """Frames of look-ahead after which a frame's correction no longer changes, or None when
+    the smoother needs the whole path.
+
+    For ``gaussian`` with a fixed margin, the correction of frame t depends on the raw path
+    within the Gaussian's radius (3σ, σ = window_s / 2) and, where the margin binds, on the
+    easing of :func:`stabilize.framing.fit_to_margin` (a running minimum over a quarter window
+    each side, then a Gaussian of σ = window_s / 4). Planned on the frames up to t + L only
+    (L the value returned), frame t's correction is then bit for bit the whole clip's, as
+    long as the margin binds nowhere in the clip: where it binds anywhere, every frame's path
+    is blended (share ≈ 1 included), which a plan made before seeing that frame cannot know.
+    ``kalman`` (the Rauch–Tung–Striebel pass runs back from the clip's end), ``l1``,
+    ``lockoff`` and ``margin="auto"`` need the whole path: None.
+
+    Parameters
+    ----------
+    smoother : smoother name. margin : ``"auto"`` or the fraction cut from each side.
+    fps : frames per second. window_s : smoothing time scale, seconds.
+
+    Returns
+    -------
+    L in frames, or None.
+    """
+    if smoother != "gaussian" or margin == "auto":
+        return None
+    radius = len(gaussian_kernel(0.5 * window_s * fps)) // 2
+    half = max(1, int(round(0.25 * window_s * fps)))
+    ease = len(gaussian_kernel(0.25 * window_s * fps)) // 2
+    return radius + 2 * half + ease
+
+
+class FixedLagPlanner:
+    """The Gaussian plan at a fixed margin, made while frames arrive: each frame's correction
+    as soon as the frames :func:`look_ahead_frames` past it are known.
+
+    :meth:`extend` appends inter-frame transforms (and cut flags) in order; the raw path is
+    chained as :func:`stabilize.raw_path.accumulate` chains it. :meth:`plan` returns the
+    corrections of the frames from ``first`` on that no later frame changes, planned on a
+    window reaching ``2 L`` frames back. They equal the whole clip's bit for bit as long as
+    the margin binds nowhere (see :func:`look_ahead_frames`); :attr:`eased` says whether it
+    bound somewhere in a window planned so far.
+
+    Parameters
+    ----------
+    fps, window_s, model, margin, width, height : as for :func:`plan_corrections`.
+    """
+
+    def __init__(self, *, fps: float, window_s: float, model: str, margin: float, width: int,
+                 height: int) -> None:
+        self.lag = look_ahead_frames("gaussian", margin, fps, window_s)
+        self._common = dict(fps=fps, window_s=window_s, model=model, smoother="gaussian",
+                            margin=float(margin), width=width, height=height, auto_cap=0.0)
+        # Only the frames a later window can reach are kept: _paths[0] is frame _base.
+        self._base = 0
+        self._paths: list[np.ndarray] = []
+        self._cuts: list[bool] = []
+        self._p = np.eye(3)
+        self.eased = False
+
+    @property
+    def frames(self) -> int:
+        """Frames known so far."""
+        return self._base + len(self._paths)
+
+    def extend(self, matrices: np.ndarray, cuts: np.ndarray) -> None:
+        """Append inter-frame transforms (k, 3, 3) H_t and their cut flags (k,) bool."""
+        inverses = np.linalg.inv(matrices)
+        for inv, cut in zip(inverses, cuts, strict=True):
+            if self.frames == 0 or cut:
+                p = np.eye(3)
+            else:
+                p = self._p @ inv
+                p = p / p[2, 2]
+            self._p = p
+            self._paths.append(p)
+            self._cuts.append(bool(cut))
+
+    def plan(self, first: int, final: bool = False) -> np.ndarray:
+        """Corrections (k, 3, 3) C_t of frames ``first`` … ``first + k − 1``: those settled by
+        the frames known (all of them when ``final``, the clip having ended)."""
+        n = self.frames
+        ready = n if final else n - self.lag
+        if ready <= first:
+            return np.empty((0, 3, 3))
+        a = max(self._base, first - 2 * self.lag)
+        lo = a - self._base
+        plan = plan_path(np.array(self._paths[lo:]), np.array(self._cuts[lo:]), **self._common)
+        self.eased = self.eased or bool(plan.frames_eased)
+        # Later windows start at ready - 2 L or after.
+        drop = max(0, ready - 2 * self.lag - self._base)
+        del self._paths[:drop], self._cuts[:drop]
+        self._base += drop
+        return plan.corrections[first - a:ready - a]
 
 
 def unchanged_plan(matrices: np.ndarray, cuts: np.ndarray, width: int,

@@ -23,7 +23,7 @@ from ..io import VideoInfo, iter_frames, probe
 from ..io.decode import DecodeStats, analysis_size, looks_truncated
 from ..motion import fit_motion, measurable
 from ..motion_log import MotionLog, RowBands, frame_reasons, reason_codes
-from ..motion_track import LOG_COLUMNS
+from ..motion_track import LOG_COLUMNS, MotionTrack
 from ..rolling import RollingShutter, analyse_rolling, rolling_figures
 from ..segments import fit_in_segments, single_pass_options
 from ..steady_path import CorrectionPlan
@@ -31,8 +31,8 @@ from .figures import shake_summary, warn_if_irregular
 from .outputs import Outputs, check_job_outputs, plan_outputs
 
 __all__ = [
-    "FrameMotion", "ProgressFactory", "measure_motion", "assemble_log", "measure",
-    "measure_clip", "measure_to_file", "progress_bar", "source_dict",
+    "FrameMotion", "ProgressFactory", "measure_motion", "motion_from_track", "assemble_log",
+    "excluded_regions", "measure", "measure_clip", "measure_to_file", "progress_bar", "source_dict",
 ]
 
 _log = logging.getLogger("stabilize")
@@ -141,6 +141,23 @@ def assemble_log(motion: FrameMotion, settings: Settings, summary: dict[str, Any
     )
 
 
+def excluded_regions(extra: dict[str, Any]) -> list[list[float]]:
+    """Rectangles (x, y, w, h) left out of tracking, full-resolution pixels, from a log's
+    ``excluded`` key (anything but four finite numbers is passed over: a log is data)."""
+    found = extra.get("excluded")
+    out: list[list[float]] = []
+    if isinstance(found, dict):
+        for rects in found.values():
+            for r in rects if isinstance(rects, list) else ():
+                try:
+                    vals = [float(v) for v in r]
+                except (TypeError, ValueError):
+                    continue
+                if len(vals) == 4 and all(np.isfinite(vals)) and vals[2] > 0 and vals[3] > 0:
+                    out.append(vals)
+    return out
+
+
 def source_dict(info: VideoInfo, frames: int, time_s: np.ndarray,
                 truncated: bool = False) -> dict[str, Any]:
     """The log's ``source``: the header's figures, the frames really decoded, and whether the
@@ -178,6 +195,14 @@ def measure_motion(clip: Path, info: VideoInfo, settings: Settings,
                 )
     finally:
         bar.close()
+    return motion_from_track(clip, info, track, stats, settings)
+
+
+def motion_from_track(clip: Path, info: VideoInfo, track: MotionTrack,
+                      stats: DecodeStats, settings: Settings) -> FrameMotion:
+    """The analysis's record of a clip from its fitted track and what decoding saw, with
+    warnings about what the log will show: an early end, unmeasurable clips, failed and weak
+    frames."""
     n = len(track.time_s)
     status = track.status
     truncated = looks_truncated(info, stats)

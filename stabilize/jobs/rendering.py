@@ -43,20 +43,45 @@ from .analysis import (
     FrameMotion,
     ProgressFactory,
     assemble_log,
+    excluded_regions,
     measure_motion,
     progress_bar,
     source_dict,
 )
 from .outputs import Outputs, check_job_outputs, clip_name, plan_outputs, render_log
+from .single_decode import frames_to_hold, steady_single_decode
 
-__all__ = ["RENDER_DECODE_THREADS", "excluded_regions", "render", "steady", "steady_clip"]
+__all__ = [
+    "RENDER_DECODE_THREADS", "SINGLE_DECODE", "excluded_regions", "render", "render_decode_threads",
+    "steady", "steady_clip",
+]
 
 _log = logging.getLogger("stabilize")
 
-# One decoding thread for the render pass: the encoder, not the decoder, sets its pace, and
-# every extra frame-decoding thread holds pictures of its own (at 4K, 30–50 MiB measured on
-# two cores, more where ffmpeg would start one thread per core).
+# One decoding thread for the render pass per six cores it is given, at most four: on two
+# cores the encoder, not the decoder, sets the pace, and every extra frame-decoding thread
+# holds pictures of its own (at 4K, 30–50 MiB measured on two cores). At 1080p the render
+# costs about 46 ms of processor time per frame (decode 6.6, warp 5.4, pipes 2.9, x264
+# veryfast 30.8; measured), so one decoding thread (6.6 ms per frame) would pace a render
+# spread over more than 46 / 6.6 ≈ 7 cores (docs/performance.md).
 RENDER_DECODE_THREADS = 1
+_CORES_PER_DECODE_THREAD = 6
+_MAX_DECODE_THREADS = 4
+
+
+def render_decode_threads(cores: int | None = None) -> int:
+    """Decoding threads of the render pass for ``cores`` cores (None: those this process may
+    run on): :data:`RENDER_DECODE_THREADS` per six cores, at most four."""
+    if cores is None:
+        cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") \
+            else (os.cpu_count() or 1)
+    return min(_MAX_DECODE_THREADS,
+               RENDER_DECODE_THREADS * max(1, -(-int(cores) // _CORES_PER_DECODE_THREAD)))
+
+#: Whether ``steady`` may analyse and render from one decoding pass where the smoother allows
+#: it (:func:`~stabilize.jobs.single_decode.frames_to_hold`); the video and the log are the
+#: same either way, bit for bit.
+SINGLE_DECODE = True
 
 
 def _render_video(clip: Path, info: VideoInfo, motion: FrameMotion, plan: CorrectionPlan,
@@ -105,7 +130,7 @@ def _render_video(clip: Path, info: VideoInfo, motion: FrameMotion, plan: Correc
     bar = progress_bar(progress, "render", motion.frames)
     try:
         with video, closing(iter_frames(clip, info=info, yuv=yuv,
-                                        decode_threads=RENDER_DECODE_THREADS)) as frames:
+                                        decode_threads=render_decode_threads())) as frames:
             if compare is None:
                 n = render_frames(frames, plan.corrections, video,
                                   fill=settings.fill, on_frame=bar.update,
@@ -124,23 +149,6 @@ def _render_video(clip: Path, info: VideoInfo, motion: FrameMotion, plan: Correc
                    1000.0 * check.seconds / check.checked,
                    1000.0 * check.cpu_seconds / check.checked)
     return (check.output, check.source), ({} if wobble is None else wobble_figures(wobble))
-
-
-def excluded_regions(extra: dict[str, Any]) -> list[list[float]]:
-    """Rectangles (x, y, w, h) left out of tracking, full-resolution pixels, from a log's
-    ``excluded`` key (anything but four finite numbers is passed over: a log is data)."""
-    found = extra.get("excluded")
-    out: list[list[float]] = []
-    if isinstance(found, dict):
-        for rects in found.values():
-            for r in rects if isinstance(rects, list) else ():
-                try:
-                    vals = [float(v) for v in r]
-                except (TypeError, ValueError):
-                    continue
-                if len(vals) == 4 and all(np.isfinite(vals)) and vals[2] > 0 and vals[3] > 0:
-                    out.append(vals)
-    return out
 
 
 def _copy_unchanged(clip: Path, dest: Path) -> None:
@@ -178,14 +186,18 @@ def _warn_if_not_steadier(clip: Path, summary: dict[str, Any]) -> None:
 def _correct_and_write(clip: Path, info: VideoInfo, motion: FrameMotion, settings: Settings,
                        outputs: Outputs, progress: ProgressFactory | None,
                        excluded: list[list[float]], source_extra: dict[str, Any] | None = None,
-                       extra: dict[str, Any] | None = None) -> MotionLog:
+                       extra: dict[str, Any] | None = None,
+                       rendered: tuple[CorrectionPlan, Any] | None = None) -> MotionLog:
     """Plan the corrections and render them (or pass a clip too short or small to steady
-    through unchanged), then summarise, assemble the log and write it."""
+    through unchanged), then summarise, assemble the log and write it. ``rendered`` is the
+    plan and output check of a video already written from a single decoding pass."""
     fps = shake.frame_rate(motion.time_s, info.fps)  # real time for the smoothing window
     w, h = int(motion.source["width"]), int(motion.source["height"])
     checks = None
     wobble: dict[str, Any] = {}
-    if motion.frames < 2 or not measurable(info.width, info.height):
+    if rendered is not None:
+        plan, checks = rendered
+    elif motion.frames < 2 or not measurable(info.width, info.height):
         plan = unchanged_plan(motion.matrices, motion.cuts, w, h)
         _copy_unchanged(clip, outputs.video)
         if outputs.compare is not None:
@@ -213,9 +225,18 @@ def steady_clip(clip: Path, outputs: Outputs, settings: Settings,
     """Measure, smooth and render one clip into ``outputs`` (already checked) and write its
     log, with ``source_extra`` and ``extra`` keys added to it; returns the log."""
     info = probe(clip)
-    motion = measure_motion(clip, info, settings, progress)
+    hold = frames_to_hold(info, settings) if SINGLE_DECODE else None
+    rendered = None
+    if hold is not None:
+        # One decoding pass feeds the analysis and the render (two when it cannot give the
+        # same video; see stabilize.jobs.single_decode).
+        motion, plan, checks = steady_single_decode(clip, info, settings, outputs, progress,
+                                                    hold)
+        rendered = None if plan is None else (plan, checks)
+    else:
+        motion = measure_motion(clip, info, settings, progress)
     return _correct_and_write(clip, info, motion, settings, outputs, progress,
-                              excluded_regions(motion.extra), source_extra, extra)
+                              excluded_regions(motion.extra), source_extra, extra, rendered)
 
 
 # Every output of one job appears together when the job succeeds, or none does.
