@@ -35,9 +35,11 @@ from ..motion_log import (
     use_files,
 )
 from ..version import __version__
+from .probing import VideoInfo
 from .publishing import all_or_nothing, write_text_atomic
 
-__all__ = ["json_path_for", "jsonable", "log_csv", "log_json", "read_log", "save_log"]
+__all__ = ["MAX_FPS", "MAX_JSON_BYTES", "MAX_LINE_BYTES", "MAX_TIME_S", "check_log_fits",
+           "json_path_for", "jsonable", "log_csv", "log_json", "read_log", "save_log"]
 
 
 # --------------------------------------------------------------------- writing
@@ -379,6 +381,37 @@ def _plausible(h: np.ndarray, size: tuple[int, int]) -> np.ndarray:
                 & (np.abs(h[:, :2, 2]) <= shift).all(axis=1)
                 & (np.abs(h[:, 2, :2]) <= _MAX_PERSPECTIVE).all(axis=1)
                 & (np.abs(h[:, 2, 2]) <= _MAX_LINEAR))
+
+
+def check_log_fits(motion: MotionLog, info: VideoInfo, log_path: str | Path) -> None:
+    """Refuse a log that was not made from this clip (or a proxy of it): another frame rate,
+    more time than the clip holds, or far fewer frames than it has.
+
+    Parameters
+    ----------
+    motion : the log read.
+    info : the clip's header.
+    log_path : the log's file, for the message.
+
+    Raises
+    ------
+    StabilizeError
+        Naming ``log_path`` and the mismatch. The picture size may differ (a proxy's log is
+        scaled).
+    """
+    fps = motion.source.get("fps")
+    if isinstance(fps, int | float) and fps > 0 and abs(fps / info.fps - 1.0) > 0.01:
+        raise StabilizeError(f"{log_path}: made from a clip at {fps:g} fps, but {info.path} "
+                             f"runs at {info.fps:g} fps; use the clip's own log")
+    if info.duration_s > 0:
+        span = float(motion.time_s[-1] - motion.time_s[0])
+        if span > info.duration_s + max(1.0, 2.0 / info.fps):
+            raise StabilizeError(f"{log_path}: covers {span:.2f} s, but {info.path} lasts "
+                                 f"{info.duration_s:.2f} s; use the clip's own log")
+        if not motion.source.get("truncated") and \
+                motion.frames < 0.9 * info.frames_estimate - 2:
+            raise StabilizeError(f"{log_path}: has {motion.frames} frames, but {info.path} has "
+                                 f"about {info.frames_estimate}; use the clip's own log")
 
 
 def read_log(csv_path: str | Path) -> MotionLog:
