@@ -114,7 +114,8 @@ _ALLOWED = {
     "margin": f"'auto' or a fraction from 0 to {MAX_MARGIN}",
     "confidence": "a probability strictly between 0 and 1",
     "max_rounds": f"a whole number of at least 1 and at most {MAX_ROUNDS}",
-    "analysis_width": f"0 (full resolution) or a whole number of pixels from 32 to {MAX_PX}",
+    "analysis_width": f"0 (full resolution) or a whole number of pixels of at least 32 and "
+                      f"at most {MAX_PX}",
     "seed": "a whole number of 0 or more, below 2**32",
     "fov_deg": "an angle between 0 and 180 degrees",
     "crf": "a whole number from 0 to 51",
