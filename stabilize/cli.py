@@ -305,7 +305,11 @@ def _report_written(motion) -> None:
 
 def _on_signal(signum, frame) -> None:
     # SIGINT and SIGTERM alike unwind the stack as an interruption, so every ``finally`` and
-    # context manager on the way out stops its ffmpeg and removes its temporaries.
+    # context manager on the way out stops its ffmpeg and removes its temporaries. Further
+    # ones are ignored from here on (main puts the handlers back): a second Ctrl-C would cut
+    # that clean-up short and print a traceback.
+    for sig in (signal.SIGINT, signal.SIGTERM):
+        signal.signal(sig, signal.SIG_IGN)
     raise KeyboardInterrupt
 
 
