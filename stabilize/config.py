@@ -296,6 +296,10 @@ def build_settings(
     values: dict[str, Any] = {}
     if config:
         values.update(read_config(config))
+        try:
+            Settings(**values)  # a bad value is the file's fault: name the file
+        except StabilizeError as exc:
+            raise StabilizeError(f"{resolve_config(config)}: {exc}") from None
     if overrides:
         values.update(coerce({k: v for k, v in overrides.items() if v is not None}, "option"))
     return Settings(**values)

@@ -232,9 +232,9 @@ def probe(path: str | os.PathLike) -> VideoInfo:
     width, height = int(size.group(1)), int(size.group(2))
     if width < 1 or height < 1 or width > MAX_SIDE or height > MAX_SIDE \
             or width * height > MAX_PIXELS:
-        raise StabilizeError(f"{p}: its header claims a {width}x{height} picture, larger than "
-                             f"the {MAX_SIDE} px side and {MAX_PIXELS // 10**6} Mpx this program "
-                             "reads (damaged or not a camera's clip)")
+        raise StabilizeError(f"{p}: its header claims a {width}x{height} picture; at most "
+                             f"{MAX_SIDE} px a side and {MAX_PIXELS / 1e6:.0f} Mpx in all are "
+                             "read (a damaged file, or not a camera's clip)")
     fps = 0.0
     for value, kilo in _FPS.findall(tail):
         fps = float(value) * (1000.0 if kilo else 1.0)
