@@ -379,8 +379,11 @@ def main(argv: list[str] | None = None) -> int:
     finally:
         if status != EXIT_OK:
             _clean_up()
+        # Interrupted as the program itself (argv from the system), the process is about to
+        # exit: more Ctrl-C's stay ignored, or one would land in the interpreter's exit.
+        keep_ignoring = status == EXIT_INTERRUPTED and argv is None
         for sig, handler in previous.items():
-            signal.signal(sig, handler)
+            signal.signal(sig, signal.SIG_IGN if keep_ignoring else handler)
         logger.handlers[:] = saved_logging[0]
         logger.setLevel(saved_logging[1])  # setLevel, not .level: it also clears the cache
         logger.propagate = saved_logging[2]
