@@ -141,16 +141,20 @@ def flag_wording(message: str) -> str:
     return _SETTING.sub(lambda m: "option --" + m.group(1).replace("_", "-"), message)
 
 
-def _whole_number(flag: str, text: str | None) -> int | None:
+#: Most workers a run may ask for: each is a process of its own.
+MAX_WORKERS = 256
+
+
+def _whole_number(flag: str, text: str | None, most: int = MAX_WORKERS) -> int | None:
     if text is None:
         return None
     try:
         value = int(text)
     except ValueError:
         value = 0
-    if value < 1:
-        raise StabilizeError(f"option {flag}: {text!r} is not allowed; use a whole number of "
-                             "at least 1")
+    if not 1 <= value <= most:
+        raise StabilizeError(f"option {flag}: {text[:40]!r} is not allowed; use a whole number "
+                             f"of at least 1 and at most {most}")
     return value
 
 

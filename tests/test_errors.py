@@ -665,6 +665,17 @@ def test_hostile_options_bounded(clip_here, tmp_path, capsys, flag, value, words
              *words)
 
 
+def test_hostile_pipe_and_workers(clip_here, tmp_path, capsys):
+    os.mkfifo(tmp_path / "pipe.mp4")
+    before = _tree(tmp_path)
+    status, lines = _outcome(["measure", "--quiet", "pipe.mp4"], tmp_path, capsys)
+    assert status == 2 and len(lines) == 1 and "pipe.mp4" in lines[0], lines
+    assert "not a regular file" in lines[0] and _tree(tmp_path) == before
+    (tmp_path / "pipe.mp4").unlink()
+    _refused(["measure", "--quiet", str(clip_here), "--workers", "100000"], tmp_path, capsys,
+             "--workers", "at most 256")
+
+
 @pytest.mark.parametrize("toml,words", [
     ("ignore = 5", ("ignore", "X,Y,W,H")),
     ("ignore = [5]", ("ignore",)),

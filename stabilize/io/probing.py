@@ -142,6 +142,10 @@ def check_input(path: str | os.PathLike) -> None:
         raise StabilizeError(f"{p}: no such file")
     if p.is_dir():
         raise StabilizeError(f"{p}: is a folder, not a video file")
+    if not p.is_file():
+        # A pipe or a device: ffmpeg would wait on it for ever.
+        raise StabilizeError(f"{p}: is not a regular file (a pipe or a device), not a video "
+                             "file")
     if not os.access(p, os.R_OK):
         raise StabilizeError(f"{p}: cannot be read (permission denied)")
 
