@@ -571,6 +571,24 @@ def test_hostile_name_with_line_breaks(tmp_path):
     assert (info.width, info.height) == (96, 72) and info.duration_s < 1
 
 
+def test_hostile_tag_name_with_line_breaks(tmp_path, capsys, monkeypatch):
+    """A Matroska tag whose *name* holds line breaks puts whole lines into ffmpeg's header
+    text, word for word like its own: the header is refused, never read as the fake says."""
+    monkeypatch.chdir(tmp_path)
+    made = tmp_path / "made.mkv"
+    fake_stream, fake_duration = f"  {TITLE}", "  Duration: 99:00:00.00, start: 0.0"
+    ff("-f", "lavfi", "-i", "testsrc2=size=96x72:rate=24", "-frames:v", "8", "-c:v", "libx264",
+       "-preset", "ultrafast", "-metadata", f"k\n{fake_stream}\n{fake_duration}\nz=v", str(made))
+    data = made.read_bytes()
+    made.unlink()
+    for fake in (fake_stream, fake_duration):  # the muxer wrote them upper case, "_" for " "
+        stored = fake.upper().replace(" ", "_").encode()
+        assert stored in data
+        data = data.replace(stored, fake.encode())
+    (tmp_path / "key.mkv").write_bytes(data)
+    _refused(["measure", "--quiet", "key.mkv"], tmp_path, capsys, "key.mkv", "imitate")
+
+
 def test_hostile_claimed_picture_size_refused_before_any_read(tmp_path, capsys, monkeypatch):
     """A header claiming a 16000x16000 picture (768 MB a frame) is refused at once."""
     monkeypatch.chdir(tmp_path)

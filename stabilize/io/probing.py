@@ -199,14 +199,17 @@ def probe(path: str | os.PathLike) -> VideoInfo:
     text = _dump_text(p)
     streams = [(int(m.group(1)), m.group(2), m.group(3), m.group(4), m)
                for m in _STREAM.finditer(text)]
-    indices = [s[0] for s in streams]
+    # A stream in two programs (MPEG-TS) is listed twice, word for word.
+    lines = {(s[0], s[4].group(0)) for s in streams}
     durations = _DURATION.findall(text)
-    if len(set(indices)) != len(indices) or len(durations) > 1:
+    if len({i for i, _ in lines}) != len(lines) or len(durations) > 1:
         # ffmpeg numbers its streams once each and states one duration: a repeat was written
         # by a tag whose name holds line breaks. Nothing in the header can be trusted.
         raise StabilizeError(f"{p}: its tags imitate ffmpeg's own description of the streams; "
                              "the header cannot be read safely")
     videos = sorted((s for s in streams if s[1] == "Video"), key=lambda s: s[0])
+    if len(lines) != len(streams):
+        streams = list({s[0]: s for s in streams}.values())
     if not videos:
         if _starts_like_mp4(p) and "Input #0" not in text:
             # An MP4 whose index is written last: a recording cut short loses it, or part of
