@@ -950,3 +950,23 @@ def test_hostile_repeated_interrupt_prints_no_traceback(tmp_path):
     assert proc.returncode == 130, err
     assert "Traceback" not in err and len(err.strip().splitlines()) == 1, err
     assert sorted(p.name for p in tmp_path.iterdir()) == ["long.mp4"]
+
+
+@pytest.mark.slow
+def test_hostile_interrupted_dask_run_says_one_line(tmp_path):
+    """Ctrl-C during a run on a local Dask cluster: one line, none of Dask's own."""
+    import signal
+    import time
+    pytest.importorskip("distributed")
+    clip = lavfi_clip(tmp_path / "long.mp4", size="160x120", frames=720)
+    proc = subprocess.Popen([sys.executable, "-m", "stabilize", "measure", "--quiet", clip.name,
+                             "--scheduler", "local", "--workers", "2"], cwd=tmp_path,
+                            stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True,
+                            env={**os.environ,
+                                 "PYTHONPATH": str(Path(cli.__file__).parents[1])})
+    time.sleep(20)
+    proc.send_signal(signal.SIGINT)
+    _, err = proc.communicate(timeout=120)
+    assert proc.returncode == 130, err
+    assert err.strip().splitlines() == ["stabilize: interrupted; no partial outputs were left"]
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["long.mp4"]
