@@ -958,13 +958,14 @@ def test_hostile_interrupted_dask_run_says_one_line(tmp_path):
     import signal
     import time
     pytest.importorskip("distributed")
-    clip = lavfi_clip(tmp_path / "long.mp4", size="160x120", frames=720)
+    clip = lavfi_clip(tmp_path / "long.mp4", size="320x240", frames=2400)
     proc = subprocess.Popen([sys.executable, "-m", "stabilize", "measure", "--quiet", clip.name,
                              "--scheduler", "local", "--workers", "2"], cwd=tmp_path,
                             stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True,
                             env={**os.environ,
                                  "PYTHONPATH": str(Path(cli.__file__).parents[1])})
-    time.sleep(20)
+    time.sleep(12)
+    assert proc.poll() is None, "finished before it could be interrupted"
     proc.send_signal(signal.SIGINT)
     _, err = proc.communicate(timeout=120)
     assert proc.returncode == 130, err
