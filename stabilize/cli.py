@@ -155,16 +155,20 @@ def flag_wording(message: str) -> str:
     return _SETTING.sub(lambda m: "option --" + m.group(1).replace("_", "-"), message)
 
 
-def _whole_number(flag: str, text: str | None) -> int | None:
+#: Most workers a run may ask for: each is a process of its own.
+MAX_WORKERS = 256
+
+
+def _whole_number(flag: str, text: str | None, most: int = MAX_WORKERS) -> int | None:
     if text is None:
         return None
     try:
         value = int(text)
     except ValueError:
         value = 0
-    if value < 1:
-        raise StabilizeError(f"option {flag}: {text!r} is not allowed; use a whole number of "
-                             "at least 1")
+    if not 1 <= value <= most:
+        raise StabilizeError(f"option {flag}: {text[:40]!r} is not allowed; use a whole number "
+                             f"of at least 1 and at most {most}")
     return value
 
 
@@ -319,7 +323,11 @@ def _report_written(motion) -> None:
 
 def _on_signal(signum, frame) -> None:
     # SIGINT and SIGTERM alike unwind the stack as an interruption, so every ``finally`` and
-    # context manager on the way out stops its ffmpeg and removes its temporaries.
+    # context manager on the way out stops its ffmpeg and removes its temporaries. Further
+    # ones are ignored from here on (main puts the handlers back): a second Ctrl-C would cut
+    # that clean-up short and print a traceback.
+    for sig in (signal.SIGINT, signal.SIGTERM):
+        signal.signal(sig, signal.SIG_IGN)
     raise KeyboardInterrupt
 
 
@@ -389,8 +397,11 @@ def main(argv: list[str] | None = None) -> int:
     finally:
         if status != EXIT_OK:
             _clean_up()
+        # Interrupted as the program itself (argv from the system), the process is about to
+        # exit: more Ctrl-C's stay ignored, or one would land in the interpreter's exit.
+        keep_ignoring = status == EXIT_INTERRUPTED and argv is None
         for sig, handler in previous.items():
-            signal.signal(sig, handler)
+            signal.signal(sig, signal.SIG_IGN if keep_ignoring else handler)
         logger.handlers[:] = saved_logging[0]
         logger.setLevel(saved_logging[1])  # setLevel, not .level: it also clears the cache
         logger.propagate = saved_logging[2]

@@ -20,11 +20,11 @@ from typing import Any
 from .errors import StabilizeError
 
 __all__ = [
-    "ANALYSIS_LEVELS", "AUTO_MARGIN_CAP", "CODECS", "FILLS", "MAX_MARGIN", "MAX_READOUT_MS",
-    "MODELS", "OPTION_NAMES", "PRESETS_X264", "SMOOTHERS", "Region", "Settings",
-    "build_settings", "coerce", "logged_settings", "parse_region", "preset_dirs",
-    "preset_names", "read_config", "resolve_config", "resolve_settings", "setting_label",
-    "validate",
+    "ANALYSIS_LEVELS", "AUTO_MARGIN_CAP", "CODECS", "FILLS", "MAX_MARGIN", "MAX_PX",
+    "MAX_READOUT_MS", "MAX_ROUNDS", "MAX_WINDOW_S", "MODELS", "OPTION_NAMES", "PRESETS_X264",
+    "SMOOTHERS", "Region", "Settings", "build_settings", "coerce", "logged_settings",
+    "parse_region", "preset_dirs", "preset_names", "read_config", "resolve_config",
+    "resolve_settings", "setting_label", "validate",
 ]
 
 MODELS = ("translation", "similarity", "affine", "homography")
@@ -43,6 +43,14 @@ MAX_MARGIN = 0.45
 #: is the slowest common rate.
 MAX_READOUT_MS = 42.0
 AUTO_MARGIN_CAP = 0.25
+#: Most hypotheses per frame (10 times the default): more never changes a fit and only costs
+#: time (common practice).
+MAX_ROUNDS = 20000
+#: Longest smoothing window in seconds (an hour): a longer one is a still camera, which the
+#: lock-off smoother gives directly.
+MAX_WINDOW_S = 3600.0
+#: Largest frame size in pixels an ``ignore`` region or ``analysis_width`` may name.
+MAX_PX = 1 << 16
 
 Region = tuple[int, int, int, int]
 
@@ -116,14 +124,15 @@ def _bad(name: str, value: Any, allowed: str) -> StabilizeError:
 # What each numeric option allows, in the words its error message uses; a value that is not
 # a number at all gets the same words, so the user learns the range in one go.
 _ALLOWED = {
-    "window_s": "a positive number of seconds",
+    "window_s": f"a positive number of seconds, at most {MAX_WINDOW_S:g}",
     "inlier_px": "a positive number of pixels",
     "shake_above_hz": "a positive number of hertz",
     "margin": f"'auto' or a fraction from 0 to {MAX_MARGIN}",
     "confidence": "a probability strictly between 0 and 1",
-    "max_rounds": "a whole number of at least 1",
-    "analysis_width": "0 (full resolution) or a whole number of pixels of at least 32",
-    "seed": "a whole number of 0 or more",
+    "max_rounds": f"a whole number of at least 1 and at most {MAX_ROUNDS}",
+    "analysis_width": f"0 (full resolution) or a whole number of pixels of at least 32 and "
+                      f"at most {MAX_PX}",
+    "seed": "a whole number of 0 or more, below 2**32",
     "fov_deg": "an angle between 0 and 180 degrees",
     "crf": "a whole number from 0 to 51",
     "readout_ms": f"'auto' or a number of milliseconds from 0 to {MAX_READOUT_MS:g}",
@@ -144,18 +153,20 @@ def validate(s: Settings) -> None:
     for name, value in positive.items():
         if not (isinstance(value, int | float) and math.isfinite(value) and value > 0):
             raise _bad(name, value, _ALLOWED[name])
+    if s.window_s > MAX_WINDOW_S:
+        raise _bad("window_s", s.window_s, _ALLOWED["window_s"])
     if s.margin != "auto" and not (
         isinstance(s.margin, int | float) and 0.0 <= s.margin <= MAX_MARGIN
     ):
         raise _bad("margin", s.margin, _ALLOWED["margin"])
     if not (isinstance(s.confidence, float | int) and 0.0 < s.confidence < 1.0):
         raise _bad("confidence", s.confidence, _ALLOWED["confidence"])
-    if not (isinstance(s.max_rounds, int) and s.max_rounds >= 1):
+    if not (isinstance(s.max_rounds, int) and 1 <= s.max_rounds <= MAX_ROUNDS):
         raise _bad("max_rounds", s.max_rounds, _ALLOWED["max_rounds"])
     if not (isinstance(s.analysis_width, int) and (s.analysis_width == 0
-                                                   or s.analysis_width >= 32)):
+                                                   or 32 <= s.analysis_width <= MAX_PX)):
         raise _bad("analysis_width", s.analysis_width, _ALLOWED["analysis_width"])
-    if not isinstance(s.seed, int) or s.seed < 0:
+    if not isinstance(s.seed, int) or not 0 <= s.seed < 2**32:
         raise _bad("seed", s.seed, _ALLOWED["seed"])
     if s.fov_deg is not None and not (
         isinstance(s.fov_deg, int | float) and 0.0 < s.fov_deg < 180.0
@@ -168,8 +179,12 @@ def validate(s: Settings) -> None:
         raise _bad("readout_ms", s.readout_ms, _ALLOWED["readout_ms"])
     if not (isinstance(s.crf, int) and 0 <= s.crf <= 51):
         raise _bad("crf", s.crf, _ALLOWED["crf"])
+    if not isinstance(s.ignore, tuple):
+        raise _bad("ignore", s.ignore, "a list of X,Y,W,H regions")
     for r in s.ignore:
-        if len(r) != 4 or r[2] <= 0 or r[3] <= 0:
+        if not (isinstance(r, tuple) and len(r) == 4
+                and all(isinstance(v, int) and abs(v) <= MAX_PX for v in r)) \
+                or r[2] <= 0 or r[3] <= 0:
             raise _bad("ignore", r, "X,Y,W,H with positive width and height")
 
 
@@ -182,6 +197,8 @@ def parse_region(text: str) -> Region:
         raise _bad("ignore", text, "X,Y,W,H in pixels, e.g. 0,980,1920,100") from None
     if len(values) != 4 or values[2] <= 0 or values[3] <= 0:
         raise _bad("ignore", text, "X,Y,W,H with positive width and height")
+    if any(abs(v) > MAX_PX for v in values):
+        raise _bad("ignore", text, f"X,Y,W,H in pixels, each within {MAX_PX}")
     return values  # type: ignore[return-value]
 
 
@@ -221,6 +238,9 @@ def coerce(values: dict[str, Any], where: str) -> dict[str, Any]:
             value = _to_number(name, value, float)
         elif name in _INTS:
             value = _to_number(name, value, int)
+        elif name in ("model", "smoother", "fill", "codec", "preset"):
+            if not isinstance(value, str):
+                raise _bad(name, value, "a name in quotes")
         elif name in _BOOLS:
             if not isinstance(value, bool):
                 raise _bad(name, value, "true or false")
@@ -235,6 +255,8 @@ def coerce(values: dict[str, Any], where: str) -> dict[str, Any]:
         elif name == "ignore":
             if isinstance(value, str):
                 value = [value]
+            if not isinstance(value, list | tuple):
+                raise _bad(name, value, "a list of X,Y,W,H regions, e.g. [[0, 980, 1920, 100]]")
             value = tuple(
                 parse_region(",".join(map(str, r)) if isinstance(r, list | tuple) else r)
                 for r in value
@@ -284,7 +306,12 @@ def read_config(name_or_path: str) -> dict[str, Any]:
     except tomllib.TOMLDecodeError as exc:
         raise StabilizeError(f"{path}: not valid TOML ({exc})") from None
     flat = {k.replace("-", "_"): v for k, v in raw.items()}
-    return coerce(flat, str(path))
+    try:
+        return coerce(flat, str(path))
+    except StabilizeError as exc:
+        if str(exc).startswith(f"{path}:"):
+            raise
+        raise StabilizeError(f"{path}: {exc}") from None
 
 
 def build_settings(
@@ -294,6 +321,10 @@ def build_settings(
     values: dict[str, Any] = {}
     if config:
         values.update(read_config(config))
+        try:
+            Settings(**values)  # a bad value is the file's fault: name the file
+        except StabilizeError as exc:
+            raise StabilizeError(f"{resolve_config(config)}: {exc}") from None
     if overrides:
         values.update(coerce({k: v for k, v in overrides.items() if v is not None}, "option"))
     return Settings(**values)

@@ -10,12 +10,15 @@ import base64
 import math
 from collections.abc import Callable
 from html import escape
+from pathlib import PurePath
 from typing import Any
+from urllib.parse import quote
 
 from . import shake
 
 __all__ = [
-    "CAUTIONS", "PAGE_CSS", "dominant_text", "fmt_sig", "html_page", "html_table", "render_page",
+    "CAUTIONS", "PAGE_CSS", "dominant_text", "fmt_sig", "html_page", "html_table",
+    "relative_href", "render_page",
 ]
 
 #: Cautions shown on every report page, in plain words (from the README's Cautions section).
@@ -184,6 +187,27 @@ def html_table(head: list[str], rows: list[list[str]],
            f"</table></div>"
 
 
+def relative_href(path: str) -> str:
+    """A link target for a page: a relative path, each part percent-encoded, led by ``./``.
+
+    A file name is data: ``javascript:alert(1).mp4`` becomes ``./javascript%3Aalert%281%29.mp4``,
+    which no browser reads as a scheme. The result still needs HTML escaping (it has none of
+    ``&<>"'`` left, so escaping leaves it as it is).
+
+    Parameters
+    ----------
+    path : a path relative to the page's folder.
+
+    Returns
+    -------
+    The ``href`` value; "" for an empty or absolute path (no link).
+    """
+    p = PurePath(path)
+    if not path or p.is_absolute() or p.anchor:
+        return ""
+    return "./" + "/".join(quote(part, safe="") for part in p.parts)
+
+
 def html_page(*, title: str, header: str, body: str, footer: str) -> str:
     """One self-contained page in the shared look.
 
@@ -198,7 +222,8 @@ def html_page(*, title: str, header: str, body: str, footer: str) -> str:
 <meta charset="utf-8">
 <meta name="viewport" content="width=device-width, initial-scale=1">
 <meta http-equiv="Content-Security-Policy"
- content="default-src 'none'; img-src data:; style-src 'unsafe-inline'">
+ content="default-src 'none'; img-src data:; style-src 'unsafe-inline'; base-uri 'none';
+ form-action 'none'">
 <title>{escape(title)}</title>
 <style>{PAGE_CSS}</style>
 </head>

@@ -15,8 +15,11 @@ caller over a queue (:class:`ProgressCounter`).
 
 from __future__ import annotations
 
+import logging
 import multiprocessing
 import os
+import socket
+import struct
 import time
 from collections.abc import Callable, Iterator
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
@@ -29,7 +32,9 @@ import cv2
 from .errors import StabilizeError
 
 __all__ = [
+    "CONNECT_TIMEOUT_S",
     "PROGRESS_EVERY_S",
+    "check_scheduler",
     "ProgressCounter",
     "default_workers",
     "opencv_threads",
@@ -215,6 +220,70 @@ def _drain(queue, on_progress) -> None:
         on_progress(index, n)
 
 
+#: Seconds a Dask scheduler has to accept a connection, and again to say hello.
+CONNECT_TIMEOUT_S = 10.0
+# A Dask message starts with the byte length of its frame table (8 bytes, little-endian on
+# the machines it runs on): a few dozen bytes. Anything larger is not Dask talking.
+_MAX_DASK_PRELUDE = 1 << 20
+
+
+def check_scheduler(address: str, timeout_s: float = CONNECT_TIMEOUT_S) -> None:
+    """Refuse, within ``timeout_s`` seconds each for the connection and for the greeting, an
+    address where no Dask scheduler answers.
+
+    A Dask scheduler greets each new connection at once; a server that accepts and stays
+    silent, or answers with something else (a web server), is refused here instead of
+    waiting forever or reading its bytes as a message length.
+
+    Parameters
+    ----------
+    address : ``tcp://host:port``, ``tls://host:port`` or ``host:port``; other schemes are
+        left to Dask.
+    timeout_s : seconds allowed for each step.
+
+    Raises
+    ------
+    StabilizeError
+        Naming the setting and the address.
+    """
+    scheme, sep, rest = address.partition("://")
+    if not sep:
+        scheme, rest = "tcp", address
+    if scheme not in ("tcp", "tls"):
+        return
+    where = f"setting 'scheduler': {address}"
+    host, _, port_text = rest.rstrip("/").rpartition(":")
+    host = host.strip("[]")
+    if not host or not port_text.isdigit() or not 0 < int(port_text) < 65536:
+        raise StabilizeError(f"{where}: not an address of the form tcp://HOST:PORT")
+    try:
+        sock = socket.create_connection((host, int(port_text)), timeout=timeout_s)
+    except TimeoutError:
+        raise StabilizeError(f"{where}: no connection within {timeout_s:g} s") from None
+    except OSError as exc:
+        raise StabilizeError(f"{where}: cannot reach a Dask scheduler "
+                             f"({exc.strerror or exc})") from None
+    with sock:
+        if scheme == "tls":
+            return
+        data = b""
+        try:
+            while len(data) < 8:
+                chunk = sock.recv(8 - len(data))
+                if not chunk:
+                    break
+                data += chunk
+        except TimeoutError:
+            raise StabilizeError(f"{where}: accepted the connection but said nothing within "
+                                 f"{timeout_s:g} s; not a Dask scheduler, or a stalled one"
+                                 ) from None
+        except OSError as exc:
+            raise StabilizeError(f"{where}: the connection failed "
+                                 f"({exc.strerror or exc})") from None
+    if len(data) < 8 or struct.unpack("<Q", data)[0] > _MAX_DASK_PRELUDE:
+        raise StabilizeError(f"{where}: answered, but not as a Dask scheduler does")
+
+
 def _dask_map(fn, items, workers, scheduler):
     try:
         # lazy: Dask is an optional extra and takes seconds to import.
@@ -223,15 +292,21 @@ def _dask_map(fn, items, workers, scheduler):
         raise StabilizeError("setting 'scheduler' needs Dask: pip install "
                              "'stabilize[cluster]'") from None
     cluster = None
+    # Dask's own log lines (several per event, with tracebacks when a run is interrupted) are
+    # not this program's messages: its workers and this process keep only critical ones.
+    quiet = logging.getLogger("distributed")
+    saved_level = quiet.level
+    quiet.setLevel(logging.CRITICAL)
     try:
         if scheduler == "local":
-            with worker_environment():
+            with worker_environment(), _env(DASK_LOGGING__DISTRIBUTED="critical"):
                 cluster = LocalCluster(n_workers=workers, threads_per_worker=1,
                                        processes=True, dashboard_address=None)
             client = Client(cluster)
         else:
+            check_scheduler(scheduler)
             try:
-                client = Client(scheduler, timeout="10s")
+                client = Client(scheduler, timeout=f"{CONNECT_TIMEOUT_S:g}s")
             except (OSError, TimeoutError, ValueError) as exc:
                 raise StabilizeError(f"setting 'scheduler': cannot reach a Dask scheduler at "
                                      f"{scheduler} ({exc})") from None
@@ -247,5 +322,24 @@ def _dask_map(fn, items, workers, scheduler):
             finally:
                 client.cancel([f for f in futures if not f.done()])
     finally:
-        if cluster is not None:
-            cluster.close()
+        try:
+            if cluster is not None:
+                cluster.close()
+        finally:
+            quiet.setLevel(saved_level)
+
+
+@contextmanager
+def _env(**values: str) -> Iterator[None]:
+    """Environment variables set for processes started inside (the user's own win)."""
+    saved = {k: os.environ.get(k) for k in values}
+    for k, v in values.items():
+        os.environ.setdefault(k, v)
+    try:
+        yield
+    finally:
+        for k, v in saved.items():
+            if v is None:
+                os.environ.pop(k, None)
+            else:
+                os.environ[k] = v

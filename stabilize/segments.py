@@ -26,6 +26,7 @@ through OpenCV's own threads.
 
 from __future__ import annotations
 
+import itertools
 import math
 import os
 from collections.abc import Callable, Iterable
@@ -36,6 +37,7 @@ from typing import Any
 from .config import Settings
 from .errors import StabilizeError
 from .io import VideoInfo, iter_frame_range
+from .io.decode import DecodeStats
 from .motion import fit_motion, warm_up_frames
 from .motion_track import MotionTrack, fill_failed, stand_ins
 from .runner import ProgressCounter, default_workers, opencv_threads, parallel_map
@@ -113,6 +115,11 @@ class SegmentResult:
     start: int
     track: MotionTrack
     overlays: list[list[int]] = field(default_factory=list)
+    #: the decoders' complaints about damaged data while reading this run, and the last one
+    decode_errors: int = 0
+    last_error: str | None = None
+    #: whether the clip's end was reached in this run
+    reached_end: bool = False
 
 
 def fit_segment(task: SegmentTask, on_frame: Callable[[int], None] | None = None,
@@ -141,23 +148,31 @@ def _fit_segment_frames(task: SegmentTask, on_frame: Callable[[int], None] | Non
                    decode_threads: int | None) -> SegmentResult:
     info = task.info
     read_from = lead_in_start(task.start, task.keyframe_every)
+    stats = DecodeStats()
     frames = iter_frame_range(task.clip, read_from, task.stop, size=task.analysis_size,
-                              gray=True, info=info, decode_threads=decode_threads)
+                              gray=True, info=info, decode_threads=decode_threads, stats=stats)
     common = dict(full_size=(info.width, info.height), analysis_size=task.analysis_size,
                   settings=task.settings)
     parts: list[MotionTrack] = []
     regions: list[list[int]] = []
     try:
-        track = fit_motion(frames, on_frame=on_frame, keyframe_every=task.keyframe_every,
-                        first_index=read_from, **common)
-        if task.start > read_from and len(track.time_s):
-            track = track.select(slice(task.start - read_from, None))
-        parts.append(track)
-        regions += track.excluded.get("static_overlay", [])
+        # A header may promise more frames than the file holds (a clip cut short): a run
+        # planned past the real end decodes nothing and keeps nothing.
+        first = next(frames, None)
+        if first is not None:
+            track = fit_motion(itertools.chain([first], frames), on_frame=on_frame,
+                               keyframe_every=task.keyframe_every, first_index=read_from,
+                               **common)
+            if task.start > read_from and len(track.time_s):
+                track = track.select(slice(task.start - read_from, None))
+            parts.append(track)
+            regions += track.excluded.get("static_overlay", [])
     finally:
         frames.close()
     ignored = {"ignore": [list(r) for r in task.settings.ignore]}
-    return SegmentResult(task.start, MotionTrack.concatenate(parts, ignored), _unique(regions))
+    return SegmentResult(task.start, MotionTrack.concatenate(parts, ignored), _unique(regions),
+                         stats.errors, stats.last_error,
+                         stats.finished or task.stop is None)
 
 
 def lead_in_start(start: int, keyframe_every: int) -> int:
@@ -219,7 +234,8 @@ def plan_segments(frames_estimate: int, keyframe_every: int,
 def fit_in_segments(clip: str | os.PathLike, info: VideoInfo, analysis_size: tuple[int, int],
                      settings: Settings, *, workers: int | None = None,
                      scheduler: str | None = None, keyframe_every: int | None = None,
-                     on_frame: Callable[[int], None] | None = None) -> MotionTrack:
+                     on_frame: Callable[[int], None] | None = None,
+                     stats: DecodeStats | None = None) -> MotionTrack:
     """Analyse a clip in keyframe segments over ``workers``; the same result for any number
     of workers. Without a ``scheduler``, one worker or a clip of one keyframe interval is
     analysed in this process.
@@ -235,6 +251,9 @@ def fit_in_segments(clip: str | os.PathLike, info: VideoInfo, analysis_size: tup
     keyframe_every : keyframe spacing, frames; default :func:`keyframe_frames` of the
         clip's nominal frame rate.
     on_frame : called in this process with counts of frames analysed.
+    stats : when given, filled in as one decoding pass would fill it (frames, last time, the
+        decoders' complaints summed over the runs, whether the end was reached), so an early
+        end or damaged data is found as in one pass.
 
     Returns
     -------
@@ -272,7 +291,15 @@ def fit_in_segments(clip: str | os.PathLike, info: VideoInfo, analysis_size: tup
             results[i] = outcome
             if on_frame:
                 on_frame(max(0, len(outcome.track.time_s) - told[i]))
-    return merge(results, settings, (info.width, info.height))
+    track = merge(results, settings, (info.width, info.height))
+    if stats is not None:
+        stats.frames = len(track.time_s)
+        stats.last_time_s = float(track.time_s[-1]) if len(track.time_s) else None
+        stats.errors = sum(r.decode_errors for r in results)
+        stats.last_error = next((r.last_error for r in reversed(sorted(
+            results, key=lambda r: r.start)) if r.last_error), None)
+        stats.finished = any(r.reached_end for r in results)
+    return track
 
 
 def _fit_segment_in_worker(task: SegmentTask) -> SegmentResult:

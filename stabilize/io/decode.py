@@ -23,7 +23,8 @@ from .messages import StderrReader, without_prefixes
 from .probing import VideoInfo, probe
 from .process import ffmpeg_exe, ffmpeg_path, read_exact, reap, spawn
 
-__all__ = ["DecodeStats", "analysis_size", "iter_frames", "looks_truncated", "raw_frames"]
+__all__ = ["FRAME_TIMEOUT_S", "DecodeStats", "analysis_size", "iter_frames", "looks_truncated",
+           "raw_frames"]
 
 
 @dataclass
@@ -130,6 +131,10 @@ def _raw_output(w: int, h: int, info: VideoInfo, *, gray: bool, yuv: str | None,
     return pix_fmt, filters, frame_bytes(pix_fmt, w, h), wrap
 
 
+#: Longest wait in seconds for the decoder's next frame before the read is given up.
+FRAME_TIMEOUT_S = 120.0
+
+
 def raw_frames(
     path: str | os.PathLike,
     info: VideoInfo,
@@ -186,7 +191,12 @@ def raw_frames(
     n = 0
     try:
         while True:
-            buf = read_exact(proc.stdout, nbytes)
+            try:
+                buf = read_exact(proc.stdout, nbytes, FRAME_TIMEOUT_S)
+            except TimeoutError:
+                raise StabilizeError(f"{path}: the decoder gave no frame for "
+                                     f"{FRAME_TIMEOUT_S:g} s (a stalled disk or a file that "
+                                     "is not a plain video file)") from None
             if buf is None:
                 stats.finished = True
                 return

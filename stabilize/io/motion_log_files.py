@@ -11,6 +11,7 @@ import csv
 import io
 import json
 import math
+from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
 
@@ -36,10 +37,12 @@ from ..motion_log import (
     use_files,
 )
 from ..version import __version__
+from .probing import VideoInfo
 from .publishing import all_or_nothing, write_text_atomic
 
-__all__ = ["bands_csv", "bands_path_for", "json_path_for", "jsonable", "log_csv", "log_json",
-           "read_bands", "read_log", "save_log"]
+__all__ = ["MAX_FPS", "MAX_JSON_BYTES", "MAX_LINE_BYTES", "MAX_TIME_S", "bands_csv",
+           "bands_path_for", "check_log_fits", "json_path_for", "jsonable", "log_csv",
+           "log_json", "read_bands", "read_log", "save_log"]
 
 
 # --------------------------------------------------------------------- writing
@@ -166,10 +169,34 @@ use_files(to_csv=log_csv, to_json=log_json, save=save_log)
 _INT_COLUMNS = ("tracked", "inliers", "rounds")
 _MAX_COUNT = 2**31 - 1
 _MAX_SIDE_PX = 1 << 16
+#: Longest line a log's CSV may have (bytes): a row of every column is well under 2 KiB.
+MAX_LINE_BYTES = 64 * 1024
+#: Largest JSON half of a log read (bytes).
+MAX_JSON_BYTES = 256 * 1024 * 1024
+#: Largest time a log may state (s): about 115 days, far from where int64 microseconds or
+#: nanoseconds overflow.
+MAX_TIME_S = 1e7
+#: Largest frame rate a log may state (frames per second).
+MAX_FPS = 1e5
+# Plausible transforms (common practice): the linear part of a frame-to-frame or correction
+# transform within ±100, its perspective terms within ±1 per pixel, its shift within 100
+# picture sizes. Anything beyond is damage, and would overflow in the warp or the plots.
+_MAX_LINEAR = 100.0
+_MAX_PERSPECTIVE = 1.0
+_MAX_SHIFT_SIZES = 100.0
+# Types of the source fields a log may carry (None allowed for each).
+_SOURCE_TYPES: dict[str, tuple[type, ...]] = {
+    "path": (str,), "codec": (str,), "audio_codec": (str,), "fps": (int, float),
+    "duration_s": (int, float), "rotation_deg": (int, float), "frames": (int,),
+    "frames_expected": (int,), "truncated": (bool,),
+}
 
 
 def _read_text(path: Path) -> str:
     try:
+        if path.stat().st_size > MAX_JSON_BYTES:
+            raise StabilizeError(f"{path}: too large for a motion log "
+                                 f"({path.stat().st_size} bytes)")
         return path.read_bytes().decode("utf-8")
     except OSError as exc:
         raise StabilizeError(f"{path}: cannot read ({exc.strerror or exc})") from None
@@ -200,14 +227,72 @@ def _read_meta(json_path: Path) -> dict[str, Any]:
         type(source.get(k)) is int and 0 < source[k] <= _MAX_SIDE_PX for k in ("width", "height")
     ):
         raise StabilizeError(f"{json_path}: source width and height missing or invalid")
+    for key, types in _SOURCE_TYPES.items():
+        value = source.get(key)
+        if value is None:
+            continue
+        if not isinstance(value, types) or (bool not in types and isinstance(value, bool)):
+            raise StabilizeError(f"{json_path}: source {key} {_short(value)} is not "
+                                 f"{'text' if str in types else 'a number'}")
+        if int in types and not _finite(value, 1e15):
+            raise StabilizeError(f"{json_path}: source {key} {_short(value)} is out of range")
     fps = source.get("fps")
-    if fps is not None and not (isinstance(fps, int | float) and not isinstance(fps, bool)
-                                and math.isfinite(fps) and fps > 0):
-        raise StabilizeError(f"{json_path}: source fps {fps!r} is not a positive number")
-    for key in ("settings", "summary"):
+    if fps is not None and not (_finite(fps, MAX_FPS) and fps > 0):
+        raise StabilizeError(f"{json_path}: source fps {_short(fps)} is not a positive number "
+                             f"of at most {MAX_FPS:g}")
+    for key in ("settings", "summary", "outputs"):
         if meta.get(key) is not None and not isinstance(meta[key], dict):
             raise StabilizeError(f"{json_path}: {key} is not a JSON object")
+    for key, value in (meta.get("outputs") or {}).items():
+        if not isinstance(value, str):
+            raise StabilizeError(f"{json_path}: outputs {key} {_short(value)} is not a file name")
+    ignore = (meta.get("settings") or {}).get("ignore")
+    if ignore is not None and not (
+            isinstance(ignore, list) and all(
+                isinstance(r, list) and len(r) == 4 and all(_finite(v, 1e9) for v in r)
+                for r in ignore)):
+        raise StabilizeError(f"{json_path}: settings ignore {_short(ignore)} is not a list of "
+                             "X,Y,W,H regions")
+    for key, value in (meta.get("summary") or {}).items():
+        if isinstance(value, int | float) and not isinstance(value, bool) \
+                and not _finite(value, 1e300):
+            raise StabilizeError(f"{json_path}: summary {key} {_short(value)} is out of range")
     return meta
+
+
+def _short(value: Any) -> str:
+    """``repr(value)`` cut to 40 characters, for a message."""
+    text = repr(value) if not isinstance(value, int) or abs(value) < 10**30 else "(a huge number)"
+    return text if len(text) <= 40 else text[:37] + "..."
+
+
+def _finite(value: Any, bound: float) -> bool:
+    """Whether ``value`` is a real number (not a bool) with magnitude at most ``bound``."""
+    if isinstance(value, bool) or not isinstance(value, int | float):
+        return False
+    try:
+        return math.isfinite(float(value)) and abs(value) <= bound
+    except OverflowError:  # an integer with hundreds of digits
+        return False
+
+
+def _bounded_lines(csv_path: Path, fh) -> Iterator[str]:
+    """The lines of a log's CSV, read one at a time; a line longer than
+    :data:`MAX_LINE_BYTES` or not UTF-8 is refused at once, before it is held whole."""
+    number = 0
+    while True:
+        raw = fh.readline(MAX_LINE_BYTES + 1)
+        if not raw:
+            return
+        number += 1
+        if len(raw) > MAX_LINE_BYTES:
+            raise StabilizeError(f"{csv_path}: line {number}: longer than {MAX_LINE_BYTES} "
+                                 "bytes; not a motion log")
+        try:
+            yield raw.decode("utf-8")
+        except UnicodeDecodeError as exc:
+            raise StabilizeError(f"{csv_path}: line {number}: not text (byte {exc.start} is "
+                                 "not UTF-8)") from None
 
 
 def _read_rows(csv_path: Path) -> tuple[np.ndarray, np.ndarray, np.ndarray, bool, bool,
@@ -215,17 +300,21 @@ def _read_rows(csv_path: Path) -> tuple[np.ndarray, np.ndarray, np.ndarray, bool
     """Parse the CSV body: (numbers, status, line numbers, has smooth, has corrections, the
     known columns present, the check columns with any value written). A log from before the
     check columns has only the base ones."""
-    text = _read_text(csv_path)
-    reader = csv.reader(io.StringIO(text, newline=""))
     rows: list[list[str]] = []
     lines: list[int] = []
     try:
-        for row in reader:
-            if row or lines:  # blank lines after the header still count below
-                rows.append(row)
-                lines.append(reader.line_num)
+        with open(csv_path, "rb") as fh:
+            reader = csv.reader(_bounded_lines(csv_path, fh))
+            for row in reader:
+                if row or lines:  # blank lines after the header still count below
+                    rows.append(row)
+                    lines.append(reader.line_num)
+                if len(rows) == 1 and rows[0][: len(BASE_COLUMNS)] != BASE_COLUMNS:
+                    break  # refused below, before reading on
     except csv.Error as exc:
         raise StabilizeError(f"{csv_path}: line {reader.line_num}: {exc}") from None
+    except OSError as exc:
+        raise StabilizeError(f"{csv_path}: cannot read ({exc.strerror or exc})") from None
     while rows and len(rows) > 1 and not rows[-1]:  # trailing blank lines from an editor
         rows.pop()
         lines.pop()
@@ -282,7 +371,8 @@ def _read_rows(csv_path: Path) -> tuple[np.ndarray, np.ndarray, np.ndarray, bool
 
 
 def _check_rows(csv_path: Path, numeric: np.ndarray, lines: np.ndarray,
-                has_smooth: bool, has_corr: bool, names: list[str]) -> None:
+                has_smooth: bool, has_corr: bool, names: list[str],
+                size: tuple[int, int]) -> None:
     """Refuse values no stage could use: frames out of order, non-finite times or
     transforms, singular transforms, counts that are not whole numbers."""
     n = len(numeric)
@@ -294,7 +384,10 @@ def _check_rows(csv_path: Path, numeric: np.ndarray, lines: np.ndarray,
             raise StabilizeError(f"{csv_path}: line {int(lines[t])}: {what}")
 
     first_bad(numeric[:, col["frame"]] == np.arange(n), "frame number out of order")
-    first_bad(np.isfinite(numeric[:, col["time_s"]]), "time_s is not a finite number")
+    times = numeric[:, col["time_s"]]
+    first_bad(np.isfinite(times) & (np.abs(times) <= MAX_TIME_S),
+              f"time_s is not a number of seconds within ±{MAX_TIME_S:g}")
+    first_bad(np.r_[True, np.diff(times) > 0], "time_s is not later than the frame before")
     for name in _INT_COLUMNS:
         v = numeric[:, col[name]]
         with np.errstate(invalid="ignore"):
@@ -306,12 +399,58 @@ def _check_rows(csv_path: Path, numeric: np.ndarray, lines: np.ndarray,
         det = np.linalg.det(h)
     ok = np.isfinite(det) & (np.abs(det) > 1e-12) & (h[:, 2, 2] != 0)
     first_bad(ok, "transform is singular (it cannot be inverted)")
+    first_bad(_plausible(h, size), "transform is beyond any camera motion (damaged)")
     if has_corr:
         c = numeric[:, [col[name] for name in C_COLUMNS]]
         first_bad(np.isfinite(c).all(axis=1), "correction has a non-finite value")
+        first_bad(_plausible(c.reshape(n, 3, 3), size),
+                  "correction is beyond any camera motion (damaged)")
     if has_smooth:
         sm = numeric[:, [col[name] for name in SMOOTH_COLUMNS]]
         first_bad(np.isfinite(sm).all(axis=1), "smoothed path has a non-finite value")
+        first_bad((np.abs(sm) <= 1e9).all(axis=1), "smoothed path is out of range (damaged)")
+
+
+def _plausible(h: np.ndarray, size: tuple[int, int]) -> np.ndarray:
+    """(n,) whether each 3x3 transform is within the plausible bounds above (``size`` is the
+    source's width and height in pixels)."""
+    shift = _MAX_SHIFT_SIZES * max(size)
+    with np.errstate(invalid="ignore"):
+        return ((np.abs(h[:, :2, :2]) <= _MAX_LINEAR).all(axis=(1, 2))
+                & (np.abs(h[:, :2, 2]) <= shift).all(axis=1)
+                & (np.abs(h[:, 2, :2]) <= _MAX_PERSPECTIVE).all(axis=1)
+                & (np.abs(h[:, 2, 2]) <= _MAX_LINEAR))
+
+
+def check_log_fits(motion: MotionLog, info: VideoInfo, log_path: str | Path) -> None:
+    """Refuse a log that was not made from this clip (or a proxy of it): another frame rate,
+    more time than the clip holds, or far fewer frames than it has.
+
+    Parameters
+    ----------
+    motion : the log read.
+    info : the clip's header.
+    log_path : the log's file, for the message.
+
+    Raises
+    ------
+    StabilizeError
+        Naming ``log_path`` and the mismatch. The picture size may differ (a proxy's log is
+        scaled).
+    """
+    fps = motion.source.get("fps")
+    if isinstance(fps, int | float) and fps > 0 and abs(fps / info.fps - 1.0) > 0.01:
+        raise StabilizeError(f"{log_path}: made from a clip at {fps:g} fps, but {info.path} "
+                             f"runs at {info.fps:g} fps; use the clip's own log")
+    if info.duration_s > 0:
+        span = float(motion.time_s[-1] - motion.time_s[0])
+        if span > info.duration_s + max(1.0, 2.0 / info.fps):
+            raise StabilizeError(f"{log_path}: covers {span:.2f} s, but {info.path} lasts "
+                                 f"{info.duration_s:.2f} s; use the clip's own log")
+        if not motion.source.get("truncated") and \
+                motion.frames < 0.9 * info.frames_estimate - 2:
+            raise StabilizeError(f"{log_path}: has {motion.frames} frames, but {info.path} has "
+                                 f"about {info.frames_estimate}; use the clip's own log")
 
 
 def read_log(csv_path: str | Path) -> MotionLog:
@@ -329,7 +468,8 @@ def read_log(csv_path: str | Path) -> MotionLog:
             raise StabilizeError(f"{p}: motion log file not found")
     meta = _read_meta(json_path)
     numeric, status, lines, has_smooth, has_corr, names, written = _read_rows(csv_path)
-    _check_rows(csv_path, numeric, lines, has_smooth, has_corr, names)
+    _check_rows(csv_path, numeric, lines, has_smooth, has_corr, names,
+                (meta["source"]["width"], meta["source"]["height"]))
     n = len(numeric)
     col = {name: j for j, name in enumerate(names)}
     h = numeric[:, [col[c] for c in H_COLUMNS]].reshape(n, 3, 3)

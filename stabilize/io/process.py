@@ -10,6 +10,7 @@ dash or a colon (``12:30 flight.mp4``) are never read as options or protocols.
 from __future__ import annotations
 
 import os
+import select
 import subprocess
 import threading
 from pathlib import Path
@@ -100,22 +101,30 @@ def stop_children() -> int:
     return running
 
 
-def read_exact(stream, count: int) -> bytearray | None:
+def read_exact(stream, count: int, timeout_s: float | None = None) -> bytearray | None:
     """Read exactly ``count`` bytes from a child's pipe.
 
     Parameters
     ----------
     stream : a binary, unbuffered pipe (``readinto``).
     count : bytes wanted (one raw frame).
+    timeout_s : longest wait in seconds for the next bytes (None: no limit).
 
     Returns
     -------
     The bytes, or None at the end of the stream (a partial frame is dropped).
+
+    Raises
+    ------
+    TimeoutError
+        When nothing arrives for ``timeout_s`` seconds.
     """
     buf = bytearray(count)
     view = memoryview(buf)
     got = 0
     while got < count:
+        if timeout_s is not None and not select.select([stream], [], [], timeout_s)[0]:
+            raise TimeoutError(f"no data for {timeout_s:g} s")
         chunk = stream.readinto(view[got:])
         if not chunk:
             return None

@@ -23,7 +23,7 @@ from ..errors import StabilizeError
 
 __all__ = [
     "TEMP_MARK", "all_or_nothing", "check_writable_folder", "discard", "publish",
-    "remove_temporaries", "temp_path_for", "write_text_atomic",
+    "naming_errors", "remove_temporaries", "temp_path_for", "write_text_atomic",
 ]
 
 #: Every temporary name that ends up on disk contains this, so a folder can be checked for
@@ -186,12 +186,29 @@ def write_text_atomic(final: Path, text: str) -> None:
     """
     tmp = temp_path_for(final)
     try:
-        with open(tmp, "w", encoding="utf-8", newline="") as fh:
+        with naming_errors(final), open(tmp, "w", encoding="utf-8", newline="") as fh:
             fh.write(text)
         publish(tmp, final)
     finally:
         if tmp.exists():
             discard(tmp)
+
+
+@contextlib.contextmanager
+def naming_errors(final: Path) -> Iterator[None]:
+    """Give an ``OSError`` raised inside (a full disk, a lost drive) the name of the file
+    being written, ``final``, when the system did not name one.
+
+    Parameters
+    ----------
+    final : the file the block writes (under a temporary name).
+    """
+    try:
+        yield
+    except OSError as exc:
+        if exc.filename is None or ".partial" in str(exc.filename):
+            raise OSError(exc.errno, exc.strerror or str(exc), str(final)) from None
+        raise
 
 
 def check_writable_folder(path: Path) -> None:

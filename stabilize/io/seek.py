@@ -150,6 +150,7 @@ def iter_frame_range(
     yuv: str | None = None,
     info: VideoInfo | None = None,
     decode_threads: int | None = None,
+    stats: DecodeStats | None = None,
 ) -> Iterator[Frame]:
     """Decode frames ``[start, stop)`` of a clip without decoding what comes before them.
 
@@ -159,6 +160,8 @@ def iter_frame_range(
     start : 0-based index of the first frame wanted.
     stop : index one past the last frame wanted; None runs to the end.
     size, gray, yuv, info, decode_threads : as for :func:`~stabilize.io.decode.iter_frames`.
+    stats : when given, ``errors`` and ``last_error`` gather the decoders' complaints about
+        damaged data, ``finished`` says whether the clip's end was reached.
 
     Yields
     ------
@@ -190,13 +193,27 @@ def iter_frame_range(
                 expected += 1
         finally:
             frames.close()
+            _gather(stats, seen)
         if seen.finished and expected > start:
             return
     # Exact path: decode from the start (also what finishes a seek that went astray).
-    for f in iter_frames(path, size=size, gray=gray, yuv=yuv, info=info,
-                         decode_threads=decode_threads):
-        if f.index < expected:
-            continue
-        if stop is not None and f.index >= stop:
-            return
-        yield f
+    exact = DecodeStats()
+    try:
+        for f in iter_frames(path, size=size, gray=gray, yuv=yuv, info=info,
+                             decode_threads=decode_threads, stats=exact):
+            if f.index < expected:
+                continue
+            if stop is not None and f.index >= stop:
+                return
+            yield f
+    finally:
+        _gather(stats, exact)
+
+
+def _gather(total: DecodeStats | None, part: DecodeStats) -> None:
+    """Add one decoder's complaints and end to ``total`` (when there is one)."""
+    if total is None:
+        return
+    total.errors += part.errors
+    total.last_error = part.last_error or total.last_error
+    total.finished = part.finished

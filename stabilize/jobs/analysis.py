@@ -183,7 +183,7 @@ def measure_motion(clip: Path, info: VideoInfo, settings: Settings,
     try:
         if parallel:
             track = fit_in_segments(clip, info, size, settings, on_frame=bar.update,
-                                    **parallel)
+                                    stats=stats, **parallel)
         else:
             # closing(): should the analysis stop early (an error, an interruption), ffmpeg
             # is stopped there and then, not whenever the generator is collected.
@@ -211,6 +211,13 @@ def motion_from_track(clip: Path, info: VideoInfo, track: MotionTrack,
         _log.warning("%s: the clip ends early: %d of about %d frames could be decoded%s; "
                      "working on those, and the log says so (source.truncated)", clip, n,
                      info.frames_estimate, why)
+    elif stats.errors:
+        # Damaged data: the decoder conceals it, and a run started after a seek may conceal
+        # it differently from one pass, so a segmented log can differ there.
+        _log.warning("%s: the decoder reported damaged data %d time%s (last: %s); frames "
+                     "near it may be damaged, and an analysis on several workers can differ "
+                     "there from one pass", clip, stats.errors,
+                     "" if stats.errors == 1 else "s", stats.last_error)
     if not measurable(info.width, info.height) or n < 2:
         status = np.full_like(status, "failed")
         _log.warning("%s: too short or too small to measure (%d frame%s of %dx%d); passed "

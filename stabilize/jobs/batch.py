@@ -18,6 +18,7 @@ skipped; ``force`` redoes it. One clip's failure never stops the others.
 from __future__ import annotations
 
 import csv
+import fnmatch
 import glob
 import html
 import io
@@ -35,7 +36,7 @@ from ..config import Settings, setting_label
 from ..errors import StabilizeError
 from ..io import all_or_nothing, write_text_atomic
 from ..io.motion_log_files import save_log
-from ..report_page import dominant_text, fmt_sig, html_page, html_table
+from ..report_page import dominant_text, fmt_sig, html_page, html_table, relative_href
 from ..runner import default_workers, parallel_map
 from ..version import __version__
 from .analysis import measure_clip
@@ -46,7 +47,7 @@ from .report import find_videos, report_for_log
 __all__ = [
     "COLUMNS", "FIGURES", "VIDEO_EXTENSIONS", "BatchResult", "ClipJob", "ClipResult",
     "done_before", "find_clips", "fingerprint", "output_names", "process_clip", "run_batch",
-    "summary_csv", "summary_html",
+    "spreadsheet_safe", "summary_csv", "summary_html",
 ]
 
 _log = logging.getLogger("stabilize")
@@ -77,20 +78,39 @@ def find_clips(spec: str | os.PathLike, out_dir: Path | None = None) -> tuple[Pa
     spec = str(spec)
     p = Path(spec)
     if p.is_dir():
-        root, found = p, [q for q in p.rglob("*") if q.is_file()]
+        root, found = p, _walk(p)
     elif glob.has_magic(spec):
         parts = p.parts
         plain = [q for q in parts[: next(i for i, q in enumerate(parts) if glob.has_magic(q))]]
         root = Path(*plain) if plain else Path(".")
-        found = [Path(q) for q in glob.glob(spec, recursive=True) if Path(q).is_file()]
+        if "**" in parts:
+            # glob's own "**" follows links with no guard against a loop: walk instead.
+            pattern = parts[len(plain):]
+            found = [q for q in (_walk(root) if root.is_dir() else [])
+                     if _matches(q.relative_to(root).parts, pattern)]
+        else:
+            found = [Path(q) for q in glob.glob(spec) if Path(q).is_file()]
     elif p.is_file():
         root, found = p.parent, [p]
     else:
         raise StabilizeError(f"{spec}: no such folder or file, and not a glob pattern")
     out = out_dir.resolve() if out_dir else None
     clips = []
-    for q in found:
+    seen: set[tuple[int, int]] = set()
+    # Shortest spelling first, so a file reached through links keeps its plainest name.
+    for q in sorted(found, key=lambda q: (len(q.parts), str(q))):
         if q.suffix.lower() not in VIDEO_EXTENSIONS or q.name.startswith("."):
+            continue
+        try:
+            st = q.stat()
+        except OSError:
+            continue
+        if (st.st_dev, st.st_ino) in seen:  # the same file again, through a link
+            continue
+        seen.add((st.st_dev, st.st_ino))
+        if not _utf8(str(q)):
+            _log.warning("%s: the file name is not valid UTF-8; skipped (rename it to "
+                         "process it)", _printable(str(q)))
             continue
         rq = q.resolve()
         if out is not None and (rq == out or out in rq.parents):
@@ -100,6 +120,56 @@ def find_clips(spec: str | os.PathLike, out_dir: Path | None = None) -> tuple[Pa
         raise StabilizeError(f"{spec}: no video files found (looked for "
                              f"{', '.join(sorted(VIDEO_EXTENSIONS))})")
     return root, sorted(clips)
+
+
+def _walk(top: Path) -> list[Path]:
+    """Every file under ``top``, following links to folders but entering each real folder
+    once (a link that loops back is not followed again)."""
+    found: list[Path] = []
+    visited: set[tuple[int, int]] = set()
+    for folder, dirs, files in os.walk(top, followlinks=True):
+        try:
+            st = os.stat(folder)
+        except OSError:
+            dirs[:] = []
+            continue
+        if (st.st_dev, st.st_ino) in visited:
+            dirs[:] = []
+            continue
+        visited.add((st.st_dev, st.st_ino))
+        dirs.sort()
+        found += [Path(folder, f) for f in files if os.path.isfile(os.path.join(folder, f))]
+    return found
+
+
+def _matches(parts: tuple[str, ...], pattern: tuple[str, ...]) -> bool:
+    """Whether a relative path matches a glob pattern, part by part; ``**`` stands for any
+    number of folders and a wildcard does not match a leading dot, as in :mod:`glob`."""
+    if not pattern:
+        return not parts
+    head, rest = pattern[0], pattern[1:]
+    if head == "**":
+        return any(_matches(parts[i:], rest) for i in range(len(parts) + 1)
+                   if not any(p.startswith(".") for p in parts[:i]))
+    if not parts:
+        return False
+    if parts[0].startswith(".") and not head.startswith("."):
+        return False
+    return fnmatch.fnmatchcase(parts[0], head) and _matches(parts[1:], rest)
+
+
+def _utf8(text: str) -> bool:
+    """Whether a path as the system gave it is valid UTF-8 (no undecodable bytes)."""
+    try:
+        text.encode("utf-8")
+    except UnicodeEncodeError:
+        return False
+    return True
+
+
+def _printable(text: str) -> str:
+    """A path with undecodable bytes shown as ``\\xNN``, for a message."""
+    return os.fsencode(text).decode("utf-8", "backslashreplace")
 
 
 def output_names(root: Path, clips: list[Path]) -> dict[Path, tuple[Path, str]]:
@@ -260,6 +330,13 @@ def process_clip(job: ClipJob) -> ClipResult:
                           warnings=collect.messages)
     except StabilizeError as exc:
         return ClipResult(job.label, "failed", error=str(exc), warnings=collect.messages)
+    except FileNotFoundError as exc:
+        gone = exc.filename or job.clip
+        return ClipResult(job.label, "failed", error=f"{gone}: no longer there (deleted or "
+                          "moved during the batch)", warnings=collect.messages)
+    except OSError as exc:  # the system refused a file operation: name the file
+        return ClipResult(job.label, "failed", error=f"{exc.filename or job.clip}: "
+                          f"{exc.strerror or exc}", warnings=collect.messages)
     except Exception as exc:  # one bad clip must not stop the others
         return ClipResult(job.label, "failed", error=f"internal error: {type(exc).__name__}: "
                           f"{exc}", warnings=collect.messages)
@@ -352,8 +429,33 @@ def summary_csv(results: list[ClipResult], out_dir: Path) -> str:
     writer = csv.DictWriter(buf, fieldnames=COLUMNS, lineterminator="\n")
     writer.writeheader()
     for r in results:
-        writer.writerow(r.row(out_dir))
+        writer.writerow({k: spreadsheet_safe(v) if k in _TEXT_COLUMNS else v
+                         for k, v in r.row(out_dir).items()})
     return buf.getvalue()
+
+
+# Columns holding text from outside (file names, messages); the figures are numbers.
+_TEXT_COLUMNS = ("clip", "status", "error", "trust", "trust_reasons", "video", "log", "report",
+                 "warnings")
+# What makes a spreadsheet read a cell as a formula (OWASP, "CSV Injection"; common practice).
+_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+
+
+def spreadsheet_safe(cell: Any) -> Any:
+    """A text cell a spreadsheet will show as text: one starting with ``= + - @``, a tab or a
+    carriage return gets a leading apostrophe (``=1+1`` → ``'=1+1``); other cells unchanged.
+
+    Parameters
+    ----------
+    cell : a cell's value.
+
+    Returns
+    -------
+    The value to write.
+    """
+    if isinstance(cell, str) and cell.startswith(_FORMULA_START):
+        return "'" + cell
+    return cell
 
 
 def _verdict_cell(row: dict[str, Any]) -> str:
@@ -377,9 +479,9 @@ def summary_html(results: list[ClipResult], out_dir: Path) -> str:
     rows, classes = [], []
     for r in results:
         row = r.row(out_dir)
-        links = " ".join(f'<a href="{esc(row[k])}">{label}</a>'
+        links = " ".join(f'<a href="{esc(relative_href(row[k]))}">{label}</a>'
                          for k, label in (("report", "report"), ("video", "video"),
-                                          ("log", "log")) if row[k])
+                                          ("log", "log")) if relative_href(row[k]))
         detail = esc(r.error) if r.status == "failed" else links
         cells = [esc(r.clip), esc(r.status), esc(str(row["frames"])), _verdict_cell(row)]
         cells += [esc(fmt_sig(r.summary.get(k))) for k in

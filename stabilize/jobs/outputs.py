@@ -19,7 +19,8 @@ from ..io.probing import check_input
 
 __all__ = [
     "Outputs", "check_job_outputs", "check_outputs", "clip_files", "clip_name", "compare_video",
-    "log_name", "motion_log", "plan_outputs", "render_log", "report_files", "steady_video",
+    "keep_read_log", "log_name", "motion_log", "plan_outputs", "render_log", "report_files",
+    "steady_video",
 ]
 
 _LOG_ENDINGS = (".motion.csv", ".motion.json")
@@ -160,6 +161,35 @@ def check_job_outputs(clip: Path, outputs: Outputs, force: bool) -> None:
             raise StabilizeError(f"{p}: two outputs would share this name")
         seen.add(rp)
         _refuse(p, force)
+
+
+def _same(a: Path, b: Path) -> bool:
+    """Whether two spellings name one file (resolved paths, or one file behind links)."""
+    if a.resolve() == b.resolve():
+        return True
+    try:
+        return a.exists() and b.exists() and os.path.samefile(a, b)
+    except OSError:
+        return False
+
+
+def keep_read_log(log_file: Path, outputs: Outputs) -> Outputs:
+    """Outputs of a render that never replace the log it reads, whichever file of the log
+    (``.csv`` or ``.json``) was named: the new log moves to ``NAME.render.motion.csv``; a video
+    that would replace the log is refused."""
+    csv_in = log_file.with_suffix(".csv") if log_file.suffix.lower() == ".json" else log_file
+    read = (csv_in, json_path_for(csv_in))
+    for p in (outputs.video, outputs.compare):
+        if p is not None and any(_same(p, r) for r in read):
+            raise StabilizeError(f"{p}: output would overwrite the motion log it is made from; "
+                                 "choose another name")
+    if any(_same(o, r) for o in (outputs.log_csv, outputs.log_json) for r in read):
+        outputs = Outputs(outputs.video, render_log(outputs.log_csv.parent, log_name(csv_in)),
+                          outputs.compare)
+        if any(_same(o, r) for o in (outputs.log_csv, outputs.log_json) for r in read):
+            raise StabilizeError(f"{log_file}: the new motion log would overwrite the one it "
+                                 "is made from; choose another output folder")
+    return outputs
 
 
 def check_outputs(inputs: list[Path], outputs: dict[str, Path], force: bool) -> None:

@@ -29,7 +29,7 @@ from ..io import (
     temp_path_for,
 )
 from ..io.encode import output_colour, output_pix_fmt
-from ..io.motion_log_files import read_log, save_log
+from ..io.motion_log_files import check_log_fits, read_log, save_log
 from ..io.probing import constant_rate
 from ..motion import measurable
 from ..motion_log import MotionLog
@@ -48,7 +48,7 @@ from .analysis import (
     progress_bar,
     source_dict,
 )
-from .outputs import Outputs, check_job_outputs, clip_name, plan_outputs, render_log
+from .outputs import Outputs, check_job_outputs, keep_read_log, plan_outputs
 from .single_decode import frames_to_hold, steady_single_decode
 
 __all__ = [
@@ -270,12 +270,11 @@ def render(clip: str | os.PathLike, log_file: str | os.PathLike | MotionLog,
     settings = logged_settings(saved.settings, config, options)
     outputs = plan_outputs(clip, video_out=out, log_out=None, with_video=True,
                            compare=settings.compare)
-    if not isinstance(log_file, MotionLog) and Path(log_file).resolve() == \
-            outputs.log_csv.resolve():
-        outputs = Outputs(outputs.video, render_log(outputs.log_csv.parent, clip_name(clip)),
-                          outputs.compare)
+    if not isinstance(log_file, MotionLog):
+        outputs = keep_read_log(Path(log_file), outputs)
     check_job_outputs(clip, outputs, settings.force)
     info = probe(clip)
+    check_log_fits(saved, info, log_file if not isinstance(log_file, MotionLog) else "the log")
     matrices = saved.matrices
     excluded = excluded_regions(saved.extra)
     if saved.size != (info.width, info.height):

@@ -29,6 +29,7 @@ from ..errors import StabilizeError
 from ..geometry import similarity_readout
 from ..io import all_or_nothing, publish, temp_path_for, write_text_atomic
 from ..io.motion_log_files import json_path_for, jsonable, read_log, save_log
+from ..io.publishing import naming_errors
 from ..motion_log import MotionLog, reasons_of
 from ..report_page import CAUTIONS, render_page
 from ..rolling import RollingShutter, analyse_rolling, rolling_figures
@@ -182,7 +183,8 @@ def find_videos(motion: MotionLog, clip: Path | None, log_csv: Path | None,
 def _write_bytes_atomic(final: Path, data: bytes) -> None:
     tmp = temp_path_for(final)
     try:
-        tmp.write_bytes(data)
+        with naming_errors(final):
+            tmp.write_bytes(data)
         publish(tmp, final)
     finally:
         if tmp.exists():
