@@ -18,8 +18,8 @@ from stabilize.residual import (
     RenderCheck,
     pair_motion,
     reduce_luma,
-    steadiness,
 )
+from stabilize.steadiness import steadiness
 
 
 def _waves(seed: int, count: int = 24) -> tuple[np.ndarray, np.ndarray, np.ndarray]:

@@ -8,8 +8,9 @@ from typing import Any
 
 import numpy as np
 
-from .. import residual, shake
+from .. import shake
 from ..raw_path import accumulate
+from ..steadiness import steadiness as output_against_source
 
 __all__ = ["shake_summary", "warn_if_irregular"]
 
@@ -26,7 +27,7 @@ def shake_summary(*, matrices: np.ndarray, status: np.ndarray, time_s: np.ndarra
                   steadiness: bool = False) -> dict[str, Any]:
     """Shake figures of one clip (:func:`stabilize.shake.summarise`), in real time (the
     frames' own timestamps), and with ``steadiness`` the comparison of the written video
-    with its source (:func:`stabilize.residual.steadiness`).
+    with its source (:func:`stabilize.steadiness.steadiness`).
 
     Parameters
     ----------
@@ -60,7 +61,7 @@ def shake_summary(*, matrices: np.ndarray, status: np.ndarray, time_s: np.ndarra
         inliers=inliers, reasons=reasons, output_motion_readout=output_check,
     )
     if steadiness:
-        summary |= residual.steadiness(output_check, source_check, cuts=cuts,
+        summary |= output_against_source(output_check, source_check, cuts=cuts,
                                        fps=summary["fps"], above_hz=above_hz, width=width,
                                        height=height)
     return summary
