@@ -57,6 +57,12 @@ READOUT_GAIN = 0.8
 #: search refits the whole sample set for each readout tried, so its cost grows with the
 #: clip; 5 s at 30 fps hold 3600 band samples, ample for a millisecond). This project's choice.
 READOUT_FRAMES = 150
+#: The vibration spectrum is taken over at most this many frames from the middle of the
+#: clip (20 s at 30 fps): its cost grows with samples times frequencies, and the frequency
+#: step with the span, so a whole long clip would take minutes and gigabytes. Vibration is
+#: a steady property of a flight's airframe, so a middle stretch stands for the clip (this
+#: project's choice; the summary states the span in ``vibration_span_s``).
+VIBRATION_FRAMES = 600
 
 
 @dataclass(frozen=True)
@@ -160,9 +166,10 @@ def analyse_rolling(band_shift_px: np.ndarray, band_support: np.ndarray, *, fps:
         readout, sigma, source = float(readout_ms) / 1000.0, nan, "given"
     vib = None
     if readout > 0 and len(frame):
-        times = frame / fps + rows * (readout / height)
-        vib = estimate_vibration(times, d, fps, frame_index=frame, band_s=readout / nb,
-                                 width=width, hfov_deg=fov_deg)
+        take = _middle(frame, VIBRATION_FRAMES)
+        times = frame[take] / fps + rows[take] * (readout / height)
+        vib = estimate_vibration(times, d[take], fps, frame_index=frame[take],
+                                 band_s=readout / nb, width=width, hfov_deg=fov_deg)
     return RollingShutter(readout, sigma, source, np.asarray(band_shift_px, dtype=np.float64),
                           np.asarray(band_support, dtype=np.float64), int(width), int(height),
                           float(fps), vib)
@@ -201,7 +208,8 @@ def rolling_figures(r: RollingShutter) -> dict[str, Any]:
     dict: ``readout_ms``, ``readout_ms_sigma``, ``readout_source``, ``row_bands``,
     ``vibration_found``, ``vibration_hz``, ``vibration_px``, ``vibration_x_px``,
     ``vibration_y_px``, ``vibration_deg``, ``vibration_false_alarm``,
-    ``vibration_searched_hz`` ([lo, hi]) and ``vibration_blind_hz`` ([[lo, hi], …]). A
+    ``vibration_searched_hz`` ([lo, hi]), ``vibration_blind_hz`` ([[lo, hi], …]) and
+    ``vibration_span_s`` (the stretch of the clip the spectrum covers, s). A
     peak that passes the false-alarm test but is smaller than :data:`MIN_VIBRATION_PX` is
     not reported as a vibration.
     """
@@ -226,4 +234,5 @@ def rolling_figures(r: RollingShutter) -> dict[str, Any]:
         "vibration_searched_hz": searched,
         "vibration_blind_hz": [] if spec is None else [[round(a, 2), round(b, 2)]
                                                        for a, b in spec.blind_hz],
+        "vibration_span_s": None if spec is None else _num(spec.duration_s, 2),
     }

@@ -254,10 +254,18 @@ def blind_spots(lo_hz: float, hi_hz: float, fps: float,
     return tuple(out)
 
 
+#: Samples × frequencies the periodogram works on at once: SciPy's ``lombscargle`` holds
+#: arrays of that size, so the frequencies are taken in chunks (about 32 MiB a chunk).
+LOMB_CHUNK_ELEMENTS = 4_000_000
+
+
 def _lomb(t: np.ndarray, y: np.ndarray, freqs_hz: np.ndarray) -> np.ndarray:
     # lazy: scipy.signal takes about a second to import; only vibration analysis needs it.
     from scipy.signal import lombscargle
-    return lombscargle(t, y, 2.0 * np.pi * freqs_hz, normalize=False)
+    w = 2.0 * np.pi * np.asarray(freqs_hz, dtype=np.float64)
+    step = max(64, LOMB_CHUNK_ELEMENTS // max(1, len(t)))
+    return np.concatenate([lombscargle(t, y, w[lo:lo + step], normalize=False)
+                           for lo in range(0, len(w), step)]) if len(w) else np.zeros(0)
 
 
 def _ls_fit(t: np.ndarray, y: np.ndarray, f: float) -> np.ndarray:

@@ -195,3 +195,20 @@ def test_tree_irregular_timestamps_give_the_real_rate(real_clip):
         f"tree.avi: summary fps {fps:.3f}, real mean rate {rate:.3f} Hz from the timestamps")
     assert log.summary.get("timestamps_irregular") is True, (
         f"tree.avi: timestamps_irregular is {log.summary.get('timestamps_irregular')!r}")
+
+
+# ------------------------------------------------------------- rolling shutter
+@pytest.mark.parametrize(("name", "readout"), [
+    ("vtest.avi", "auto"), ("box.mp4", "auto"), ("carphone_pristine.mp4", "auto"),
+    ("bikes.mp4", "auto"), ("vtest.avi", 25.0), ("bikes.mp4", 25.0)])
+def test_real_clips_report_no_vibration_they_do_not_have(real_clip, name, readout):
+    # None of these clips shows vibration faster than its frame rate (a still camera, a
+    # hand-held one, a camera in a car, a camera following a cyclist): asked to estimate the
+    # readout, or given a plausible one, the run must not invent a vibration peak.
+    log = stabilize.measure(real_clip(name), readout_ms=readout)
+    s = log.summary
+    assert s.get("vibration_found") is not True, (
+        f"{name} (readout {readout}): vibration {s.get('vibration_hz')} Hz, "
+        f"{s.get('vibration_px')} px reported")
+    if readout == "auto":
+        assert s.get("readout_source") in ("estimated", "not_found"), s.get("readout_source")
