@@ -11,13 +11,13 @@ rectification and stabilisation for cell-phones", IJCV 2012.
 
 Two measurements are offered:
 
-* :func:`fit_band_shifts` from tracked point pairs: a smoothness-penalised, robust
+* :func:`fit_band_shifts` from tracked point pairs: a band_tie-penalised, robust
   (Huber, by iteratively reweighted least squares) fit of one translation per band, so a band
   with few tracks borrows from its neighbours.
 * :func:`band_phase_shifts` directly from two grey frames by phase correlation of each band
   (Kuglin and Hines, "The phase correlation image alignment method", IEEE Conf. Cybernetics
-  and Society, 1975): a check on the tracks, and a way to measure wobble on output video
-  (:func:`within_frame_wobble`).
+  and Society, 1975): a check on the tracks, and a way to measure row spread on output video
+  (:func:`within_frame_spread`).
 
 Pixels are full-resolution, (x, y) with y = row, origin at the centre of the top-left pixel
 (:mod:`stabilize.geometry`). Row ``y`` of frame ``t`` is exposed at
@@ -39,7 +39,7 @@ __all__ = [
     "exposure_times",
     "fit_band_shifts",
     "track_band_shifts",
-    "within_frame_wobble",
+    "within_frame_spread",
     "BAND_REACH",
 ]
 
@@ -55,7 +55,7 @@ BAND_REACH = 4.0
 class BandSettings:
     """Settings of the per-band fit.
 
-    ``n_bands``: bands of equal height over the frame; ``smoothness``: weight of the penalty
+    ``n_bands``: bands of equal height over the frame; ``band_tie``: weight of the penalty
     on differences between neighbouring bands, in units of one full-weight track (a band with
     far fewer tracks than this leans on its neighbours; one with many hardly does);
     ``huber_px``: residual (px) beyond which a track's weight falls as 1/residual (Huber 1964,
@@ -65,7 +65,7 @@ class BandSettings:
     """
 
     n_bands: int = 24
-    smoothness: float = 2.0
+    band_tie: float = 2.0
     huber_px: float = 0.3
     iterations: int = 6
 
@@ -120,7 +120,7 @@ def fit_band_shifts(src: np.ndarray, dst: np.ndarray, height: int, *,
 
     The band shifts ``s_b`` (2,) are the knots of a piecewise-linear function of the row;
     they minimise ``Σ_i w_i |dst_i − src_i − s(y_i)|² + λ Σ_b |s_{b+1} − s_b|²`` with ``y_i``
-    the row of ``dst_i``, ``λ = settings.smoothness`` and Huber weights ``w_i`` refreshed by
+    the row of ``dst_i``, ``λ = settings.band_tie`` and Huber weights ``w_i`` refreshed by
     iteratively reweighted least squares.
 
     Parameters
@@ -151,11 +151,11 @@ def fit_band_shifts(src: np.ndarray, dst: np.ndarray, height: int, *,
     u = dst[use] - src[use]
     i0, a0, a1 = _hat_weights(dst[use, 1], centres)
     i1 = np.minimum(i0 + 1, nb - 1)
-    # Second-difference-free smoothness: λ·DᵀD with D the first difference between bands.
+    # Second-difference-free band_tie: λ·DᵀD with D the first difference between bands.
     pen = np.zeros((nb, nb))
     if nb > 1:
         d = np.diff(np.eye(nb), axis=0)
-        pen = s.smoothness * d.T @ d
+        pen = s.band_tie * d.T @ d
     # A whisper of ridge towards the weighted mean keeps the system solvable with empty ends.
     ridge = 1e-6 * np.eye(nb)
     w = np.ones(len(u))
@@ -216,8 +216,8 @@ def band_phase_shifts(prev: np.ndarray, cur: np.ndarray, *, n_bands: int = 24,
     return BandShifts(rows, shift, resp, exposure_times(frame_time_s, rows, h, readout_s))
 
 
-def within_frame_wobble(shift_px: np.ndarray) -> np.ndarray:
-    """Within-frame wobble: RMS (px) of band shifts about each frame's mean shift.
+def within_frame_spread(shift_px: np.ndarray) -> np.ndarray:
+    """Within-frame row spread: RMS (px) of band shifts about each frame's mean shift.
 
     Parameters
     ----------

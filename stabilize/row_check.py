@@ -1,11 +1,11 @@
-"""Within-frame wobble measured on the source and on the written frames while rendering.
+"""Within-frame row spread measured on the source and on the written frames while rendering.
 
 For each pair of consecutive frames, the shift of every band of rows is measured by phase
-correlation (:func:`stabilize.row_bands.band_phase_shifts`) and the frame's wobble is the RMS
-of the band shifts about their mean (:func:`stabilize.row_bands.within_frame_wobble`): 0 for
+correlation (:func:`stabilize.row_bands.band_phase_shifts`) and the frame's row spread is the RMS
+of the band shifts about their mean (:func:`stabilize.row_bands.within_frame_spread`): 0 for
 a rigid picture, about the within-frame displacement for a rolling-shutter one. Measured
 alike on the source frames and on the frames handed to the encoder, it says how much of the
-wobble the render removed. The frames are measured on their luma, reduced to at most
+row spread the render removed. The frames are measured on their luma, reduced to at most
 :data:`CHECK_WIDTH` px wide, inside a central window (the output's filled borders left out).
 """
 
@@ -15,9 +15,9 @@ import cv2
 import numpy as np
 
 from .io import PlanarImage
-from .row_bands import band_phase_shifts, within_frame_wobble
+from .row_bands import band_phase_shifts, within_frame_spread
 
-__all__ = ["CHECK_BANDS", "CHECK_WIDTH", "WobbleCheck", "wobble_figures"]
+__all__ = ["CHECK_BANDS", "CHECK_WIDTH", "RowShiftCheck", "row_spread_figures"]
 
 #: Width (px) the frames are reduced to for the check, and bands per frame (this project's
 #: choices: phase correlation keeps a few hundredths of a pixel at this size).
@@ -35,9 +35,9 @@ def _luma(image: np.ndarray | PlanarImage) -> np.ndarray:
     return image
 
 
-class WobbleCheck:
+class RowShiftCheck:
     """A render check (called with frame index, source frame, output frame, correction)
-    measuring each frame's within-frame wobble (px, full resolution) on both frames.
+    measuring each frame's within-frame row spread (px, full resolution) on both frames.
 
     ``source`` and ``output`` are (frames,) arrays, NaN where not measured (frame 0, or a
     frame whose predecessor was not seen).
@@ -68,14 +68,14 @@ class WobbleCheck:
             return
         for frame, before, store in ((src, prev[1], self.source), (out, prev[2], self.output)):
             b = band_phase_shifts(before, frame, n_bands=CHECK_BANDS)
-            store[index] = float(within_frame_wobble(b.shift_px[None])[0]) / scale
+            store[index] = float(within_frame_spread(b.shift_px[None])[0]) / scale
 
 
-def wobble_figures(check: WobbleCheck) -> dict[str, float | None]:
-    """Summary keys: ``wobble_px`` (source) and ``wobble_px_out`` (written frames), the mean
-    per-frame wobble in full-resolution px (None where nothing was measured)."""
+def row_spread_figures(check: RowShiftCheck) -> dict[str, float | None]:
+    """Summary keys: ``row_spread_px`` (source) and ``row_spread_px_out`` (written frames), the mean
+    per-frame row spread in full-resolution px (None where nothing was measured)."""
     out: dict[str, float | None] = {}
-    for key, values in (("wobble_px", check.source), ("wobble_px_out", check.output)):
+    for key, values in (("row_spread_px", check.source), ("row_spread_px_out", check.output)):
         v = values[np.isfinite(values)]
         out[key] = round(float(v.mean()), 4) if len(v) else None
     return out

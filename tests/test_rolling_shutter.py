@@ -10,7 +10,7 @@ from stabilize.row_bands import (
     band_phase_shifts,
     exposure_times,
     fit_band_shifts,
-    within_frame_wobble,
+    within_frame_spread,
 )
 from stabilize.synthetic_rolling import (
     VibratingPath,
@@ -99,12 +99,12 @@ def test_band_fit_follows_rows_ignores_outliers_and_fills_empty_bands():
     assert np.isnan(fit_band_shifts(src, dst, h, inliers=keep).shift_px).all()
 
 
-def test_wobble_is_the_spread_about_the_frame_mean():
+def test_row_spread_is_the_spread_about_the_frame_mean():
     s = np.zeros((2, 4, 2))
     s[0, :, 0] = [1.0, 1.0, 1.0, 1.0]
     s[1, :, 0] = [0.0, 2.0, 0.0, 2.0]
     s[1, 2] = np.nan
-    w = within_frame_wobble(s)
+    w = within_frame_spread(s)
     assert w[0] == 0.0
     m = np.mean([0.0, 2.0, 2.0])
     assert w[1] == pytest.approx(np.sqrt(np.mean((np.array([0.0, 2.0, 2.0]) - m) ** 2)))
@@ -204,7 +204,7 @@ def test_global_shutter_frames_report_no_vibration():
     fr, _, t, d = _frames_to_samples(frames, frames.shape[1], READOUT, "tracks")
     v = estimate_vibration(t, d, FPS, frame_index=fr, band_s=READOUT / BANDS)
     assert not v.found
-    assert np.nanmedian(within_frame_wobble(d.reshape(-1, BANDS, 2))) < 0.2
+    assert np.nanmedian(within_frame_spread(d.reshape(-1, BANDS, 2))) < 0.2
 
 
 @pytest.mark.slow

@@ -1,4 +1,4 @@
-"""Removing the wobble inside rolling-shutter frames, on drawn scenes of our own.
+"""Removing the row spread inside rolling-shutter frames, on drawn scenes of our own.
 
 The rendered clips are 640×360 (the within-frame figures at 1280×720 are as good or better:
 ``tests/benchmarks/bench_rolling_correction.py`` prints both).
@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 
 from stabilize.geometry import from_similarity
-from stabilize.row_bands import band_centres, band_phase_shifts, exposure_times, within_frame_wobble
+from stabilize.row_bands import band_centres, band_phase_shifts, exposure_times, within_frame_spread
 from stabilize.row_motion import RowMotionSettings, within_frame_motion
 from stabilize.row_warp import plain_maps, plane_maps, remap, row_shift_at, row_warp_maps
 from stabilize.synthetic_rolling import (
@@ -189,7 +189,7 @@ def _correct(frames, motion, correction=None):
 
 @pytest.mark.slow
 @pytest.mark.parametrize("freq", [47.0, 83.0, 131.0])
-def test_corrected_frames_keep_a_fifth_of_the_wobble_at_most(freq):
+def test_corrected_frames_keep_a_fifth_of_the_row_spread_at_most(freq):
     path, frames = _clip(freq, READOUT)
     h = frames.shape[1]
     fr, rows, d = _band_samples(frames, READOUT)
@@ -197,10 +197,10 @@ def test_corrected_frames_keep_a_fifth_of_the_wobble_at_most(freq):
                             band_s=READOUT / BANDS)
     truth = _true_within(path, m, READOUT, h)
     assert _spread(m.shift_px - truth) < 0.2 * _spread(truth)
-    before = within_frame_wobble(d.reshape(-1, BANDS, 2))
+    before = within_frame_spread(d.reshape(-1, BANDS, 2))
     _, _, d_after = _band_samples(_correct(frames, m), READOUT)
-    after = within_frame_wobble(d_after.reshape(-1, BANDS, 2))
-    assert np.mean(before) > 1.0                                 # there was wobble to remove
+    after = within_frame_spread(d_after.reshape(-1, BANDS, 2))
+    assert np.mean(before) > 1.0                                 # there was row spread to remove
     assert np.mean(after) <= 0.2 * np.mean(before)
 
 

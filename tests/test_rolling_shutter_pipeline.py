@@ -16,7 +16,7 @@ from stabilize.errors import StabilizeError
 from stabilize.io import VideoWriter, iter_frames, probe
 from stabilize.io.motion_log_files import bands_path_for, read_log
 from stabilize.motion import fit_motion
-from stabilize.row_bands import band_phase_shifts, within_frame_wobble
+from stabilize.row_bands import band_phase_shifts, within_frame_spread
 from stabilize.segments import SegmentTask, fit_segment, merge
 from stabilize.synthetic_rolling import VibratingPath, draw_world, render_rolling
 
@@ -36,15 +36,15 @@ def _write_clip(dest: Path, freq: float, readout_s: float, width: int, height: i
     return dest
 
 
-def _wobble_of_video(video: Path) -> float:
-    """Mean within-frame wobble (px) of a video file: band shifts by phase correlation in
+def _row_spread_of_video(video: Path) -> float:
+    """Mean within-frame row spread (px) of a video file: band shifts by phase correlation in
     the central 80 % of every pair of consecutive decoded frames."""
     frames = [f.image.astype(np.float32) for f in iter_frames(video, gray=True)]
     h, w = frames[0].shape
     crop = (slice(h // 10, h - h // 10), slice(w // 10, w - w // 10))
     shifts = [band_phase_shifts(a[crop], b[crop], n_bands=24).shift_px
               for a, b in zip(frames[:-1], frames[1:], strict=True)]
-    return float(np.mean(within_frame_wobble(np.array(shifts))))
+    return float(np.mean(within_frame_spread(np.array(shifts))))
 
 
 @pytest.fixture(scope="module")
@@ -83,7 +83,7 @@ def test_readout_setting_takes_auto_numbers_and_refuses_the_rest(tmp_path):
 def test_readout_zero_adds_nothing(small, tmp_path):
     log = stabilize.measure(small["rolling"])
     assert log.row_bands is None
-    assert not any(k.startswith(("vibration", "readout", "wobble")) for k in log.summary)
+    assert not any(k.startswith(("vibration", "readout", "row spread")) for k in log.summary)
     log.save(tmp_path / "a.motion.csv")
     assert not bands_path_for(tmp_path / "a.motion.csv").exists()
 
@@ -142,10 +142,10 @@ def test_acceptance_at_720p(freq, tmp_path):
     s = log.summary
     assert s["vibration_found"] and abs(s["vibration_hz"] - freq) < 1.0
     assert abs(s["vibration_px"] - 1.5) < 0.2 * 1.5
-    before, after = _wobble_of_video(clip), _wobble_of_video(out)
+    before, after = _row_spread_of_video(clip), _row_spread_of_video(out)
     assert before > 1.0
     assert after <= 0.2 * before
-    assert s["wobble_px_out"] <= 0.2 * s["wobble_px"]
+    assert s["row_spread_px_out"] <= 0.2 * s["row_spread_px"]
     # Frame-level shake is still removed.
     assert s["output_steadier"]
     assert s["jitter_rms_x_px_out"] < 0.5 * s["jitter_rms_x_px"]
@@ -169,11 +169,11 @@ def test_report_of_a_rolling_log_has_the_vibration_plot(rolling_log, tmp_path):
     assert "vibration above the frame rate" in rep.outputs["html"].read_text()
 
 
-def test_render_from_a_rolling_log_removes_the_wobble(small, rolling_log, tmp_path):
+def test_render_from_a_rolling_log_removes_the_row_spread(small, rolling_log, tmp_path):
     _, csv_path = rolling_log
     out = tmp_path / "r.steady.mp4"
     s = stabilize.render(small["rolling"], csv_path, out).summary
     assert s["readout_ms"] == 25.0 and s["vibration_found"]
-    assert s["wobble_px"] > 1.0
-    assert s["wobble_px_out"] <= 0.2 * s["wobble_px"]
-    assert _wobble_of_video(out) <= 0.2 * _wobble_of_video(small["rolling"])
+    assert s["row_spread_px"] > 1.0
+    assert s["row_spread_px_out"] <= 0.2 * s["row_spread_px"]
+    assert _row_spread_of_video(out) <= 0.2 * _row_spread_of_video(small["rolling"])

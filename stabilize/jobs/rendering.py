@@ -37,7 +37,7 @@ from ..motion_track import LOG_COLUMNS
 from ..render import compare_size
 from ..render import render as render_frames
 from ..rolling import analyse_rolling, within_frame
-from ..row_check import WobbleCheck, wobble_figures
+from ..row_check import RowShiftCheck, row_spread_figures
 from ..steady_path import CorrectionPlan, plan_corrections, unchanged_plan
 from .analysis import (
     FrameMotion,
@@ -89,7 +89,7 @@ def _render_video(clip: Path, info: VideoInfo, motion: FrameMotion, plan: Correc
                   excluded: list[list[float]]) -> tuple[tuple[np.ndarray, np.ndarray],
                                                         dict[str, Any]]:
     """Render the steadied video (and the comparison); returns the motion measured on the
-    output and on the source frames while rendering, each (frames, 3), and the wobble
+    output and on the source frames while rendering, each (frames, 3), and the row_spread
     figures of a rolling-shutter render (empty otherwise)."""
     # Frames stay in the encoder's own planar YUV from decoder to encoder: no colour
     # conversion on either side, half the bytes of RGB per frame.
@@ -113,17 +113,17 @@ def _render_video(clip: Path, info: VideoInfo, motion: FrameMotion, plan: Correc
     check = residual.RenderCheck(motion.frames, (info.width, info.height), cuts=motion.cuts,
                                  excluded=excluded, seed=settings.seed)
     # A rolling shutter: each frame's rows are put back where the middle row's instant saw
-    # them, in the same resampling as the correction, and the wobble is measured as it goes.
+    # them, in the same resampling as the correction, and the row spread is measured as it goes.
     rows = None if motion.rolling is None else within_frame(motion.rolling)
     rolling: dict[str, Any] = {}
-    wobble = None
+    row_spread = None
     if rows is not None:
-        wobble = WobbleCheck(motion.frames)
+        row_spread = RowShiftCheck(motion.frames)
         last = len(rows.frames) - 1
 
         def both(i: int, src: object, out: object, c: np.ndarray) -> None:
             check(i, src, out, c)
-            wobble(i, src, out, c)
+            row_spread(i, src, out, c)
 
         rolling = dict(check=both, within_frame=lambda i: (rows.rows_px,
                                                            rows.shift_px[min(i, last)]))
@@ -148,7 +148,8 @@ def _render_video(clip: Path, info: VideoInfo, motion: FrameMotion, plan: Correc
         _log.debug("output check: %.2f ms per frame (%.2f ms of processor time)",
                    1000.0 * check.seconds / check.checked,
                    1000.0 * check.cpu_seconds / check.checked)
-    return (check.output, check.source), ({} if wobble is None else wobble_figures(wobble))
+    spread = {} if row_spread is None else row_spread_figures(row_spread)
+    return (check.output, check.source), spread
 
 
 def _copy_unchanged(clip: Path, dest: Path) -> None:
@@ -194,7 +195,7 @@ def _correct_and_write(clip: Path, info: VideoInfo, motion: FrameMotion, setting
     fps = shake.frame_rate(motion.time_s, info.fps)  # real time for the smoothing window
     w, h = int(motion.source["width"]), int(motion.source["height"])
     checks = None
-    wobble: dict[str, Any] = {}
+    row_spread: dict[str, Any] = {}
     if rendered is not None:
         plan, checks = rendered
     elif motion.frames < 2 or not measurable(info.width, info.height):
@@ -207,9 +208,9 @@ def _correct_and_write(clip: Path, info: VideoInfo, motion: FrameMotion, setting
                                 window_s=settings.window_s, model=settings.model,
                                 smoother=settings.smoother, margin=settings.margin, width=w,
                                 height=h, auto_cap=AUTO_MARGIN_CAP)
-        checks, wobble = _render_video(clip, info, motion, plan, settings, outputs, progress,
+        checks, row_spread = _render_video(clip, info, motion, plan, settings, outputs, progress,
                                        excluded)
-    summary = motion.figures(settings, info.fps, plan=plan, checks=checks) | wobble
+    summary = motion.figures(settings, info.fps, plan=plan, checks=checks) | row_spread
     if checks is not None and checks[0] is not None:
         _warn_if_not_steadier(clip, summary)
     log = assemble_log(motion, settings, summary, plan=plan, checks=checks, outputs=outputs,

@@ -1,10 +1,10 @@
-"""Time the within-frame (rolling-shutter) correction at 1920×1080 and print its wobble figures.
+"""Time the within-frame (rolling-shutter) correction at 1920×1080 and print its row spread figures.
 
 A benchmark, not a test: run it by hand, ``python tests/benchmarks/bench_rolling_correction.py``.
 Timing: the remap maps for one frame (grey / RGB and planar yuv420p), the remap itself, the
 plain ``cv2.warpPerspective`` it replaces, and the within-frame fit per frame. Figures: drawn
 rolling-shutter clips (30 fps, 25 ms readout, 1.5 px vibration on 2–3 Hz shake) at 1280×720
-and 640×360; within-frame wobble (band shifts by phase correlation) before and after.
+and 640×360; within-frame row spread (band shifts by phase correlation) before and after.
 """
 
 from __future__ import annotations
@@ -16,7 +16,7 @@ import cv2
 import numpy as np
 
 from stabilize.geometry import from_similarity
-from stabilize.row_bands import band_centres, band_phase_shifts, exposure_times, within_frame_wobble
+from stabilize.row_bands import band_centres, band_phase_shifts, exposure_times, within_frame_spread
 from stabilize.row_motion import within_frame_motion
 from stabilize.row_warp import plane_maps, remap, row_warp_maps
 from stabilize.synthetic_rolling import (
@@ -87,7 +87,7 @@ def _bands(frames: np.ndarray, readout_s: float):
 
 
 def figures(width: int, height: int, n_frames: int) -> None:
-    print(f"{width}×{height}, {n_frames} frames: mean within-frame wobble (px)")
+    print(f"{width}×{height}, {n_frames} frames: mean within-frame row spread (px)")
     for freq, readout, assumed in ((47.0, READOUT, READOUT), (83.0, READOUT, READOUT),
                                    (131.0, READOUT, READOUT), (83.0, 0.0, READOUT)):
         path = VibratingPath(vibration_hz=freq, seed=int(freq))
@@ -102,8 +102,8 @@ def figures(width: int, height: int, n_frames: int) -> None:
                                                (width, height)), border=cv2.BORDER_REFLECT)
                         for k, f in enumerate(frames)])
         _, _, d2 = _bands(out, assumed)
-        before = float(np.mean(within_frame_wobble(d.reshape(-1, BANDS, 2))))
-        after = float(np.mean(within_frame_wobble(d2.reshape(-1, BANDS, 2))))
+        before = float(np.mean(within_frame_spread(d.reshape(-1, BANDS, 2))))
+        after = float(np.mean(within_frame_spread(d2.reshape(-1, BANDS, 2))))
         label = (f"{freq:5.0f} Hz" if readout > 0 else
                  f"global shutter, {freq:.0f} Hz, analysed with a {assumed * 1e3:.0f} ms readout")
         print(f"  {label}: before {before:.3f}  after {after:.3f}  ratio {after / before:.3f}")
