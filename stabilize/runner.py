@@ -174,17 +174,8 @@ _ONE_THREAD_ENV = {"OPENBLAS_NUM_THREADS": "1", "OMP_NUM_THREADS": "1", "MKL_NUM
 def worker_environment() -> Iterator[None]:
     """Start worker processes with :data:`_ONE_THREAD_ENV` (settings the user made win),
     leaving this process's environment as it was."""
-    saved = {k: os.environ.get(k) for k in _ONE_THREAD_ENV}
-    for k, v in _ONE_THREAD_ENV.items():
-        os.environ.setdefault(k, v)
-    try:
+    with _env(**_ONE_THREAD_ENV):
         yield
-    finally:
-        for k, v in saved.items():
-            if v is None:
-                os.environ.pop(k, None)
-            else:
-                os.environ[k] = v
 
 
 def _pool_map(fn, items, workers, on_progress=None):
