@@ -50,6 +50,7 @@ __all__ = [
     "Region",
     "RenderCheck",
     "pair_motion",
+    "inherited_labels",
     "reduce_luma",
     "usable",
 ]
@@ -94,6 +95,7 @@ class CheckSettings:
     inlier_px: float = 0.5
     max_rounds: int = 300
     min_inliers: int = 8
+    suspect_frames: int = 15
 
 
 @dataclass(frozen=True)
@@ -245,7 +247,9 @@ class PairMotion:
     (identity when not ``ok``); ``readout`` (3,): dx, dy (pixels) and degrees about the frame
     centre, nan when not ``ok``; ``tracked``: corners followed and kept; ``inliers``: of
     them, inliers of the fit; ``points`` (k, 2) float32: the kept corners where they lie in
-    frame t, pixels of the reduced copy (to follow on to the next frame).
+    frame t, pixels of the reduced copy (to follow on to the next frame); ``suspect`` (k,)
+    int: for each kept corner, the pairs it must still spend among the inliers before it is
+    trusted again (0: trusted).
     """
 
     matrix: np.ndarray
@@ -254,6 +258,7 @@ class PairMotion:
     tracked: int
     inliers: int
     points: np.ndarray
+    suspect: np.ndarray
 
 
 def pair_motion(
@@ -266,8 +271,21 @@ def pair_motion(
     region: Region,
     settings: CheckSettings = CheckSettings(),
     seed: int | Sequence[int] = 0,
+    suspect: np.ndarray | None = None,
 ) -> PairMotion:
     """Measure the motion from ``prev`` to ``cur``, two reduced luma frames.
+
+    Corners keep a label over time, so a large object moving on its own is not taken for
+    the scene when, for a pair or two, it holds as many corners as the scene does: a corner
+    that left the fit's consensus is *suspect* for ``settings.suspect_frames`` pairs spent
+    among the inliers again. The fit is made on the trusted corners when there are at least
+    ``min_inliers`` of them, even when the suspect ones are more (an object close to the
+    lens can hold most of the corners of a flat scene); all corners are then scored against
+    it, and the labels updated. After a reset (the first frame, a cut) every corner starts
+    trusted, so the first pair's consensus decides which group is the scene. (The labels
+    are this project's own rule; the principle, that a group which moved on its own stays
+    suspect until it has moved with the rest for a while, is common practice with no
+    source.)
 
     Parameters
     ----------
@@ -279,6 +297,7 @@ def pair_motion(
         landing elsewhere, or within ``settings.edge_px`` of its edge, are dropped.
     settings : :class:`CheckSettings`.
     seed : the estimator's seed (the project seeds per frame with ``[seed, frame]``).
+    suspect : (k,) int labels of ``points`` (see :class:`PairMotion`); None: all trusted.
 
     Returns
     -------
@@ -288,7 +307,7 @@ def pair_motion(
     s = settings
     w, h = full_size
     empty = PairMotion(np.eye(3), np.full(3, np.nan), False, 0, 0,
-                       np.empty((0, 2), np.float32))
+                       np.empty((0, 2), np.float32), np.zeros(0, np.int32))
     if len(points) < s.min_inliers:
         return empty
     src = np.ascontiguousarray(points, np.float32).reshape(-1, 1, 2)
@@ -310,16 +329,25 @@ def pair_motion(
     edge_full = s.edge_px / min(scale)
     keep &= usable(dst_f, region, w, h, edge_full)
     n = int(np.count_nonzero(keep))
+    labels = (np.zeros(len(keep), np.int32) if suspect is None
+              else np.asarray(suspect, np.int32).reshape(-1))[keep]
     if n < s.min_inliers:
-        return PairMotion(np.eye(3), np.full(3, np.nan), False, n, 0, dst[keep])
-    fit = SIMILARITY.estimate(src_f[keep], dst_f[keep], inlier_px=s.inlier_px / min(scale),
-                              max_rounds=s.max_rounds, seed=seed,
-                              frame_size=(float(w), float(h)))
+        return PairMotion(np.eye(3), np.full(3, np.nan), False, n, 0, dst[keep], labels)
+    a, b = src_f[keep], dst_f[keep]
+    trusted = labels == 0
+    n_trusted = int(np.count_nonzero(trusted))
+    use = trusted if n_trusted >= s.min_inliers else np.ones(n, bool)
+    inlier_px = s.inlier_px / min(scale)
+    fit = SIMILARITY.estimate(a[use], b[use], inlier_px=inlier_px, max_rounds=s.max_rounds,
+                              seed=seed, frame_size=(float(w), float(h)))
     ok = bool(fit.ok) and fit.n_inliers >= s.min_inliers
-    readout = (similarity_readout(fit.matrix, frame_centre(w, h))[:3] if ok
-               else np.full(3, np.nan))
-    return PairMotion(fit.matrix if ok else np.eye(3), readout, ok, n, fit.n_inliers,
-                      dst[keep])
+    if not ok:
+        return PairMotion(np.eye(3), np.full(3, np.nan), False, n, fit.n_inliers, dst[keep],
+                          labels)
+    inl = SIMILARITY.residuals(fit.matrix, a, b) < inlier_px
+    labels = np.where(inl, np.maximum(labels - 1, 0), s.suspect_frames).astype(np.int32)
+    readout = similarity_readout(fit.matrix, frame_centre(w, h))[:3]
+    return PairMotion(fit.matrix, readout, True, n, fit.n_inliers, dst[keep], labels)
 
 
 class MotionCheck:
@@ -346,6 +374,7 @@ class MotionCheck:
         """Forget the previous frame (at a scene cut: motion across it is not real)."""
         self._prev = None
         self._points = np.empty((0, 2), np.float32)
+        self._suspect = np.zeros(0, np.int32)
         self._age = 0
 
     def step(self, index: int, luma: np.ndarray, region: Region | None = None) -> np.ndarray:
@@ -376,12 +405,16 @@ class MotionCheck:
         out = np.full(3, np.nan)
         if self._prev is not None:
             pair = pair_motion(self._prev, small, self._points, scale=scale, full_size=(w, h),
-                               region=region, settings=s, seed=[self.seed, int(index)])
+                               region=region, settings=s, seed=[self.seed, int(index)],
+                               suspect=self._suspect)
             out = pair.readout
-            self._points = pair.points
+            self._points, self._suspect = pair.points, pair.suspect
         self._age += 1
         if len(self._points) < s.min_corners or self._age >= s.redetect_frames:
-            self._points = self._detect(small, scale, region)
+            fresh = self._detect(small, scale, region)
+            self._suspect = inherited_labels(fresh, self._points, self._suspect,
+                                             s.min_distance_px)
+            self._points = fresh
             self._age = 0
         self._prev = small
         return out
@@ -396,6 +429,31 @@ class MotionCheck:
         if pts is None:
             return np.empty((0, 2), np.float32)
         return pts.reshape(-1, 2).astype(np.float32)
+
+
+def inherited_labels(fresh: np.ndarray, old: np.ndarray, labels: np.ndarray,
+                     radius_px: float) -> np.ndarray:
+    """Labels for corners found afresh: each takes the label of the nearest corner followed
+    so far when that lies within ``radius_px`` (the same feature found again), else 0.
+
+    Parameters
+    ----------
+    fresh : (k, 2) new corners, pixels of the reduced copy.
+    old : (m, 2) corners followed so far, same pixels; labels : (m,) their labels.
+    radius_px : largest distance at which a new corner is the same as an old one, pixels.
+
+    Returns
+    -------
+    (k,) int32 labels of ``fresh``.
+    """
+    out = np.zeros(len(fresh), np.int32)
+    if len(fresh) == 0 or len(old) == 0 or not np.any(labels):
+        return out
+    d2 = np.sum((fresh[:, None, :] - old[None, :, :]) ** 2, axis=2)   # (k, m), m ≤ a few hundred
+    near = np.argmin(d2, axis=1)
+    close = d2[np.arange(len(fresh)), near] <= radius_px ** 2
+    out[close] = labels[near[close]]
+    return out
 
 
 def _mask(shape: tuple[int, int], scale: tuple[float, float], region: Region,
