@@ -16,6 +16,7 @@ from stabilize.residual import (
     MotionCheck,
     Region,
     RenderCheck,
+    inherited_labels,
     pair_motion,
     reduce_luma,
 )
@@ -133,6 +134,51 @@ def test_fill_and_excluded_regions_are_never_measured():
     np.testing.assert_allclose(pair.readout[:2], [2.4, -1.3], atol=0.03)
     back = (pair.points + 0.5) / scale[0] - 0.5
     assert (back[:, 0] >= 199.5 + edge - 1e-6).all()
+
+
+def test_suspect_corners_do_not_decide_the_fit_even_when_they_are_the_most():
+    """A large patch moving on its own holds most of the corners: unlabelled, the consensus
+    sides with the patch; with its corners labelled suspect (they left an earlier fit), the
+    fit is the scene's, and the labels then mark the patch's corners and clear the scene's
+    by one pair."""
+    w, h = 480, 270
+    c = frame_centre(w, h)
+    scene = _waves(3)
+    patch = _waves(4, count=40)          # finer texture: more corners on the patch
+    a = _render(scene, np.eye(3), w, h)
+    b = _render(scene, _similarity(0.8, -0.4, 0.0, c), w, h)
+    x0, x1 = 120, 420                    # the patch: over half of the frame
+    a[:, x0:x1] = _render(patch, np.eye(3), w, h)[:, x0:x1]
+    b[:, x0:x1] = _render(patch, _similarity(3.0, 2.0, 0.0, c), w, h)[:, x0:x1]
+    region = Region.whole(w, h)
+    small_a, scale = reduce_luma(a, 480)
+    small_b, _ = reduce_luma(b, 480)
+    # Points followed: 60 on the patch, 20 on the scene (left and right of it).
+    gy = np.linspace(30, h - 30, 10)
+    patch_pts = np.array([(x, y) for x in np.linspace(x0 + 30, x1 - 30, 6) for y in gy])
+    scene_pts = np.array([(x, y) for x in (40.0, 80.0, 440.0) for y in gy])[:20]
+    pts = np.vstack([patch_pts, scene_pts]).astype(np.float32)
+    on_patch = np.arange(len(pts)) < len(patch_pts)
+    blind = pair_motion(small_a, small_b, pts, scale=scale, full_size=(w, h), region=region)
+    np.testing.assert_allclose(blind.readout[:2], [3.0, 2.0], atol=0.05)
+    labels = np.where(on_patch, 15, 0)
+    labelled = pair_motion(small_a, small_b, pts, scale=scale, full_size=(w, h),
+                           region=region, suspect=labels)
+    assert labelled.ok
+    np.testing.assert_allclose(labelled.readout[:2], [0.8, -0.4], atol=0.05)
+    # Scene corners stay trusted; the patch's are suspect for the full span again.
+    assert len(labelled.points) >= len(pts) - 3    # a few may fail the backward check
+    kept_on_patch = (labelled.points[:, 0] > x0) & (labelled.points[:, 0] < x1)
+    assert (labelled.suspect[kept_on_patch] == 15).all()
+    assert (labelled.suspect[~kept_on_patch] == 0).all()
+
+
+def test_corners_found_again_inherit_the_nearest_label():
+    old = np.array([[10.0, 10.0], [50.0, 50.0], [90.0, 20.0]], np.float32)
+    labels = np.array([0, 7, 15], np.int32)
+    fresh = np.array([[50.5, 49.0], [200.0, 200.0], [88.0, 21.0], [11.0, 10.0]], np.float32)
+    np.testing.assert_array_equal(inherited_labels(fresh, old, labels, 3.0), [7, 0, 15, 0])
+    assert inherited_labels(fresh, old[:0], labels[:0], 3.0).tolist() == [0, 0, 0, 0]
 
 
 def test_render_check_carries_the_region_through_the_correction_and_restarts_at_cuts():
