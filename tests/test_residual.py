@@ -166,6 +166,12 @@ def test_suspect_corners_do_not_decide_the_fit_even_when_they_are_the_most():
                            region=region, suspect=labels)
     assert labelled.ok
     np.testing.assert_allclose(labelled.readout[:2], [0.8, -0.4], atol=0.05)
+    # An expected scene motion (what the render passes from the source stream) picks the
+    # group the same way, and the motion is still measured on the corners themselves.
+    expected = _similarity(0.5, -0.2, 0.0, c)             # 0.3 px off the true motion
+    guided = pair_motion(small_a, small_b, pts, scale=scale, full_size=(w, h),
+                         region=region, scene=expected)
+    np.testing.assert_allclose(guided.readout[:2], [0.8, -0.4], atol=0.05)
     # Scene corners stay trusted; the patch's are suspect for the full span again.
     assert len(labelled.points) >= len(pts) - 3    # a few may fail the backward check
     kept_on_patch = (labelled.points[:, 0] > x0) & (labelled.points[:, 0] < x1)
