@@ -280,10 +280,6 @@ def measure_clip(clip: Path, settings: Settings, progress: ProgressFactory | Non
     parallel = None
     if workers is not None or scheduler is not None or keyframe_every is not None:
         parallel = dict(workers=workers, scheduler=scheduler, keyframe_every=keyframe_every)
-        if scheduler is not None or workers != 1:
-            # This process only waits on the workers: the summary's import is done by then
-            # (1.2–1.5 s less after the analysis, measured; a single pass gained nothing).
-            shake.prefetch()
     motion = measure_motion(clip, info, settings, progress, parallel)
     return assemble_log(motion, settings, motion.figures(settings, info.fps),
                         source_extra=source_extra, extra=extra)

@@ -2,7 +2,8 @@
 output is.
 
 Shake is the part of the camera path above ``shake_above_hz``: the path minus its zero-phase
-low-pass (4th-order Butterworth run forward and backward, ``scipy.signal.sosfiltfilt``). Every
+low-pass (4th-order Butterworth run forward and backward, as ``scipy.signal.sosfiltfilt``
+does it). Every
 function takes the frame rate explicitly (``fps``, frames per second).
 
 Time is real time: the rate the figures use is the mean rate of the frames' own timestamps
@@ -16,8 +17,9 @@ frames sample, nothing faster.
 
 Modules, each importing only those above it:
 
-- :mod:`~stabilize.shake.timebase`: the real frame rate, even resampling, the shake low-pass;
-  the lazy import of ``scipy.signal`` and its :func:`prefetch`.
+- :mod:`~stabilize.shake.filters`: the Butterworth low-pass run both ways and the Welch
+  spectrum in numpy (``scipy.signal`` takes 0.8 s to import).
+- :mod:`~stabilize.shake.timebase`: the real frame rate, even resampling, the shake low-pass.
 - :mod:`~stabilize.shake.spectra`: Welch spectra, band powers, the dominant-peak test.
 - :mod:`~stabilize.shake.stability`: stability scores, measurement noise, cropping and
   distortion.
@@ -74,7 +76,6 @@ from .timebase import (
     IRREGULAR_SPREAD,
     RARE_GAPS,
     frame_rate,
-    prefetch,
     resample_even,
     shake_component,
     shake_filter_gain,
@@ -109,7 +110,6 @@ __all__ = [
     "path_figures",
     "peak_threshold",
     "peak_to_peak",
-    "prefetch",
     "readout_path",
     "resample_even",
     "shake_component",

@@ -11,7 +11,8 @@ import math
 
 import numpy as np
 
-from .timebase import scipy_signal, shake_filter_gain
+from .filters import hann, welch_density
+from .timebase import shake_filter_gain
 
 __all__ = [
     "AXES",
@@ -98,8 +99,9 @@ def shake_spectrum(shake: np.ndarray, fps: float) -> tuple[np.ndarray, np.ndarra
     """One-sided Welch power spectral density of a shake series.
 
     Welch, "The use of fast Fourier transform for the estimation of power spectra", IEEE
-    Trans. Audio and Electroacoustics, 1967; ``scipy.signal.welch`` with a Hann window and
-    half-overlapping segments of :func:`welch_segment` frames.
+    Trans. Audio and Electroacoustics, 1967; as ``scipy.signal.welch`` with a Hann window and
+    half-overlapping segments of :func:`welch_segment` frames
+    (:func:`stabilize.shake.filters.welch_density`).
 
     Parameters
     ----------
@@ -115,8 +117,7 @@ def shake_spectrum(shake: np.ndarray, fps: float) -> tuple[np.ndarray, np.ndarra
     n = len(shake)
     if n < 16 or not np.any(shake):
         return None
-    f, pxx = scipy_signal().welch(shake, fs=fps, nperseg=welch_segment(n, fps), detrend="constant")
-    return f, pxx
+    return welch_density(shake, fps, welch_segment(n, fps))
 
 
 def welch_dof(n: int, fps: float) -> float:
@@ -147,7 +148,7 @@ def welch_dof(n: int, fps: float) -> float:
     seg = welch_segment(n, fps)
     step = seg - seg // 2
     k = 1 + (n - seg) // step
-    w = scipy_signal().get_window("hann", seg)
+    w = hann(seg)
     energy = float(np.sum(w * w))
     corr = 0.0
     for m in range(1, k):

@@ -7,52 +7,27 @@ resampled onto an even grid at that rate before it is filtered or its spectrum t
 (:func:`resample_even`).
 
 Shake is the part of a series above ``shake_above_hz``: the series minus its zero-phase
-low-pass (4th-order Butterworth run forward and backward, ``scipy.signal.sosfiltfilt``;
-:func:`shake_component`). Only the shake figures use this low-pass, so it lives here.
+low-pass (4th-order Butterworth run forward and backward, as ``scipy.signal.sosfiltfilt``
+does it, in numpy: :mod:`stabilize.shake.filters`; :func:`shake_component`). Only the shake
+figures use this low-pass, so it lives here.
 """
 
 from __future__ import annotations
 
-import threading
-
 import numpy as np
+
+from .filters import zero_phase_lowpass
 
 __all__ = [
     "GAP_FACTOR",
     "IRREGULAR_SPREAD",
     "RARE_GAPS",
     "frame_rate",
-    "prefetch",
     "resample_even",
     "shake_component",
     "shake_filter_gain",
     "timestamps_irregular",
 ]
-
-
-def scipy_signal():
-    """scipy.signal, imported on first use: it costs tens of MiB, which a steady run should
-    not hold while it renders.
-
-    Returns
-    -------
-    module : ``scipy.signal``.
-    """
-    # lazy: scipy.signal costs tens of MiB and over a second to import.
-    from scipy import signal
-
-    return signal
-
-
-def prefetch() -> None:
-    """Start importing scipy.signal on a background thread.
-
-    The import takes one to one and a half seconds of CPU here (measured), all of it after
-    the analysis when done on first use. A job whose analysis runs in worker processes
-    starts it while it waits on them instead; the first :func:`scipy_signal` call then waits for
-    the import to finish.
-    """
-    threading.Thread(target=scipy_signal, name="prefetch-scipy-signal", daemon=True).start()
 
 
 #: An interval more than this many times the median interval is a gap (frames missing), not
@@ -216,9 +191,9 @@ def shake_component(x: np.ndarray, fps: float, above_hz: float) -> np.ndarray | 
         return None
     t = np.arange(n, dtype=np.float64)
     residual = x - np.polyval(np.polyfit(t, x, 1), t)
-    sos = scipy_signal().butter(4, above_hz, btype="low", fs=fps, output="sos")
-    pad = min(n - 1, max(3 * (2 * len(sos) + 1), int(round(3.0 * fps / above_hz))))
-    return residual - scipy_signal().sosfiltfilt(sos, residual, padlen=pad)
+    # 3 × (2 sections + 1) is scipy.signal.sosfiltfilt's own least padding for this filter.
+    pad = min(n - 1, max(3 * (2 * 2 + 1), int(round(3.0 * fps / above_hz))))
+    return residual - zero_phase_lowpass(residual, above_hz, fps, order=4, padlen=pad)
 
 
 def shake_filter_gain(f_hz: np.ndarray, above_hz: float) -> np.ndarray:

@@ -1,0 +1,51 @@
+"""The shake figures' own low-pass and Welch spectrum (stabilize.shake.filters) against
+scipy.signal, the general-purpose reference they replace at import time."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy import signal
+
+from stabilize.shake.filters import butterworth_lowpass, hann, welch_density, zero_phase_lowpass
+
+
+@pytest.mark.parametrize("fps, above_hz", [(30.0, 1.0), (25.0, 0.5), (240.0, 0.3),
+                                           (59.94, 7.0), (10.0, 4.0)])
+def test_butterworth_matches_scipy(fps, above_hz):
+    z, p, k = butterworth_lowpass(4, above_hz, fps)
+    zr, pr, kr = signal.butter(4, above_hz, btype="low", fs=fps, output="zpk")
+    np.testing.assert_allclose(np.sort_complex(p), np.sort_complex(pr), rtol=1e-12, atol=1e-14)
+    np.testing.assert_allclose(z, zr)
+    assert k == pytest.approx(kr, rel=1e-12)
+
+
+@pytest.mark.parametrize("fps, above_hz, n", [(30.0, 1.0, 240), (25.0, 0.5, 1000),
+                                              (240.0, 0.3, 5000), (59.94, 7.0, 100),
+                                              (10.0, 4.0, 40), (30.0, 1.0, 12)])
+def test_zero_phase_lowpass_matches_sosfiltfilt(fps, above_hz, n):
+    rng = np.random.default_rng(int(fps * 100 + n))
+    # A drifting path with shake, a step and noise: every part of the series the filter meets.
+    t = np.arange(n) / fps
+    x = (5 * np.sin(2 * np.pi * 0.2 * t) + 2 * np.sin(2 * np.pi * 3.1 * t)
+         + np.cumsum(rng.normal(0, 0.3, n)) + 4.0 * (t > t[n // 2]))
+    sos = signal.butter(4, above_hz, btype="low", fs=fps, output="sos")
+    for pad in sorted({0, 3, min(n - 1, int(round(3.0 * fps / above_hz))), n - 1}):
+        want = signal.sosfiltfilt(sos, x, padlen=pad)
+        got = zero_phase_lowpass(x, above_hz, fps, padlen=pad)
+        np.testing.assert_allclose(got, want, rtol=0, atol=1e-10 * np.abs(x).max())
+
+
+def test_zero_phase_lowpass_refuses_a_pad_as_long_as_the_series():
+    with pytest.raises(ValueError):
+        zero_phase_lowpass(np.zeros(10), 1.0, 30.0, padlen=10)
+
+
+@pytest.mark.parametrize("n, seg", [(240, 64), (1000, 128), (99, 33), (16, 16), (3600, 256)])
+def test_welch_matches_scipy(n, seg):
+    x = np.random.default_rng(n).normal(0, 2.0, n) + np.linspace(0, 5, n)
+    f, p = welch_density(x, 29.97, seg)
+    fr, pr = signal.welch(x, fs=29.97, nperseg=seg, detrend="constant")
+    np.testing.assert_allclose(f, fr, rtol=1e-14)
+    np.testing.assert_allclose(p, pr, rtol=1e-10, atol=1e-14 * pr.max())
+    np.testing.assert_allclose(hann(seg), signal.get_window("hann", seg), atol=1e-15)
