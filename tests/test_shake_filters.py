@@ -49,3 +49,26 @@ def test_welch_matches_scipy(n, seg):
     np.testing.assert_allclose(f, fr, rtol=1e-14)
     np.testing.assert_allclose(p, pr, rtol=1e-10, atol=1e-14 * pr.max())
     np.testing.assert_allclose(hann(seg), signal.get_window("hann", seg), atol=1e-15)
+
+
+@pytest.mark.parametrize("dof, m, rank", [(13.4, 20, 10), (55.0, 24, 12), (4.0, 8, 4)])
+def test_peak_threshold_solves_its_equation_as_a_reference_root_finder_does(dof, m, rank):
+    # The equation of peak_threshold, solved by scipy.optimize.brentq as the reference.
+    import math
+
+    from scipy import optimize, special
+
+    from stabilize.shake.spectra import _gauss_legendre, peak_threshold
+
+    half = 0.5 * dof
+    nodes, weights = _gauss_legendre(200)
+    v = 0.5 * (nodes + 1.0)
+    y = special.gammaincinv(half, v) / half
+    log_beta = math.lgamma(rank) + math.lgamma(m - rank + 1) - math.lgamma(m + 1)
+    w = 0.5 * weights * np.exp((rank - 1) * np.log(v) + (m - rank) * np.log1p(-v) - log_beta)
+
+    def tail(log_k):
+        return float(np.sum(w * special.gammaincc(half, half * math.exp(log_k) * y))) - 0.001
+
+    want = math.exp(optimize.brentq(tail, 0.0, 20.0, xtol=1e-12))
+    assert peak_threshold(dof, m, rank, 0.001) == pytest.approx(want, rel=1e-8)
