@@ -8,6 +8,7 @@ References
 
 from __future__ import annotations
 
+import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 from typing import NamedTuple
@@ -27,7 +28,7 @@ from .degeneracy import (
 )
 from .local_opt import Candidate, evaluate, local_optimise
 from .models import MODELS, Model, Normalisation, normalisation
-from .sampling import canonical_order, draw_samples
+from .sampling import canonical_order, draw_samples, sort_key
 from .scoring import inlier_mask, msac_costs
 from .termination import FIRST_GUESS_OUTLIERS, next_batch_size, rounds_needed
 
@@ -246,14 +247,20 @@ def _prepare(spec: Model, src: NDArray[np.float64], dst: NDArray[np.float64]) ->
     pts = np.empty((4, n_all))
     pts[:2] = src.T
     pts[2:] = dst.T
+    key = sort_key(pts)
     keep = None
-    if not np.isfinite(pts @ np.ones(n_all)).all():
-        keep = np.flatnonzero(np.isfinite(pts).all(axis=0))
-        pts = np.take(pts, keep, axis=1)
+    # The key is a positive combination of the coordinates: finite for finite rows unless it
+    # overflows, which only sends the check down the exact path.
+    if not math.isfinite(float(key.sum())):
+        fin = np.isfinite(pts).all(axis=0)
+        if not fin.all():
+            keep = np.flatnonzero(fin)
+            pts = np.take(pts, keep, axis=1)
+            key = np.take(key, keep)
     n = pts.shape[1]
     if n < spec.sample_size:
         return _Prepared(keep, n, None, pts, None, None, "", None)
-    order = canonical_order(pts)
+    order = canonical_order(pts, key)
     pts = np.take(pts, order, axis=1)
     norm, z, gram = normalisation(pts[:2], pts[2:])
     problem = point_set_problem(gram, n, spec.spread_rank)
