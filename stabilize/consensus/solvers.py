@@ -18,6 +18,7 @@ References
 
 from __future__ import annotations
 
+import cv2
 import numpy as np
 from numpy.typing import NDArray
 
@@ -307,6 +308,7 @@ def homography_polish(z: Array, h: Array, mask: NDArray[np.bool_], iters: int = 
     mono[4] = y
     mono[5] = 1.0
     wts = np.empty((7, m))
+    tab = np.zeros(43)  # the moment table, with a trailing 0 for the empty entries
     par = (h / h[2, 2]).ravel()[:8].copy()
 
     def resid(p: Array) -> tuple[float, Array, Array, Array, Array, Array]:
@@ -328,17 +330,21 @@ def homography_polish(z: Array, h: Array, mask: NDArray[np.bool_], iters: int = 
         wts[4] = rx * iw
         wts[5] = ry * iw
         wts[6] = -(px * rx + py * ry) * iw
-        tab = np.append((mono @ wts.T).ravel(), 0.0)
+        tab[:42] = (mono @ wts.T).ravel()
         jtj = np.take(tab, _LM_IDX) * _LM_SGN
-        grad = np.take(tab, _LM_GIDX)
-        damp = np.diag(np.diag(jtj))
+        neg_grad = -np.take(tab, _LM_GIDX)[:, None]
+        diag = jtj.diagonal().copy()
         converged = False
         while True:
-            try:
-                step = np.linalg.solve(jtj + mu * damp, -grad)
-            except np.linalg.LinAlgError:
+            # J^T J + mu diag(J^T J) is symmetric positive definite unless J^T J is
+            # singular, which Cholesky reports (OpenCV's solver: a tenth of numpy's cost
+            # on an 8x8 system).
+            damped = jtj.copy()
+            damped.flat[::9] += mu * diag
+            ok, step = cv2.solve(damped, neg_grad, flags=cv2.DECOMP_CHOLESKY)
+            if not ok or not np.isfinite(step).all():
                 return _unflat(par)
-            cand = par + step
+            cand = par + step.ravel()
             res = resid(cand)
             if res[0] < sse:
                 converged = sse - res[0] <= 1e-10 * sse
