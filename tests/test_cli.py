@@ -69,12 +69,12 @@ def test_render_from_log_and_config_precedence(clip, tmp_path):
     assert run("measure", str(clip), "--log", str(log), "--quiet").returncode == 0
     cfg = tmp_path / "my.toml"
     cfg.write_text('margin = 0.2\nwindow_s = 2.0\n')
-    out = tmp_path / "out" / "r.mp4"
-    out.parent.mkdir()
-    proc = run("render", str(clip), "--log", str(log), "-o", str(out), "--config", str(cfg),
+    out = tmp_path / "out" / "r.mp4"  # a missing folder is created
+    proc = run("render", str(clip), "--log", str(log), "-o", str(out), "--settings", str(cfg),
                "--margin", "0.05", "--quiet")
     assert proc.returncode == 0, proc.stderr
-    doc = json.loads((out.parent / "pan.motion.json").read_text())
+    # The new log is named after the video, so a second render into the folder works too.
+    doc = json.loads((out.parent / "r.motion.json").read_text())
     assert doc["settings"]["margin"] == 0.05 and doc["settings"]["window_s"] == 2.0
     assert doc["summary"]["margin"] == 0.05
 
@@ -88,9 +88,10 @@ def test_bad_input_gives_one_line_and_status_2(clip, tmp_path):
     _one_line_error(run("steady", str(clip), "--model", "spline"), "--model")
     _one_line_error(run("steady", str(clip), "--margin", "0.7"), "--margin", "0.45")
     _one_line_error(run("steady", str(clip), "--inlier-px", "-2"), "--inlier-px")
-    _one_line_error(run("steady", str(clip), "--config", "no-such-preset"), "preset")
-    _one_line_error(run("steady", str(clip), "-o", str(tmp_path / "no" / "dir" / "x.mp4")),
-                    "does not exist")
+    _one_line_error(run("steady", str(clip), "--settings", "no-such-name"), "--settings",
+                    "no settings file named")
+    _one_line_error(run("steady", str(clip), "-o", str(text / "dir" / "x.mp4")),
+                    "x.mp4", "folder")
     _one_line_error(run("render", str(clip), "--log", str(tmp_path / "missing.csv")),
                     "missing.csv")
     assert not list(tmp_path.glob("*.partial*"))
@@ -104,7 +105,7 @@ def test_input_is_never_touched(clip):
 
 
 def test_demo_runs_and_says_where_the_outputs_are(tmp_path):
-    proc = run("demo", "--out", str(tmp_path / "demo"), "--quiet")
+    proc = run("demo", "--out-dir", str(tmp_path / "demo"), "--quiet")
     assert proc.returncode == 0, proc.stderr
     outs = [Path(line.split(": ", 1)[1]) for line in proc.stdout.splitlines()
             if line.startswith(("video:", "motion log:"))]

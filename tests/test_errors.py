@@ -290,7 +290,7 @@ OPTIONS = [
         ("--smoother", "spline", ("gaussian", "kalman", "l1", "lockoff")),
         ("--preset", "fastest", ("ultrafast", "veryslow")),
         ("--codec", "vp9", ("h264", "h265", "ffv1")),
-        ("--config", "no-such-preset", ("drone-inspection", ".toml")),
+        ("--settings", "no-such-name", ("drone-inspection", ".toml")),
         ("--crf", "99", ("0 to 51",)),
         ("--crf", "high", ("0 to 51",)),
         ("--max-rounds", "0", ("at least 1",)),
