@@ -191,14 +191,14 @@ def _files(name: str, p: argparse.ArgumentParser) -> None:
                           "'flights/**/*.mp4' (quote it)")
     folder_help = {
         "report": "folder for the report (default: beside the input; created when missing)",
-        "batch": "folder for every output; the input tree is mirrored inside it (created "
-                 "when missing)",
+        "batch": "folder for every output (required); the input tree is mirrored inside it "
+                 "(created when missing)",
         "demo": "folder for the demo outputs (default: ./stabilize-demo; earlier demo "
                 "outputs there are replaced)",
     }
     if name in folder_help:
-        g_out.add_argument("--out-dir", metavar="DIR", required=name == "batch",
-                           help=folder_help[name])
+        # Required for batch, checked in run(): the old spelling --out may give it too.
+        g_out.add_argument("--out-dir", metavar="DIR", help=folder_help[name])
         _hidden(g_out, "--out", dest="out_dir")
     if name == "batch":
         g_out.add_argument("--measure-only", action="store_true",
@@ -413,6 +413,8 @@ def run(args: argparse.Namespace) -> int:
         _print_summary(report.summary)
         _report_files(report)
     elif args.command == "batch":
+        if not args.out_dir:
+            raise StabilizeError("option --out-dir is required: the folder for every output")
         workers = _whole_number("--workers", args.workers)
         _check_scheduler_form(args.scheduler)
         clip_bar = None
