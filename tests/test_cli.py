@@ -314,3 +314,10 @@ def test_notes_go_to_stderr_and_stdout_lists_the_files(clip, tmp_path, capsys):
     assert any(ln.startswith("report: ") for ln in out.splitlines())
     assert main(["report", str(log), "--out-dir", str(tmp_path / "rep2"), "--quiet"]) == 0
     assert "note:" not in capsys.readouterr().err
+
+
+def test_demo_checks_its_options_before_making_its_folder(tmp_path):
+    from stabilize.cli import main
+
+    assert main(["demo", "--out-dir", str(tmp_path / "d"), "--margin", "0.9", "--quiet"]) == 2
+    assert not (tmp_path / "d").exists()
