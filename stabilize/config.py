@@ -1,10 +1,11 @@
-"""Settings: one frozen dataclass for every option, TOML presets and files, validation.
+"""Settings: one frozen dataclass for every option, TOML settings files, validation.
 
 Ground floor. Messages name a setting as ``setting 'window_s'``; the command line words that
 as its flag.
 
-Precedence is fixed: command-line flags win over a config file (or preset), which wins over
-the built-in defaults. Every value is validated here, so the stages can trust what they get.
+Precedence is fixed: command-line flags win over a settings file (a TOML path, or the name of
+one in ``configs/``), which wins over the built-in defaults. Every value is validated here,
+so the stages can trust what they get.
 """
 
 from __future__ import annotations
@@ -266,12 +267,14 @@ def coerce(values: dict[str, Any], where: str) -> dict[str, Any]:
 
 
 def preset_dirs() -> list[Path]:
-    """Folders searched for preset names: the source tree's configs/, then the installed copy."""
+    """Folders searched for named settings files: the source tree's configs/, then the
+    installed copy. (The encoder's ``preset`` is another thing: its speed.)"""
     here = Path(__file__).resolve().parent
     return [here.parent / "configs", Path(sys.prefix) / "share" / "stabilize" / "configs"]
 
 
 def preset_names() -> list[str]:
+    """The names of the settings files in configs/ (``drone-inspection`` …)."""
     names: set[str] = set()
     for d in preset_dirs():
         if d.is_dir():
@@ -280,19 +283,19 @@ def preset_names() -> list[str]:
 
 
 def resolve_config(name_or_path: str) -> Path:
-    """A config file path, or a preset name looked up in the preset folders."""
+    """A settings file's path, or the name of one looked up in configs/."""
     path = Path(name_or_path)
     if path.suffix == ".toml" or path.exists():
         if not path.is_file():
-            raise StabilizeError(f"{path}: config file not found")
+            raise StabilizeError(f"{path}: settings file not found")
         return path
     for d in preset_dirs():
         candidate = d / f"{name_or_path}.toml"
         if candidate.is_file():
             return candidate
     raise StabilizeError(
-        f"{setting_label('config')}: no preset named {name_or_path!r}; "
-        f"presets: {', '.join(preset_names()) or 'none found'}, or give a .toml file"
+        f"{setting_label('config')}: no settings file named {name_or_path!r} in configs/; "
+        f"named ones: {', '.join(preset_names()) or 'none found'}, or give a .toml file"
     )
 
 
@@ -302,7 +305,7 @@ def read_config(name_or_path: str) -> dict[str, Any]:
     try:
         raw = tomllib.loads(path.read_text(encoding="utf-8"))
     except (OSError, UnicodeDecodeError) as exc:
-        raise StabilizeError(f"{path}: cannot read config ({exc})") from None
+        raise StabilizeError(f"{path}: cannot read the settings file ({exc})") from None
     except tomllib.TOMLDecodeError as exc:
         raise StabilizeError(f"{path}: not valid TOML ({exc})") from None
     flat = {k.replace("-", "_"): v for k, v in raw.items()}
@@ -317,7 +320,8 @@ def read_config(name_or_path: str) -> dict[str, Any]:
 def build_settings(
     config: str | None = None, overrides: dict[str, Any] | None = None
 ) -> Settings:
-    """Defaults, then the config file or preset, then explicit overrides (flags or keywords)."""
+    """Defaults, then the settings file (a path or a name in configs/), then explicit
+    overrides (flags or keywords)."""
     values: dict[str, Any] = {}
     if config:
         values.update(read_config(config))
@@ -354,7 +358,7 @@ def logged_settings(saved: dict[str, Any], config: str | None = None,
     Parameters
     ----------
     saved : the log's ``settings`` mapping.
-    config : TOML file or preset name given now, or None.
+    config : settings file (TOML path or a name in configs/) given now, or None.
     options : options given now (None values are ignored).
     """
     options = options or {}

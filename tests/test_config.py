@@ -64,7 +64,7 @@ def test_unknown_key_and_bad_toml(tmp_path):
     broken.write_text("model = \n")
     with pytest.raises(StabilizeError, match="not valid TOML"):
         read_config(str(broken))
-    with pytest.raises(StabilizeError, match="no preset named"):
+    with pytest.raises(StabilizeError, match="no settings file named"):
         read_config("no-such-preset")
 
 

@@ -270,7 +270,11 @@ def test_output_names_come_from_one_place(tmp_path):
     assert plan.compare == tmp_path / "flight 2.steady.compare.mp4"
     moved = plan_outputs(clip, video_out=tmp_path / "o" / "x.mp4", log_out=None,
                          with_video=True, compare=False)
-    assert moved.log_csv == tmp_path / "o" / "flight 2.motion.csv" and moved.compare is None
+    # The log is named after the video given (so renders into one folder never collide).
+    assert moved.log_csv == tmp_path / "o" / "x.motion.csv" and moved.compare is None
+    steady_named = plan_outputs(clip, video_out=tmp_path / "o" / "y.steady.mp4", log_out=None,
+                                with_video=True, compare=False)
+    assert steady_named.log_csv == tmp_path / "o" / "y.motion.csv"
     with pytest.raises(StabilizeError, match=r"\*\.csv"):
         plan_outputs(clip, video_out=None, log_out=tmp_path / "x.txt", with_video=False,
                      compare=False)

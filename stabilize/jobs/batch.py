@@ -13,6 +13,11 @@ A clip is done when its motion log JSON records the source's size and modificati
 same settings, and every output is there. A clip's outputs (video, log, report) are published
 together, so a log that records the source never stands without the rest. Such a clip is
 skipped; ``force`` redoes it. One clip's failure never stops the others.
+
+A clip measured again with ``measure_only`` where an earlier run steadied it loses that
+steadied video (and its side-by-side comparison) once the new log and report are written: the
+new log no longer describes it, and the batch owns its output folder. A warning names each
+file removed.
 """
 
 from __future__ import annotations
@@ -40,7 +45,15 @@ from ..report_page import dominant_text, fmt_sig, html_page, html_table, relativ
 from ..runner import default_workers, parallel_map
 from ..version import __version__
 from .analysis import measure_clip
-from .outputs import check_job_outputs, check_outputs, clip_files, plan_outputs, report_files
+from .outputs import (
+    check_job_outputs,
+    check_outputs,
+    clip_files,
+    compare_video,
+    plan_outputs,
+    report_files,
+    steady_video,
+)
 from .rendering import steady_clip
 from .report import find_videos, report_for_log
 
@@ -304,7 +317,20 @@ def _do_clip(job: ClipJob, clip: Path, settings: Settings) -> dict:
                       files, settings.force)
         report_for_log(motion, settings, files, name=job.name, log_csv=outs["log"],
                        clip=videos[0], steadied=videos[1])
+    if job.measure_only:
+        _remove_stale_video(Path(job.folder), job.name)
     return motion.summary
+
+
+def _remove_stale_video(folder: Path, name: str) -> None:
+    """Remove the steadied video (and its comparison) an earlier steady run left beside a log
+    just replaced by a measurement: the new log does not describe it."""
+    video = steady_video(folder, name)
+    for p in (video, compare_video(video)):
+        if p.is_file():
+            p.unlink()
+            _log.warning("%s: removed: an earlier steadied video, which the new motion log "
+                         "(measured only) no longer describes", p)
 
 
 def process_clip(job: ClipJob) -> ClipResult:

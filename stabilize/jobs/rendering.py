@@ -247,8 +247,9 @@ def steady(clip: str | os.PathLike, out: str | os.PathLike | None = None, *,
            progress: ProgressFactory | None = None, **options: Any) -> MotionLog:
     """The main job: measure, smooth, render the steadied video and write the motion log.
 
-    ``out`` defaults to ``NAME.steady.mp4`` beside the input; the log goes to
-    ``NAME.motion.csv`` (and ``.json``) in the video's folder unless ``log_path`` is given.
+    ``out`` defaults to ``NAME.steady.mp4`` beside the input; the log goes beside the video,
+    named after it (``take2.mp4`` → ``take2.motion.csv`` and ``.json``; a ``.steady`` ending
+    is dropped), unless ``log_path`` is given. Missing output folders are created.
     Returns the saved log; ``log.extra["outputs"]`` lists the files written.
     """
     clip = Path(clip)
@@ -265,7 +266,8 @@ def render(clip: str | os.PathLike, log_file: str | os.PathLike | MotionLog,
            progress: ProgressFactory | None = None, **options: Any) -> MotionLog:
     """Render a clip from an existing motion log: the path is smoothed again with the given
     settings (smoother, window, margin, fill, encoding). A log made on a smaller proxy of the
-    clip is scaled to the clip's resolution. Writes the video and a new log beside it."""
+    clip is scaled to the clip's resolution. Writes the video and a new log beside it, named
+    after the video (``NAME.render.motion.csv`` when that name is the log read)."""
     clip = Path(clip)
     saved = log_file if isinstance(log_file, MotionLog) else read_log(log_file)
     settings = logged_settings(saved.settings, config, options)
