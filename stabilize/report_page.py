@@ -227,13 +227,14 @@ def relative_href(path: str) -> str:
     return "./" + "/".join(quote(part, safe="") for part in p.parts)
 
 
-def html_page(*, title: str, header: str, body: str, footer: str) -> str:
+def html_page(*, title: str, header: str, body: str, footer: str, extra_css: str = "") -> str:
     """One self-contained page in the shared look.
 
     Parameters
     ----------
     title : the page title (plain text). header, body, footer : HTML of the header (under the
         heading ``title``), the sections and the footer.
+    extra_css : the page's own CSS, after :data:`PAGE_CSS`.
     """
     return f"""<!DOCTYPE html>
 <html lang="en">
@@ -244,7 +245,7 @@ def html_page(*, title: str, header: str, body: str, footer: str) -> str:
  content="default-src 'none'; img-src data:; style-src 'unsafe-inline'; base-uri 'none';
  form-action 'none'">
 <title>{escape(title)}</title>
-<style>{PAGE_CSS}</style>
+<style>{PAGE_CSS}{extra_css}</style>
 </head>
 <body>
 <main>
