@@ -18,7 +18,7 @@ from . import shake
 
 __all__ = [
     "CAUTIONS", "MISSING", "NARROW_SCREEN", "PAGE_CSS", "RUN_SWITCHES", "dominant_text",
-    "fmt_sig", "html_page", "html_table", "relative_href", "render_page", "setting_text",
+    "fmt_sig", "html_page", "hz_text", "html_table", "relative_href", "render_page", "setting_text",
 ]
 
 #: The one mark of every page for a figure that is not known (not measured, not applicable).
@@ -145,8 +145,14 @@ def _with(v: Any, unit: str, digits: int = 3) -> str:
     return text if text == MISSING else f"{text}\u00a0{unit}"
 
 
-def _hz(v: Any, resolution_hz: Any) -> str:
-    """A frequency with as many decimals as the spectrum resolves (half a bin)."""
+def hz_text(v: Any, resolution_hz: Any) -> str:
+    """A frequency with as many decimals as the spectrum resolves (half a bin), with its
+    unit: 5.77 Hz at a resolution of 0.2 Hz reads ``5.8 Hz``; :data:`MISSING` when unknown.
+
+    Parameters
+    ----------
+    v : the frequency, Hz. resolution_hz : the spectrum's bin spacing, Hz (None: 0.1 Hz).
+    """
     if not isinstance(v, int | float) or not math.isfinite(v):
         return MISSING
     res = resolution_hz if isinstance(resolution_hz, int | float) and resolution_hz > 0 else 0.1
@@ -167,7 +173,7 @@ def dominant_text(s: dict[str, Any], axis: str, fmt: Callable[[Any], str],
 
 
 def _dominant(s: dict[str, Any], axis: str) -> str:
-    return dominant_text(s, axis, lambda v: _hz(v, s.get("spectrum_resolution_hz")))
+    return dominant_text(s, axis, lambda v: hz_text(v, s.get("spectrum_resolution_hz")))
 
 
 def _share(count: Any, total: Any) -> str:

@@ -16,7 +16,7 @@ import numpy as np
 from . import shake
 from .errors import StabilizeError
 from .io import iter_frames, probe
-from .report_page import fmt_sig
+from .report_page import fmt_sig, hz_text
 
 __all__ = [
     "INK", "LAYOUTS", "MIN_FONT_PT", "MUTED", "NARROW", "RAW", "SMOOTH", "STATUS_COLOURS",
@@ -236,7 +236,9 @@ def plot_spectrum(*, time_s: np.ndarray, raw: np.ndarray, cuts: np.ndarray, fps:
                 placed.append((xfrac, level))
                 colour = SMOOTH if k == 0 else INK
                 ax.plot([hz], [dens], marker="v", color=colour, markersize=6)
-                ax.annotate(f"{hz:.2f} Hz", (hz, dens), xytext=(4, 4 + 12 * level),
+                # Written as the page writes it: to the spectrum's resolution.
+                label = hz_text(hz, resolution_hz).replace("\u00a0", " ")
+                ax.annotate(label, (hz, dens), xytext=(4, 4 + 12 * level),
                             textcoords="offset points", fontsize=MIN_FONT_PT, color=colour,
                             fontweight="bold" if k == 0 else "normal",
                             arrowprops=None if level == 0 else dict(

@@ -30,6 +30,8 @@ window.addEventListener("load", () => {
       variant: i.currentSrc === i.src ? "img" : "source"})),
     links: [...document.links].map((a) => Object.assign(box(a), {text: a.textContent})),
     min_font_px: Math.min(...texts.map((e) => parseFloat(getComputedStyle(e).fontSize))),
+    sections: Object.fromEntries([...document.querySelectorAll("section[id]")].map((e) =>
+        [e.id, e.getBoundingClientRect().top + window.scrollY])),
   };
   parent.postMessage(JSON.stringify(out), "*");
 });
@@ -80,7 +82,8 @@ def screenshot(exe: str, page: Path, out: Path, width: int, height: int,
 def measure(exe: str, page: Path, width: int, work: Path) -> dict:
     """The page's layout at ``width`` CSS px: viewport and scroll width, each image's
     rendered box, natural width and which variant (``img`` or a ``source``) the browser
-    chose, each link's box, and the smallest computed font size of any text, px.
+    chose, each link's box, the smallest computed font size of any text, px, and the top of
+    each ``section`` with an id (px from the page's top).
 
     A copy of the page is measured, in a frame ``width`` px wide: its content security policy
     (which forbids scripts) is dropped and a script that sends the figures to the frame's

@@ -55,7 +55,9 @@ def _digits(quoted: float) -> float:
 def test_the_readme_quotes_the_figures_of_the_exact_motion():
     quoted, truth = _quoted(), _truth_figures()
     for key, value in quoted.items():
-        assert abs(value - truth[key]) <= _digits(value) + 1e-9, (key, value, truth[key])
+        # Frequencies to the spectrum's 0.2 Hz resolution (one decimal), the rest to 3 digits.
+        tol = 0.05 if key.startswith("hz_") else _digits(value)
+        assert abs(value - truth[key]) <= tol + 1e-9, (key, value, truth[key])
 
 
 @pytest.mark.slow

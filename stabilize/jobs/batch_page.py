@@ -21,6 +21,7 @@ from ..report_page import (
     dominant_text,
     fmt_sig,
     html_page,
+    hz_text,
     relative_href,
 )
 from ..version import __version__
@@ -121,8 +122,8 @@ def _cells(r: ClipRow, out_dir: Path) -> list[str]:
     links = f"<span>{links}</span>" if links else ""
     files = (f'<span class="why">{escape(r.error)}</span>' if r.status == "failed"
              else (links or MISSING))
-    def hz(v: Any) -> str:
-        return _with(v, "Hz")
+    def hz(v: Any) -> str:  # as the report writes it: to the spectrum's resolution
+        return hz_text(v, s.get("spectrum_resolution_hz"))
 
     return [escape(r.clip), escape(r.status), _badge(row["trust"]),
             _count(s.get("frames")),
