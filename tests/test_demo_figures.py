@@ -72,3 +72,20 @@ def test_the_demo_report_measures_what_the_readme_quotes(tmp_path):
     html = report.outputs["html"].read_text()
     for axis in ("x", "y"):
         assert f"{quoted[axis]:.3g}\u00a0px" in html
+    assert html.count("<source media=") == 4  # every plot, the frames too, for phones
+
+
+@pytest.mark.slow
+def test_the_demo_report_reads_on_a_phone(tmp_path):
+    from stabilize.jobs import run_demo
+    from stabilize.report_plots import MIN_FONT_PT, NARROW
+
+    from .browser import PHONE, chromium, measure
+
+    exe = chromium()
+    _, report = run_demo(tmp_path / "demo", quiet=True)
+    m = measure(exe, report.outputs["html"], PHONE, tmp_path)
+    assert m["scroll_width"] <= PHONE and len(m["images"]) == 4
+    for img in m["images"]:
+        assert img["variant"] == "source" and img["right"] <= PHONE, img
+        assert MIN_FONT_PT / 72.0 * img["width"] / NARROW.width_in >= 9.0, img
