@@ -285,17 +285,23 @@ def plot_vibration(*, freqs_hz: np.ndarray, amplitude_px: np.ndarray, usable: np
     if len(f):
         ax.plot(f, a, color=RAW, linewidth=0.9)
         ax.set_xlim(0, float(f[-1]))
+    title = f"vibration from row bands (readout {readout_ms:.1f} ms)"
     if peak_hz is not None and peak_px is not None:
         ax.plot([peak_hz], [peak_px], marker="v", color=SMOOTH, markersize=7)
-        fa = "" if false_alarm is None else f", false alarm {fmt_sig(false_alarm, 2)}"
-        ax.annotate(_wrapped(f"{peak_hz:.1f} Hz, {peak_px:.2f} px{fa}", lay),
-                    (peak_hz, peak_px), xytext=(5, 4), textcoords="offset points",
+        if false_alarm is not None:
+            title += f"; the peak's false-alarm probability {fmt_sig(false_alarm, 2)}"
+        # Room above the highest point for the peak's label, inside the panel.
+        top = float(np.nanmax(np.r_[a[np.isfinite(a)], peak_px]))
+        ax.set_ylim(0, 1.3 * top if top > 0 else 1.0)
+        right = peak_hz > 0.6 * float(f[-1] if len(f) else 1.0)  # label left of the peak
+        ax.annotate(f"{peak_hz:.1f} Hz, {peak_px:.2f} px", (peak_hz, peak_px),
+                    xytext=(-6 if right else 6, 6), textcoords="offset points",
                     fontsize=MIN_FONT_PT, color=SMOOTH, fontweight="bold",
-                    ha="right" if peak_hz > 0.6 * float(f[-1] if len(f) else 1.0) else "left")
+                    ha="right" if right else "left")
     else:
         ax.text(0.98, 0.92, "no vibration stands out of the noise", transform=ax.transAxes,
                 ha="right", va="top", fontsize=MIN_FONT_PT, color=MUTED)
-    _title(ax, f"vibration from row bands (readout {readout_ms:.1f} ms)", lay)
+    _title(ax, title, lay)
     _style(ax, "amplitude (px)")
     ax.set_xlabel(_wrapped(f"frequency (Hz); grey: blind within a few Hz of multiples of "
                            f"{fps:g} Hz", lay), color=INK, fontsize=MIN_FONT_PT)
