@@ -39,7 +39,7 @@ LAYERS: dict[str, int] = {
     "synthetic_rolling": 2, "track": 2,
     "track_groups": 2, "vibration": 2,
     # 3: jobs
-    "jobs": 3, "segments": 3,
+    "jobs": 3, "jobs.batch_page": 3, "segments": 3,
     # 4: the command line
     "cli": 4, "__main__": 4,
 }
