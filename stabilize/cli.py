@@ -21,6 +21,7 @@ from .config import (
     FILLS,
     MODELS,
     OPTION_NAMES,
+    PIN_OVERLAYS,
     SMOOTHERS,
     resolve_settings,
 )
@@ -55,6 +56,10 @@ def _add_common(p: argparse.ArgumentParser) -> None:
     g.add_argument("--margin", metavar="auto|FRACTION",
                    help="fraction cut from each side to hide moved-in borders")
     g.add_argument("--fill", choices=FILLS, help="fill for uncovered pixels")
+    g.add_argument("--pin-overlays", choices=PIN_OVERLAYS,
+                   help="keep still regions unwarped where they are in the frame: found = "
+                   "the burnt-in overlays the analysis found (default), all = those and the "
+                   "--ignore regions, off = warp everything with the picture")
     g.add_argument("--analysis-width", metavar="PX",
                    help="width frames are reduced to for tracking (0 = full resolution)")
     g.add_argument("--analysis", choices=ANALYSIS_LEVELS,
