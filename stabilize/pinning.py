@@ -105,10 +105,11 @@ def pin_regions(excluded: Mapping[str, Any] | None, setting: str, width: int,
 
 
 def pinned_list(regions: Mapping[str, Iterable[Sequence[int]]]) -> list[tuple[int, int, int, int]]:
-    """Every rectangle of :func:`pin_regions`'s result, once, as (x, y, w, h) tuples."""
+    """Every rectangle of :func:`pin_regions`'s result (or of a log's ``pinned_overlays``;
+    other keys are passed over), once, as (x, y, w, h) tuples."""
     out: list[tuple[int, int, int, int]] = []
-    for rects in regions.values():
-        for r in rects:
+    for key in PIN_SOURCES["all"]:
+        for r in regions.get(key, ()):
             t = tuple(int(v) for v in r)
             if t not in out:
                 out.append(t)  # type: ignore[arg-type]
