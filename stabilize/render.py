@@ -4,7 +4,10 @@ Each output frame is ``cv2.warpPerspective(source, C_t)`` with the correction of
 :mod:`stabilize.framing`; pixels the source does not cover are filled as ``--fill`` says.
 The render pass works in the encoder's planar YUV (:class:`stabilize.io.frames.PlanarImage`):
 each plane is warped on its own, the chroma planes by the correction carried into their
-coarser pixel grid (:func:`plane_matrix`), straight into the output frame's buffer.
+coarser pixel grid (:func:`plane_matrix`), straight into the output frame's buffer. Pinned
+overlays are then copied in from the source frame (:mod:`stabilize.pinning`). The comparison
+video (:func:`side_by_side`) shows the input and the output as written, labelled, laid out
+without bars (:func:`compare_layout`).
 """
 
 from __future__ import annotations
