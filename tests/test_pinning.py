@@ -5,6 +5,8 @@ from __future__ import annotations
 
 import json
 import logging
+import subprocess
+import sys
 from pathlib import Path
 
 import cv2
@@ -188,6 +190,23 @@ def test_render_from_a_log_pins_the_ignore_regions_when_asked(telemetry_clip, tm
     assert max(np.abs(g[m] - s[m]).mean() for g, s in zip(got, src, strict=True)) < 3.0
     assert np.median([np.abs(b[m] - s[m]).mean() for b, s in zip(before, src,
                                                                   strict=True)]) > 5.0
+
+
+def test_command_line_option(telemetry_clip, tmp_path):
+    def run(*args):
+        return subprocess.run([sys.executable, "-m", "stabilize", "steady", str(telemetry_clip),
+                               "--quiet", "--preset", "veryfast", *args], capture_output=True,
+                              text=True, timeout=300)
+
+    out = tmp_path / "cli.mp4"
+    proc = run("-o", str(out), "--log", str(tmp_path / "cli.csv"), "--pin-overlays", "off")
+    assert proc.returncode == 0, proc.stderr
+    doc = json.loads((tmp_path / "cli.json").read_text())
+    assert doc["settings"]["pin_overlays"] == "off"
+    assert doc["pinned_overlays"]["setting"] == "off"
+    bad = run("-o", str(tmp_path / "x.mp4"), "--pin-overlays", "yes")
+    assert bad.returncode == 2 and "--pin-overlays" in bad.stderr
+    assert len(bad.stderr.strip().splitlines()) == 1
 
 
 @pytest.fixture(scope="module")
