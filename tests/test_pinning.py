@@ -16,6 +16,7 @@ import pytest
 import stabilize
 from stabilize.errors import StabilizeError
 from stabilize.io import PlanarImage, VideoWriter, iter_frames
+from stabilize.io.process import ffmpeg_exe
 from stabilize.jobs import rendering
 from stabilize.overlays import OverlaySettings
 from stabilize.pinning import PIN_ROOM_CELLS, pin, pin_regions, pinned_list
@@ -190,6 +191,28 @@ def test_render_from_a_log_pins_the_ignore_regions_when_asked(telemetry_clip, tm
     assert max(np.abs(g[m] - s[m]).mean() for g, s in zip(got, src, strict=True)) < 3.0
     assert np.median([np.abs(b[m] - s[m]).mean() for b, s in zip(before, src,
                                                                   strict=True)]) > 5.0
+
+
+def test_render_at_full_size_from_a_proxy_log_pins_the_overlays_scaled(telemetry_clip,
+                                                                       tmp_path):
+    """A log made on a half-size proxy: its overlays are scaled to the clip rendered."""
+    proxy = tmp_path / "proxy.mp4"
+    subprocess.run([ffmpeg_exe(), "-nostdin", "-loglevel", "error", "-i", str(telemetry_clip),
+                    "-vf", "scale=160:90", "-c:v", "libx264", "-crf", "10", "-preset",
+                    "veryfast", str(proxy)], check=True, capture_output=True)
+    small = stabilize.measure(proxy)
+    small.save(tmp_path / "proxy.motion.csv")
+    found = small.extra["excluded"]["static_overlay"]
+    assert found
+    (tmp_path / "full").mkdir()
+    log = stabilize.render(telemetry_clip, tmp_path / "proxy.motion.csv",
+                           tmp_path / "full" / "full.mp4", preset="veryfast", crf=6)
+    kept = log.extra["pinned_overlays"]["static_overlay"]
+    want = pin_regions({"static_overlay": [[2 * v for v in r] for r in found]}, "found", W, H)
+    assert kept == want["static_overlay"]
+    m = _mask(pinned_list(log.extra["pinned_overlays"]))
+    src, got = _frames(telemetry_clip), _frames(tmp_path / "full" / "full.mp4")
+    assert max(np.abs(g[m] - s[m]).mean() for g, s in zip(got, src, strict=True)) < 3.0
 
 
 def test_command_line_option(telemetry_clip, tmp_path):
