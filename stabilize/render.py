@@ -29,9 +29,9 @@ from .prefetch import WriteBehind, read_ahead
 from .row_warp import warp_rows
 
 __all__ = [
-    "BORDERS", "COMPARE_LABELS", "COMPARE_SCALE", "COMPARE_SCREEN", "QUEUE_FRAMES",
-    "CompareLayout", "compare_layout", "compare_size", "plane_matrix", "render", "side_by_side",
-    "warp", "warp_planes",
+    "BORDERS", "COMPARE_LABELS", "COMPARE_MAX_SIDE", "COMPARE_SCALE", "COMPARE_SCREEN",
+    "QUEUE_FRAMES", "CompareLayout", "compare_layout", "compare_size", "plane_matrix", "render",
+    "side_by_side", "warp", "warp_planes",
 ]
 
 # Frames waiting between the decoding, warping and encoding threads. Every extra one is a
@@ -102,6 +102,9 @@ def warp_planes(image: PlanarImage, correction: np.ndarray, fill: str = "black",
 COMPARE_SCALE = 1.0 / math.sqrt(2.0)
 #: Display aspect (width / height) the comparison's arrangement is chosen for: a 16:9 screen.
 COMPARE_SCREEN = 16.0 / 9.0
+#: Largest side of the comparison video, pixels: the width many hardware decoders stop at
+#: (recalled from memory); larger sources get smaller halves.
+COMPARE_MAX_SIDE = 4096
 #: The words drawn on the two halves of the comparison, before and after.
 COMPARE_LABELS = ("input", "steadied")
 
@@ -128,11 +131,12 @@ class CompareLayout:
 def compare_layout(width: int, height: int) -> CompareLayout:
     """The comparison's layout for a ``width`` × ``height`` source (pixels).
 
-    Each half is the source scaled by :data:`COMPARE_SCALE`, rounded to even sizes. The two
-    are stacked when the source is wider than :data:`COMPARE_SCREEN` and otherwise put side
-    by side: the arrangement whose canvas fills more of such a screen (for a source of aspect
-    r on a screen of aspect S, side by side fills min(2r/S, S/2r) of it and stacked
-    min(r/2S, 2S/r); the two tie at r = S, where side by side is kept, read left to right).
+    Each half is the source scaled by :data:`COMPARE_SCALE` (less when the canvas would
+    exceed :data:`COMPARE_MAX_SIDE`), rounded down to even sizes. The two are stacked when
+    the source is wider than :data:`COMPARE_SCREEN` and otherwise put side by side: the
+    arrangement whose canvas fills more of such a screen (for a source of aspect r on a
+    screen of aspect S, side by side fills min(2r/S, S/2r) of it and stacked min(r/2S, 2S/r);
+    the two tie at r = S, where side by side is kept, read left to right).
 
     Parameters
     ----------
@@ -142,9 +146,12 @@ def compare_layout(width: int, height: int) -> CompareLayout:
     -------
     CompareLayout : canvas and half sizes, arrangement.
     """
-    hw = max(2, 2 * int(round(width * COMPARE_SCALE / 2)))
-    hh = max(2, 2 * int(round(height * COMPARE_SCALE / 2)))
     stacked = width > COMPARE_SCREEN * height
+    cols, rows = (1, 2) if stacked else (2, 1)
+    scale = min(COMPARE_SCALE, COMPARE_MAX_SIDE / (cols * width),
+                COMPARE_MAX_SIDE / (rows * height))
+    hw = max(2, 2 * int(scale * width / 2))
+    hh = max(2, 2 * int(scale * height / 2))
     size = (hw, 2 * hh) if stacked else (2 * hw, hh)
     return CompareLayout(size, (hw, hh), stacked)
 

@@ -17,6 +17,7 @@ from stabilize.io.encode import output_pix_fmt
 from stabilize.io.frames import YUV_BLACK
 from stabilize.io.process import ffmpeg_exe
 from stabilize.render import (
+    COMPARE_MAX_SIDE,
     compare_layout,
     compare_size,
     plane_matrix,
@@ -219,7 +220,8 @@ def test_side_by_side_planar_matches_rgb_layout(size):
 
 @pytest.mark.parametrize("size,stacked", [((1280, 720), False), ((640, 480), False),
                                           ((720, 1280), False), ((1912, 800), True),
-                                          ((98, 66), False), ((3, 2), False)])
+                                          ((98, 66), False), ((3, 2), False),
+                                          ((3840, 2160), False), ((4096, 1716), True)])
 def test_compare_layout_fills_its_canvas_and_a_screen(size, stacked):
     """The halves tile the canvas exactly (no bars), at even sizes and the source's aspect;
     wider-than-16:9 sources are stacked; on a 16:9 screen the two halves cover half of it
@@ -232,6 +234,7 @@ def test_compare_layout_fills_its_canvas_and_a_screen(size, stacked):
     assert (cw, ch) == ((hw, 2 * hh) if stacked else (2 * hw, hh)) == compare_size(w, h)
     assert {lay.origin(0), lay.origin(1)} == ({(0, 0), (0, hh)} if stacked
                                               else {(0, 0), (hw, 0)})
+    assert max(cw, ch) <= COMPARE_MAX_SIDE
     if min(w, h) >= 64:
         assert abs(hw * h / w - hh) <= 2.0    # the source's aspect, to the even rounding
         screen = 16 / 9
