@@ -133,10 +133,11 @@ def compare_layout(width: int, height: int) -> CompareLayout:
 
     Each half is the source scaled by :data:`COMPARE_SCALE` (less when the canvas would
     exceed :data:`COMPARE_MAX_SIDE`), rounded down to even sizes. The two are stacked when
-    the source is wider than :data:`COMPARE_SCREEN` and otherwise put side by side: the
-    arrangement whose canvas fills more of such a screen (for a source of aspect r on a
-    screen of aspect S, side by side fills min(2r/S, S/2r) of it and stacked min(r/2S, 2S/r);
-    the two tie at r = S, where side by side is kept, read left to right).
+    the source is at least as wide as :data:`COMPARE_SCREEN` and otherwise put side by side:
+    the arrangement whose canvas fills more of such a screen (for a source of aspect r on a
+    screen of aspect S, side by side fills min(2r/S, S/2r) of it and stacked min(r/2S, 2S/r)).
+    The two tie at r = S, the commonest source; there stacking is chosen, as on a phone held
+    upright (a screen narrower than the canvas either way) it shows each half twice as wide.
 
     Parameters
     ----------
@@ -146,7 +147,7 @@ def compare_layout(width: int, height: int) -> CompareLayout:
     -------
     CompareLayout : canvas and half sizes, arrangement.
     """
-    stacked = width > COMPARE_SCREEN * height
+    stacked = width >= COMPARE_SCREEN * height * (1.0 - 1e-9)
     cols, rows = (1, 2) if stacked else (2, 1)
     scale = min(COMPARE_SCALE, COMPARE_MAX_SIDE / (cols * width),
                 COMPARE_MAX_SIDE / (rows * height))

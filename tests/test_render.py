@@ -218,14 +218,16 @@ def test_side_by_side_planar_matches_rgb_layout(size):
     assert again is yuv
 
 
-@pytest.mark.parametrize("size,stacked", [((1280, 720), False), ((640, 480), False),
+@pytest.mark.parametrize("size,stacked", [((1280, 720), True), ((640, 480), False),
                                           ((720, 1280), False), ((1912, 800), True),
                                           ((98, 66), False), ((3, 2), False),
-                                          ((3840, 2160), False), ((4096, 1716), True)])
+                                          ((3840, 2160), True), ((4096, 1716), True),
+                                          ((1278, 720), False)])
 def test_compare_layout_fills_its_canvas_and_a_screen(size, stacked):
     """The halves tile the canvas exactly (no bars), at even sizes and the source's aspect;
-    wider-than-16:9 sources are stacked; on a 16:9 screen the two halves cover half of it
-    (the old letterboxed half-size layout covered a quarter)."""
+    sources of 16:9 and wider are stacked; on a 16:9 screen the two halves cover half of it,
+    the most two pictures of that shape can, each with twice the pixels of the old
+    letterboxed half-size layout."""
     w, h = size
     lay = compare_layout(w, h)
     (cw, ch), (hw, hh) = lay.size, lay.half
@@ -243,10 +245,11 @@ def test_compare_layout_fills_its_canvas_and_a_screen(size, stacked):
         assert cw * ch <= 1.02 * w * h    # no dearer to encode than the steadied video
 
 
-def test_side_by_side_labels_each_half_and_leaves_the_rest_alone():
-    """Planar and RGB: each half carries its own label (white text on a black box) in its
-    top-left corner; away from the labels the canvas is the frames, resized."""
-    w, h = 320, 180
+@pytest.mark.parametrize("w,h", [(320, 180), (240, 180)])
+def test_side_by_side_labels_each_half_and_leaves_the_rest_alone(w, h):
+    """Planar and RGB, stacked and side by side: each half carries its own label (white text
+    on a black box) in its top-left corner; away from the labels the canvas is the frames,
+    resized."""
     grey_a = np.full((h, w, 3), 100, np.uint8)
     grey_b = np.full((h, w, 3), 150, np.uint8)
     lay = compare_layout(w, h)
@@ -255,7 +258,8 @@ def test_side_by_side_labels_each_half_and_leaves_the_rest_alone():
     yuv = side_by_side(_i420(grey_a), _i420(grey_b))
     for canvas, black, white, planes in ((rgb[..., 1], 0, 255, None), (yuv.y, 16, 235, yuv)):
         corners = []
-        for i, level in enumerate((canvas[hh - 1, 1], canvas[hh - 1, hw + 1])):
+        levels = [canvas[y + hh - 1, x + 1] for x, y in (lay.origin(0), lay.origin(1))]
+        for i, level in enumerate(levels):
             x, y = lay.origin(i)
             corner = canvas[y:y + hh // 4, x:x + hw // 2].astype(int)
             assert (corner == black).mean() > 0.05        # the box
@@ -263,7 +267,7 @@ def test_side_by_side_labels_each_half_and_leaves_the_rest_alone():
             rest = canvas[y + hh // 3:y + hh, x:x + hw]
             assert (rest == level).all()
             corners.append(corner)
-        assert canvas[hh - 1, 1] != canvas[hh - 1, hw + 1]
+        assert levels[0] != levels[1]
         assert not np.array_equal(corners[0], corners[1])   # "input" against "steadied"
         if planes is not None:
             x, y = lay.origin(1)
