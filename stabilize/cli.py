@@ -21,6 +21,7 @@ from .config import (
     FILLS,
     MODELS,
     OPTION_NAMES,
+    PIN_OVERLAYS,
     SMOOTHERS,
     resolve_settings,
 )
@@ -93,6 +94,10 @@ _OPT: dict[str, tuple[tuple[str, ...], dict[str, Any]]] = {
     "margin": (("--margin",), dict(
         metavar="auto|FRACTION", help="fraction cut from each side to hide moved-in borders")),
     "fill": (("--fill",), dict(choices=FILLS, help="fill for uncovered pixels")),
+    "pin_overlays": (("--pin-overlays",), dict(
+        choices=PIN_OVERLAYS, help="keep still regions unwarped where they are in the frame: "
+        "found = the burnt-in overlays the analysis found (default), all = those and the "
+        "--ignore regions, off = warp everything with the picture")),
     # output encoding
     "crf": (("--crf",), dict(metavar="N", help="encoder quality (lower is better)")),
     "preset": (("--preset",), dict(
@@ -100,7 +105,8 @@ _OPT: dict[str, tuple[tuple[str, ...], dict[str, Any]]] = {
     "codec": (("--codec",), dict(choices=CODECS, help="output video codec")),
     "compare": (("--compare",), dict(
         action="store_const", const=True,
-        help="also write a side-by-side before/after video (NAME.steady.compare.mp4)")),
+        help="also write a before/after video, each half labelled "
+        "(NAME.steady.compare.mp4)")),
     # run
     "settings": (("--settings",), dict(
         dest="config", metavar="FILE|NAME", help="settings file (TOML), or the name of one "
@@ -115,7 +121,7 @@ _OPT: dict[str, tuple[tuple[str, ...], dict[str, Any]]] = {
 
 _ANALYSIS = ("model", "analysis", "analysis_width", "ignore", "inlier_px", "confidence",
              "max_rounds", "seed", "readout_ms", "fov_deg", "shake_above_hz")
-_SMOOTHING = ("smoother", "window_s", "margin", "fill")
+_SMOOTHING = ("smoother", "window_s", "margin", "fill", "pin_overlays")
 _ENCODING = ("crf", "preset", "codec", "compare")
 _RUN = ("settings", "force", "quiet", "debug")
 

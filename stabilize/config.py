@@ -22,15 +22,19 @@ from .errors import StabilizeError
 
 __all__ = [
     "ANALYSIS_LEVELS", "AUTO_MARGIN_CAP", "CODECS", "FILLS", "MAX_MARGIN", "MAX_PX",
-    "MAX_READOUT_MS", "MAX_ROUNDS", "MAX_WINDOW_S", "MODELS", "OPTION_NAMES", "PRESETS_X264",
-    "SMOOTHERS", "Region", "Settings", "build_settings", "coerce", "logged_settings",
-    "parse_region", "preset_dirs", "preset_names", "read_config", "resolve_config",
-    "resolve_settings", "setting_label", "validate",
+    "MAX_READOUT_MS", "MAX_ROUNDS", "MAX_WINDOW_S", "MODELS", "OPTION_NAMES", "PIN_OVERLAYS",
+    "PRESETS_X264", "SMOOTHERS", "Region", "Settings", "build_settings", "coerce",
+    "logged_settings", "parse_region", "preset_dirs", "preset_names", "read_config",
+    "resolve_config", "resolve_settings", "setting_label", "validate",
 ]
 
 MODELS = ("translation", "similarity", "affine", "homography")
 SMOOTHERS = ("gaussian", "kalman", "l1", "lockoff")
 FILLS = ("black", "reflect", "replicate")
+#: Which still regions the steadied video keeps where they are in the source frame (see
+#: :mod:`stabilize.pinning`): the static overlays the analysis found, those and the
+#: ``ignore`` regions, or none.
+PIN_OVERLAYS = ("found", "all", "off")
 #: How much work the analysis puts into each frame, quickest first (see
 #: :func:`stabilize.track.track_settings_for`).
 ANALYSIS_LEVELS = ("fast", "balanced", "thorough")
@@ -67,7 +71,9 @@ class Settings:
     milliseconds: 0 for a global shutter (the default: no rolling-shutter analysis), a number
     for a known rolling shutter, or ``"auto"`` to estimate it from the footage. ``analysis``
     is one of :data:`ANALYSIS_LEVELS`: the effort spent on tracking each frame, trading
-    analysis time for accuracy.
+    analysis time for accuracy. ``pin_overlays`` is one of :data:`PIN_OVERLAYS`: which
+    regions are copied unwarped from the source frame into the steadied one (static overlays
+    found, those and the ``ignore`` regions, or none).
     """
 
     model: str = "similarity"
@@ -75,6 +81,7 @@ class Settings:
     window_s: float = 1.0
     margin: str | float = "auto"
     fill: str = "black"
+    pin_overlays: str = "found"
     analysis_width: int = 960
     analysis: str = "balanced"
     ignore: tuple[Region, ...] = field(default_factory=tuple)
@@ -144,7 +151,7 @@ def validate(s: Settings) -> None:
     """Raise StabilizeError naming the first bad option and the values it allows."""
     choices = {
         "model": MODELS, "smoother": SMOOTHERS, "fill": FILLS, "codec": CODECS,
-        "preset": PRESETS_X264, "analysis": ANALYSIS_LEVELS,
+        "preset": PRESETS_X264, "analysis": ANALYSIS_LEVELS, "pin_overlays": PIN_OVERLAYS,
     }
     for name, allowed in choices.items():
         if getattr(s, name) not in allowed:
@@ -239,7 +246,7 @@ def coerce(values: dict[str, Any], where: str) -> dict[str, Any]:
             value = _to_number(name, value, float)
         elif name in _INTS:
             value = _to_number(name, value, int)
-        elif name in ("model", "smoother", "fill", "codec", "preset"):
+        elif name in ("model", "smoother", "fill", "codec", "preset", "pin_overlays"):
             if not isinstance(value, str):
                 raise _bad(name, value, "a name in quotes")
         elif name in _BOOLS:

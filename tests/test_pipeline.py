@@ -124,6 +124,22 @@ def test_steady_keeps_the_sources_colour_tags_and_pixel_shape(truss, tmp_path):
         assert (probe(video).colour, probe(video).sar) == (want, (4, 3))
 
 
+@pytest.mark.parametrize("sar", ["1/1", "4/3", None])
+def test_steady_carries_the_pixel_aspect_tag_over(truss, tmp_path, sar):
+    """A square-pixel tag (1:1) and an anamorphic one (4:3) reach the steadied video and the
+    comparison as they were; a clip with no tag gives a video with none."""
+    path, _ = truss
+    src = tmp_path / "tagged.mp4"
+    subprocess.run([ffmpeg_exe(), "-nostdin", "-loglevel", "error", "-i", str(path), "-t", "0.5",
+                    "-vf", f"setsar={sar or 0}", "-c:v", "libx264", "-preset", "veryfast",
+                    "-crf", "14", "-an", str(src)], check=True, capture_output=True)
+    want = None if sar is None else tuple(int(v) for v in sar.split("/"))
+    assert probe(src).sar == want
+    log = stabilize.steady(src, tmp_path / "tagged.steady.mp4", compare=True, preset="veryfast")
+    for role in ("video", "compare"):
+        assert probe(log.extra["outputs"][role]).sar == want
+
+
 def test_steadied_video_is_steadier(truss, tmp_path):
     path, clip = truss
     out = tmp_path / "s.mp4"
