@@ -21,6 +21,7 @@ from .config import (
     FILLS,
     MODELS,
     OPTION_NAMES,
+    PIN_OVERLAYS,
     SMOOTHERS,
     resolve_settings,
 )
@@ -44,44 +45,204 @@ class _Parser(argparse.ArgumentParser):
         text = " ".join(message.split())
         self.exit(EXIT_USAGE, f"stabilize: error: {text} (see '{self.prog} --help')\n")
 
+    def parse_args(self, args=None, namespace=None):  # type: ignore[override]
+        # An option the command does not use is named with the command, whose help lists
+        # what it does use.
+        ns, extras = self.parse_known_args(args, namespace)
+        if extras:
+            command = getattr(ns, "command", None)
+            where = f"{self.prog} {command}" if command else self.prog
+            self.exit(EXIT_USAGE, f"stabilize: error: unrecognized arguments: "
+                      f"{' '.join(extras)[:200]} (not used by '{where}'; see '{where} --help')"
+                      "\n")
+        return ns
 
-def _add_common(p: argparse.ArgumentParser) -> None:
-    g = p.add_argument_group("options (also settable in a TOML config)")
-    g.add_argument("--config", metavar="FILE_OR_PRESET",
-                   help="TOML settings file, or the name of a preset in configs/")
-    g.add_argument("--model", choices=MODELS, help="motion model fitted per frame")
-    g.add_argument("--smoother", choices=SMOOTHERS, help="camera-path smoother")
-    g.add_argument("--window-s", metavar="SECONDS", help="smoothing time scale in seconds")
-    g.add_argument("--margin", metavar="auto|FRACTION",
-                   help="fraction cut from each side to hide moved-in borders")
-    g.add_argument("--fill", choices=FILLS, help="fill for uncovered pixels")
-    g.add_argument("--analysis-width", metavar="PX",
-                   help="width frames are reduced to for tracking (0 = full resolution)")
-    g.add_argument("--analysis", choices=ANALYSIS_LEVELS,
-                   help="effort spent tracking each frame: fast, balanced (default) or "
-                        "thorough (most accurate, about twice the analysis time)")
-    g.add_argument("--ignore", metavar="X,Y,W,H", action="append",
-                   help="region excluded from tracking, full-resolution pixels (repeatable)")
-    g.add_argument("--inlier-px", metavar="PX", help="consensus inlier threshold in pixels")
-    g.add_argument("--confidence", metavar="P",
-                   help="probability of drawing at least one all-inlier sample")
-    g.add_argument("--max-rounds", metavar="N", help="cap on hypotheses per frame")
-    g.add_argument("--seed", metavar="N", help="random seed (equal seeds, identical logs)")
-    g.add_argument("--fov-deg", metavar="DEG", help="horizontal field of view in degrees")
-    g.add_argument("--readout-ms", metavar="MS|auto",
-                   help="rolling-shutter readout time, first row to last, in ms: 0 = global "
-                   "shutter (default), auto = estimate it from the footage")
-    g.add_argument("--shake-above-hz", metavar="HZ",
-                   help="path motion above this frequency counts as shake")
-    g.add_argument("--crf", metavar="N", help="encoder quality (lower is better)")
-    g.add_argument("--preset", metavar="NAME", help="encoder speed preset")
-    g.add_argument("--codec", choices=CODECS, help="output video codec")
-    g.add_argument("--compare", action="store_const", const=True,
-                   help="also write a side-by-side before/after video")
-    g.add_argument("--force", action="store_const", const=True,
-                   help="allow overwriting existing outputs (never the input)")
-    g.add_argument("--quiet", action="store_const", const=True, help="no progress bars")
-    g.add_argument("--debug", action="store_true", help="show a traceback on errors")
+
+# ----------------------------------------------------------------- the options
+# Each setting's flag and help, once. A command lists the settings it uses, by group
+# (_COMMANDS); a setting it does not use is not accepted there. Every setting can also be
+# given in a settings file (--settings).
+_OPT: dict[str, tuple[tuple[str, ...], dict[str, Any]]] = {
+    # analysis
+    "model": (("--model",), dict(choices=MODELS, help="motion model fitted per frame")),
+    "analysis": (("--analysis",), dict(
+        choices=ANALYSIS_LEVELS, help="effort spent tracking each frame: fast, balanced "
+        "(default) or thorough (most accurate, about twice the analysis time)")),
+    "analysis_width": (("--analysis-width",), dict(
+        metavar="PX", help="width frames are reduced to for tracking (0 = full resolution)")),
+    "ignore": (("--ignore",), dict(
+        metavar="X,Y,W,H", action="append",
+        help="region excluded from tracking, full-resolution pixels (repeatable)")),
+    "inlier_px": (("--inlier-px",), dict(metavar="PX",
+                                         help="consensus inlier threshold in pixels")),
+    "confidence": (("--confidence",), dict(
+        metavar="P", help="probability of drawing at least one all-inlier sample")),
+    "max_rounds": (("--max-rounds",), dict(metavar="N", help="cap on hypotheses per frame")),
+    "seed": (("--seed",), dict(metavar="N",
+                               help="random seed (equal seeds, identical logs)")),
+    "readout_ms": (("--readout-ms",), dict(
+        metavar="MS|auto", help="rolling-shutter readout time, first row to last, in ms: "
+        "0 = global shutter (default), auto = estimate it from the footage")),
+    "fov_deg": (("--fov-deg",), dict(metavar="DEG",
+                                     help="horizontal field of view in degrees")),
+    "shake_above_hz": (("--shake-above-hz",), dict(
+        metavar="HZ", help="path motion above this frequency counts as shake")),
+    # smoothing and framing
+    "smoother": (("--smoother",), dict(choices=SMOOTHERS, help="camera-path smoother")),
+    "window_s": (("--window-s",), dict(metavar="SECONDS",
+                                       help="smoothing time scale in seconds")),
+    "margin": (("--margin",), dict(
+        metavar="auto|FRACTION", help="fraction cut from each side to hide moved-in borders")),
+    "fill": (("--fill",), dict(choices=FILLS, help="fill for uncovered pixels")),
+    "pin_overlays": (("--pin-overlays",), dict(
+        choices=PIN_OVERLAYS, help="keep still regions unwarped where they are in the frame: "
+        "found = the burnt-in overlays the analysis found (default), all = those and the "
+        "--ignore regions, off = warp everything with the picture")),
+    # output encoding
+    "crf": (("--crf",), dict(metavar="N", help="encoder quality (lower is better)")),
+    "preset": (("--preset",), dict(
+        metavar="SPEED", help="encoder speed: ultrafast … veryslow (slower = smaller file)")),
+    "codec": (("--codec",), dict(choices=CODECS, help="output video codec")),
+    "compare": (("--compare",), dict(
+        action="store_const", const=True,
+        help="also write a before/after video, each half labelled "
+        "(NAME.steady.compare.mp4)")),
+    # run
+    "settings": (("--settings",), dict(
+        dest="config", metavar="FILE|NAME", help="settings file (TOML), or the name of one "
+        "in configs/ such as drone-inspection; flags win over it")),
+    "force": (("--force",), dict(action="store_const", const=True,
+                                 help="allow overwriting existing outputs (never the input)")),
+    "quiet": (("--quiet",), dict(
+        action="store_const", const=True, help="no progress bars and no info or note lines "
+        "(warnings and errors still print; results on stdout are unchanged)")),
+    "debug": (("--debug",), dict(action="store_true", help="show a traceback on errors")),
+}
+
+_ANALYSIS = ("model", "analysis", "analysis_width", "ignore", "inlier_px", "confidence",
+             "max_rounds", "seed", "readout_ms", "fov_deg", "shake_above_hz")
+_SMOOTHING = ("smoother", "window_s", "margin", "fill", "pin_overlays")
+_ENCODING = ("crf", "preset", "codec", "compare")
+_RUN = ("settings", "force", "quiet", "debug")
+
+#: The option groups of each command: (group title, its settings). The files each command
+#: reads and writes are added by :func:`_files`; ``--workers`` and ``--scheduler`` by
+#: :func:`_run_extra`.
+_COMMANDS: dict[str, tuple[tuple[str, tuple[str, ...]], ...]] = {
+    "steady": (("analysis", _ANALYSIS), ("smoothing and framing", _SMOOTHING),
+               ("output encoding", _ENCODING), ("run", _RUN)),
+    "measure": (("analysis", _ANALYSIS), ("run", _RUN)),
+    # A render re-uses the log's motion: only the settings that act after the analysis.
+    "render": (("smoothing and framing", ("model", *_SMOOTHING)),
+               ("figures", ("fov_deg", "shake_above_hz")), ("output encoding", _ENCODING),
+               ("run", _RUN)),
+    "report": (("analysis", _ANALYSIS), ("run", _RUN)),
+    "batch": (("analysis", _ANALYSIS), ("smoothing and framing", _SMOOTHING),
+              ("output encoding", _ENCODING), ("run", _RUN)),
+    # The demo replaces its own earlier outputs: no --force.
+    "demo": (("analysis", _ANALYSIS), ("smoothing and framing", _SMOOTHING),
+             ("output encoding", _ENCODING), ("run", ("settings", "quiet", "debug"))),
+}
+
+#: Help worded for one command where the common wording would mislead.
+_HELP_FOR = {
+    ("render", "model"): "motion model the path is smoothed in (default: the log's)",
+}
+
+#: A group's note for one command.
+_GROUP_NOTE = {
+    ("report", "analysis"): "Used when the input is a clip with no motion log beside it, "
+                            "measured first; --fov-deg and --shake-above-hz also override "
+                            "a log's own.",
+    ("render", "smoothing and framing"): "The log's own settings unless given here.",
+}
+
+_HELP = {
+    "steady": "steady a clip and write its motion log",
+    "measure": "motion log and shake summary only, no video",
+    "render": "render a clip from an existing motion log",
+    "report": "shake report: figures JSON, PNG plots, one HTML page",
+    "batch": "many clips: outputs, summary.csv and summary.html",
+    "demo": "steady the bundled demo clip and write its report",
+}
+
+
+def _hidden(group: argparse._ArgumentGroup, *flags: str, dest: str) -> None:
+    """An old spelling of an option, still accepted, not shown in the help."""
+    group.add_argument(*flags, dest=dest, help=argparse.SUPPRESS)
+
+
+def _files(name: str, p: argparse.ArgumentParser) -> None:
+    """The files a command reads (input) and writes (output)."""
+    g_in = p.add_argument_group("input")
+    g_out = p.add_argument_group("output")
+    if name in ("steady", "measure", "render"):
+        g_in.add_argument("clip", help="the video clip")
+    if name == "render":
+        g_in.add_argument("--log", metavar="LOG.csv", required=True,
+                          help="motion log to render from (read, never changed; the new "
+                          "log is written beside the video)")
+    if name in ("steady", "render"):
+        g_out.add_argument("-o", "--output", metavar="VIDEO", help="steadied video path "
+                           "(default NAME.steady.mp4 beside the input); the motion log goes "
+                           "beside it, named after it")
+    if name in ("steady", "measure"):
+        g_out.add_argument("--log", metavar="OUT.csv", help="where to write the motion log "
+                           "(default NAME.motion.csv; its .json beside it)")
+    if name == "report":
+        g_in.add_argument("clip_or_log", help="a motion log (.csv or its .json), or a clip")
+    if name == "batch":
+        g_in.add_argument("inputs", metavar="DIR_OR_GLOB",
+                          help="a folder (searched recursively) or a glob pattern such as "
+                          "'flights/**/*.mp4' (quote it)")
+    folder_help = {
+        "report": "folder for the report (default: beside the input; created when missing)",
+        "batch": "folder for every output (required); the input tree is mirrored inside it "
+                 "(created when missing)",
+        "demo": "folder for the demo outputs (default: ./stabilize-demo; earlier demo "
+                "outputs there are replaced)",
+    }
+    if name in folder_help:
+        # Required for batch, checked in run(): the old spelling --out may give it too.
+        g_out.add_argument("--out-dir", metavar="DIR", help=folder_help[name])
+        _hidden(g_out, "--out", dest="out_dir")
+    if name == "batch":
+        g_out.add_argument("--measure-only", action="store_true",
+                           help="motion log and report only, no steadied video (an earlier "
+                           "steadied video of a clip measured again is removed)")
+
+
+def _run_extra(name: str, g: argparse._ArgumentGroup) -> None:
+    """``--workers`` and ``--scheduler``, worded for the command."""
+    if name == "measure":
+        g.add_argument("--workers", metavar="N",
+                       help="analyse a long clip in segments on N single-core workers (same "
+                       "log as one pass; 1 keeps the job to one core)")
+        g.add_argument("--scheduler", metavar="ADDR",
+                       help="run the segments on a Dask cluster: 'local' or tcp://HOST:PORT")
+    elif name == "batch":
+        g.add_argument("--workers", metavar="N",
+                       help="clips done at once (default: the cores of this machine)")
+        g.add_argument("--scheduler", metavar="ADDR",
+                       help="run on Dask: 'local' starts a cluster here, tcp://HOST:PORT uses "
+                       "a running one (its workers must see the same paths)")
+
+
+def _add_command(sub: Any, name: str) -> argparse.ArgumentParser:
+    p = sub.add_parser(name, help=_HELP[name], description=_HELP[name] + ".")
+    _files(name, p)
+    for title, settings in _COMMANDS[name]:
+        g = p.add_argument_group(title, _GROUP_NOTE.get((name, title)))
+        for setting in settings:
+            flags, kwargs = _OPT[setting]
+            if (name, setting) in _HELP_FOR:
+                kwargs = kwargs | {"help": _HELP_FOR[name, setting]}
+            g.add_argument(*flags, **kwargs)
+        if title == "run":
+            _run_extra(name, g)
+            if "settings" in settings:
+                _hidden(g, "--config", dest="config")
+    return p
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -96,54 +257,8 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"stabilize {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
     sub.required = True
-
-    p = sub.add_parser("steady", help="steady a clip and write its motion log")
-    p.add_argument("clip")
-    p.add_argument("-o", "--output", metavar="OUT", help="steadied video path")
-    p.add_argument("--log", metavar="PATH.csv", help="motion log path")
-    _add_common(p)
-
-    p = sub.add_parser("measure", help="motion log and shake summary only, no video")
-    p.add_argument("clip")
-    p.add_argument("--log", metavar="OUT.csv", help="motion log path")
-    p.add_argument("--workers", metavar="N",
-                   help="analyse a long clip in segments on N single-core workers (same log "
-                   "as one pass; 1 keeps the job to one core)")
-    p.add_argument("--scheduler", metavar="ADDR",
-                   help="run the segments on a Dask cluster: 'local' or tcp://HOST:PORT")
-    _add_common(p)
-
-    p = sub.add_parser("render", help="render a clip from an existing motion log")
-    p.add_argument("clip")
-    p.add_argument("--log", metavar="LOG", required=True, help="motion log (.csv) to use")
-    p.add_argument("-o", "--output", metavar="OUT", help="steadied video path")
-    _add_common(p)
-
-    p = sub.add_parser("report", help="shake report: figures JSON, PNG plots, one HTML page")
-    p.add_argument("clip_or_log", help="a motion log (.csv or its .json), or a clip")
-    p.add_argument("--out", metavar="DIR", help="folder for the report (default: beside "
-                   "the input)")
-    _add_common(p)
-
-    p = sub.add_parser("batch", help="many clips: outputs, summary.csv and summary.html")
-    p.add_argument("inputs", metavar="DIR_OR_GLOB",
-                   help="a folder (searched recursively) or a glob pattern such as "
-                   "'flights/**/*.mp4' (quote it)")
-    p.add_argument("--out-dir", metavar="DIR", required=True,
-                   help="folder for every output; the input tree is mirrored inside it")
-    p.add_argument("--workers", metavar="N",
-                   help="clips done at once (default: the cores of this machine)")
-    p.add_argument("--scheduler", metavar="ADDR",
-                   help="run on Dask: 'local' starts a cluster here, tcp://HOST:PORT uses a "
-                   "running one (its workers must see the same paths)")
-    p.add_argument("--measure-only", action="store_true",
-                   help="motion log and report only, no steadied video")
-    _add_common(p)
-
-    p = sub.add_parser("demo", help="steady the bundled demo clip")
-    p.add_argument("--out", metavar="DIR", help="folder for the demo outputs "
-                   "(default: ./stabilize-demo)")
-    _add_common(p)
+    for name in _COMMANDS:
+        _add_command(sub, name)
     return parser
 
 
@@ -152,7 +267,12 @@ _SETTING = re.compile(r"setting '([a-z_]+)'")
 
 def flag_wording(message: str) -> str:
     """A library message with each ``setting 'name'`` worded as its flag, ``option --name``."""
-    return _SETTING.sub(lambda m: "option --" + m.group(1).replace("_", "-"), message)
+    return _SETTING.sub(lambda m: "option --" + _FLAG_NAMES.get(m.group(1), m.group(1))
+                        .replace("_", "-"), message)
+
+
+#: Settings whose flag is not their name spelt with dashes.
+_FLAG_NAMES = {"config": "settings"}
 
 
 #: Most workers a run may ask for: each is a process of its own.
@@ -172,13 +292,26 @@ def _whole_number(flag: str, text: str | None, most: int = MAX_WORKERS) -> int |
     return value
 
 
+_SCHEDULER = re.compile(r"[a-z][a-z0-9+.-]*://\S+")
+
+
+def _check_scheduler_form(address: str | None) -> None:
+    """Refuse a ``--scheduler`` that is neither ``local`` nor an address, before any output is
+    looked at (whether the address answers is checked when the work starts)."""
+    if address is not None and address != "local" and not _SCHEDULER.fullmatch(address):
+        raise StabilizeError(f"option --scheduler: {address[:60]!r} is not allowed; use "
+                             "'local' or an address such as tcp://HOST:PORT")
+
+
 def _options(args: argparse.Namespace) -> dict[str, Any]:
     return {name: getattr(args, name) for name in OPTION_NAMES
             if getattr(args, name, None) is not None}
 
 
 def _progress(quiet: bool):
-    if quiet:
+    """A progress-bar factory, or None: bars are drawn only on a terminal, never into a
+    file or a pipe that stderr was sent to, and never with ``--quiet``."""
+    if quiet or not _is_terminal(sys.stderr):
         return None
     from tqdm import tqdm  # lazy: progress bars only when they are shown
 
@@ -189,9 +322,17 @@ def _progress(quiet: bool):
     return make
 
 
+def _is_terminal(stream: Any) -> bool:
+    try:
+        return bool(stream.isatty())
+    except (AttributeError, ValueError):  # no isatty, or closed
+        return False
+
+
 class _OneLine(logging.Formatter):
     def format(self, record: logging.LogRecord) -> str:
-        level = "warning" if record.levelno >= logging.WARNING else "info"
+        level = "warning" if record.levelno >= logging.WARNING else \
+            "note" if getattr(record, "note", False) else "info"
         return f"stabilize: {level}: {record.getMessage()}"
 
 
@@ -261,6 +402,7 @@ def run(args: argparse.Namespace) -> int:
         _report_written(motion)
     elif args.command == "measure":
         workers = _whole_number("--workers", args.workers)
+        _check_scheduler_form(args.scheduler)
         motion, outputs = measure_to_file(args.clip, args.log, config=args.config,
                                           progress=progress, workers=workers,
                                           scheduler=args.scheduler, **opts)
@@ -272,12 +414,15 @@ def run(args: argparse.Namespace) -> int:
                         progress=progress, **opts)
         _report_written(motion)
     elif args.command == "report":
-        report = make_report(args.clip_or_log, args.out, config=args.config,
+        report = make_report(args.clip_or_log, args.out_dir, config=args.config,
                              progress=progress, **opts)
         _print_summary(report.summary)
         _report_files(report)
     elif args.command == "batch":
+        if not args.out_dir:
+            raise StabilizeError("option --out-dir is required: the folder for every output")
         workers = _whole_number("--workers", args.workers)
+        _check_scheduler_form(args.scheduler)
         clip_bar = None
         if progress is not None:
             from tqdm import tqdm  # lazy: progress bars only when they are shown
@@ -298,7 +443,7 @@ def run(args: argparse.Namespace) -> int:
         if result.count("failed"):
             return EXIT_SOME_FAILED
     elif args.command == "demo":
-        motion, report = run_demo(args.out, config=args.config, progress=progress, **opts)
+        motion, report = run_demo(args.out_dir, config=args.config, progress=progress, **opts)
         _report_written(motion)
         _report_files(report)
         print("demo done: the clip is an invented, procedurally drawn scene")
@@ -306,8 +451,10 @@ def run(args: argparse.Namespace) -> int:
 
 
 def _report_files(report) -> None:
+    # Notes are remarks on how far the figures can be trusted, for people: on stderr with the
+    # info lines (and silenced with them by --quiet); stdout lists only the files written.
     for note in report.notes:
-        print(f"note: {note}")
+        logging.getLogger("stabilize").info("%s", note, extra={"note": True})
     labels = {"json": "figures", "html": "report", "log_csv": "motion log",
               "log_json": "motion log"}
     for role, path in report.outputs.items():

@@ -1,10 +1,11 @@
-"""Settings: one frozen dataclass for every option, TOML presets and files, validation.
+"""Settings: one frozen dataclass for every option, TOML settings files, validation.
 
 Ground floor. Messages name a setting as ``setting 'window_s'``; the command line words that
 as its flag.
 
-Precedence is fixed: command-line flags win over a config file (or preset), which wins over
-the built-in defaults. Every value is validated here, so the stages can trust what they get.
+Precedence is fixed: command-line flags win over a settings file (a TOML path, or the name of
+one in ``configs/``), which wins over the built-in defaults. Every value is validated here,
+so the stages can trust what they get.
 """
 
 from __future__ import annotations
@@ -21,15 +22,19 @@ from .errors import StabilizeError
 
 __all__ = [
     "ANALYSIS_LEVELS", "AUTO_MARGIN_CAP", "CODECS", "FILLS", "MAX_MARGIN", "MAX_PX",
-    "MAX_READOUT_MS", "MAX_ROUNDS", "MAX_WINDOW_S", "MODELS", "OPTION_NAMES", "PRESETS_X264",
-    "SMOOTHERS", "Region", "Settings", "build_settings", "coerce", "logged_settings",
-    "parse_region", "preset_dirs", "preset_names", "read_config", "resolve_config",
-    "resolve_settings", "setting_label", "validate",
+    "MAX_READOUT_MS", "MAX_ROUNDS", "MAX_WINDOW_S", "MODELS", "OPTION_NAMES", "PIN_OVERLAYS",
+    "PRESETS_X264", "SMOOTHERS", "Region", "Settings", "build_settings", "coerce",
+    "logged_settings", "parse_region", "preset_dirs", "preset_names", "read_config",
+    "resolve_config", "resolve_settings", "setting_label", "validate",
 ]
 
 MODELS = ("translation", "similarity", "affine", "homography")
 SMOOTHERS = ("gaussian", "kalman", "l1", "lockoff")
 FILLS = ("black", "reflect", "replicate")
+#: Which still regions the steadied video keeps where they are in the source frame (see
+#: :mod:`stabilize.pinning`): the static overlays the analysis found, those and the
+#: ``ignore`` regions, or none.
+PIN_OVERLAYS = ("found", "all", "off")
 #: How much work the analysis puts into each frame, quickest first (see
 #: :func:`stabilize.track.track_settings_for`).
 ANALYSIS_LEVELS = ("fast", "balanced", "thorough")
@@ -66,7 +71,9 @@ class Settings:
     milliseconds: 0 for a global shutter (the default: no rolling-shutter analysis), a number
     for a known rolling shutter, or ``"auto"`` to estimate it from the footage. ``analysis``
     is one of :data:`ANALYSIS_LEVELS`: the effort spent on tracking each frame, trading
-    analysis time for accuracy.
+    analysis time for accuracy. ``pin_overlays`` is one of :data:`PIN_OVERLAYS`: which
+    regions are copied unwarped from the source frame into the steadied one (static overlays
+    found, those and the ``ignore`` regions, or none).
     """
 
     model: str = "similarity"
@@ -74,6 +81,7 @@ class Settings:
     window_s: float = 1.0
     margin: str | float = "auto"
     fill: str = "black"
+    pin_overlays: str = "found"
     analysis_width: int = 960
     analysis: str = "balanced"
     ignore: tuple[Region, ...] = field(default_factory=tuple)
@@ -143,7 +151,7 @@ def validate(s: Settings) -> None:
     """Raise StabilizeError naming the first bad option and the values it allows."""
     choices = {
         "model": MODELS, "smoother": SMOOTHERS, "fill": FILLS, "codec": CODECS,
-        "preset": PRESETS_X264, "analysis": ANALYSIS_LEVELS,
+        "preset": PRESETS_X264, "analysis": ANALYSIS_LEVELS, "pin_overlays": PIN_OVERLAYS,
     }
     for name, allowed in choices.items():
         if getattr(s, name) not in allowed:
@@ -238,7 +246,7 @@ def coerce(values: dict[str, Any], where: str) -> dict[str, Any]:
             value = _to_number(name, value, float)
         elif name in _INTS:
             value = _to_number(name, value, int)
-        elif name in ("model", "smoother", "fill", "codec", "preset"):
+        elif name in ("model", "smoother", "fill", "codec", "preset", "pin_overlays"):
             if not isinstance(value, str):
                 raise _bad(name, value, "a name in quotes")
         elif name in _BOOLS:
@@ -266,12 +274,14 @@ def coerce(values: dict[str, Any], where: str) -> dict[str, Any]:
 
 
 def preset_dirs() -> list[Path]:
-    """Folders searched for preset names: the source tree's configs/, then the installed copy."""
+    """Folders searched for named settings files: the source tree's configs/, then the
+    installed copy. (The encoder's ``preset`` is another thing: its speed.)"""
     here = Path(__file__).resolve().parent
     return [here.parent / "configs", Path(sys.prefix) / "share" / "stabilize" / "configs"]
 
 
 def preset_names() -> list[str]:
+    """The names of the settings files in configs/ (``drone-inspection`` …)."""
     names: set[str] = set()
     for d in preset_dirs():
         if d.is_dir():
@@ -280,19 +290,19 @@ def preset_names() -> list[str]:
 
 
 def resolve_config(name_or_path: str) -> Path:
-    """A config file path, or a preset name looked up in the preset folders."""
+    """A settings file's path, or the name of one looked up in configs/."""
     path = Path(name_or_path)
     if path.suffix == ".toml" or path.exists():
         if not path.is_file():
-            raise StabilizeError(f"{path}: config file not found")
+            raise StabilizeError(f"{path}: settings file not found")
         return path
     for d in preset_dirs():
         candidate = d / f"{name_or_path}.toml"
         if candidate.is_file():
             return candidate
     raise StabilizeError(
-        f"{setting_label('config')}: no preset named {name_or_path!r}; "
-        f"presets: {', '.join(preset_names()) or 'none found'}, or give a .toml file"
+        f"{setting_label('config')}: no settings file named {name_or_path!r} in configs/; "
+        f"named ones: {', '.join(preset_names()) or 'none found'}, or give a .toml file"
     )
 
 
@@ -302,7 +312,7 @@ def read_config(name_or_path: str) -> dict[str, Any]:
     try:
         raw = tomllib.loads(path.read_text(encoding="utf-8"))
     except (OSError, UnicodeDecodeError) as exc:
-        raise StabilizeError(f"{path}: cannot read config ({exc})") from None
+        raise StabilizeError(f"{path}: cannot read the settings file ({exc})") from None
     except tomllib.TOMLDecodeError as exc:
         raise StabilizeError(f"{path}: not valid TOML ({exc})") from None
     flat = {k.replace("-", "_"): v for k, v in raw.items()}
@@ -317,7 +327,8 @@ def read_config(name_or_path: str) -> dict[str, Any]:
 def build_settings(
     config: str | None = None, overrides: dict[str, Any] | None = None
 ) -> Settings:
-    """Defaults, then the config file or preset, then explicit overrides (flags or keywords)."""
+    """Defaults, then the settings file (a path or a name in configs/), then explicit
+    overrides (flags or keywords)."""
     values: dict[str, Any] = {}
     if config:
         values.update(read_config(config))
@@ -354,7 +365,7 @@ def logged_settings(saved: dict[str, Any], config: str | None = None,
     Parameters
     ----------
     saved : the log's ``settings`` mapping.
-    config : TOML file or preset name given now, or None.
+    config : settings file (TOML path or a name in configs/) given now, or None.
     options : options given now (None values are ignored).
     """
     options = options or {}

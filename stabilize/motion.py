@@ -144,8 +144,9 @@ def fit_motion(
         if not can_track or t == 0:
             if can_track:
                 main.begin(frame.image, frame.time_s, g)
+            # Frame 0 has nothing before it: its identity is no measurement ("first").
             records.append(FrameRecord(np.eye(3), (0, 0, 0.0, 0.0, 0),
-                                   "ok" if can_track else "failed",
+                                   "first" if can_track else "failed",
                                    "" if can_track else "unmeasurable"))
         else:
             records.append(main.step(frame.image, frame.time_s, g))

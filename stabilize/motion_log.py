@@ -45,7 +45,9 @@ __all__ = [
 
 FORMAT = "stabilize-motion-log"
 VERSION = 1
-STATUSES = ("ok", "weak", "failed", "cut")
+#: Per-frame status values: ``first`` marks frame 0 (nothing before it, so no motion was
+#: measured: H_0 is the identity), so that ``status == "ok"`` counts measured frames only.
+STATUSES = ("ok", "weak", "failed", "cut", "first")
 
 #: The inter-frame transform H_t and the correction C_t, row by row.
 H_COLUMNS = [f"h{r}{c}" for r in (1, 2, 3) for c in (1, 2, 3)]

@@ -43,7 +43,7 @@ class MotionTrack:
     time_s : (n,) float, seconds. matrices : (n, 3, 3) inter-frame transforms ``H_t``,
         full-resolution pixels. tracked, inliers, rounds : (n,) int. inlier_ratio : (n,).
     rms_px : (n,) inlier residual RMS, full-resolution pixels. status : (n,) ``<U6``
-        (``ok``, ``weak``, ``failed``, ``cut``). reason : (n,) ``<U12`` or None.
+        (``ok``, ``weak``, ``failed``, ``cut``, ``first``). reason : (n,) ``<U12`` or None.
     band_shift_px : (n, bands, 2) row-band shifts (dx, dy) px from the previous frame
         (:func:`stabilize.row_bands.track_band_shifts`; NaN where a frame has none), or None
         when the analysis did not measure them. band_support : (n, bands), or None.

@@ -17,9 +17,18 @@ from urllib.parse import quote
 from . import shake
 
 __all__ = [
-    "CAUTIONS", "PAGE_CSS", "dominant_text", "fmt_sig", "html_page", "html_table",
-    "relative_href", "render_page",
+    "CAUTIONS", "MISSING", "NARROW_SCREEN", "PAGE_CSS", "RUN_SWITCHES", "dominant_text",
+    "fmt_sig", "html_page", "hz_text", "html_table", "relative_href", "render_page", "setting_text",
 ]
+
+#: The one mark of every page for a figure that is not known (not measured, not applicable).
+MISSING = "n/a"
+
+#: The widest screen that gets the plots' narrow layout (a CSS media condition).
+NARROW_SCREEN = "(max-width: 40rem)"
+
+#: Settings that change how a run behaves but none of its results: left out of the page.
+RUN_SWITCHES = frozenset({"force", "quiet", "debug", "compare", "workers", "scheduler"})
 
 #: Cautions shown on every report page, in plain words (from the README's Cautions section).
 CAUTIONS: tuple[str, ...] = (
@@ -81,6 +90,7 @@ tr.failed td { background: #fbe9e7; }
 .trust-unreliable { color: #b3261e; font-weight: 600; }
 figure { margin: 1rem 0; background: var(--card); border: 1px solid var(--line);
          border-radius: 8px; padding: 0.5rem; }
+figure picture { display: block; }
 figure img { display: block; width: 100%; height: auto; }
 figcaption { font-size: 0.9rem; color: var(--muted); padding: 0.4rem 0.2rem 0; }
 footer { margin: 2rem 0 1rem; font-size: 0.85rem; color: var(--muted); }
@@ -115,11 +125,12 @@ _PLOT_CAPTIONS = {
 
 
 def fmt_sig(v: Any, digits: int = 3) -> str:
-    """A figure to ``digits`` significant digits (no false precision); ``n/a`` when unknown."""
+    """A figure to ``digits`` significant digits (no false precision); :data:`MISSING` when
+    unknown."""
     if v is None or isinstance(v, bool) or not isinstance(v, int | float):
-        return "n/a"
+        return MISSING
     if not math.isfinite(v):
-        return "n/a"
+        return MISSING
     if v == 0:
         return "0"
     mag = math.floor(math.log10(abs(v)))
@@ -131,13 +142,19 @@ def fmt_sig(v: Any, digits: int = 3) -> str:
 def _with(v: Any, unit: str, digits: int = 3) -> str:
     text = fmt_sig(v, digits)
     # A no-break space keeps a figure and its unit together when a narrow screen wraps.
-    return text if text == "n/a" else f"{text}\u00a0{unit}"
+    return text if text == MISSING else f"{text}\u00a0{unit}"
 
 
-def _hz(v: Any, resolution_hz: Any) -> str:
-    """A frequency with as many decimals as the spectrum resolves (half a bin)."""
+def hz_text(v: Any, resolution_hz: Any) -> str:
+    """A frequency with as many decimals as the spectrum resolves (half a bin), with its
+    unit: 5.77 Hz at a resolution of 0.2 Hz reads ``5.8 Hz``; :data:`MISSING` when unknown.
+
+    Parameters
+    ----------
+    v : the frequency, Hz. resolution_hz : the spectrum's bin spacing, Hz (None: 0.1 Hz).
+    """
     if not isinstance(v, int | float) or not math.isfinite(v):
-        return "n/a"
+        return MISSING
     res = resolution_hz if isinstance(resolution_hz, int | float) and resolution_hz > 0 else 0.1
     decimals = min(3, max(0, math.ceil(-math.log10(res / 2.0))))
     return f"{v:.{decimals}f}\u00a0Hz"
@@ -156,13 +173,21 @@ def dominant_text(s: dict[str, Any], axis: str, fmt: Callable[[Any], str],
 
 
 def _dominant(s: dict[str, Any], axis: str) -> str:
-    return dominant_text(s, axis, lambda v: _hz(v, s.get("spectrum_resolution_hz")))
+    return dominant_text(s, axis, lambda v: hz_text(v, s.get("spectrum_resolution_hz")))
 
 
 def _share(count: Any, total: Any) -> str:
     if not isinstance(count, int) or not isinstance(total, int) or total <= 0:
-        return "n/a"
-    return f"{count} ({100.0 * count / total:.1f} %)"
+        return MISSING
+    return f"{count} ({100.0 * count / total:.1f}\u00a0%)"
+
+
+def _percent(v: Any, digits: int = 3) -> str:
+    """A share (0–1) as a percentage."""
+    if v is None or isinstance(v, bool) or not isinstance(v, int | float) or \
+            not math.isfinite(v):
+        return MISSING
+    return _with(100.0 * v, "%", digits)
 
 
 def _table(head: list[str], rows: list[list[str]]) -> str:
@@ -208,13 +233,14 @@ def relative_href(path: str) -> str:
     return "./" + "/".join(quote(part, safe="") for part in p.parts)
 
 
-def html_page(*, title: str, header: str, body: str, footer: str) -> str:
+def html_page(*, title: str, header: str, body: str, footer: str, extra_css: str = "") -> str:
     """One self-contained page in the shared look.
 
     Parameters
     ----------
     title : the page title (plain text). header, body, footer : HTML of the header (under the
         heading ``title``), the sections and the footer.
+    extra_css : the page's own CSS, after :data:`PAGE_CSS`.
     """
     return f"""<!DOCTYPE html>
 <html lang="en">
@@ -225,7 +251,7 @@ def html_page(*, title: str, header: str, body: str, footer: str) -> str:
  content="default-src 'none'; img-src data:; style-src 'unsafe-inline'; base-uri 'none';
  form-action 'none'">
 <title>{escape(title)}</title>
-<style>{PAGE_CSS}</style>
+<style>{PAGE_CSS}{extra_css}</style>
 </head>
 <body>
 <main>
@@ -258,11 +284,11 @@ def _figures_section(s: dict[str, Any]) -> str:
         ["RMS", _with(s.get("jitter_rms_x_px"), "px"), _with(s.get("jitter_rms_y_px"), "px"),
          _with(s.get("jitter_rms_rot_deg"), "deg")],
         ["RMS, angle", _with(s.get("jitter_rms_x_deg"), "deg"),
-         _with(s.get("jitter_rms_y_deg"), "deg"), "—"],
+         _with(s.get("jitter_rms_y_deg"), "deg"), MISSING],
         ["peak-to-peak", _with(s.get("jitter_p2p_x_px"), "px"),
          _with(s.get("jitter_p2p_y_px"), "px"), _with(s.get("jitter_p2p_rot_deg"), "deg")],
         ["peak-to-peak, angle", _with(s.get("jitter_p2p_x_deg"), "deg"),
-         _with(s.get("jitter_p2p_y_deg"), "deg"), "—"],
+         _with(s.get("jitter_p2p_y_deg"), "deg"), MISSING],
         ["dominant", _dominant(s, "x"), _dominant(s, "y"), _dominant(s, "rot")],
     ]
     if s.get("jitter_rms_x_px_out") is not None or s.get("jitter_rms_rot_deg_out") is not None:
@@ -314,18 +340,84 @@ def _steady_section(s: dict[str, Any]) -> str:
     extra = [
         ["cropping ratio (1 = nothing cut)", fmt_sig(s.get("cropping_ratio"))],
         ["distortion (1 = no stretch)", fmt_sig(s.get("distortion"))],
-        ["margin cut from each side", fmt_sig(s.get("margin"))],
-        ["frames whose correction was eased", str(s.get("frames_correction_eased", "n/a"))],
+        ["margin cut from each side", _percent(s.get("margin")) + " of the width and height"
+         if isinstance(s.get("margin"), int | float) else MISSING],
+        ["frames whose correction was eased", str(s.get("frames_correction_eased", MISSING))],
     ]
     if "output_steadier" in s:
         verdict = {True: "yes", False: "NO: check the log and the settings",
                    None: "not measured"}[s.get("output_steadier")]
         extra.append(["steadier than the source (both measured on frames)", verdict])
-        extra.append(["shake removed, x / y (1 = all)",
-                      f"{fmt_sig(s.get('shake_reduction_x'))} / "
-                      f"{fmt_sig(s.get('shake_reduction_y'))}"])
+        extra.append(["shake removed, x / y (100 % = all)",
+                      f"{_percent(s.get('shake_reduction_x'))} / "
+                      f"{_percent(s.get('shake_reduction_y'))}"])
     return (_table(["figure", "as shot", "steadied"], rows) + "<p></p>"
             + _table(["after steadying", "value"], extra))
+
+
+def _data_uri(image: bytes) -> str:
+    """A PNG or JPEG image (told apart by its first bytes) as a data URI."""
+    kind = "jpeg" if image[:3] == b"\xff\xd8\xff" else "png"
+    return f"data:image/{kind};base64," + base64.b64encode(image).decode("ascii")
+
+
+def _plot_figure(role: str, wide: bytes, narrow: bytes | None) -> str:
+    """One plot with its caption; with a narrow copy, a ``<picture>`` that shows it on
+    phones (:data:`NARROW_SCREEN`) and the wide one elsewhere."""
+    alt = escape(role.replace("_", " "))
+    img = f'<img alt="{alt}" src="{_data_uri(wide)}">'
+    if narrow is not None:
+        img = (f'<picture><source media="{NARROW_SCREEN}" srcset="{_data_uri(narrow)}">'
+               f"{img}</picture>")
+    return (f'<figure class="plot">{img}'
+            f"<figcaption>{escape(_PLOT_CAPTIONS.get(role, ''))}</figcaption></figure>")
+
+
+#: The unit of each setting that takes a number of something.
+_SETTING_UNITS = {"analysis_width": "px", "window_s": "s", "inlier_px": "px",
+                  "shake_above_hz": "Hz", "fov_deg": "deg", "readout_ms": "ms"}
+
+
+def setting_text(key: str, value: Any, summary: dict[str, Any] | None = None) -> str:
+    """A setting's value in plain words, with its unit.
+
+    ``None`` reads "not given", an empty list "none", a region list ``x 0, y 980, 1920 × 100
+    px``, a boolean "yes"/"no", ``margin`` as a percentage of the frame (with the one chosen,
+    from ``summary``, for ``auto``), ``analysis_width`` 0 as "full resolution".
+
+    Parameters
+    ----------
+    key : the setting's name (as in the motion log's ``settings``).
+    value : its value (JSON-ready).
+    summary : the clip's summary, for the margin ``auto`` chose; optional.
+
+    Returns
+    -------
+    str : the text to show.
+    """
+    if value is None:
+        return "not given"
+    if isinstance(value, bool):
+        return "yes" if value else "no"
+    if isinstance(value, list | tuple):
+        if not value:
+            return "none"
+        if key == "ignore":
+            return "; ".join(f"x {r[0]}, y {r[1]}, {r[2]} × {r[3]} px" for r in value
+                             if isinstance(r, list | tuple) and len(r) == 4) or MISSING
+        return ", ".join(str(v) for v in value)
+    if key == "margin":
+        if value == "auto":
+            chosen = (summary or {}).get("margin")
+            return "auto" + (f" (chose {_percent(chosen)})"
+                             if isinstance(chosen, int | float) else "")
+        return _percent(value) if isinstance(value, int | float) else str(value)
+    if key == "analysis_width" and value == 0:
+        return "full resolution"
+    unit = _SETTING_UNITS.get(key)
+    if unit is not None and isinstance(value, int | float):
+        return f"{value:g}\u00a0{unit}"
+    return str(value)
 
 
 #: What each verdict level says, in plain words.
@@ -354,8 +446,8 @@ def _uncertainty_section(s: dict[str, Any], notes: list[str]) -> str:
         ["frames", str(n)],
         ["weak (few or bunched inliers)", _share(s.get("frames_weak"), n)],
         ["failed (stand-in motion)", _share(s.get("frames_failed"), n)],
-        ["scene cuts", str(s.get("cuts", "n/a"))],
-        ["median inlier share", fmt_sig(s.get("inlier_ratio_median"))],
+        ["scene cuts", str(s.get("cuts", MISSING))],
+        ["median inlier share", _percent(s.get("inlier_ratio_median"))],
         ["median fit residual", _with(s.get("fit_rms_px_median"), "px")],
         ["frequency resolution", _with(s.get("spectrum_resolution_hz"), "Hz")],
         ["highest measurable frequency (Nyquist)", _with(s.get("nyquist_hz"), "Hz")],
@@ -369,7 +461,7 @@ def _uncertainty_section(s: dict[str, Any], notes: list[str]) -> str:
 
 def _vibration_card(s: dict[str, Any]) -> str:
     """The rolling-shutter vibration card: frequency, amplitude and the readout used."""
-    readout = f"readout {fmt_sig(s.get('readout_ms'))} ms ({s.get('readout_source')})"
+    readout = f"readout {_with(s.get('readout_ms'), 'ms')} ({s.get('readout_source')})"
     if s.get("readout_ms_sigma") is not None:
         readout += f" ± {fmt_sig(s['readout_ms_sigma'])} ms"
     if not s.get("vibration_found"):
@@ -383,7 +475,8 @@ def _vibration_card(s: dict[str, Any]) -> str:
 
 def render_page(*, name: str, source: dict[str, Any], summary: dict[str, Any], notes: list[str],
                 settings: dict[str, Any], images: dict[str, bytes],
-                log_name: str | None, tool_version: str) -> str:
+                log_name: str | None, tool_version: str,
+                narrow_images: dict[str, bytes] | None = None) -> str:
     """The report page as one HTML string.
 
     Parameters
@@ -393,6 +486,9 @@ def render_page(*, name: str, source: dict[str, Any], summary: dict[str, Any], n
         figures).
     notes : notes on this clip's uncertainty (the standing :data:`CAUTIONS` are added).
     images : PNG bytes by plot role (``path_plot`` …), embedded as base64 data URIs.
+    narrow_images : the same plots drawn for phones (the ``narrow`` layout of
+        :mod:`stabilize.report_plots`), shown on screens matching :data:`NARROW_SCREEN`;
+        a role missing here shows its ``images`` plot on every screen.
     log_name : file name of the motion log the figures come from.
     tool_version : the version that wrote the report.
     """
@@ -432,36 +528,37 @@ def render_page(*, name: str, source: dict[str, Any], summary: dict[str, Any], n
         cards += _vibration_card(s)
     shown = set(s.get("trust_reasons") or [])
     other_notes = [n for n in notes if n not in shown]
-    plots = "".join(
-        f'<figure><img alt="{escape(role.replace("_", " "))}" '
-        f'src="data:image/png;base64,{base64.b64encode(data).decode("ascii")}">'
-        f"<figcaption>{escape(_PLOT_CAPTIONS.get(role, ''))}</figcaption></figure>"
-        for role, data in images.items()
-    )
-    settings_rows = [[k, "—" if v is None else str(v)] for k, v in settings.items()]
+    plots = "".join(_plot_figure(role, data, (narrow_images or {}).get(role))
+                    for role, data in images.items())
+    settings_rows = [[k, setting_text(k, v, s)] for k, v in settings.items()
+                     if k not in RUN_SWITCHES]
     caution_items = "".join(f"<li>{escape(c)}</li>" for c in CAUTIONS)
     body = f"""{_verdict_section(s)}
-<section><h2>Key figures</h2><div class="cards">{cards}</div></section>
-<section><h2>How certain these figures are</h2>{_uncertainty_section(s, other_notes)}</section>
-<section><h2>Shake per axis</h2>
+<section id="key-figures"><h2>Key figures</h2><div class="cards">{cards}</div></section>
+<section id="certainty"><h2>How certain these figures are</h2>
+{_uncertainty_section(s, other_notes)}</section>
+<section id="shake"><h2>Shake per axis</h2>
 <p>Shake is the camera path's motion above {_with(s.get("shake_above_hz"), "Hz")}: the path minus
 its slow, deliberate part; x is horizontal, y vertical. {fov_text}</p>
 {_figures_section(s)}</section>
-<section><h2>Shake power by frequency band</h2>
+<section id="bands"><h2>Shake power by frequency band</h2>
 <p>Power in each band (its share of the axis's total in brackets); the bands add up to the
 shake RMS squared. Motion below the shake cut-off is not counted, so the lowest band is small
 unless the cut-off is lowered.</p>
 {_bands_section(s)}</section>
-<section><h2>Steadiness</h2>
+<section id="steadiness"><h2>Steadiness</h2>
 <p>Stability: the share of the per-frame motion's spectral energy at the lowest frequencies
 (after Liu, Yuan, Tan and Sun, SIGGRAPH 2013); 1 means steady. Scene cuts and frames with a
 stand-in motion are left out, and motion no larger than the measurement's own noise
 ({_with(s.get("motion_noise_px"), "px")} per frame) counts as steady. It says how smooth the
 motion is, not how large: see the shake figures for that.</p>
 {_steady_section(s)}</section>
-<section><h2>Plots</h2>{plots}</section>
-<section><h2>Settings used</h2>{_table(["setting", "value"], settings_rows)}</section>
-<section class="cautions"><h2>Cautions</h2><ul>{caution_items}</ul></section>"""
+<section id="plots"><h2>Plots</h2>{plots}</section>
+<section id="settings"><h2>Settings used</h2>
+<p>The settings that shape these figures and the steadied video (switches that only change
+how the run behaves are left out).</p>
+{_table(["setting", "value"], settings_rows)}</section>
+<section id="cautions" class="cautions"><h2>Cautions</h2><ul>{caution_items}</ul></section>"""
     return html_page(
         title=f"Shake report: {name}", header=f'<p class="sub">{escape(sub)}</p>', body=body,
         footer=f"Written by stabilize {escape(tool_version)}. This page needs no network: "

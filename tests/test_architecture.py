@@ -32,14 +32,14 @@ LAYERS: dict[str, int] = {
     # 2: stages (and the generic worker runner and prefetch threads they and the jobs use)
     "anchors": 2, "camera_path": 2, "consensus": 2, "cuts": 2, "demo_scene": 2, "frame_fit": 2,
     "framing": 2, "motion": 2, "motion_models": 2, "motion_pass": 2, "motion_track": 2,
-    "overlays": 2, "prefetch": 2, "render": 2, "report_page": 2, "report_plots": 2,
+    "overlays": 2, "pinning": 2, "prefetch": 2, "render": 2, "report_page": 2, "report_plots": 2,
     "residual": 2, "rolling": 2, "row_bands": 2, "row_check": 2, "row_motion": 2,
     "row_warp": 2, "runner": 2, "shake": 2,
     "smoothers": 2, "steadiness": 2, "steady_path": 2, "synthetic": 2,
     "synthetic_rolling": 2, "track": 2,
     "track_groups": 2, "vibration": 2,
     # 3: jobs
-    "jobs": 3, "segments": 3,
+    "jobs": 3, "jobs.batch_page": 3, "segments": 3,
     # 4: the command line
     "cli": 4, "__main__": 4,
 }

@@ -78,7 +78,7 @@ def test_batch_failed_row_resume_force(folder, tmp_path):
         assert doc["source"]["size_bytes"] > 0 and doc["source"]["mtime_ns"] > 0
     page = (out / "summary.html").read_text()
     assert 'href="./sub/B.report.html"' in page and "<script" not in page
-    assert "<th>verdict</th>" in page
+    assert ">verdict</th>" in page
 
     t0 = time.monotonic()
     again = run("batch", str(folder), "--out-dir", str(out), "--workers", "2", "--quiet")
@@ -115,3 +115,31 @@ def test_no_videos_is_a_usage_error(tmp_path):
     proc = run("batch", str(tmp_path), "--out-dir", str(tmp_path / "o"))
     assert proc.returncode == 2
     assert "no video files" in proc.stderr and "Traceback" not in proc.stderr
+
+
+def test_measure_only_after_a_steady_batch_removes_the_video_the_new_log_does_not_describe(
+        tmp_path):
+    from stabilize.config import Settings
+    from stabilize.jobs.batch import run_batch
+
+    src = tmp_path / "in"
+    src.mkdir()
+    write_clip(src / "c.mp4", noise_frames(12, 96, 64, shift_px=1.0), 24.0)
+    out = tmp_path / "out"  # missing: the batch creates it
+    steady = run_batch(src, out, settings=Settings(preset="ultrafast"), workers=1)
+    assert steady.count("done") == 1
+    video, log_json = out / "c.steady.mp4", out / "c.motion.json"
+    assert video.is_file()
+    # The same settings: the steady outputs hold a log that describes the video; skipped.
+    same = run_batch(src, out, settings=Settings(preset="ultrafast"), workers=1,
+                     measure_only=True)
+    assert same.count("skipped") == 1 and video.is_file()
+    # Measured again with other settings: the new log no longer describes the old video.
+    again = run_batch(src, out, settings=Settings(preset="ultrafast", seed=5), workers=1,
+                      measure_only=True)
+    assert again.count("done") == 1, again.results[0].error
+    assert not video.exists()
+    assert json.loads(log_json.read_text())["batch"]["job"] == "measure"
+    assert any("removed" in w and "c.steady.mp4" in w for w in again.results[0].warnings)
+    with open(again.summary_csv, newline="") as fh:
+        assert next(csv.DictReader(fh))["video"] == ""

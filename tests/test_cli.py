@@ -69,12 +69,12 @@ def test_render_from_log_and_config_precedence(clip, tmp_path):
     assert run("measure", str(clip), "--log", str(log), "--quiet").returncode == 0
     cfg = tmp_path / "my.toml"
     cfg.write_text('margin = 0.2\nwindow_s = 2.0\n')
-    out = tmp_path / "out" / "r.mp4"
-    out.parent.mkdir()
-    proc = run("render", str(clip), "--log", str(log), "-o", str(out), "--config", str(cfg),
+    out = tmp_path / "out" / "r.mp4"  # a missing folder is created
+    proc = run("render", str(clip), "--log", str(log), "-o", str(out), "--settings", str(cfg),
                "--margin", "0.05", "--quiet")
     assert proc.returncode == 0, proc.stderr
-    doc = json.loads((out.parent / "pan.motion.json").read_text())
+    # The new log is named after the video, so a second render into the folder works too.
+    doc = json.loads((out.parent / "r.motion.json").read_text())
     assert doc["settings"]["margin"] == 0.05 and doc["settings"]["window_s"] == 2.0
     assert doc["summary"]["margin"] == 0.05
 
@@ -88,9 +88,10 @@ def test_bad_input_gives_one_line_and_status_2(clip, tmp_path):
     _one_line_error(run("steady", str(clip), "--model", "spline"), "--model")
     _one_line_error(run("steady", str(clip), "--margin", "0.7"), "--margin", "0.45")
     _one_line_error(run("steady", str(clip), "--inlier-px", "-2"), "--inlier-px")
-    _one_line_error(run("steady", str(clip), "--config", "no-such-preset"), "preset")
-    _one_line_error(run("steady", str(clip), "-o", str(tmp_path / "no" / "dir" / "x.mp4")),
-                    "does not exist")
+    _one_line_error(run("steady", str(clip), "--settings", "no-such-name"), "--settings",
+                    "no settings file named")
+    _one_line_error(run("steady", str(clip), "-o", str(text / "dir" / "x.mp4")),
+                    "x.mp4", "folder")
     _one_line_error(run("render", str(clip), "--log", str(tmp_path / "missing.csv")),
                     "missing.csv")
     assert not list(tmp_path.glob("*.partial*"))
@@ -104,7 +105,7 @@ def test_input_is_never_touched(clip):
 
 
 def test_demo_runs_and_says_where_the_outputs_are(tmp_path):
-    proc = run("demo", "--out", str(tmp_path / "demo"), "--quiet")
+    proc = run("demo", "--out-dir", str(tmp_path / "demo"), "--quiet")
     assert proc.returncode == 0, proc.stderr
     outs = [Path(line.split(": ", 1)[1]) for line in proc.stdout.splitlines()
             if line.startswith(("video:", "motion log:"))]
@@ -144,3 +145,179 @@ def test_library_messages_name_settings_and_the_cli_words_them_as_flags():
     assert flag_wording("a.mp4: already exists (setting 'force' allows overwriting)") == \
         "a.mp4: already exists (option --force allows overwriting)"
     assert flag_wording("a.mp4: no such file") == "a.mp4: no such file"
+
+
+# ------------------------------------------------------------- help that fits
+def _help(command: str) -> str:
+    from stabilize.cli import build_parser
+
+    sub = build_parser()._subparsers._group_actions[0].choices[command]
+    return sub.format_help()
+
+
+def _accepted(command: str) -> set[str]:
+    from stabilize.cli import build_parser
+
+    sub = build_parser()._subparsers._group_actions[0].choices[command]
+    return {flag for action in sub._actions for flag in action.option_strings}
+
+
+ENCODING = {"--crf", "--preset", "--codec", "--compare"}
+SMOOTHING = {"--smoother", "--window-s", "--margin", "--fill"}
+
+
+def test_each_command_shows_and_accepts_only_the_options_it_uses():
+    measure = _help("measure")
+    for flag in ENCODING | SMOOTHING:
+        assert flag not in measure and flag not in _accepted("measure")
+    assert not (ENCODING | SMOOTHING) & _accepted("report")
+    for command in ("steady", "render", "batch", "demo"):
+        assert ENCODING | SMOOTHING <= _accepted(command)
+    assert "--workers" in _accepted("measure") and "--workers" not in _accepted("steady")
+    assert "--analysis-width" not in _accepted("render")  # a render re-uses the log's motion
+    for command in ("steady", "measure", "render", "report", "batch", "demo"):
+        text = _help(command)
+        for title in ("input:", "output:", "run:"):
+            if not (command == "demo" and title == "input:"):  # the demo reads its own clip
+                assert f"\n{title}" in text, (command, title)
+    assert "\nanalysis:" in _help("steady") and "\nsmoothing and framing:" in _help("steady")
+    assert "\noutput encoding:" in _help("steady")
+    # A flag the command does not use is refused, naming the command.
+    from stabilize.cli import main
+
+    assert main(["measure", "x.mp4", "--crf", "20"]) == 2
+
+
+def test_refused_option_names_the_command(capsys):
+    from stabilize.cli import main
+
+    assert main(["measure", "x.mp4", "--codec", "h265"]) == 2
+    err = capsys.readouterr().err
+    assert "--codec" in err and "stabilize measure --help" in err and len(err.splitlines()) == 1
+
+
+def test_log_is_an_input_of_render_and_an_output_elsewhere():
+    def section(text: str, title: str) -> str:
+        part = text.split(f"\n{title}:\n", 1)[1]
+        return part.split("\n\n", 1)[0]
+
+    assert "--log" in section(_help("render"), "input")
+    assert "--log" not in section(_help("render"), "output")
+    for command in ("steady", "measure"):
+        assert "--log" in section(_help(command), "output")
+
+
+def test_output_folders_are_out_dir_and_old_spellings_still_parse():
+    from stabilize.cli import build_parser
+
+    parser = build_parser()
+    for command, args in (("report", ["x.csv"]), ("demo", []), ("batch", ["in"])):
+        assert "--out-dir" in _help(command) and "--out " not in _help(command)
+        new = parser.parse_args([command, *args, "--out-dir", "D"])
+        old = parser.parse_args([command, *args, "--out", "D"])
+        assert new.out_dir == old.out_dir == "D"
+    new = parser.parse_args(["steady", "x.mp4", "--settings", "drone-inspection"])
+    old = parser.parse_args(["steady", "x.mp4", "--config", "drone-inspection"])
+    assert new.config == old.config == "drone-inspection"
+    assert "--config" not in _help("steady")
+
+
+def test_settings_files_are_not_called_presets():
+    readme = (Path(__file__).resolve().parent.parent / "README.md").read_text()
+    for text in (readme, *(_help(c) for c in ("steady", "measure", "render", "report"))):
+        # "preset" is the encoder's speed, and only that.
+        lines = [ln for ln in text.splitlines() if "preset" in ln.lower()]
+        assert all("--preset" in ln for ln in lines), lines
+    assert "encoder speed" in _help("steady")
+    assert "settings file" in _help("steady")
+
+
+def test_quiet_help_and_readme_agree():
+    readme = (Path(__file__).resolve().parent.parent / "README.md").read_text()
+    row = next(ln for ln in readme.splitlines() if ln.startswith("| `--quiet`"))
+    help_text = " ".join(_help("steady").split())
+    for words in ("no progress bars", "no info or note lines", "warnings and errors still "
+                  "print"):
+        assert words in row and words in help_text, words
+
+
+def test_demo_has_no_force():
+    from stabilize.cli import main
+
+    assert "--force" not in _accepted("demo")
+    assert main(["demo", "--force"]) == 2
+
+
+def test_options_are_checked_before_existing_outputs(clip, tmp_path, capsys):
+    from stabilize.cli import main
+
+    log = tmp_path / "there.motion.csv"
+    log.write_text("x")
+    assert main(["measure", str(clip), "--log", str(log), "--scheduler", "nowhere"]) == 2
+    assert "--scheduler" in capsys.readouterr().err
+    assert main(["measure", str(clip), "--log", str(log), "--workers", "0"]) == 2
+    assert "--workers" in capsys.readouterr().err
+    assert main(["steady", str(clip), "--log", str(log), "--margin", "0.9"]) == 2
+    err = capsys.readouterr().err
+    assert "--margin" in err and "already exists" not in err
+
+
+def test_a_second_render_into_one_folder_gets_its_own_log(clip, tmp_path):
+    log = tmp_path / "pan.motion.csv"
+    assert run("measure", str(clip), "--log", str(log), "--quiet").returncode == 0
+    out = tmp_path / "renders"
+    for video, smoother in (("a.mp4", "gaussian"), ("b.mp4", "kalman")):
+        proc = run("render", str(clip), "--log", str(log), "-o", str(out / video),
+                   "--smoother", smoother, "--preset", "ultrafast", "--quiet")
+        assert proc.returncode == 0, proc.stderr
+    docs = {v: json.loads((out / f"{v}.motion.json").read_text()) for v in ("a", "b")}
+    assert docs["a"]["settings"]["smoother"] == "gaussian"
+    assert docs["b"]["settings"]["smoother"] == "kalman"
+    assert not (out / "pan.motion.csv").exists()
+
+
+# ---------------------------------------------------------- streams and terminals
+class _Stream:
+    def __init__(self, tty: bool) -> None:
+        self.tty = tty
+
+    def isatty(self) -> bool:
+        return self.tty
+
+    def write(self, text: str) -> int:
+        return len(text)
+
+    def flush(self) -> None:
+        pass
+
+
+def test_progress_bars_only_on_a_terminal(monkeypatch):
+    from stabilize import cli
+
+    monkeypatch.setattr(sys, "stderr", _Stream(False))
+    assert cli._progress(False) is None
+    monkeypatch.setattr(sys, "stderr", _Stream(True))
+    assert cli._progress(False) is not None
+    assert cli._progress(True) is None
+
+
+def test_notes_go_to_stderr_and_stdout_lists_the_files(clip, tmp_path, capsys):
+    from stabilize.cli import main
+
+    log = tmp_path / "n.motion.csv"
+    assert run("measure", str(clip), "--log", str(log), "--quiet").returncode == 0
+    capsys.readouterr()
+    assert main(["report", str(log), "--out-dir", str(tmp_path / "rep")]) == 0
+    out, err = capsys.readouterr()
+    assert "note:" not in out
+    assert "stabilize: note: " in err  # no --fov-deg given: a note says so
+    assert any(ln.startswith("report: ") for ln in out.splitlines())
+    assert main(["report", str(log), "--out-dir", str(tmp_path / "rep2"), "--quiet"]) == 0
+    assert "note:" not in capsys.readouterr().err
+
+
+def test_demo_checks_its_options_before_making_its_folder(tmp_path):
+    from stabilize.cli import main
+
+    assert main(["demo", "--out-dir", str(tmp_path / "d"), "--margin", "0.9", "--quiet"]) == 2
+    assert not (tmp_path / "d").exists()

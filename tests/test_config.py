@@ -44,6 +44,8 @@ def test_flags_override_file_over_defaults(tmp_path):
         ({"ignore": ["1,2,3"]}, "ignore"),
         ({"crf": "3.5"}, "crf"),
         ({"window_s": "nan"}, "window_s"),
+        ({"pin_overlays": "yes"}, "pin_overlays"),
+        ({"pin_overlays": 1}, "pin_overlays"),
     ],
 )
 def test_bad_values_name_the_setting_and_the_cli_words_it_as_a_flag(overrides, name):
@@ -55,6 +57,15 @@ def test_bad_values_name_the_setting_and_the_cli_words_it_as_a_flag(overrides, n
     assert flag_wording(text).startswith(f"option {flag}:")
 
 
+def test_pin_overlays_defaults_to_found_and_is_read_from_files_and_flags(tmp_path):
+    assert Settings().pin_overlays == "found" == build_settings("default").pin_overlays
+    cfg = tmp_path / "pins.toml"
+    cfg.write_text('pin-overlays = "all"\n')
+    assert build_settings(str(cfg)).pin_overlays == "all"
+    assert build_settings(str(cfg), {"pin_overlays": "off"}).pin_overlays == "off"
+    assert Settings(pin_overlays="off").to_dict()["pin_overlays"] == "off"
+
+
 def test_unknown_key_and_bad_toml(tmp_path):
     bad = tmp_path / "bad.toml"
     bad.write_text("modle = 'affine'\n")
@@ -64,7 +75,7 @@ def test_unknown_key_and_bad_toml(tmp_path):
     broken.write_text("model = \n")
     with pytest.raises(StabilizeError, match="not valid TOML"):
         read_config(str(broken))
-    with pytest.raises(StabilizeError, match="no preset named"):
+    with pytest.raises(StabilizeError, match="no settings file named"):
         read_config("no-such-preset")
 
 

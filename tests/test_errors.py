@@ -270,8 +270,8 @@ OUTPUTS = [
     Case("destination under a file", _under_a_file,
          ["steady", "{in}", "-o", "{dir}/notes.txt/out.mp4"], 2,
          ("notes.txt", "not a folder")),
-    Case("destination folder missing", "clip", ["steady", "{in}", "-o", "{dir}/no/such/out.mp4"],
-         2, ("does not exist",)),
+    Case("destination folder under a file", "clip",
+         ["steady", "{in}", "-o", "{dir}/clip.mp4/such/out.mp4"], 2, ("out.mp4", "folder")),
     Case("existing output without --force", _existing_output, ["steady", "{in}"], 2,
          ("clip.steady.mp4", "already exists", "--force")),
 ]
@@ -290,7 +290,7 @@ OPTIONS = [
         ("--smoother", "spline", ("gaussian", "kalman", "l1", "lockoff")),
         ("--preset", "fastest", ("ultrafast", "veryslow")),
         ("--codec", "vp9", ("h264", "h265", "ffv1")),
-        ("--config", "no-such-preset", ("drone-inspection", ".toml")),
+        ("--settings", "no-such-name", ("drone-inspection", ".toml")),
         ("--crf", "99", ("0 to 51",)),
         ("--crf", "high", ("0 to 51",)),
         ("--max-rounds", "0", ("at least 1",)),
@@ -310,7 +310,7 @@ LOGS = [
     Case("render: log header damaged", _bad_log(lambda t: t.replace("time_s", "time", 1)),
          ["render", "{in}", "--log", "{dir}/clip.motion.csv", "-o", "{dir}/r.mp4"], 2,
          ("clip.motion.csv", "line 1")),
-    Case("render: a cell not a number", _bad_log(lambda t: t.replace(",ok,", ",ok,x", 1)),
+    Case("render: a cell not a number", _bad_log(lambda t: t.replace(",first,", ",first,x", 1)),
          ["render", "{in}", "--log", "{dir}/clip.motion.csv", "-o", "{dir}/r.mp4"], 2,
          ("clip.motion.csv", "line 2")),
     Case("render: a row cut short", _bad_log(lambda t: t[: t.index("\n", t.index("\n") + 1)
@@ -679,7 +679,9 @@ def test_hostile_scheduler_that_never_answers(sources, tmp_path, http, command):
     ("--ignore", "0,0,1e12,5", ("within",)),
 ])
 def test_hostile_options_bounded(clip_here, tmp_path, capsys, flag, value, words):
-    _refused(["measure", "--quiet", str(clip_here), flag, value], tmp_path, capsys, flag,
+    # measure takes no smoothing options: the window is steady's.
+    command = "steady" if flag == "--window-s" else "measure"
+    _refused([command, "--quiet", str(clip_here), flag, value], tmp_path, capsys, flag,
              *words)
 
 

@@ -7,10 +7,14 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
+import stabilize
 from stabilize import read_log
 from stabilize.errors import StabilizeError
 from stabilize.geometry import frame_centre, similarity_readout
 from stabilize.motion_log import BASE_COLUMNS, COLUMNS, MotionLog
+from stabilize.shake.stability import measured_frames
+
+from .conftest import noise_frames, write_clip
 
 
 def _log(n=6, with_corrections=True):
@@ -262,3 +266,22 @@ def test_the_record_is_on_the_ground_floor():
     assert ours and set(ours) <= ground, ours
     assert not [n for n in ast.walk(tree) if isinstance(n, ast.Import)
                 and any(a.name.split(".")[0] in ("os", "io", "csv", "json") for a in n.names)]
+
+
+def test_frame_0_is_first_not_a_measurement(tmp_path):
+    """Frame 0 has nothing before it: its status says so, and ``status == "ok"`` (the filter
+    a script uses for measured frames) leaves it out; the log reader accepts the value."""
+    clip = write_clip(tmp_path / "pan.mp4", noise_frames(8, 96, 64, shift_px=1.0), 24.0)
+    log = stabilize.measure(clip)
+    assert log.status[0] == "first" and log.tracked[0] == 0
+    assert "first" not in log.status[1:]
+    assert not (log.status == "ok")[0]
+    assert not measured_frames(log.status)[0]
+    csv_path, _ = log.save(tmp_path / "pan.motion.csv")
+    assert csv_path.read_text().splitlines()[1].split(",")[
+        COLUMNS.index("status")] == "first"
+    back = read_log(csv_path)
+    np.testing.assert_array_equal(back.status, log.status)
+    # Counted as neither weak nor failed.
+    assert back.summary["frames_weak"] + back.summary["frames_failed"] == int(
+        np.isin(back.status, ["weak", "failed"]).sum())

@@ -162,7 +162,7 @@ def test_render_from_a_wrong_log_says_the_output_is_not_steadier(truss, tmp_path
     run = _cli("render", str(path), "--log", str(bad), "-o", str(out), "--quiet")
     assert run.returncode == 0, run.stderr
     assert "not steadier than the source" in run.stderr
-    doc = json.loads((tmp_path / "truss.motion.json").read_text())
+    doc = json.loads((tmp_path / "wrong.motion.json").read_text())
     s = doc["summary"]
     assert s["output_steadier"] is False
     assert s["shake_reduction_x"] < 0 or s["shake_reduction_y"] < 0

@@ -16,7 +16,15 @@ from stabilize.io import PlanarImage, VideoWriter, iter_frame_range, iter_frames
 from stabilize.io.encode import output_pix_fmt
 from stabilize.io.frames import YUV_BLACK
 from stabilize.io.process import ffmpeg_exe
-from stabilize.render import plane_matrix, side_by_side, warp, warp_planes
+from stabilize.render import (
+    COMPARE_MAX_SIDE,
+    compare_layout,
+    compare_size,
+    plane_matrix,
+    side_by_side,
+    warp,
+    warp_planes,
+)
 from stabilize.render import render as render_frames
 
 from .conftest import noise_frames, write_clip
@@ -202,35 +210,87 @@ def test_side_by_side_planar_matches_rgb_layout(size):
         return PlanarImage.wrap(planes.ravel(), fmt, img.shape[1], img.shape[0])
 
     yuv = side_by_side(planar(rgb_a), planar(rgb_b))
-    assert (yuv.width, yuv.height) == (rgb.shape[1], rgb.shape[0])
+    assert (yuv.width, yuv.height) == (rgb.shape[1], rgb.shape[0]) == compare_size(w, h)
     ref = planar(rgb)
-    picture = rgb.any(axis=2)
-    assert (yuv.y[~picture] == 16).all()
-    diff = np.abs(yuv.y.astype(int) - ref.y.astype(int))[picture]
+    diff = np.abs(yuv.y.astype(int) - ref.y.astype(int))
     assert np.mean(diff <= 3) > 0.97
     again = side_by_side(planar(rgb_a), planar(rgb_b), out=yuv)
     assert again is yuv
 
 
+@pytest.mark.parametrize("size,stacked", [((1280, 720), True), ((640, 480), False),
+                                          ((720, 1280), False), ((1912, 800), True),
+                                          ((98, 66), False), ((3, 2), False),
+                                          ((3840, 2160), True), ((4096, 1716), True),
+                                          ((1278, 720), False)])
+def test_compare_layout_fills_its_canvas_and_a_screen(size, stacked):
+    """The halves tile the canvas exactly (no bars), at even sizes and the source's aspect;
+    sources of 16:9 and wider are stacked; on a 16:9 screen the two halves cover half of it,
+    the most two pictures of that shape can, each with twice the pixels of the old
+    letterboxed half-size layout."""
+    w, h = size
+    lay = compare_layout(w, h)
+    (cw, ch), (hw, hh) = lay.size, lay.half
+    assert lay.stacked is stacked
+    assert cw % 2 == ch % 2 == hw % 2 == hh % 2 == 0
+    assert (cw, ch) == ((hw, 2 * hh) if stacked else (2 * hw, hh)) == compare_size(w, h)
+    assert {lay.origin(0), lay.origin(1)} == ({(0, 0), (0, hh)} if stacked
+                                              else {(0, 0), (hw, 0)})
+    assert max(cw, ch) <= COMPARE_MAX_SIDE
+    if min(w, h) >= 64:
+        assert abs(hw * h / w - hh) <= 2.0    # the source's aspect, to the even rounding
+        screen = 16 / 9
+        fit = min(cw / ch / screen, screen / (cw / ch))   # share of the screen the video fills
+        assert fit >= 0.49
+        assert cw * ch <= 1.02 * w * h    # no dearer to encode than the steadied video
+
+
+@pytest.mark.parametrize("w,h", [(320, 180), (240, 180)])
+def test_side_by_side_labels_each_half_and_leaves_the_rest_alone(w, h):
+    """Planar and RGB, stacked and side by side: each half carries its own label (white text
+    on a black box) in its top-left corner; away from the labels the canvas is the frames,
+    resized."""
+    grey_a = np.full((h, w, 3), 100, np.uint8)
+    grey_b = np.full((h, w, 3), 150, np.uint8)
+    lay = compare_layout(w, h)
+    hw, hh = lay.half
+    rgb = side_by_side(grey_a, grey_b)
+    yuv = side_by_side(_i420(grey_a), _i420(grey_b))
+    for canvas, black, white, planes in ((rgb[..., 1], 0, 255, None), (yuv.y, 16, 235, yuv)):
+        corners = []
+        levels = [canvas[y + hh - 1, x + 1] for x, y in (lay.origin(0), lay.origin(1))]
+        for i, level in enumerate(levels):
+            x, y = lay.origin(i)
+            corner = canvas[y:y + hh // 4, x:x + hw // 2].astype(int)
+            assert (corner == black).mean() > 0.05        # the box
+            assert (corner >= white - 10).any()           # the text
+            rest = canvas[y + hh // 3:y + hh, x:x + hw]
+            assert (rest == level).all()
+            corners.append(corner)
+        assert levels[0] != levels[1]
+        assert not np.array_equal(corners[0], corners[1])   # "input" against "steadied"
+        if planes is not None:
+            x, y = lay.origin(1)
+            box = (yuv.y[y:y + hh // 4, x:x + hw // 2] == 16)
+            rows, cols = np.flatnonzero(box.any(1)), np.flatnonzero(box.any(0))
+            assert (yuv.u[(y + rows[0]) // 2, (x + cols[0]) // 2] == 128)
+
+
 def test_side_by_side_halves_split_the_chroma_planes_evenly():
-    """4:2:0 at a size not divisible by 4: each half is a whole number of chroma pixels,
-    the rest limited-range black in every plane."""
+    """4:2:0 at a size not divisible by 4: each half is a whole number of chroma pixels and
+    its chroma is the source's, resized on its own, outside the label."""
     w, h = 98, 66
     a, b = _i420(_smooth_rgb(w, h, 1)), _i420(_smooth_rgb(w, h, 2))
     yuv = side_by_side(a, b)
-    assert (yuv.width, yuv.height) == (98, 66)
-    rows = np.flatnonzero((yuv.y != 16).any(axis=1))
-    cols = np.flatnonzero((yuv.y != 16).any(axis=0))
-    top, half_h, width = rows[0], rows[-1] + 1 - rows[0], cols[-1] + 1
-    assert top % 2 == 0 and half_h % 2 == 0 and width % 4 == 0 and width >= w - 2
-    for plane, s in ((yuv.u, 2), (yuv.v, 2)):
-        box = np.zeros(plane.shape, bool)
-        box[top // s:(top + half_h) // s, :width // s] = True
-        assert (plane[~box] == 128).all()
-    hw = width // 2
-    np.testing.assert_array_equal(
-        yuv.u[top // 2:(top + half_h) // 2, hw // 2:hw],
-        cv2.resize(b.u, (hw // 2, half_h // 2), interpolation=cv2.INTER_AREA))
+    lay = compare_layout(w, h)
+    hw, hh = lay.half
+    assert (yuv.width, yuv.height) == lay.size
+    for i, img in enumerate((a, b)):
+        x, y = lay.origin(i)
+        for got, want in ((yuv.u, img.u), (yuv.v, img.v)):
+            part = got[y // 2:(y + hh) // 2, x // 2:(x + hw) // 2]
+            ref = cv2.resize(want, (hw // 2, hh // 2), interpolation=cv2.INTER_AREA)
+            np.testing.assert_array_equal(part[hh // 4:], ref[hh // 4:])
 
 
 def _frames_rgb(path: Path) -> list[np.ndarray]:
@@ -266,7 +326,7 @@ def test_steady_renders_in_the_output_format(tmp_path, codec, size):
         assert np.abs(got[t].astype(int) - ref.astype(int))[inside].mean() < 3.0
     compare = Path(log.extra["outputs"]["compare"])
     side = _frames_rgb(compare)
-    assert len(side) == log.frames and side[0].shape[:2] == (h // 2 * 2, w // 2 * 2)
+    assert len(side) == log.frames and side[0].shape[1::-1] == compare_size(w, h)
     ref = side_by_side(source[10], warp(source[10], log.corrections[10], "black"))
     assert np.abs(side[10].astype(int) - ref.astype(int)).mean() < 4.0
 

@@ -3,9 +3,7 @@
 from __future__ import annotations
 
 import json
-import os
 import re
-import shutil
 import subprocess
 import sys
 from pathlib import Path
@@ -21,6 +19,7 @@ from stabilize.jobs import make_report
 from stabilize.jobs.outputs import log_name as report_name
 from stabilize.motion_log import MotionLog
 
+from .browser import LAPTOP, PHONE, browser, chromium, measure
 from .conftest import noise_frames, write_clip
 
 W, H, FPS = 640, 360, 30.0
@@ -170,20 +169,11 @@ def test_cli_report_errors_are_one_line(tmp_path):
 
 # ------------------------------------------------------------------ in a browser
 def _chromium() -> str:
-    exe = shutil.which("chromium") or ("/usr/bin/chromium" if Path("/usr/bin/chromium").is_file()
-                                       else None)
-    if exe is None:
-        if os.environ.get("CI"):
-            pytest.fail("chromium is missing; .ci/run installs Debian's chromium package")
-        pytest.skip("chromium is not installed (CI installs it)")
-    return exe
+    return chromium()
 
 
 def _browser(exe: str, profile: Path, *args: str) -> subprocess.CompletedProcess:
-    flags = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
-             "--disable-background-networking", "--disable-component-update", "--disable-sync",
-             f"--user-data-dir={profile}", "--hide-scrollbars"]
-    return subprocess.run([exe, *flags, *args], capture_output=True, text=True, timeout=120)
+    return browser(exe, profile, *args)
 
 
 def test_the_page_in_a_real_browser(sine_report, tmp_path):
@@ -197,7 +187,8 @@ def test_the_page_in_a_real_browser(sine_report, tmp_path):
     assert "Shake report: sine pass" in text
     assert f"{s['jitter_rms_x_px']:.2f} px" in text  # 3 significant digits of 2.83 px
     assert "3.50 Hz" in text  # the dominant frequency, to the spectrum's resolution
-    assert text.count("data:image/png;base64,") == 3
+    # Each plot twice: for large screens and (in a <source>) for phones.
+    assert text.count('<img alt="') == 3 and text.count("<source media=") == 3
     assert "Nyquist" in text and "aviation rules" in text
     shot = tmp_path / "page.png"
     for width, height in ((1200, 3000), (390, 3000)):  # a laptop and a phone
@@ -270,7 +261,11 @@ def test_output_names_come_from_one_place(tmp_path):
     assert plan.compare == tmp_path / "flight 2.steady.compare.mp4"
     moved = plan_outputs(clip, video_out=tmp_path / "o" / "x.mp4", log_out=None,
                          with_video=True, compare=False)
-    assert moved.log_csv == tmp_path / "o" / "flight 2.motion.csv" and moved.compare is None
+    # The log is named after the video given (so renders into one folder never collide).
+    assert moved.log_csv == tmp_path / "o" / "x.motion.csv" and moved.compare is None
+    steady_named = plan_outputs(clip, video_out=tmp_path / "o" / "y.steady.mp4", log_out=None,
+                                with_video=True, compare=False)
+    assert steady_named.log_csv == tmp_path / "o" / "y.motion.csv"
     with pytest.raises(StabilizeError, match=r"\*\.csv"):
         plan_outputs(clip, video_out=None, log_out=tmp_path / "x.txt", with_video=False,
                      compare=False)
@@ -280,3 +275,158 @@ def test_output_names_come_from_one_place(tmp_path):
     assert files["shake_json"] == report["json"] == tmp_path / "flight 2.shake.json"
     assert files["log"] == report["log_csv"] and files["video"] == plan.video
     assert "video" not in clip_files(tmp_path, "flight 2", with_video=False)
+
+
+def test_the_page_fits_a_phone_and_a_laptop(sine_report, tmp_path):
+    """Nothing wider than the screen; the phone gets the narrow plots, the laptop the wide
+    ones; the plots' smallest text is at least 9 CSS px tall where it is shown."""
+    from stabilize.report_plots import MIN_FONT_PT, NARROW, WIDE
+
+    exe = _chromium()
+    _, rep = sine_report
+    for width, layout in ((PHONE, NARROW), (LAPTOP, WIDE)):
+        m = measure(exe, rep.outputs["html"], width, tmp_path)
+        assert m["viewport"] == width
+        assert m["scroll_width"] <= width, m["scroll_width"]
+        assert m["min_font_px"] >= 11.0, m["min_font_px"]
+        assert len(m["images"]) == 3
+        for img in m["images"]:
+            assert img["variant"] == ("source" if layout is NARROW else "img"), img
+            assert img["natural_width"] >= 100 * layout.width_in, img  # 100 dots an inch or more
+            assert 0 <= img["left"] and img["right"] <= width, img
+            # A figure layout.width_in inches wide is shown img["width"] CSS px wide.
+            text_px = MIN_FONT_PT / 72.0 * img["width"] / layout.width_in
+            assert text_px >= 9.0, (width, img["alt"], text_px)
+
+
+# ------------------------------------------------------------------ plots and page, by parts
+@pytest.fixture
+def drawn(monkeypatch):
+    """Every figure the plot functions draw, as matplotlib figures (after drawing)."""
+    from stabilize import report_plots
+
+    figures = []
+    original = report_plots._png
+
+    def keep(fig, *args):
+        data = original(fig, *args)
+        figures.append(fig)
+        return data
+
+    monkeypatch.setattr(report_plots, "_png", keep)
+    return figures
+
+
+def _draw_every_plot(layout: str) -> None:
+    from stabilize import report_plots as rp
+    from stabilize.geometry import similarity_readout
+
+    motion = _sine_motion(Path("."))
+    raw = similarity_readout(motion.path, motion.centre)
+    cuts = motion.status == "cut"
+    rp.plot_path(time_s=motion.time_s, raw=raw, smooth=raw * 0.5, cuts=cuts, fps=FPS,
+                 above_hz=1.0, layout=layout)
+    rp.plot_spectrum(time_s=motion.time_s, raw=raw, cuts=cuts, fps=FPS, above_hz=1.0,
+                     resolution_hz=0.2, layout=layout)
+    rp.plot_fit(time_s=motion.time_s, tracked=motion.tracked,
+                inlier_ratio=motion.inlier_ratio, status=motion.status, layout=layout)
+    f = np.linspace(0, 200, 400)
+    rp.plot_vibration(freqs_hz=f, amplitude_px=np.abs(np.sin(f)), usable=f > 5,
+                      blind_hz=[(26.0, 34.0)], fps=FPS, peak_hz=150.0, peak_px=0.8,
+                      false_alarm=1e-4, readout_ms=20.0, layout=layout)
+    rng = np.random.default_rng(0)
+    frames = {i: rng.integers(0, 255, (90, 160, 3), dtype=np.uint8) for i in (3, 50, 200)}
+    assert rp.plot_frames(time_s=motion.time_s, wanted=[3, 50, 200], pairs=(frames, frames),
+                          layout=layout) is not None
+
+
+@pytest.mark.parametrize("layout", ["wide", "narrow"])
+def test_every_plot_is_as_wide_as_its_layout_and_no_text_is_smaller_than_the_minimum(
+        drawn, layout):
+    from matplotlib.text import Text
+
+    from stabilize.report_plots import LAYOUTS, MIN_FONT_PT
+
+    _draw_every_plot(layout)
+    assert len(drawn) == 5
+    for fig in drawn:
+        assert fig.get_figwidth() == pytest.approx(LAYOUTS[layout].width_in)
+        texts = [t for t in fig.findobj(Text) if t.get_visible() and t.get_text().strip()]
+        assert texts
+        small = [(t.get_text(), t.get_fontsize()) for t in texts
+                 if t.get_fontsize() < MIN_FONT_PT]
+        assert not small, small
+    narrow_path = drawn[0]
+    if layout == "narrow":  # a phone's plot is taller than it is wide
+        assert narrow_path.get_figheight() > 2 * narrow_path.get_figwidth()
+
+
+def test_the_path_legend_sits_outside_every_panel_and_the_shake_has_units(drawn):
+    _draw_every_plot("wide")
+    fig = drawn[0]
+    renderer = fig.canvas.get_renderer()
+    assert all(ax.get_legend() is None for ax in fig.axes)
+    assert len(fig.legends) == 1
+    box = fig.legends[0].get_window_extent(renderer)
+    for ax in fig.axes:
+        assert not box.overlaps(ax.get_window_extent(renderer)), ax.get_title()
+    titles = [ax.get_title(loc="left") for ax in fig.axes]
+    rms = [t for t in titles if "RMS" in t]
+    assert len(rms) == 3
+    assert all(re.search(r"±RMS [\d.]+ (px|deg)\)", t) for t in rms), rms
+
+
+def _cells(html: str, section: str) -> list[list[str]]:
+    part = re.search(rf'<section id="{section}".*?</section>', html, flags=re.S)
+    assert part, section
+    return [re.findall(r"<td[^>]*>(.*?)</td>", row, flags=re.S)
+            for row in re.findall(r"<tr[^>]*>(.*?)</tr>", part.group(0), flags=re.S)
+            if "<td" in row]
+
+
+def _page(**changes) -> str:
+    from stabilize.jobs.report import report_figures
+    from stabilize.report_page import render_page
+
+    motion = _sine_motion(Path("."), fov_deg=None)
+    settings = Settings(force=True, quiet=True, compare=True, **changes)
+    summary, _ = report_figures(motion, settings)
+    return render_page(name="x", source=motion.source, summary=summary, notes=[],
+                       settings=settings.to_dict(), images={}, log_name=None,
+                       tool_version="0")
+
+
+def test_the_settings_table_shows_what_shapes_the_results_in_plain_words():
+    rows = dict(_cells(_page(), "settings"))
+    for switch in ("force", "quiet", "compare"):
+        assert switch not in rows
+    assert rows["ignore"] == "none" and rows["fov_deg"] == "not given"
+    assert rows["window_s"] == "1\u00a0s" and rows["shake_above_hz"] == "1\u00a0Hz"
+    assert rows["analysis_width"] == "960\u00a0px" and rows["inlier_px"] == "1.5\u00a0px"
+    assert rows["model"] == "similarity"
+    rows = dict(_cells(_page(ignore=((0, 300, 640, 60),), margin=0.05, analysis_width=0,
+                             fov_deg=70.0), "settings"))
+    assert rows["ignore"] == "x 0, y 300, 640 × 60 px"
+    assert rows["margin"] == "5.00\u00a0%" and rows["analysis_width"] == "full resolution"
+    assert rows["fov_deg"] == "70\u00a0deg"
+    assert not any(v.startswith(("[", "(")) or v in ("None", "True", "False", "")
+                   for v in rows.values()), rows
+
+
+def test_one_mark_for_a_missing_figure_and_a_unit_on_every_figure():
+    from stabilize.report_page import MISSING
+
+    html = _page()  # no field of view: the angle rows are all missing
+    every = [c for sec in ("certainty", "shake", "bands", "steadiness")
+             for row in _cells(html, sec) for c in row]
+    assert not {c for c in every if c.strip() in ("—", "-", "None", "nan", "null", "")}
+    shake_rows = _cells(html, "shake")
+    angle = [r for r in shake_rows if r[0].startswith(("RMS, angle", "peak-to-peak, angle"))]
+    assert len(angle) == 2 and all(c == MISSING for r in angle for c in r[1:])
+    units = ("px", "deg", "Hz", "%", "no clear peak", MISSING, "not measurable")
+    for row in shake_rows + _cells(html, "bands"):
+        for c in row[1:]:
+            assert any(u in c for u in units), (row[0], c)
+    certainty = dict(r for r in _cells(html, "certainty"))
+    assert certainty["median inlier share"].endswith("%")
+    assert certainty["median fit residual"].endswith("px")

@@ -256,7 +256,8 @@ def test_writer_tags_colour_and_pixel_shape_without_touching_the_pixels(tmp_path
                                          .tobytes()), "yuv420p", 64, 48) for _ in range(5)]
     tags = ColourTags("tv", "bt709", "bt2020", "arib-std-b67")
     decoded = {}
-    for name, colour, sar in (("tagged", tags, (32, 27)), ("untagged", None, (1, 1))):
+    for name, colour, sar in (("tagged", tags, (32, 27)), ("square", None, (1, 1)),
+                              ("untagged", None, None)):
         out = tmp_path / f"{name}.mp4"
         with VideoWriter(out, 64, 48, 25.0, codec="ffv1", input_pix_fmt="yuv420p",
                          colour=colour, sar=sar, times_s=times, time_base=12800) as w:
@@ -265,7 +266,7 @@ def test_writer_tags_colour_and_pixel_shape_without_touching_the_pixels(tmp_path
         decoded[name] = [f.image.data.tobytes() for f in iter_frames(out, yuv="yuv420p")]
         assert probe(out).colour == (tags if colour else ColourTags())
         assert probe(out).sar == sar
-    assert decoded["tagged"] == decoded["untagged"]
+    assert decoded["tagged"] == decoded["square"] == decoded["untagged"]
     # ffv1 is stored as 4:4:4 here, so only the luma comes back bit for bit.
     luma = 64 * 48
     assert [d[:luma] for d in decoded["tagged"]] == [bytes(f.data)[:luma] for f in frames]
@@ -282,3 +283,8 @@ def test_probe_reads_the_pixel_aspect_ratio_upright(tmp_path):
     # Read upright, a pixel is as tall as it was wide.
     assert (info.width, info.height, info.sar) == (48, 72, (27, 32))
     assert probe(_ff_rgb(tmp_path / "square.mp4")).sar == (1, 1)
+    # No tag at all (players assume square pixels) reads as None, not as a 1:1 tag.
+    bare = tmp_path / "bare.mp4"
+    _ff("-f", "lavfi", "-i", "testsrc2=s=72x48:d=0.2:r=25", "-vf", "setsar=0",
+        "-c:v", "libx264", str(bare))
+    assert probe(bare).sar is None

@@ -163,17 +163,17 @@ def plausible(m: list[float], bounds: MotionBounds, frame: Frame) -> bool:
     if not abs(m22) > 1e-12:
         return False
     k = 1.0 / m22
-    a, b, tx, c, d, ty, g, h = (v * k for v in m[:8])
+    m0, m1, m2, m3, m4, m5, m6, m7 = m[:8]
+    a, b, tx, c, d, ty, g, h = m0 * k, m1 * k, m2 * k, m3 * k, m4 * k, m5 * k, m6 * k, m7 * k
     if not math.isfinite(a + b + tx + c + d + ty + g + h):
         return False
-    hw = 0.5 * frame.width
-    hh = 0.5 * frame.height
     # Depth 1 + g x + h y must stay positive on every corner of the frame.
-    if abs(g) * hw + abs(h) * hh >= 0.999:
+    if abs(g) * (0.5 * frame.width) + abs(h) * (0.5 * frame.height) >= 0.999:
         return False
-    if math.hypot(g, h) * 0.5 * frame.diagonal > bounds.max_perspective:
+    diagonal = frame.diagonal
+    if math.hypot(g, h) * 0.5 * diagonal > bounds.max_perspective:
         return False
-    if frame.known and math.hypot(tx, ty) > bounds.max_shift_frac * frame.diagonal:
+    if frame.known and math.hypot(tx, ty) > bounds.max_shift_frac * diagonal:
         return False
     # Local Jacobian at the centre: J = A - t (g, h)^T.
     j00, j01, j10, j11 = a - tx * g, b - tx * h, c - ty * g, d - ty * h
@@ -228,14 +228,14 @@ def occupied_cells(xy: NDArray[np.float64], frame: Frame, grid: int = SPREAD_GRI
     """
     if xy.shape[1] == 0:
         return 0
-    gx = (xy[0] - frame.x0) * (grid / frame.width)
-    gy = (xy[1] - frame.y0) * (grid / frame.height)
-    top = grid - 0.5
-    cells = np.minimum(np.maximum(gx, 0.0, out=gx), top, out=gx).astype(np.intp)
-    cells += grid * np.minimum(np.maximum(gy, 0.0, out=gy), top, out=gy).astype(np.intp)
-    occupied = np.zeros(grid * grid, dtype=bool)
-    occupied[cells] = True
-    return int(np.count_nonzero(occupied))
+    # Cell coordinates of every point, clipped into the grid (a point on the frame's edge
+    # or outside it counts in the nearest cell).
+    g = (xy - np.array([[frame.x0], [frame.y0]])) * np.array([[grid / frame.width],
+                                                              [grid / frame.height]])
+    np.minimum(np.maximum(g, 0.0, out=g), grid - 0.5, out=g)
+    gi = g.astype(np.intp)
+    cells = gi[0] + grid * gi[1]
+    return int(np.count_nonzero(np.bincount(cells, minlength=grid * grid)))
 
 
 def weakness(n_inliers: int, n: int, cells: int) -> str:

@@ -75,15 +75,14 @@ def local_optimise(
         The lowest-cost model seen (``start`` if no refit improved it).
     """
     best = cur = start
-    need = model.sample_size
     prev = None
+    last = factors[-1]
     for k in factors:
         mask = inlier_mask(cur.sq_res, k * k * t2)
-        if np.count_nonzero(mask) < need:
-            break
-        if prev is not None and np.array_equal(mask, prev):
+        if prev is not None and not (mask ^ prev).any():
             break  # converged: the same inliers would give the same refit
-        prev = mask if k == factors[-1] else None
+        prev = mask if k == last else None
+        # None also when fewer inliers than a minimal sample remain.
         h = model.refit(feat, z, mask)
         if h is None:
             break

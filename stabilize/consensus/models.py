@@ -26,6 +26,7 @@ References
 
 from __future__ import annotations
 
+import math
 from collections.abc import Callable
 from dataclasses import dataclass
 
@@ -138,14 +139,15 @@ def normalisation(src: Array, dst: Array) -> tuple[Normalisation, Array, Array]:
     z[2:4] = dst
     z[4] = 1.0
     mean = (z[:4] @ z[4]) / n
-    z[:4] -= mean[:, None]
+    np.subtract(z[:4], mean[:, None], out=z[:4])
     gram = z[:4] @ z[:4].T
-    ms = float(np.trace(gram)) / (2 * n)
-    # Coincident data has no spread to normalise; scale 1 keeps the arithmetic finite.
-    scale = float(np.sqrt(2.0 / ms)) if ms > 1e-300 else 1.0
-    z[:4] *= scale
-    gram *= scale * scale
     m = mean.tolist()
+    ms = (gram[0, 0] + gram[1, 1] + gram[2, 2] + gram[3, 3]) / (2 * n)
+    # Coincident data has no spread to normalise; scale 1 keeps the arithmetic finite.
+    scale = math.sqrt(2.0 / ms) if ms > 1e-300 else 1.0
+    if scale != 1.0:
+        np.multiply(z[:4], scale, out=z[:4])
+        gram *= scale * scale
     return Normalisation((m[0], m[1]), (m[2], m[3]), scale), z, gram
 
 
@@ -217,6 +219,72 @@ def _homography_sq_residuals_one(feat: Array, h: Array) -> Array:
     return _homography_sq_residuals(feat, h[None])[0]
 
 
+def _similarity_features(z: Array) -> Array:
+    """The nine per-point features of the similarity transfer error, shape (9, n):
+    ``(x^2 + y^2, x, y, xu + yv, xv - yu, u, v, u^2 + v^2, 1)`` (see :data:`SIM_FEATURES`).
+
+    With ``theta = (a, b, tx, ty, 1)`` for ``q = [[a, -b], [b, a]] p + t`` the squared
+    transfer error is a quadratic form ``theta^T Q theta`` whose distinct entries are these
+    features (signs of the constant row folded into :data:`_SIM_FORM`); summed over inliers
+    they are also every moment the least-squares similarity needs.
+    """
+    x, y, u, v = z[0], z[1], z[2], z[3]
+    f = np.empty((9, z.shape[1]))
+    np.multiply(z[:2], z[:2], out=f[1:3])
+    np.add(f[1], f[2], out=f[0])
+    np.multiply(z[2:4], z[2:4], out=f[5:7])
+    np.add(f[5], f[6], out=f[7])
+    np.multiply(z[:2], z[2:4], out=f[1:3])  # xu, yv
+    np.add(f[1], f[2], out=f[3])
+    np.multiply(x, v, out=f[4])
+    f[4] -= y * u
+    f[1:3] = z[:2]
+    f[5:7] = z[2:4]
+    f[8] = 1.0
+    return f
+
+
+#: Row order of :func:`_similarity_features`.
+SIM_FEATURES = ("xx+yy", "x", "y", "xu+yv", "xv-yu", "u", "v", "uu+vv", "1")
+
+
+def _similarity_form() -> Array:
+    """(25, 9) map from the outer product ``theta theta^T`` (flattened) of
+    ``theta = (a, b, tx, ty, 1)`` to the coefficients of the nine similarity features in
+    ``r^2 = |a x - b y + tx - u|^2 + |b x + a y + ty - v|^2``."""
+    k = np.zeros((5, 5, 9))
+    k[0, 0, 0] = k[1, 1, 0] = 1.0  # (a^2 + b^2) (x^2 + y^2)
+    k[0, 2, 1] = k[1, 3, 1] = 2.0  # 2 (a tx + b ty) x
+    k[0, 3, 2], k[1, 2, 2] = 2.0, -2.0  # 2 (a ty - b tx) y
+    k[0, 4, 3] = -2.0  # -2 a (xu + yv)
+    k[1, 4, 4] = -2.0  # -2 b (xv - yu)
+    k[2, 4, 5] = k[3, 4, 6] = -2.0  # -2 tx u, -2 ty v
+    k[4, 4, 7] = 1.0  # u^2 + v^2
+    k[2, 2, 8] = k[3, 3, 8] = 1.0  # tx^2 + ty^2
+    return k.reshape(25, 9)
+
+
+_SIM_FORM = _similarity_form()
+#: Positions of (a, b, tx, ty, h33 = 1) in a flattened similarity matrix.
+_SIM_THETA = np.array([0, 3, 2, 5, 8])
+
+
+def _similarity_sq_residuals(feat: Array, h: Array) -> Array:
+    """Squared transfer errors of similarities h (B, 3, 3) with ``h33 = 1`` -> (B, n)."""
+    b = h.shape[0]
+    th = np.take(h.reshape(b, 9), _SIM_THETA, axis=1)
+    outer = th[:, :, None] * th[:, None, :]
+    return (outer.reshape(b, 25) @ _SIM_FORM) @ feat
+
+
+def _similarity_sq_residuals_one(feat: Array, h: Array) -> Array:
+    """Squared transfer errors of one similarity (3, 3) with ``h33 = 1``, shape (n,)."""
+    a, _, tx, b, _, ty = h[:2].ravel().tolist()
+    form = (a * a + b * b, 2.0 * (a * tx + b * ty), 2.0 * (a * ty - b * tx), -2.0 * a,
+            -2.0 * b, -2.0 * tx, -2.0 * ty, 1.0, tx * tx + ty * ty)
+    return np.array(form) @ feat
+
+
 # --------------------------------------------------------------------------- protocol
 
 
@@ -275,7 +343,8 @@ _LIN = (_linear_features, _linear_sq_residuals, _linear_sq_residuals_one)
 MODELS: dict[str, Model] = {
     "translation": Model("translation", 1, 2, _LIN[0], translation_solve, _LIN[1], _LIN[2],
                          translation_refit, translation_project, spread_rank=0),
-    "similarity": Model("similarity", 2, 4, _LIN[0], similarity_solve, _LIN[1], _LIN[2],
+    "similarity": Model("similarity", 2, 4, _similarity_features, similarity_solve,
+                        _similarity_sq_residuals, _similarity_sq_residuals_one,
                         similarity_refit, similarity_project, spread_rank=1),
     "affine": Model("affine", 3, 6, _LIN[0], affine_solve, _LIN[1], _LIN[2],
                     affine_refit, affine_project),

@@ -17,27 +17,38 @@ from __future__ import annotations
 import numpy as np
 from numpy.typing import NDArray
 
-__all__ = ["canonical_order", "draw_samples"]
+__all__ = ["canonical_order", "draw_samples", "sort_key"]
 
 # Weights of a scalar sort key; irrational-looking so that distinct rows tie only by
 # accident (ties fall back to an exact lexicographic sort).
 _KEY = np.array([1.0, 0.7548776662466927, 0.5698402909980532, 0.4301597090019468])
 
 
-def canonical_order(pts: NDArray[np.float64]) -> NDArray[np.intp]:
+def sort_key(pts: NDArray[np.float64]) -> NDArray[np.float64]:
+    """Scalar sort key of each correspondence (column of ``pts``, shape (4, n)); not finite
+    exactly when the column holds a non-finite value or overflows."""
+    return _KEY @ pts
+
+
+def canonical_order(
+    pts: NDArray[np.float64], key: NDArray[np.float64] | None = None
+) -> NDArray[np.intp]:
     """Order of rows that depends only on their values.
 
     Parameters
     ----------
     pts : ndarray, shape (4, n)
         Rows ``x, y, u, v``: src and dst coordinates of each correspondence (column).
+    key : ndarray, shape (n,), optional
+        ``sort_key(pts)`` when already computed.
 
     Returns
     -------
     ndarray of intp, shape (n,)
         Permutation sorting the columns; identical columns are interchangeable.
     """
-    key = _KEY @ pts
+    if key is None:
+        key = _KEY @ pts
     order = np.argsort(key)
     k = np.take(key, order)
     if (k[1:] == k[:-1]).any():

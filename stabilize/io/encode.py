@@ -101,7 +101,8 @@ class VideoWriter:
     format spares the encoder a conversion. ``colour`` tags the stream (:class:`ColourTags`,
     for instance :func:`output_colour` of the source); it describes the values fed, so it
     suits planar YUV input carried through from a decoder, not RGB. ``sar`` is the pixel
-    aspect ratio (width:height of one pixel) players are told, for non-square-pixel sources.
+    aspect ratio (width:height of one pixel) players are told, the source's tag carried over
+    (:attr:`VideoInfo.sar`, square pixels included); None writes no tag.
 
     ``fps`` is a number or an exact ratio string such as ``"30000/1001"``. Audio of
     ``audio_from`` is copied through unchanged when the container allows it. If the block raises,
@@ -124,7 +125,7 @@ class VideoWriter:
     time_base : ticks per second of the clock ``times_s`` is written in (0: 90000).
     input_pix_fmt : ``"rgb24"``, ``"yuv420p"`` or ``"yuv444p"``.
     colour : tags stamped on the stream, or None.
-    sar : pixel aspect ratio (width, height of one pixel).
+    sar : pixel aspect ratio (width, height of one pixel) to tag, or None for no tag.
 
     Raises
     ------
@@ -149,7 +150,7 @@ class VideoWriter:
         time_base: int = 0,
         input_pix_fmt: str = "rgb24",
         colour: ColourTags | None = None,
-        sar: tuple[int, int] = (1, 1),
+        sar: tuple[int, int] | None = None,
     ) -> None:
         if codec not in ENCODERS:
             raise StabilizeError(f"codec {codec!r} is not one of {', '.join(ENCODERS)}")
@@ -158,7 +159,7 @@ class VideoWriter:
         self.input_pix_fmt = input_pix_fmt
         # Filters that only label the frames (colour, pixel shape) for the encoder.
         tags = [colour.setparams_filter() if colour is not None else None,
-                f"setsar={int(sar[0])}/{int(sar[1])}" if tuple(sar) != (1, 1) else None]
+                None if sar is None else f"setsar={int(sar[0])}/{int(sar[1])}"]
         self._tag = ",".join(t for t in tags if t) or None
         self.path = Path(path)
         self.width, self.height = int(width), int(height)

@@ -53,8 +53,10 @@ class VideoInfo:
     #: not read)
     pix_fmt: str = ""
     colour: ColourTags = ColourTags()
-    #: sample (pixel) aspect ratio of the upright picture, width:height of one pixel
-    sar: tuple[int, int] = (1, 1)
+    #: sample (pixel) aspect ratio of the upright picture, width:height of one pixel, as the
+    #: stream tags it (1:1 for a square-pixel tag); None when it carries no tag (players then
+    #: assume square pixels)
+    sar: tuple[int, int] | None = None
 
     @property
     def has_audio(self) -> bool:
@@ -260,10 +262,10 @@ def probe(path: str | os.PathLike) -> VideoInfo:
     rot = _ROTATION.search(block, side.end()) if side else None
     rotation = float(rot.group(1)) if rot else 0.0
     sars = [(int(a), int(b)) for a, b in _SAR.findall(tail) if int(a) > 0 and int(b) > 0]
-    sar = sars[-1] if sars else (1, 1)
+    sar = sars[-1] if sars else None
     if round(abs(rotation)) % 180 == 90:
         width, height = height, width
-        sar = (sar[1], sar[0])
+        sar = None if sar is None else (sar[1], sar[0])
     audio = next((s for s in streams if s[1] == "Audio"), None)
     tbn = _TBN.search(tail)
     time_base = int(float(tbn.group(1)) * (1000 if tbn.group(2) else 1)) if tbn else 0

@@ -13,6 +13,11 @@ A clip is done when its motion log JSON records the source's size and modificati
 same settings, and every output is there. A clip's outputs (video, log, report) are published
 together, so a log that records the source never stands without the rest. Such a clip is
 skipped; ``force`` redoes it. One clip's failure never stops the others.
+
+A clip measured again with ``measure_only`` where an earlier run steadied it loses that
+steadied video (and its side-by-side comparison) once the new log and report are written: the
+new log no longer describes it, and the batch owns its output folder. A warning names each
+file removed.
 """
 
 from __future__ import annotations
@@ -20,7 +25,6 @@ from __future__ import annotations
 import csv
 import fnmatch
 import glob
-import html
 import io
 import json
 import logging
@@ -36,11 +40,18 @@ from ..config import Settings, setting_label
 from ..errors import StabilizeError
 from ..io import all_or_nothing, write_text_atomic
 from ..io.motion_log_files import save_log
-from ..report_page import dominant_text, fmt_sig, html_page, html_table, relative_href
 from ..runner import default_workers, parallel_map
-from ..version import __version__
 from .analysis import measure_clip
-from .outputs import check_job_outputs, check_outputs, clip_files, plan_outputs, report_files
+from .batch_page import summary_html
+from .outputs import (
+    check_job_outputs,
+    check_outputs,
+    clip_files,
+    compare_video,
+    plan_outputs,
+    report_files,
+    steady_video,
+)
 from .rendering import steady_clip
 from .report import find_videos, report_for_log
 
@@ -304,7 +315,20 @@ def _do_clip(job: ClipJob, clip: Path, settings: Settings) -> dict:
                       files, settings.force)
         report_for_log(motion, settings, files, name=job.name, log_csv=outs["log"],
                        clip=videos[0], steadied=videos[1])
+    if job.measure_only:
+        _remove_stale_video(Path(job.folder), job.name)
     return motion.summary
+
+
+def _remove_stale_video(folder: Path, name: str) -> None:
+    """Remove the steadied video (and its comparison) an earlier steady run left beside a log
+    just replaced by a measurement: the new log does not describe it."""
+    video = steady_video(folder, name)
+    for p in (video, compare_video(video)):
+        if p.is_file():
+            p.unlink()
+            _log.warning("%s: removed: an earlier steadied video, which the new motion log "
+                         "(measured only) no longer describes", p)
 
 
 def process_clip(job: ClipJob) -> ClipResult:
@@ -457,44 +481,3 @@ def spreadsheet_safe(cell: Any) -> Any:
         return "'" + cell
     return cell
 
-
-def _verdict_cell(row: dict[str, Any]) -> str:
-    """The verdict, its reasons in small type under it."""
-    if not row["trust"]:
-        return ""
-    reasons = html.escape(row["trust_reasons"])
-    more = f'<br><span class="why">{reasons}</span>' if reasons else ""
-    return f'<span class="trust-{html.escape(row["trust"])}">{html.escape(row["trust"])}' \
-           f"</span>{more}"
-
-
-def summary_html(results: list[ClipResult], out_dir: Path) -> str:
-    """One self-contained page (no scripts, no network), in the report pages' look: a table of
-    every clip with its figures and links to its report, video and log (relative, so the
-    folder can move)."""
-    esc = html.escape
-    heads = ["clip", "status", "frames", "verdict", "shake x (px)", "shake y (px)",
-             "shake rot (deg)", "dominant x (Hz)", "dominant y (Hz)", "weak", "failed",
-             "files"]
-    rows, classes = [], []
-    for r in results:
-        row = r.row(out_dir)
-        links = " ".join(f'<a href="{esc(relative_href(row[k]))}">{label}</a>'
-                         for k, label in (("report", "report"), ("video", "video"),
-                                          ("log", "log")) if relative_href(row[k]))
-        detail = esc(r.error) if r.status == "failed" else links
-        cells = [esc(r.clip), esc(r.status), esc(str(row["frames"])), _verdict_cell(row)]
-        cells += [esc(fmt_sig(r.summary.get(k))) for k in
-                  ("jitter_rms_x_px", "jitter_rms_y_px", "jitter_rms_rot_deg")]
-        cells += [esc(dominant_text(r.summary, axis, fmt_sig)) for axis in ("x", "y")]
-        cells += [esc(str(row["frames_weak"])), esc(str(row["frames_failed"])), detail]
-        rows.append(cells)
-        classes.append(r.status)
-    counts = {s: sum(r.status == s for r in results) for s in ("done", "skipped", "failed")}
-    intro = (f"<p>{len(results)} clips: {counts['done']} done, {counts['skipped']} skipped "
-             f"(done before), {counts['failed']} failed. Shake figures describe the camera as "
-             "the frames sample it. The verdict says how far each clip's figures can be "
-             "trusted (sound, rough or unreliable) and why; each clip's report says more.</p>")
-    return html_page(title="Batch summary", header="", body=intro + html_table(heads, rows,
-                                                                              classes),
-                     footer=f"Written by stabilize {esc(__version__)}.")

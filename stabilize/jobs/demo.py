@@ -68,10 +68,10 @@ def run_demo(out: str | Path | None = None, *, config: str | None = None,
     (MotionLog, Report) : the steadied clip's motion log and the report written.
     """
     out_dir = Path(out) if out else Path("stabilize-demo")
+    options.setdefault("force", True)
+    settings = resolve_settings(config, options)  # options first: a bad one makes no folder
     out_dir.mkdir(parents=True, exist_ok=True)
     clip = demo_clip(out_dir)
-    options.setdefault("force", True)
-    settings = resolve_settings(config, options)
     name = clip_name(clip)
     outputs = plan_outputs(clip, video_out=steady_video(out_dir, name), log_out=None,
                            with_video=True, compare=settings.compare)

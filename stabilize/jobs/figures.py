@@ -33,7 +33,7 @@ def shake_summary(*, matrices: np.ndarray, status: np.ndarray, time_s: np.ndarra
     ----------
     matrices : (n, 3, 3) inter-frame transforms H_t, pixels (conventions of
         :mod:`stabilize.motion_log` and :mod:`stabilize.geometry`).
-    status : (n,) per-frame status (``ok``, ``weak``, ``failed``, ``cut``).
+    status : (n,) per-frame status (``ok``, ``weak``, ``failed``, ``cut``, ``first``).
     time_s : (n,) frame times, s.
     rms_px : (n,) fit residual, px.
     inliers : (n,) counts.

@@ -2,7 +2,9 @@
 the checks made before any work.
 
 NAME is the input's file name without its extension (``flight.mp4`` → ``flight``); a motion
-log's NAME drops ``.motion.csv`` (``flight.motion.csv`` → ``flight``).
+log's NAME drops ``.motion.csv`` (``flight.motion.csv`` → ``flight``). A video named by the
+user (``-o``) names its log: ``take2.mp4`` → ``take2.motion.csv``, ``flight.steady.mp4`` →
+``flight.motion.csv``, so two renders of one clip into one folder never share a log.
 """
 
 from __future__ import annotations
@@ -19,8 +21,8 @@ from ..io.probing import check_input
 
 __all__ = [
     "Outputs", "check_job_outputs", "check_outputs", "clip_files", "clip_name", "compare_video",
-    "keep_read_log", "log_name", "motion_log", "plan_outputs", "render_log", "report_files",
-    "steady_video",
+    "keep_read_log", "log_name", "make_folders", "motion_log", "plan_outputs", "render_log",
+    "report_files", "steady_video", "video_name",
 ]
 
 _LOG_ENDINGS = (".motion.csv", ".motion.json")
@@ -40,6 +42,15 @@ def log_name(path: Path) -> str:
         if name.lower().endswith(ending):
             return name[: -len(ending)]
     return clip_name(path)
+
+
+def video_name(video: Path) -> str:
+    """NAME of the log written beside a steadied video: its file name without its extension
+    and without a ``.steady`` ending (``flight.steady.mp4`` and ``flight.mp4`` give
+    ``flight``)."""
+    stem = video.stem
+    return stem[: -len(".steady")] if stem.lower().endswith(".steady") and \
+        len(stem) > len(".steady") else stem
 
 
 def steady_video(folder: Path, name: str) -> Path:
@@ -121,7 +132,8 @@ class Outputs:
 
 def plan_outputs(clip: Path, *, video_out: str | Path | None, log_out: str | Path | None,
                  with_video: bool, compare: bool) -> Outputs:
-    """Default outputs sit beside the input; a video path given moves the logs to its folder."""
+    """Default outputs sit beside the input; a video path given moves the logs to its folder,
+    named after the video (:func:`video_name`)."""
     name = clip_name(clip)
     video = None
     if with_video:
@@ -131,7 +143,7 @@ def plan_outputs(clip: Path, *, video_out: str | Path | None, log_out: str | Pat
         if log_csv.suffix.lower() != ".csv":
             raise StabilizeError(f"{log_csv}: the motion log must be named *.csv")
     elif video is not None:
-        log_csv = motion_log(video.parent, name)
+        log_csv = motion_log(video.parent, video_name(video))
     else:
         log_csv = motion_log(clip.parent, name)
     comp = compare_video(video) if compare and video is not None else None
@@ -144,7 +156,22 @@ def _refuse(p: Path, force: bool) -> None:
     if p.exists() and not force:
         raise StabilizeError(f"{p}: already exists ({setting_label('force')} allows "
                              "overwriting)")
-    check_writable_folder(p)
+
+
+def make_folders(paths: list[Path]) -> None:
+    """Create the missing folders of output files (after every other check, so a refused job
+    leaves none behind), then refuse, before any work, a folder that takes no new files."""
+    for p in paths:
+        folder = p.parent
+        if str(folder) and not folder.exists():
+            try:
+                folder.mkdir(parents=True, exist_ok=True)
+            except FileExistsError:  # a file stands where a folder is needed
+                pass
+            except OSError as exc:
+                raise StabilizeError(f"{p}: cannot create its folder {folder} "
+                                     f"({exc.strerror or exc})") from None
+        check_writable_folder(p)
 
 
 def check_job_outputs(clip: Path, outputs: Outputs, force: bool) -> None:
@@ -161,6 +188,7 @@ def check_job_outputs(clip: Path, outputs: Outputs, force: bool) -> None:
             raise StabilizeError(f"{p}: two outputs would share this name")
         seen.add(rp)
         _refuse(p, force)
+    make_folders(outputs.all())
 
 
 def _same(a: Path, b: Path) -> bool:
@@ -201,3 +229,4 @@ def check_outputs(inputs: list[Path], outputs: dict[str, Path], force: bool) -> 
             raise StabilizeError(f"{p}: output would overwrite an input; choose another "
                                  "output folder")
         _refuse(p, force)
+    make_folders(list(outputs.values()))

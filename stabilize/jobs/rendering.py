@@ -34,6 +34,7 @@ from ..io.probing import constant_rate
 from ..motion import measurable
 from ..motion_log import MotionLog
 from ..motion_track import LOG_COLUMNS
+from ..pinning import pin_regions, pinned_list
 from ..render import compare_size
 from ..render import render as render_frames
 from ..rolling import analyse_rolling, within_frame
@@ -86,11 +87,12 @@ SINGLE_DECODE = True
 
 def _render_video(clip: Path, info: VideoInfo, motion: FrameMotion, plan: CorrectionPlan,
                   settings: Settings, outputs: Outputs, progress: ProgressFactory | None,
-                  excluded: list[list[float]]) -> tuple[tuple[np.ndarray, np.ndarray],
-                                                        dict[str, Any]]:
-    """Render the steadied video (and the comparison); returns the motion measured on the
-    output and on the source frames while rendering, each (frames, 3), and the row_spread
-    figures of a rolling-shutter render (empty otherwise)."""
+                  excluded: list[list[float]], pinned: list[tuple[int, int, int, int]],
+                  ) -> tuple[tuple[np.ndarray, np.ndarray], dict[str, Any]]:
+    """Render the steadied video (and the comparison) with the ``pinned`` rectangles copied
+    from the source frames; returns the motion measured on the output and on the source
+    frames while rendering, each (frames, 3), and the row_spread figures of a rolling-shutter
+    render (empty otherwise)."""
     # Frames stay in the encoder's own planar YUV from decoder to encoder: no colour
     # conversion on either side, half the bytes of RGB per frame.
     yuv = output_pix_fmt(settings.codec, info.width, info.height)
@@ -133,13 +135,13 @@ def _render_video(clip: Path, info: VideoInfo, motion: FrameMotion, plan: Correc
                                         decode_threads=render_decode_threads())) as frames:
             if compare is None:
                 n = render_frames(frames, plan.corrections, video,
-                                  fill=settings.fill, on_frame=bar.update,
+                                  fill=settings.fill, on_frame=bar.update, pinned=pinned,
                                   **({"check": check} | rolling))
             else:
                 with compare:
                     n = render_frames(frames, plan.corrections, video,
                                       fill=settings.fill, compare=compare, on_frame=bar.update,
-                                      **({"check": check} | rolling))
+                                      pinned=pinned, **({"check": check} | rolling))
     finally:
         bar.close()
     if n != motion.frames:
@@ -188,12 +190,18 @@ def _correct_and_write(clip: Path, info: VideoInfo, motion: FrameMotion, setting
                        outputs: Outputs, progress: ProgressFactory | None,
                        excluded: list[list[float]], source_extra: dict[str, Any] | None = None,
                        extra: dict[str, Any] | None = None,
-                       rendered: tuple[CorrectionPlan, Any] | None = None) -> MotionLog:
+                       rendered: tuple[CorrectionPlan, Any] | None = None,
+                       pin_from: dict[str, Any] | None = None) -> MotionLog:
     """Plan the corrections and render them (or pass a clip too short or small to steady
     through unchanged), then summarise, assemble the log and write it. ``rendered`` is the
-    plan and output check of a video already written from a single decoding pass."""
+    plan and output check of a video already written from a single decoding pass.
+    ``pin_from`` is the ``excluded`` mapping (regions by source, pixels of this clip) the
+    pinned overlays are chosen from (:func:`stabilize.pinning.pin_regions`); None for
+    ``motion.extra``'s."""
     fps = shake.frame_rate(motion.time_s, info.fps)  # real time for the smoothing window
     w, h = int(motion.source["width"]), int(motion.source["height"])
+    pinned = pin_regions(motion.extra.get("excluded") if pin_from is None else pin_from,
+                         settings.pin_overlays, w, h)
     checks = None
     row_spread: dict[str, Any] = {}
     if rendered is not None:
@@ -209,12 +217,13 @@ def _correct_and_write(clip: Path, info: VideoInfo, motion: FrameMotion, setting
                                 smoother=settings.smoother, margin=settings.margin, width=w,
                                 height=h, auto_cap=AUTO_MARGIN_CAP)
         checks, row_spread = _render_video(clip, info, motion, plan, settings, outputs, progress,
-                                       excluded)
+                                           excluded, pinned_list(pinned))
     summary = motion.figures(settings, info.fps, plan=plan, checks=checks) | row_spread
     if checks is not None and checks[0] is not None:
         _warn_if_not_steadier(clip, summary)
+    kept = {"pinned_overlays": {"setting": settings.pin_overlays, **pinned}}
     log = assemble_log(motion, settings, summary, plan=plan, checks=checks, outputs=outputs,
-                       source_extra=source_extra, extra=extra)
+                       source_extra=source_extra, extra=kept | (extra or {}))
     save_log(log, outputs.log_csv)
     return log
 
@@ -247,8 +256,9 @@ def steady(clip: str | os.PathLike, out: str | os.PathLike | None = None, *,
            progress: ProgressFactory | None = None, **options: Any) -> MotionLog:
     """The main job: measure, smooth, render the steadied video and write the motion log.
 
-    ``out`` defaults to ``NAME.steady.mp4`` beside the input; the log goes to
-    ``NAME.motion.csv`` (and ``.json``) in the video's folder unless ``log_path`` is given.
+    ``out`` defaults to ``NAME.steady.mp4`` beside the input; the log goes beside the video,
+    named after it (``take2.mp4`` → ``take2.motion.csv`` and ``.json``; a ``.steady`` ending
+    is dropped), unless ``log_path`` is given. Missing output folders are created.
     Returns the saved log; ``log.extra["outputs"]`` lists the files written.
     """
     clip = Path(clip)
@@ -265,7 +275,8 @@ def render(clip: str | os.PathLike, log_file: str | os.PathLike | MotionLog,
            progress: ProgressFactory | None = None, **options: Any) -> MotionLog:
     """Render a clip from an existing motion log: the path is smoothed again with the given
     settings (smoother, window, margin, fill, encoding). A log made on a smaller proxy of the
-    clip is scaled to the clip's resolution. Writes the video and a new log beside it."""
+    clip is scaled to the clip's resolution. Writes the video and a new log beside it, named
+    after the video (``NAME.render.motion.csv`` when that name is the log read)."""
     clip = Path(clip)
     saved = log_file if isinstance(log_file, MotionLog) else read_log(log_file)
     settings = logged_settings(saved.settings, config, options)
@@ -278,12 +289,15 @@ def render(clip: str | os.PathLike, log_file: str | os.PathLike | MotionLog,
     check_log_fits(saved, info, log_file if not isinstance(log_file, MotionLog) else "the log")
     matrices = saved.matrices
     excluded = excluded_regions(saved.extra)
+    pin_from = _regions_by_source(saved.extra.get("excluded"))
     if saved.size != (info.width, info.height):
         _log.info("log made at %dx%d, rendering at %dx%d", *saved.size, info.width,
                   info.height)
         matrices = rescale(matrices, (info.width / saved.size[0], info.height / saved.size[1]))
         fx, fy = info.width / saved.size[0], info.height / saved.size[1]
         excluded = [[x * fx, y * fy, w * fx, h * fy] for x, y, w, h in excluded]
+        pin_from = {k: [[x * fx, y * fy, w * fx, h * fy] for x, y, w, h in rects]
+                    for k, rects in pin_from.items()}
     # The new log keeps the saved per-frame diagnostics but not the saved analysis's keys
     # (its frame reasons and left-out regions belong to that log).
     rolling = None
@@ -298,4 +312,11 @@ def render(clip: str | os.PathLike, log_file: str | os.PathLike | MotionLog,
         **{**{k: getattr(saved, k) for k in LOG_COLUMNS}, "matrices": matrices},
         reasons=np.full(saved.frames, "", "<U12"),
         source=source_dict(info, saved.frames, saved.time_s), rolling=rolling)
-    return _correct_and_write(clip, info, motion, settings, outputs, progress, excluded)
+    return _correct_and_write(clip, info, motion, settings, outputs, progress, excluded,
+                              pin_from=pin_from)
+
+
+def _regions_by_source(found: Any) -> dict[str, list[list[float]]]:
+    """A saved log's ``excluded`` mapping with only well-formed rectangles (a log is data)."""
+    return {k: excluded_regions({"excluded": {k: v}})
+            for k, v in (found.items() if isinstance(found, dict) else ())}

@@ -130,7 +130,8 @@ def log_rolling(motion: MotionLog, settings: Settings) -> RollingShutter | None:
                            readout_ms=1000.0 * rb.readout_s, fov_deg=settings.fov_deg)
 
 
-def _vibration_png(rolling: RollingShutter | None, summary: dict[str, Any]) -> bytes | None:
+def _vibration_png(rolling: RollingShutter | None, summary: dict[str, Any],
+                   layout: str) -> bytes | None:
     if rolling is None or rolling.vibration is None:
         return None
     spec = rolling.vibration.spectrum
@@ -138,7 +139,7 @@ def _vibration_png(rolling: RollingShutter | None, summary: dict[str, Any]) -> b
         freqs_hz=spec.freqs_hz, amplitude_px=spec.amplitude_px, usable=spec.usable,
         blind_hz=list(spec.blind_hz), fps=rolling.fps, peak_hz=summary.get("vibration_hz"),
         peak_px=summary.get("vibration_px"), false_alarm=summary.get("vibration_false_alarm"),
-        readout_ms=1000.0 * rolling.readout_s)
+        readout_ms=1000.0 * rolling.readout_s, layout=layout)
 
 
 def _existing(path: str | os.PathLike | None, *, base: Path) -> Path | None:
@@ -218,31 +219,42 @@ def report_for_log(motion: MotionLog, settings: Settings, outputs: dict[str, Pat
     raw = similarity_readout(motion.path, motion.centre)
     cuts = motion.status == "cut"
     above = settings.shake_above_hz
-    images = {
-        "path_plot": report_plots.plot_path(time_s=motion.time_s, raw=raw,
-                                            smooth=motion.smooth_values, cuts=cuts, fps=fps,
-                                            above_hz=above),
-        "spectrum_plot": report_plots.plot_spectrum(
-            time_s=motion.time_s, raw=raw, cuts=cuts, fps=fps, above_hz=above,
-            resolution_hz=summary.get("spectrum_resolution_hz")),
-        "fit_plot": report_plots.plot_fit(time_s=motion.time_s, tracked=motion.tracked,
-                                          inlier_ratio=motion.inlier_ratio,
-                                          status=motion.status),
-    }
-    if "vibration_plot" in outputs:
-        vib_png = _vibration_png(log_rolling(motion, settings), summary)
-        if vib_png is None:
-            del outputs["vibration_plot"]
-        else:
-            images["vibration_plot"] = vib_png
-    if "frames_plot" in outputs:
-        wanted = report_plots.pick_frames(raw, cuts, fps=fps, above_hz=above)
-        frames_png = report_plots.plot_frames(time_s=motion.time_s, wanted=wanted, clip=clip,
-                                              steadied=steadied)
-        if frames_png is None:
-            del outputs["frames_plot"]
-        else:
-            images["frames_plot"] = frames_png
+    rolling = log_rolling(motion, settings) if "vibration_plot" in outputs else None
+    wanted = report_plots.pick_frames(raw, cuts, fps=fps, above_hz=above)
+    pairs = (report_plots.read_frame_pairs(wanted, clip, steadied)
+             if "frames_plot" in outputs else ({}, {}))
+
+    def draw(layout: str) -> dict[str, bytes | None]:
+        """Every plot in one layout (:data:`stabilize.report_plots.LAYOUTS`), by role."""
+        drawn: dict[str, bytes | None] = {
+            "path_plot": report_plots.plot_path(time_s=motion.time_s, raw=raw,
+                                                smooth=motion.smooth_values, cuts=cuts,
+                                                fps=fps, above_hz=above, layout=layout),
+            "spectrum_plot": report_plots.plot_spectrum(
+                time_s=motion.time_s, raw=raw, cuts=cuts, fps=fps, above_hz=above,
+                resolution_hz=summary.get("spectrum_resolution_hz"), layout=layout),
+            "fit_plot": report_plots.plot_fit(time_s=motion.time_s, tracked=motion.tracked,
+                                              inlier_ratio=motion.inlier_ratio,
+                                              status=motion.status, layout=layout),
+        }
+        if "vibration_plot" in outputs:
+            drawn["vibration_plot"] = _vibration_png(rolling, summary, layout)
+        if "frames_plot" in outputs:
+            drawn["frames_plot"] = report_plots.plot_frames(
+                time_s=motion.time_s, wanted=wanted, pairs=pairs, layout=layout,
+                # Photographs: the page's phone copy as JPEG, in a fraction of the bytes.
+                image_format="png" if layout == "wide" else "jpeg")
+        return drawn
+
+    # The PNG files and the page's large-screen plots are the wide layout; the page shows
+    # the narrow one on phones.
+    wide = draw("wide")
+    for role in ("vibration_plot", "frames_plot"):
+        if role in wide and wide[role] is None:
+            del outputs[role]
+    images = {role: data for role, data in wide.items() if data is not None}
+    narrow = {role: data for role, data in draw("narrow").items()
+              if data is not None and role in images}
     for role, data in images.items():
         _write_bytes_atomic(outputs[role], data)
 
@@ -258,7 +270,7 @@ def report_for_log(motion: MotionLog, settings: Settings, outputs: dict[str, Pat
     write_text_atomic(outputs["json"],
                       json.dumps(jsonable(doc), indent=2, allow_nan=False) + "\n")
     html = render_page(name=name, source=motion.source, summary=summary, notes=notes,
-                       settings=settings_used, images=images,
+                       settings=settings_used, images=images, narrow_images=narrow,
                        log_name=log_csv.name if log_csv else None, tool_version=__version__)
     write_text_atomic(outputs["html"], html)
     return Report(outputs=outputs, summary=summary, notes=notes, settings=settings_used)

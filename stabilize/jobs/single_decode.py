@@ -38,6 +38,7 @@ from ..io.twin_decode import TwinDecoder
 from ..motion import fit_motion, measurable
 from ..motion_pass import FrameRecord
 from ..motion_track import fill_failed
+from ..pinning import pin_regions, pinned_list
 from ..render import compare_size
 from ..render import render as render_frames
 from ..segments import single_pass_options
@@ -309,9 +310,13 @@ def steady_single_decode(clip: Path, info: VideoInfo, settings: Settings, output
                     compare = stack.enter_context(VideoWriter(
                         outputs.compare, cw, ch, info.fps_text, time_base=info.time_base,
                         **writer_args))
+                # The regions pinned are those known when the first frame is rendered; the
+                # video is kept only if they are the whole clip's (see _verify).
                 rendered = render_frames(shared.ready_frames(), _Corrections(shared), video,
                                          fill=settings.fill, compare=compare,
-                                         on_frame=rbar.update, check=check_frame)
+                                         on_frame=rbar.update, check=check_frame,
+                                         pinned=lambda: pinned_list(pin_regions(
+                                             settler.excluded, settings.pin_overlays, w, h)))
                 for t in threads:
                     t.join()
                 if "error" in result:

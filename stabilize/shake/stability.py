@@ -111,7 +111,7 @@ def measured_frames(status: np.ndarray) -> np.ndarray:
     -------
     (n,) bool
     """
-    keep = (status != "cut") & (status != "failed")
+    keep = (status != "cut") & (status != "failed") & (status != "first")
     if len(keep):
         keep[0] = False
     return keep

@@ -50,7 +50,7 @@ def summarise(
     Parameters
     ----------
     matrices, path : (n, 3, 3) inter-frame transforms H_t and raw path P_t.
-    status : (n,) frame status (``ok``, ``weak``, ``failed``, ``cut``).
+    status : (n,) frame status (``ok``, ``weak``, ``failed``, ``cut``, ``first``).
     fps : the container's nominal frame rate, frames per second. With ``time_s`` the figures
         use the real mean rate of the timestamps instead (:func:`frame_rate`).
     width, height : frame size, full-resolution pixels.
