@@ -28,7 +28,7 @@ from .config import (
 from .errors import StabilizeError
 from .io import remove_temporaries, stop_children
 from .jobs import make_report, measure_to_file, render, run_batch, run_demo, steady
-from .report_page import dominant_text, fmt_sig
+from .report_page import dominant_text, fmt_sig, hz_text
 from .version import __version__
 
 __all__ = ["EXIT_INTERRUPTED", "EXIT_OK", "EXIT_SOME_FAILED", "EXIT_USAGE", "build_parser",
@@ -333,7 +333,8 @@ class _OneLine(logging.Formatter):
     def format(self, record: logging.LogRecord) -> str:
         level = "warning" if record.levelno >= logging.WARNING else \
             "note" if getattr(record, "note", False) else "info"
-        return f"stabilize: {level}: {record.getMessage()}"
+        # Library messages name settings; on the command line they are options.
+        return f"stabilize: {level}: {flag_wording(record.getMessage())}"
 
 
 def _setup_logging(quiet: bool) -> None:
@@ -374,7 +375,8 @@ def _print_summary(summary: dict) -> None:
         angle = "" if axis == "rot" else cell(summary.get(f"jitter_rms_{axis}_deg"), "deg")
         rows.append((label, cell(summary.get(f"jitter_rms_{axis}_{unit}"), unit), angle,
                      cell(summary.get(f"jitter_p2p_{axis}_{unit}"), unit),
-                     dominant_text(summary, axis, lambda hz: cell(hz, "Hz"))))
+                     dominant_text(summary, axis, lambda hz: hz_text(
+                         hz, summary.get("spectrum_resolution_hz")).replace("\u00a0", " "))))
     widths = [max(len(r[k]) for r in rows) for k in range(5)]
     for r in rows:
         print("  ".join([r[0].ljust(widths[0])] + [c.rjust(w) for c, w in

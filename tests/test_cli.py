@@ -311,7 +311,18 @@ def test_notes_go_to_stderr_and_stdout_lists_the_files(clip, tmp_path, capsys):
     out, err = capsys.readouterr()
     assert "note:" not in out
     assert "stabilize: note: " in err  # no --fov-deg given: a note says so
+    # ... naming the option, not the library's setting.
+    assert "option --fov-deg" in err and "fov_deg" not in err
     assert any(ln.startswith("report: ") for ln in out.splitlines())
+    # The dominant frequency is written to the spectrum's resolution, as on the report page.
+    from stabilize import read_log
+    from stabilize.report_page import hz_text
+
+    s = read_log(log).summary
+    want = ("no clear peak" if s["dominant_hz_x"] is None else
+            hz_text(s["dominant_hz_x"], s["spectrum_resolution_hz"]).replace("\u00a0", " "))
+    row = next(ln for ln in out.splitlines() if ln.startswith("shake x"))
+    assert row.endswith(want), (row, want)
     assert main(["report", str(log), "--out-dir", str(tmp_path / "rep2"), "--quiet"]) == 0
     assert "note:" not in capsys.readouterr().err
 

@@ -264,6 +264,6 @@ def uncertainty_notes(summary: dict) -> list[str]:
     if res is not None and res > 0.25:
         notes.append(f"The clip is short: frequencies are resolved only to about {res:.2f} Hz.")
     if summary.get("jitter_rms_x_px") is not None and summary.get("jitter_rms_x_deg") is None:
-        notes.append("No field of view was given (setting fov_deg): figures in degrees are not "
+        notes.append("No field of view was given (setting 'fov_deg'): figures in degrees are not "
                      "available.")
     return notes
