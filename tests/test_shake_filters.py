@@ -72,3 +72,20 @@ def test_peak_threshold_solves_its_equation_as_a_reference_root_finder_does(dof,
 
     want = math.exp(optimize.brentq(tail, 0.0, 20.0, xtol=1e-12))
     assert peak_threshold(dof, m, rank, 0.001) == pytest.approx(want, rel=1e-8)
+
+
+@pytest.mark.parametrize("a", [0.4, 1.0, 2.0, 6.7, 27.5, 150.0, 900.0])
+def test_incomplete_gamma_and_its_inverse_match_scipy_special(a):
+    from scipy import special
+
+    from stabilize.shake.gamma import gamma_p_inverse, gamma_q
+
+    # The 200 Gauss–Legendre nodes the peak test integrates over, and their tails.
+    nodes, _ = np.polynomial.legendre.leggauss(200)
+    v = np.concatenate([0.5 * (nodes + 1.0), [1e-9, 1e-4, 0.5, 1 - 1e-4]])
+    x = gamma_p_inverse(a, v)
+    np.testing.assert_allclose(x, special.gammaincinv(a, v), rtol=1e-10)
+    grid = np.concatenate([[0.0], x, x * 1.7, x * 0.3, [a + 1.0, 5.0 * a + 30.0]])
+    want = special.gammaincc(a, grid)
+    got = gamma_q(a, grid)
+    np.testing.assert_allclose(got, want, rtol=1e-10, atol=1e-300)

@@ -12,6 +12,7 @@ import math
 import numpy as np
 
 from .filters import hann, welch_density
+from .gamma import gamma_p_inverse, gamma_q
 from .timebase import shake_filter_gain
 
 __all__ = [
@@ -205,18 +206,15 @@ def peak_threshold(dof: float, m: int, rank: int, alpha: float) -> float:
     float : the factor k (dimensionless, a ratio of powers), found to within 1e-9 in
     log k; results are cached.
     """
-    # lazy: scipy.special is slow to import (0.15 s) and only the peak test needs it.
-    from scipy import special
-
     half = 0.5 * dof
     nodes, weights = _gauss_legendre(200)
     v = 0.5 * (nodes + 1.0)
-    y = special.gammaincinv(half, v) / half  # F⁻¹(v) of χ²_dof / dof
+    y = gamma_p_inverse(half, v) / half  # F⁻¹(v) of χ²_dof / dof
     log_beta = (math.lgamma(rank) + math.lgamma(m - rank + 1) - math.lgamma(m + 1))
     w = 0.5 * weights * np.exp((rank - 1) * np.log(v) + (m - rank) * np.log1p(-v) - log_beta)
 
     def tail(log_k: float) -> float:
-        return float(np.sum(w * special.gammaincc(half, half * math.exp(log_k) * y))) - alpha
+        return float(np.sum(w * gamma_q(half, half * math.exp(log_k) * y))) - alpha
 
     # The tail falls with k: bisection on log k over [0, 20] to 1e-9 (35 halvings; scipy's
     # root finders cost a third of a second to import).
