@@ -132,7 +132,7 @@ def gamma_p_inverse(a: float, p: np.ndarray) -> np.ndarray:
         t = 1.0 - a * (0.253 + a * 0.12)
         x = np.where(p < t, (p / t) ** (1.0 / a), 1.0 - np.log1p(-(p - t) / (1.0 - t)))
     done = np.zeros(p.shape, bool)
-    for _ in range(100):
+    for _ in range(40):
         err = _gamma_p(a, x) - p
         with np.errstate(divide="ignore", invalid="ignore"):
             if a > 1.0:
@@ -144,7 +144,7 @@ def gamma_p_inverse(a: float, p: np.ndarray) -> np.ndarray:
         step = np.where(done | ~np.isfinite(step), 0.0, step)
         new = x - step
         new = np.where(new <= 0.0, 0.5 * x, new)
-        done |= np.abs(step) < 1e-15 * new
+        done |= np.abs(step) <= 1e-13 * new
         x = new
         if done.all():
             break
