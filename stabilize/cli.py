@@ -15,6 +15,7 @@ import sys
 import threading
 from typing import Any
 
+from . import jobs
 from .config import (
     ANALYSIS_LEVELS,
     CODECS,
@@ -27,7 +28,7 @@ from .config import (
 )
 from .errors import StabilizeError
 from .io import remove_temporaries, stop_children
-from .jobs import make_report, measure_to_file, render, run_batch, run_demo, steady
+from .jobs import measure_to_file, render, steady
 from .report_page import dominant_text, fmt_sig, hz_text
 from .version import __version__
 
@@ -416,7 +417,7 @@ def run(args: argparse.Namespace) -> int:
                         progress=progress, **opts)
         _report_written(motion)
     elif args.command == "report":
-        report = make_report(args.clip_or_log, args.out_dir, config=args.config,
+        report = jobs.make_report(args.clip_or_log, args.out_dir, config=args.config,
                              progress=progress, **opts)
         _print_summary(report.summary)
         _report_files(report)
@@ -433,7 +434,7 @@ def run(args: argparse.Namespace) -> int:
                 return tqdm(desc=desc, total=total, unit="clip", file=sys.stderr,
                             leave=False, dynamic_ncols=True)
         settings = resolve_settings(args.config, opts)
-        result = run_batch(args.inputs, args.out_dir, settings=settings,
+        result = jobs.run_batch(args.inputs, args.out_dir, settings=settings,
                            measure_only=args.measure_only, workers=workers,
                            scheduler=args.scheduler, progress=clip_bar)
         for r in result.results:
@@ -445,7 +446,7 @@ def run(args: argparse.Namespace) -> int:
         if result.count("failed"):
             return EXIT_SOME_FAILED
     elif args.command == "demo":
-        motion, report = run_demo(args.out_dir, config=args.config, progress=progress, **opts)
+        motion, report = jobs.run_demo(args.out_dir, config=args.config, progress=progress, **opts)
         _report_written(motion)
         _report_files(report)
         print("demo done: the clip is an invented, procedurally drawn scene")
