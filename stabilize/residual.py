@@ -49,8 +49,8 @@ __all__ = [
     "PairMotion",
     "Region",
     "RenderCheck",
-    "pair_motion",
     "inherited_labels",
+    "pair_motion",
     "reduce_luma",
     "usable",
 ]
@@ -284,13 +284,14 @@ def pair_motion(
     the scene when, for a pair or two, it holds as many corners as the scene does: a corner
     that left the fit's consensus is *suspect* for ``settings.suspect_frames`` pairs spent
     among the inliers again. The fit is made on the trusted corners when there are at least
-    ``min_inliers`` of them, even when the suspect ones are more (an object close to the
-    lens can hold most of the corners of a flat scene); all corners are then scored against
-    it, and the labels updated. After a reset (the first frame, a cut) every corner starts
-    trusted, so the first pair's consensus decides which group is the scene. (The labels
-    are this project's own rule; the principle, that a group which moved on its own stays
-    suspect until it has moved with the rest for a while, is common practice with no
-    source.)
+    ``min_inliers`` of them and they are at least a quarter of the corners kept, even when
+    the suspect ones are more (an object close to the lens can hold most of the corners of
+    a flat scene; a smaller trusted remnant is more likely one depth layer of a parallax
+    shot than the scene); all corners are then scored against it, and the labels updated.
+    After a reset (the first frame, a cut) every corner starts trusted, so the first pair's
+    consensus decides which group is the scene. (The labels are this project's own rule;
+    the principle, that a group which moved on its own stays suspect until it has moved
+    with the rest for a while, is common practice with no source.)
 
     Parameters
     ----------
