@@ -31,6 +31,7 @@ from .geometry import rescale
 from .motion_models import MotionModel, transfer_error
 from .overlays import OverlayFinder
 from .row_bands import BandSettings, BandShifts, track_band_shifts
+from .still_detail import StillDetail, StillDetailSettings, StillVotes, find_detail, judge
 from .track import (
     Pairs,
     Tracker,
@@ -89,6 +90,20 @@ class _Recent:
     attempts: int = 0
 
 
+@dataclass
+class _StillBase:
+    """A still-detail baseline: the frame ``index`` (its analysis copy ``image``), where the
+    tracks that carried the next fit were in it (k, 2, analysis pixels), the fitted motion
+    since (full-resolution pixels; None after a frame with no fit), and its faint corners
+    (False: not looked for yet; None: none)."""
+
+    index: int
+    image: np.ndarray
+    tracks: np.ndarray
+    motion: np.ndarray | None
+    detail: StillDetail | None | bool = False
+
+
 @dataclass(frozen=True)
 class PassContext:
     """What every pass of one analysis shares: the settings, the sizes (full resolution and
@@ -130,6 +145,10 @@ class AnalysisPass:
         self.begin_s = 0.0
         # Baseline slot times (seconds; NaN: not based yet) and the slot to re-base next.
         self.slot_s = [math.nan, math.nan]
+        # Per slot, what the still-detail check compares against (None: not based yet).
+        self.still_base: list[_StillBase | None] = [None, None]
+        # Until this time (s) the camera is held still unless detail moves with the fit.
+        self.held_until = -math.inf
 
     def begin(self, image: np.ndarray, time_s: float, index: int) -> None:
         """Take the first frame (grey analysis copy) of this pass, at ``time_s`` seconds."""
@@ -179,6 +198,8 @@ class AnalysisPass:
                 tracker.reset()
                 self.prior = None
                 self.slot_s = [math.nan, math.nan]
+                self.still_base = [None, None]
+                self.held_until = -math.inf
                 return FrameRecord(np.eye(3), (len(pairs), 0, 0.0, 0.0, 0), "cut")
         if len(pairs) < tracker.settings.texture_check_share * tracker.settings.max_corners:
             strength = corner_strength(image) if strength is None else strength
@@ -221,10 +242,28 @@ class AnalysisPass:
                         settings=settings, seed=seed, prior=self.prior, frame_size=(fw, fh))
         support = np.zeros(len(dst), bool)
         support[np.flatnonzero(use)[fit.support]] = True
-        n_in = int(np.count_nonzero(transfer_error(fit.matrix, src, dst) < settings.inlier_px)
-                   ) if fit.ok else 0
+        # Every pair that moved with the fit, whether the fit could use it or not.
+        with_fit = (transfer_error(fit.matrix, src, dst) < settings.inlier_px) if fit.ok \
+            else np.zeros(len(src), bool)
+        n_in = int(np.count_nonzero(with_fit))
         d = (len(src), n_in, n_in / len(src) if len(src) else 0.0,
              fit.rms_px if fit.ok else 0.0, fit.rounds)
+        self._carry(fit.matrix if fit.ok else None)
+        held = False
+        if fit.ok and not ambiguous:
+            votes = self._still_votes(image, pairs.dst[with_fit])
+            if votes is not None and votes.contradicted:
+                # Faint detail away from the tracks stayed put while the fit moved them: they
+                # are on an object before a plain background, and the camera held still over
+                # the baseline. So it stays until detail moves with a fit again.
+                held = True
+                memo = anchors.strike(memo, support, time_s)
+                self.held_until = time_s + StillDetailSettings().hold_s
+                self._hold_since(self._still_slot())
+            elif time_s < self.held_until:
+                held = votes is None or not votes.supported
+                if not held:
+                    self.held_until = -math.inf
         if grouping is not None and grouping.split:
             memo = anchors.strike(memo, grouping.moved, time_s)
             slot = self._older_slot()
@@ -244,6 +283,11 @@ class AnalysisPass:
                 slot = 1 - old
             memo = anchors.rebase(memo, slot, dst)
             self.slot_s[slot] = time_s
+            # The still-detail baseline is the frame before, so that this frame's own motion
+            # is judged too.
+            before = tracker.frames[0]
+            self.still_base[slot] = None if before is None or not fit.ok else _StillBase(
+                index - 1, before, pairs.src[with_fit], fit.matrix)
         if not fit.ok:
             self.prior = None
             tracker.update(None, memo)
@@ -251,6 +295,13 @@ class AnalysisPass:
         if ambiguous:
             tracker.update(None, memo)
             return FrameRecord(fit.matrix, d, "weak", "foreground")
+        if held:
+            self.prior = fit.matrix
+            tracker.update(None, memo)
+            record = FrameRecord(np.eye(3), d, "weak", "held_still")
+            self.recent.append(_Recent(index, time_s, src, dst, pairs.ids, pairs.background,
+                                       use, record))
+            return record
         self.prior = fit.matrix
         tracker.update(support, memo)
         if self.overlays.observe(pairs.src, pairs.dst, rescale(fit.matrix, scale)):
@@ -270,6 +321,48 @@ class AnalysisPass:
             while self.recent and self.recent[0].time_s < time_s - 2.0 * base.baseline_s:
                 self.recent.popleft()
         return record
+
+    def _carry(self, matrix: np.ndarray | None) -> None:
+        """Chain this frame's fitted motion (None: no fit) onto each still-detail baseline."""
+        for b in self.still_base:
+            if b is not None:
+                b.motion = None if b.motion is None or matrix is None else matrix @ b.motion
+
+    def _still_slot(self) -> _StillBase | None:
+        """The older still-detail baseline (the longer stretch of motion), if any."""
+        slot = self._older_slot()
+        return None if slot is None else self.still_base[slot]
+
+    def _still_votes(self, image: np.ndarray, tracks: np.ndarray) -> StillVotes | None:
+        """Whether the faint detail of the older baseline's picture away from its tracks
+        stayed where it was while the fits since then moved the frame
+        (:mod:`stabilize.still_detail`); None when there is nothing to judge (no baseline,
+        no detail, or too little motion). ``image`` is this frame's analysis copy, ``tracks``
+        (k, 2) the analysis positions of the tracks that carried this frame's fit."""
+        b = self._still_slot()
+        if b is None or b.motion is None:
+            return None
+        ctx = self.ctx
+        cfg = StillDetailSettings()
+        motion = rescale(b.motion, ctx.scale)
+        if corner_shift(motion, np.eye(3), ctx.analysis_size) < cfg.min_shift_px:
+            return None
+        if b.detail is False:
+            b.detail = find_detail(b.image, b.tracks, self.overlays.mask(ctx.user_mask),
+                                   self.tracker.settings, cfg)
+        if b.detail is None or b.detail is False:
+            return None
+        return judge(b.detail, image, motion, tracks, self.tracker.settings.grid, cfg)
+
+    def _hold_since(self, b: _StillBase | None) -> None:
+        """Hold still the frames after baseline ``b`` still open to revision: the detail
+        said the camera did not move over them."""
+        if b is None:
+            return
+        for r in self.recent:
+            if r.index > b.index and r.index >= self.owned_from and r.record.status == "ok":
+                r.record.matrix = np.eye(3)
+                r.record.status, r.record.reason = "weak", "held_still"
 
     def _hindsight(self, scene_ids: np.ndarray, moved_ids: np.ndarray,
                    region: np.ndarray) -> None:

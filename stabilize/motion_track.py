@@ -15,6 +15,9 @@ __all__ = ["LOG_COLUMNS", "MotionTrack", "REASONS", "fill_failed", "stand_ins"]
 REASONS = {
     "foreground": "the motion could not be told apart from an object moving in front of the "
                   "scene; the frame's motion is a stand-in from its neighbours",
+    "held_still": "the tracks moved but faint detail away from them stayed put: they are "
+                  "taken for an object in front of a still camera, and the frame's motion is "
+                  "held at none",
     "few_inliers": "few inliers, or inliers bunched in a small part of the frame",
     "textureless": "too little texture to measure motion (plain sky, water, fog, blur)",
     "no_fit": "no trustworthy motion fit",

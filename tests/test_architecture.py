@@ -35,7 +35,7 @@ LAYERS: dict[str, int] = {
     "overlays": 2, "pinning": 2, "prefetch": 2, "render": 2, "report_page": 2, "report_plots": 2,
     "residual": 2, "rolling": 2, "row_bands": 2, "row_check": 2, "row_motion": 2,
     "row_warp": 2, "runner": 2, "shake": 2,
-    "smoothers": 2, "steadiness": 2, "steady_path": 2, "synthetic": 2,
+    "smoothers": 2, "steadiness": 2, "steady_path": 2, "still_detail": 2, "synthetic": 2,
     "synthetic_rolling": 2, "track": 2,
     "track_groups": 2, "vibration": 2,
     # 3: jobs

@@ -426,3 +426,20 @@ def test_reasons_are_counted_and_the_notes_repeat_the_verdict():
     notes = uncertainty_notes(s)
     assert notes[:len(s["trust_reasons"])] == s["trust_reasons"]
     assert "frames_foreground" not in _summary_of(p)  # unknown without the analysis' word
+
+
+def test_frames_held_still_count_as_foreground_for_the_verdict():
+    """Frames held still (the tracks were an object's, the camera taken as still) are
+    counted on their own and with the foreground frames the verdict weighs."""
+    p = _sine_path(3.5, 4.0)
+    n = len(p)
+    reasons = np.array([""] * n, dtype="<U12")
+    reasons[:10] = "foreground"
+    reasons[10:60] = "held_still"
+    h = np.repeat(np.eye(3)[None], n, axis=0)
+    s = summarise(matrices=h, path=p, status=np.array(["ok"] * n), fps=30.0, width=640,
+                  height=360, above_hz=1.0, fov_deg=90.0, reasons=reasons)
+    assert s["frames_held_still"] == 50 and s["frames_foreground"] == 60
+    # 60 of 300 frames: over the 10 % share, under the 30 % one.
+    assert n == 300 and s["trust"] == "rough"
+    assert any("large moving object" in r for r in s["trust_reasons"])

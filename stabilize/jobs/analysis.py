@@ -229,13 +229,18 @@ def motion_from_track(clip: Path, info: VideoInfo, track: MotionTrack,
                      clip, n_failed, n)
     reasons = track.reason if track.reason is not None else np.full(n, "", "<U12")
     n_fore = int(np.count_nonzero(reasons == "foreground"))
-    n_weak = int(np.count_nonzero(status == "weak")) - n_fore
+    n_held = int(np.count_nonzero(reasons == "held_still"))
+    n_weak = int(np.count_nonzero(status == "weak")) - n_fore - n_held
     if n_weak:
         _log.warning("%s: %d frames have weak fits (few or bunched inliers)", clip, n_weak)
     if n_fore:
         _log.warning("%s: %d frames: the camera's motion could not be told apart from an "
                      "object moving in front of it; their motion is a stand-in (status weak)",
                      clip, n_fore)
+    if n_held:
+        _log.warning("%s: %d frames: the tracks moved but faint detail away from them stayed "
+                     "put, so they were taken for an object in front of a still camera; "
+                     "their motion is held at none (status weak)", clip, n_held)
     by_reason = frame_reasons(reasons)
     rolling = None
     if track.band_shift_px is not None and n >= 2:

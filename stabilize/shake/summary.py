@@ -63,7 +63,8 @@ def summarise(
         the measurement noise the stability score is judged against (:func:`motion_noise`).
     reasons : (n,) strings per frame from the analysis, '' when nothing to say, else a short
         code (``foreground``, ``textureless``, ``few_inliers`` …); counted into
-        ``frames_foreground`` and ``frames_textureless``. Without it those keys are left out.
+        ``frames_foreground`` (with the ``held_still`` ones), ``frames_held_still`` and
+        ``frames_textureless``. Without it those keys are left out.
     output_motion_readout : (n, 3) the written video's inter-frame motion as measured on
         its frames (dx, dy pixels, degrees; nan where not measured; see
         :mod:`stabilize.residual`). When given, the ``_out`` figures describe it, and the
@@ -99,7 +100,11 @@ def summarise(
     summary["frames_failed_share"] = summary["frames_failed"] / n
     if reasons is not None:
         codes = np.asarray(reasons).astype(str)
-        summary["frames_foreground"] = int(np.count_nonzero(codes == "foreground"))
+        # Frames held still because detail behind the tracks stayed put are also frames
+        # whose tracks were an object's, not the camera's.
+        held = int(np.count_nonzero(codes == "held_still"))
+        summary["frames_foreground"] = int(np.count_nonzero(codes == "foreground")) + held
+        summary["frames_held_still"] = held
         summary["frames_textureless"] = int(np.count_nonzero(codes == "textureless"))
     summary.update(path_figures(similarity_readout(path, centre), cuts, fps=rate,
                                 above_hz=above_hz, width=width, fov_deg=fov_deg, bands=True,

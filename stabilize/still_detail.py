@@ -1,0 +1,274 @@
+"""Whether faint detail away from the tracks stayed put while the fit says the camera moved.
+
+The tracks may all lie on one object: a textured board waved before a plain wall holds every
+strong corner of the picture, and a fit to the tracks is the board's motion. Nothing among the
+tracks tells that from a textured tower before a plain sky. What does is the picture away
+from them: a near wall has faint detail of its own (a mark, a nail, a stain) too weak for the
+tracker's frame-wide corner rule, and that detail stays exactly where it was while the board
+moves. Smooth gradients (a plain sky, a lit wall) offer no such detail and never vote.
+
+At each baseline (:mod:`stabilize.anchors`; here the frame before it, so that the baseline
+frame's own motion is judged too) the faint corners away from the hull of the tracks that
+moved with the fit are picked out: corner strength above the picture's noise, both
+eigenvalues large, no more contrast than the tracks' typical texture (burnt-in text
+outshines the scene, and stays put too), away from overlays and ignored regions. Later
+frames compare each one's patch where it was (a still camera) and where the fitted motion
+since the baseline puts it.
+A corner votes only when one place matches and the other clearly does not, and neither
+place is now beside the tracks (an object in front may cover it). When corners stayed put
+and clearly outnumber those that moved, the fit is contradicted: the tracks are on an
+object in front of a still camera (:mod:`stabilize.motion_pass` then holds the camera still).
+
+What it cannot tell: detail at a great distance (clouds, far hills) also stays put while a
+camera *translates* past a near structure, and dirt on the lens never moves at all; either
+can make a moving camera's frames read as held still (status ``weak``, so the figures say
+so).
+
+Points are in analysis-frame pixels (x right, y down, pixel centres at integers); motions are
+3×3 transforms of analysis pixels, from the baseline frame to the current one.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import cv2
+import numpy as np
+
+from .track import TrackSettings
+
+__all__ = ["StillDetail", "StillDetailSettings", "StillVotes", "find_detail", "judge"]
+
+
+@dataclass(frozen=True)
+class StillDetailSettings:
+    """``max_corners``: most faint corners kept per baseline; ``spacing_frac``: their least
+    spacing, a share of the frame width; ``half``: half-size of the compared patch, pixels
+    (a 9×9 patch); ``untracked_share``: the check runs only when at least this share of the
+    frame lies away from the tracks; ``min_shift_px``: ... and the fitted motion since the
+    baseline moves the frame's corners at least this far (analysis pixels);
+    ``match_share``, ``match_grey``, ``ratio``, ``margin``: a corner votes *still* when its
+    patch now matches the baseline's where it was (mean absolute difference at most
+    ``match_share`` of the patch's standard deviation plus ``match_grey`` grey levels) and
+    differs where the fit puts it, by ``ratio`` times and ``margin`` grey levels more and by
+    at least half the patch's standard deviation (and *moved* the other way round);
+    ``min_votes``: fewest *still* votes that contradict a fit, and they must be at least
+    ``ratio`` times the *moved* votes; ``hold_s``: after a contradiction the camera is held
+    still this long (seconds) unless detail is seen moving with a fit. This project's own
+    values, tried on drawn walls and on the real clips of ``tests/real`` (common practice,
+    no source)."""
+
+    max_corners: int = 60
+    spacing_frac: float = 1.0 / 64.0
+    half: int = 4
+    untracked_share: float = 0.25
+    min_shift_px: float = 2.0
+    match_share: float = 0.25
+    match_grey: float = 1.0
+    ratio: float = 2.0
+    margin: float = 2.0
+    min_votes: int = 1
+    hold_s: float = 3.0
+
+
+@dataclass(frozen=True)
+class StillDetail:
+    """The faint corners of a baseline frame: ``points`` (k, 2) integer positions, analysis
+    pixels, and ``patches`` (k, 2·half+1, 2·half+1) float32 grey levels around them."""
+
+    points: np.ndarray
+    patches: np.ndarray
+
+
+@dataclass(frozen=True)
+class StillVotes:
+    """How many faint corners stayed put (``still``) and how many moved with the fit
+    (``moved``); ``contradicted``: the still ones clearly outnumber the moved ones;
+    ``supported``: at least two moved, and they clearly outnumber the still ones."""
+
+    still: int
+    moved: int
+    contradicted: bool
+    supported: bool = False
+
+
+def find_detail(gray: np.ndarray, tracks: np.ndarray, usable: np.ndarray | None,
+                track_settings: TrackSettings,
+                settings: StillDetailSettings = StillDetailSettings()) -> StillDetail | None:
+    """The faint corners of ``gray`` away from the hull of ``tracks`` (grown by half a grid
+    cell).
+
+    Parameters
+    ----------
+    gray : (h, w) uint8 analysis frame.
+    tracks : (k, 2) positions of the tracks that moved with the fit, analysis pixels.
+    usable : (h, w) uint8 mask, 0 where overlays or ignored regions are; None: all usable.
+    track_settings : the tracker's grid, block size, noise floor, least strength and least
+        isotropy (:class:`stabilize.track.TrackSettings`), so that a faint corner is held to
+        the same standard as a tracked one, but judged against the strongest corner away
+        from the tracks rather than the frame's.
+    settings : this check's settings.
+
+    Returns
+    -------
+    StillDetail, or None when too little of the frame lies away from the tracks or it has
+    no such corner.
+    """
+    h, w = gray.shape
+    mask = np.where(_beside(tracks, (w, h), track_settings.grid), 0, 255).astype(np.uint8)
+    if np.count_nonzero(mask) < settings.untracked_share * mask.size:
+        return None
+    if usable is not None:
+        mask[usable == 0] = 0
+    m = settings.half + 1
+    mask[:m], mask[-m:], mask[:, :m], mask[:, -m:] = 0, 0, 0, 0
+    if not mask.any():
+        return None
+    strength = cv2.cornerMinEigenVal(gray, track_settings.block_size, ksize=3)
+    floor = max(track_settings.min_strength,
+                track_settings.noise_floor * float(np.median(strength)))
+    strength[mask == 0] = 0.0
+    top = float(strength.max())
+    if top < floor:
+        return None
+    pts = cv2.goodFeaturesToTrack(gray, maxCorners=settings.max_corners,
+                                  qualityLevel=min(0.999, floor / top),
+                                  minDistance=max(3.0, settings.spacing_frac * w),
+                                  mask=mask, blockSize=track_settings.block_size)
+    if pts is None:
+        return None
+    pts = np.rint(pts.reshape(-1, 2)).astype(np.int64)
+    # A corner, not a point on an edge: the smaller eigenvalue a fair share of the larger.
+    isotropic = _isotropy(gray, pts, track_settings.block_size) >= track_settings.min_isotropy
+    pts = pts[isotropic]
+    if not len(pts):
+        return None
+    img = gray.astype(np.float32)
+    patches = _patches(img, pts.astype(np.float32), settings.half)
+    # Faint detail only: no stronger than the typical texture of the tracks. Burnt-in text
+    # and symbols, drawn to be read over any scene, outshine it and stay put as well.
+    if len(tracks):
+        typical = float(np.median(_patches(img, tracks.astype(np.float32),
+                                           settings.half).std(axis=(1, 2))))
+        faint = patches.std(axis=(1, 2)) <= typical
+        pts, patches = pts[faint], patches[faint]
+    if not len(pts):
+        return None
+    return StillDetail(pts, patches)
+
+
+def judge(detail: StillDetail, gray: np.ndarray, motion: np.ndarray, tracks: np.ndarray,
+          grid: tuple[int, int],
+          settings: StillDetailSettings = StillDetailSettings()) -> StillVotes:
+    """Compare each faint corner's patch now where it was and where ``motion`` puts it.
+
+    Parameters
+    ----------
+    detail : the baseline frame's faint corners (:func:`find_detail`).
+    gray : (h, w) uint8 analysis frame now.
+    motion : (3, 3) the fitted motion from the baseline frame to now, analysis pixels.
+    tracks : (k, 2) positions now of the tracks that carried the fit, analysis pixels.
+    grid : the tracker's grid (columns, rows).
+    settings : this check's settings.
+
+    Returns
+    -------
+    StillVotes. Corners the motion puts outside the frame, or where they were or where the
+    motion puts them is now beside the tracks (an object in front may cover it), do not vote.
+    """
+    h, w = gray.shape
+    p = detail.points.astype(np.float64)
+    q = cv2.perspectiveTransform(p.reshape(-1, 1, 2), np.asarray(motion, np.float64)
+                                 ).reshape(-1, 2)
+    m = settings.half + 1
+    inside = (q[:, 0] >= m) & (q[:, 0] <= w - 1 - m) & (q[:, 1] >= m) & (q[:, 1] <= h - 1 - m)
+    covered = _beside(tracks, (w, h), grid)
+    inside &= ~_lookup(covered, p) & ~_lookup(covered, np.clip(q, 0, [w - 1, h - 1]))
+    if not inside.any():
+        return StillVotes(0, 0, False, False)
+    now = gray.astype(np.float32)
+    base = detail.patches[inside]
+    at_rest = _patches(now, p[inside].astype(np.float32), settings.half)
+    carried = _patches(now, q[inside].astype(np.float32), settings.half)
+    e_still = np.abs(at_rest - base).mean(axis=(1, 2))
+    e_moved = np.abs(carried - base).mean(axis=(1, 2))
+    # A patch found again matches to within a share of its own contrast; the other place
+    # must differ clearly, by the ratio and margin and by half that contrast.
+    contrast = base.std(axis=(1, 2))
+    close = settings.match_share * contrast + settings.match_grey
+    clear = 0.5 * contrast
+
+    def votes(found: np.ndarray, other: np.ndarray) -> int:
+        return int(np.count_nonzero((found <= close) & (other >= clear)
+                                    & (other > settings.ratio * found + settings.margin)))
+
+    still, moved = votes(e_still, e_moved), votes(e_moved, e_still)
+    return StillVotes(still, moved,
+                      still >= settings.min_votes and still >= settings.ratio * moved,
+                      moved >= 2 and moved >= settings.ratio * max(still, 1))
+
+
+#: Cell size (analysis pixels) of the coarse mask of where the tracks are.
+_CELL = 4
+
+
+def _beside(tracks: np.ndarray, size: tuple[int, int], grid: tuple[int, int]) -> np.ndarray:
+    """(h, w) bool of a ``size`` = (width, height) frame: inside the convex hull of
+    ``tracks`` (k, 2) grown by half a ``grid`` cell, worked out on cells of :data:`_CELL`
+    pixels. The picture between an object's tracks and just past its outermost ones is
+    the object's own."""
+    w, h = size
+    cw, ch = -(-w // _CELL), -(-h // _CELL)
+    coarse = np.zeros((ch, cw), np.uint8)
+    if len(tracks) >= 3:
+        hull = cv2.convexHull(np.rint(tracks / _CELL).astype(np.int32).reshape(-1, 1, 2))
+        cv2.fillConvexPoly(coarse, hull, 1)
+        r = int(np.ceil(0.5 * max(w / grid[0], h / grid[1]) / _CELL))
+        coarse = cv2.dilate(coarse, cv2.getStructuringElement(cv2.MORPH_ELLIPSE,
+                                                              (2 * r + 1,) * 2))
+    full = np.repeat(np.repeat(coarse, _CELL, axis=0), _CELL, axis=1)[:h, :w]
+    return full > 0
+
+
+def _lookup(mask: np.ndarray, pts: np.ndarray) -> np.ndarray:
+    """``mask`` (h, w) bool at the nearest pixel of each point (k, 2)."""
+    xi = np.clip(np.rint(pts[:, 0]).astype(int), 0, mask.shape[1] - 1)
+    yi = np.clip(np.rint(pts[:, 1]).astype(int), 0, mask.shape[0] - 1)
+    return mask[yi, xi]
+
+
+def _patches(img: np.ndarray, pts: np.ndarray, half: int) -> np.ndarray:
+    """(k, 2·half+1, 2·half+1) float32 patches of ``img`` centred on ``pts`` (k, 2), bilinear
+    (one remap for all of them)."""
+    off = np.arange(-half, half + 1, dtype=np.float32)
+    size = len(off)
+    mx = (pts[:, 0, None, None] + off[None, None, :]).repeat(size, axis=1)
+    my = (pts[:, 1, None, None] + off[None, :, None]).repeat(size, axis=2)
+    out = cv2.remap(img, mx.reshape(-1, size), my.reshape(-1, size), cv2.INTER_LINEAR,
+                    borderMode=cv2.BORDER_REPLICATE)
+    return out.reshape(len(pts), size, size)
+
+
+def _isotropy(gray: np.ndarray, pts: np.ndarray, block: int) -> np.ndarray:
+    """Smaller over larger eigenvalue of the gradient structure tensor (central
+    differences) summed over a ``block``×``block`` window at each integer point (k, 2); 0
+    where flat (Shi and Tomasi, "Good features to track", CVPR 1994, the eigenvalues of
+    their matrix Z)."""
+    g = gray.astype(np.float32)
+    r = block // 2 + 1
+    h, w = g.shape
+    x0 = np.clip(pts[:, 0] - r - 1, 0, w - 1)
+    y0 = np.clip(pts[:, 1] - r - 1, 0, h - 1)
+    side = 2 * r + 3
+    ys = np.clip(y0[:, None] + np.arange(side)[None, :], 0, h - 1)
+    xs = np.clip(x0[:, None] + np.arange(side)[None, :], 0, w - 1)
+    win = g[ys[:, :, None], xs[:, None, :]]
+    gx = 0.5 * (win[:, 1:-1, 2:] - win[:, 1:-1, :-2])
+    gy = 0.5 * (win[:, 2:, 1:-1] - win[:, :-2, 1:-1])
+    c = slice(1, 1 + block)
+    gx, gy = gx[:, c, c], gy[:, c, c]
+    a, b, d = (gx * gx).sum((1, 2)), (gx * gy).sum((1, 2)), (gy * gy).sum((1, 2))
+    tr, det = a + d, a * d - b * b
+    disc = np.sqrt(np.maximum(0.25 * tr * tr - det, 0.0))
+    big, small = 0.5 * tr + disc, 0.5 * tr - disc
+    return np.where(big > 1e-9, small / np.maximum(big, 1e-9), 0.0)

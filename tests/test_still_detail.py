@@ -1,0 +1,128 @@
+"""The still-detail check: faint detail away from the tracks, still or moved with the fit.
+
+Scenes are drawn here: a plain wall (a faint lighting gradient, a few small marks, sensor
+noise) with a densely textured board in front of it.
+"""
+
+from __future__ import annotations
+
+import cv2
+import numpy as np
+import pytest
+
+from stabilize.still_detail import StillDetailSettings, find_detail, judge
+from stabilize.track import track_settings_for
+
+W, H = 640, 360
+MARKS = ((60, 40), (580, 50), (70, 320), (590, 300), (320, 30), (300, 335))
+BOARD = (200, 110, 240, 140)  # x, y, w, h at rest
+SETTINGS = track_settings_for("balanced")
+
+
+def _wall(marks=MARKS, contrast: float = 25.0) -> np.ndarray:
+    yy, xx = np.mgrid[0:H, 0:W].astype(np.float32)
+    wall = 150 + 20 * xx / W - 10 * yy / H
+    for x, y in marks:
+        cv2.circle(wall, (x, y), 3, float(150 - contrast), -1, cv2.LINE_AA)
+    return wall
+
+
+def _frame(wall: np.ndarray, board_at: tuple[int, int], camera: tuple[float, float] = (0, 0),
+           seed: int = 0) -> tuple[np.ndarray, np.ndarray]:
+    """A frame (uint8) and the board's track positions in it (corners of a grid on it)."""
+    rng = np.random.default_rng(99)
+    bx, by, bw, bh = BOARD
+    texture = cv2.resize(rng.integers(0, 255, (bh // 6, bw // 6)).astype(np.float32),
+                         (bw, bh), interpolation=cv2.INTER_CUBIC)
+    img = wall.copy()
+    x0, y0 = board_at
+    img[y0:y0 + bh, x0:x0 + bw] = texture
+    if camera != (0, 0):
+        m = np.float32([[1, 0, camera[0]], [0, 1, camera[1]]])
+        img = cv2.warpAffine(img, m, (W, H), flags=cv2.INTER_LINEAR,
+                             borderMode=cv2.BORDER_REFLECT)
+    noise = np.random.default_rng(seed).normal(0, 1.5, img.shape)
+    gx, gy = np.meshgrid(np.linspace(x0 + 8, x0 + bw - 8, 12), np.linspace(y0 + 8, y0 + bh - 8, 8))
+    tracks = np.c_[gx.ravel(), gy.ravel()] + np.asarray(camera)
+    return np.clip(img + noise, 0, 255).astype(np.uint8), tracks
+
+
+def _shift(dx: float, dy: float) -> np.ndarray:
+    return np.array([[1.0, 0.0, dx], [0.0, 1.0, dy], [0.0, 0.0, 1.0]])
+
+
+def test_the_wall_marks_are_found_and_not_the_board():
+    img, tracks = _frame(_wall(), (200, 110))
+    detail = find_detail(img, tracks, None, SETTINGS)
+    assert detail is not None
+    found = {tuple(p) for p in detail.points.tolist()}
+    for x, y in MARKS:
+        assert any(abs(x - fx) <= 3 and abs(y - fy) <= 3 for fx, fy in found), (x, y)
+    bx, by, bw, bh = BOARD
+    inside = ((detail.points[:, 0] > bx - 10) & (detail.points[:, 0] < bx + bw + 10)
+              & (detail.points[:, 1] > by - 10) & (detail.points[:, 1] < by + bh + 10))
+    assert not inside.any()
+
+
+def test_a_smooth_background_offers_no_detail():
+    """A plain gradient (a sky, an evenly lit wall) under sensor noise has no corner that
+    could vote."""
+    img, tracks = _frame(_wall(marks=()), (200, 110))
+    assert find_detail(img, tracks, None, SETTINGS) is None
+
+
+def test_a_board_moved_before_a_still_wall_is_contradicted():
+    wall = _wall()
+    before, tracks = _frame(wall, (200, 110), seed=1)
+    after, tracks_now = _frame(wall, (260, 130), seed=2)
+    detail = find_detail(before, tracks, None, SETTINGS)
+    votes = judge(detail, after, _shift(60, 20), tracks_now, SETTINGS.grid)
+    assert votes.contradicted and not votes.supported
+    # Three marks stay in the frame where the fit would carry them; all three vote still.
+    assert votes.still == 3 and votes.moved == 0
+
+
+def test_a_camera_moved_over_the_wall_with_the_board_is_borne_out():
+    """The same pictures, but the camera moved: wall and board together. The detail moved
+    with the fit, so the fit stands."""
+    wall = _wall()
+    before, tracks = _frame(wall, (200, 110), seed=1)
+    after, tracks_now = _frame(wall, (200, 110), camera=(30, 12), seed=2)
+    detail = find_detail(before, tracks, None, SETTINGS)
+    votes = judge(detail, after, _shift(30, 12), tracks_now, SETTINGS.grid)
+    assert votes.supported and not votes.contradicted
+    assert votes.still == 0
+
+
+def test_detail_the_board_now_covers_does_not_vote():
+    """A mark the board slid over is neither still nor moved."""
+    wall = _wall(marks=((480, 180),))
+    before, tracks = _frame(wall, (200, 110), seed=1)
+    detail = find_detail(before, tracks, None, SETTINGS)
+    assert detail is not None and len(detail.points) == 1
+    after, tracks_now = _frame(wall, (380, 110), seed=2)  # the board now over the mark
+    votes = judge(detail, after, _shift(180, 0), tracks_now, SETTINGS.grid)
+    assert votes.still == 0 and votes.moved == 0 and not votes.contradicted
+
+
+def test_no_vote_when_both_places_differ():
+    """Detail that changed altogether (new lighting, a scene change) supports neither
+    hypothesis."""
+    wall = _wall()
+    before, tracks = _frame(wall, (200, 110), seed=1)
+    detail = find_detail(before, tracks, None, SETTINGS)
+    after = (255 - before.astype(np.int16)).astype(np.uint8)
+    votes = judge(detail, after, _shift(60, 20), tracks, SETTINGS.grid)
+    assert votes.still == 0 and votes.moved == 0
+
+
+@pytest.mark.parametrize("usable_blocks", [True, False])
+def test_overlay_cells_are_left_out(usable_blocks):
+    wall = _wall()
+    img, tracks = _frame(wall, (200, 110))
+    usable = np.full((H, W), 255, np.uint8)
+    if usable_blocks:
+        usable[:, :W // 2] = 0
+    detail = find_detail(img, tracks, usable, SETTINGS, StillDetailSettings())
+    left = detail.points[:, 0] < W // 2
+    assert (not left.any()) if usable_blocks else left.any()
