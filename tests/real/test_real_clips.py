@@ -139,6 +139,15 @@ def test_bikes_steadying_cuts_jitter_threefold(steadied):
             f"(wanted at most a third)")
 
 
+def test_moving_cameras_are_never_held_still(real_clip):
+    """Hand-held, moving cameras (bikes: street scenes with cuts; cup: a phone drifting
+    before a plain wall): detail away from the tracks moves with them, so no frame is taken
+    for an object in front of a still camera (reason ``held_still``)."""
+    for name in ("bikes.mp4", "cup.mp4"):
+        held = _measured(real_clip(name)).extra["frame_reasons"].get("held_still", [])
+        assert not held, f"{name}: frames {held[:10]} held still, but the camera moves"
+
+
 # --------------------------------------------------------------------- cup
 # A hand waves a dark cup in front of a plain wall with a few faint marks. The phone is held,
 # not fixed: an independent registration of two strips of bare wall (phase correlation,
