@@ -19,7 +19,7 @@ from stabilize.io import (
 )
 from stabilize.io.colour import ColourTags, parse_colour
 from stabilize.io.decode import DecodeStats, analysis_size, looks_truncated
-from stabilize.io.encode import _encoder_env, output_colour
+from stabilize.io.encode import LARGE_FRAME_LOOKAHEAD, _encoder_env, output_colour, x264_options
 from stabilize.io.probing import constant_rate
 from stabilize.io.process import ffmpeg_exe
 
@@ -288,3 +288,15 @@ def test_probe_reads_the_pixel_aspect_ratio_upright(tmp_path):
     _ff("-f", "lavfi", "-i", "testsrc2=s=72x48:d=0.2:r=25", "-vf", "setsar=0",
         "-c:v", "libx264", str(bare))
     assert probe(bare).sar is None
+
+
+def test_large_frames_get_a_shorter_encoder_look_ahead(tmp_path):
+    """At 4K the encoder holds fewer frames ahead (its memory), below that x264's preset
+    decides alone; the option reaches the encoder's command line."""
+    assert x264_options(1920, 1080) == [] and x264_options(2560, 1440) == []
+    big = x264_options(3840, 2160)
+    assert big == ["-x264-params", f"rc-lookahead={LARGE_FRAME_LOOKAHEAD}"]
+    cmd = VideoWriter(tmp_path / "big.mp4", 3840, 2160, 30.0)._command(tmp_path / "t.mp4")
+    assert cmd[cmd.index("-x264-params") + 1] == f"rc-lookahead={LARGE_FRAME_LOOKAHEAD}"
+    small = VideoWriter(tmp_path / "s.mp4", 1280, 720, 30.0)._command(tmp_path / "t.mp4")
+    assert "-x264-params" not in small

