@@ -20,7 +20,8 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import NDArray
 
-__all__ = ["MotionBounds", "Frame", "frame_box", "plausible", "point_set_problem", "weakness"]
+__all__ = ["MotionBounds", "Frame", "cell_index", "count_cells", "frame_box", "occupied_cells",
+           "plausible", "point_set_problem", "weakness"]
 
 #: A fit is weak below this many inliers ...
 WEAK_MIN_INLIERS = 12
@@ -221,6 +222,20 @@ def point_set_problem(gram: NDArray[np.float64], n: int, spread_rank: int) -> st
     return ""
 
 
+def cell_index(xy: NDArray[np.float64], frame: Frame, grid: int = SPREAD_GRID) -> NDArray[np.intp]:
+    """Cell of a ``grid x grid`` partition of the frame holding each point, numbered row by
+    row from the top-left; shape (m,).
+
+    ``xy`` is (2, m): rows x and y in pixels. A point on the frame's edge or outside it
+    counts in the nearest cell.
+    """
+    g = (xy - np.array([[frame.x0], [frame.y0]])) * np.array([[grid / frame.width],
+                                                              [grid / frame.height]])
+    np.minimum(np.maximum(g, 0.0, out=g), grid - 0.5, out=g)
+    gi = g.astype(np.intp)
+    return gi[0] + grid * gi[1]
+
+
 def occupied_cells(xy: NDArray[np.float64], frame: Frame, grid: int = SPREAD_GRID) -> int:
     """Number of cells of a ``grid x grid`` partition of the frame holding a point.
 
@@ -228,13 +243,13 @@ def occupied_cells(xy: NDArray[np.float64], frame: Frame, grid: int = SPREAD_GRI
     """
     if xy.shape[1] == 0:
         return 0
-    # Cell coordinates of every point, clipped into the grid (a point on the frame's edge
-    # or outside it counts in the nearest cell).
-    g = (xy - np.array([[frame.x0], [frame.y0]])) * np.array([[grid / frame.width],
-                                                              [grid / frame.height]])
-    np.minimum(np.maximum(g, 0.0, out=g), grid - 0.5, out=g)
-    gi = g.astype(np.intp)
-    cells = gi[0] + grid * gi[1]
+    return count_cells(cell_index(xy, frame, grid), grid)
+
+
+def count_cells(cells: NDArray[np.intp], grid: int = SPREAD_GRID) -> int:
+    """Number of distinct cells among ``cells`` (from :func:`cell_index`)."""
+    if len(cells) == 0:
+        return 0
     return int(np.count_nonzero(np.bincount(cells, minlength=grid * grid)))
 
 
