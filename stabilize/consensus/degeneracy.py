@@ -107,6 +107,10 @@ class Frame:
         return math.hypot(self.width, self.height)
 
 
+# Frames of the sizes seen lately (a frozen record each; building one costs a few µs).
+_FRAMES: dict[tuple[float, float], Frame] = {}
+
+
 def frame_box(frame_size: tuple[float, float] | None, pts: NDArray[np.float64]) -> Frame:
     """The frame, or without ``frame_size`` the bounding box of the src points.
 
@@ -114,7 +118,13 @@ def frame_box(frame_size: tuple[float, float] | None, pts: NDArray[np.float64]) 
     ``[-0.5, w - 0.5] x [-0.5, h - 0.5]``. ``pts`` is (4, n) with src x, y in rows 0, 1.
     """
     if frame_size is not None:
-        return Frame(-0.5, -0.5, float(frame_size[0]), float(frame_size[1]))
+        w, h = frame_size
+        frame = _FRAMES.get((w, h))
+        if frame is None:
+            if len(_FRAMES) > 16:
+                _FRAMES.clear()
+            frame = _FRAMES[(w, h)] = Frame(-0.5, -0.5, float(w), float(h))
+        return frame
     x0, y0 = pts[:2].min(axis=1).tolist()
     x1, y1 = pts[:2].max(axis=1).tolist()
     return Frame(x0, y0, max(x1 - x0, 1.0), max(y1 - y0, 1.0), known=False)
