@@ -14,7 +14,6 @@ References
 
 from __future__ import annotations
 
-import cv2
 import numpy as np
 from numpy.typing import NDArray
 
@@ -45,16 +44,12 @@ def canonical_order(
 
     Returns
     -------
-    ndarray of int32 or intp, shape (n,)
+    ndarray of intp, shape (n,)
         Permutation sorting the columns; identical columns are interchangeable.
     """
     if key is None:
         key = _KEY @ pts
-    # OpenCV's index sort: the same permutation as numpy.argsort for distinct keys (the only
-    # case kept below), at about half its cost.
-    if len(key) < 2:
-        return np.arange(len(key))
-    order = cv2.sortIdx(key.reshape(1, -1), cv2.SORT_EVERY_ROW | cv2.SORT_ASCENDING).ravel()
+    order = np.argsort(key)
     k = np.take(key, order)
     if (k[1:] == k[:-1]).any():
         # Equal keys: sort exactly by (x, y, u, v) so that only identical columns tie.
