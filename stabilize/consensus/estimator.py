@@ -256,10 +256,8 @@ def _prepared(spec: Model, src: NDArray[np.float64], dst: NDArray[np.float64]) -
     """The point set made ready (:class:`_Prepared`), reused when arrays with the same
     values were given for the same model lately (its arrays are read-only)."""
     s_key, d_key = src.tobytes(), dst.tobytes()
-    for i, (m, s_ref, d_ref, ready) in enumerate(_RECENT):
+    for m, s_ref, d_ref, ready in tuple(_RECENT):
         if m is spec and s_ref == s_key and d_ref == d_key:
-            if i:
-                _RECENT.insert(0, _RECENT.pop(i))
             return ready
     ready = _prepare(spec, src, dst)
     _RECENT.insert(0, (spec, s_key, d_key, ready))
