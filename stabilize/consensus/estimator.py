@@ -224,9 +224,9 @@ class _Prepared(NamedTuple):
     their count, canonical order, the ordered points (4, n), the normalisation, the
     normalised points (5, n), why no model of the family fits them ("" when one may) and
     the model's features and those of an evenly spread subset of the points (None when
-    there are too few points for a preview); then the normalisation's four 3x3 matrices
-    (pixels to normalised and back, src and dst) and, per frame rectangle, the spread
-    grid's cell of every src point (filled on first use)."""
+    there are too few points for a preview); then what later calls on the same points
+    reuse, made on first use (:func:`_memo`): the normalisation's 3x3 matrices and, per
+    frame rectangle, the spread grid's cell of every src point."""
 
     keep: NDArray[np.intp] | None
     n: int
@@ -237,11 +237,20 @@ class _Prepared(NamedTuple):
     problem: str
     feat: NDArray[np.float64] | None
     feat_sub: NDArray[np.float64] | None
-    t_src: NDArray[np.float64] | None = None
-    t_src_inv: NDArray[np.float64] | None = None
-    t_dst: NDArray[np.float64] | None = None
-    t_dst_inv: NDArray[np.float64] | None = None
-    cells: dict[Frame, NDArray[np.intp]] | None = None
+    memo: dict[str | Frame, NDArray] | None = None
+
+
+def _memo(ready: _Prepared, key: str | Frame) -> NDArray:
+    """``ready``'s normalisation matrix ``key`` ("t_src", "t_src_inv", "t_dst",
+    "t_dst_inv", see :class:`Normalisation`) or, for a :class:`Frame`, the spread grid's
+    cell of every src point (:func:`cell_index`); made on first use, read-only."""
+    got = ready.memo.get(key)
+    if got is None:
+        got = (cell_index(ready.pts[:2], key) if isinstance(key, Frame)
+               else getattr(ready.norm, key)())
+        got.flags.writeable = False
+        ready.memo[key] = got
+    return got
 
 
 # The last few point sets made ready, keyed by the bytes of the arrays they came from: a
@@ -293,11 +302,10 @@ def _prepare(spec: Model, src: NDArray[np.float64], dst: NDArray[np.float64]) ->
         # Every k-th point in canonical order (which runs along a slanted line across the
         # frame) spreads the subset over the whole frame.
         feat_sub = np.ascontiguousarray(feat[:, ::n // PREVIEW_POINTS])
-    mats = (norm.t_src(), norm.t_src_inv(), norm.t_dst(), norm.t_dst_inv())
-    for a in (keep, order, pts, z, feat, feat_sub, *mats):
+    for a in (keep, order, pts, z, feat, feat_sub):
         if a is not None:
             a.flags.writeable = False
-    return _Prepared(keep, n, order, pts, norm, z, problem, feat, feat_sub, *mats, {})
+    return _Prepared(keep, n, order, pts, norm, z, problem, feat, feat_sub, {})
 
 
 def _estimate(
@@ -354,7 +362,7 @@ def _estimate(
         rounds += 1
         hp = None
         if all(map(math.isfinite, prior.ravel().tolist())) and abs(_det3(prior)) > 1e-300:
-            hp = spec.project(prepared.t_dst @ prior @ prepared.t_src_inv)
+            hp = spec.project(_memo(prepared, "t_dst") @ prior @ _memo(prepared, "t_src_inv"))
         if hp is not None and ok_motion(hp):
             n_valid += 1
             adopt(evaluate(spec, feat, hp, t2))
@@ -424,7 +432,7 @@ def _estimate(
 
     mask = inlier_mask(final.sq_res, t2)
     k = int(np.count_nonzero(mask))
-    h_px = prepared.t_dst_inv @ final.h @ prepared.t_src
+    h_px = _memo(prepared, "t_dst_inv") @ final.h @ _memo(prepared, "t_src")
     h_px /= h_px[2, 2]
     inl = np.empty(n, dtype=bool)
     inl[order] = mask
@@ -436,11 +444,7 @@ def _estimate(
     rms = float(np.sqrt((final.sq_res @ mask) / (k * scale2))) if k else float("nan")
     min_support = 2 * s + 2
     ok = k >= min_support
-    cells = prepared.cells.get(frame)
-    if cells is None:
-        cells = prepared.cells[frame] = cell_index(pts[:2], frame)
-        cells.flags.writeable = False
-    weak_reason = weakness(k, n, count_cells(np.compress(mask, cells)))
+    weak_reason = weakness(k, n, count_cells(np.compress(mask, _memo(prepared, frame))))
     reason = "" if ok else f"too few inliers ({k}, need {min_support})"
     reason = reason or weak_reason
     return Fit(h_px, inl, rounds, rms, final.cost / scale2, ok, bool(weak_reason) or not ok,
