@@ -128,11 +128,10 @@ def fit_frame(src: np.ndarray, dst: np.ndarray, background: np.ndarray, *,
             best = dataclasses.replace(found, rounds=best.rounds + found.rounds,
                                        weak=best.weak or found.weak)
     passes = REFIT_PASSES[settings.analysis]
-    best = _noise_adaptive_refit(model, src, dst, best, kw, seed, passes)
+    best, err = _refit_to_noise(model, src, dst, best, kw, seed, passes)
     n = len(src)
     # Rivals are sought at the noise scale of the first fit: two motions a pixel apart both
     # pass a 1.5 px threshold, but not a threshold of a few tenths.
-    err = transfer_error(best.matrix, src, dst)
     noise_px = min(settings.inlier_px, max(0.05, TIGHT_K * median(err[best.support])
                                            / 1.1774))
     kw_rival = {**kw, "inlier_px": noise_px}
@@ -150,11 +149,10 @@ def fit_frame(src: np.ndarray, dst: np.ndarray, background: np.ndarray, *,
     for i, r in enumerate(rivals):
         if r is None:
             continue
-        r = _noise_adaptive_refit(model, src, dst, r, kw_rival, [*seed, 10 + i], passes)
+        r, err = _refit_to_noise(model, src, dst, r, kw_rival, [*seed, 10 + i], passes)
         rounds += r.rounds
         s = background_score(r, src, background, frame_size)
         if s > score:
-            err = transfer_error(r.matrix, src, dst)
             inl = err < settings.inlier_px
             best, score = dataclasses.replace(r, inliers=inl, rms_px=float(
                 np.sqrt(np.mean(err[inl] ** 2)))), s
@@ -187,6 +185,12 @@ def _consensus(model: MotionModel, src: np.ndarray, dst: np.ndarray, *, settings
 
 def _noise_adaptive_refit(model: MotionModel, src: np.ndarray, dst: np.ndarray, fit: FrameFit,
                           kw: dict, seed: list[int], passes: int = 3) -> FrameFit:
+    """:func:`_refit_to_noise` without the transfer errors."""
+    return _refit_to_noise(model, src, dst, fit, kw, seed, passes)[0]
+
+
+def _refit_to_noise(model: MotionModel, src: np.ndarray, dst: np.ndarray, fit: FrameFit,
+                    kw: dict, seed: list[int], passes: int = 3) -> tuple[FrameFit, np.ndarray]:
     """Refit on the inliers that agree with the fit to within the measured tracking noise.
 
     The user's threshold must be wide enough for every frame, so it lets in matches with
@@ -195,12 +199,15 @@ def _noise_adaptive_refit(model: MotionModel, src: np.ndarray, dst: np.ndarray, 
     residual of the current tight set (for 2-D Gaussian errors the median distance is
     1.1774 σ), and the refit keeps residuals below ``TIGHT_K`` σ. A few passes let σ settle
     once the worst matches are gone.
+
+    Returns the fit and the transfer errors (n,) of its matrix on all pairs, pixels.
     """
     if fit.inliers.sum() < 12:
-        return fit
+        return fit, transfer_error(fit.matrix, src, dst)
     m = fit.matrix
     tight_set = fit.inliers
     rounds = fit.rounds
+    err = None
     for k in range(passes):
         err = transfer_error(m, src, dst)
         sigma = median(err[tight_set]) / 1.1774
@@ -214,12 +221,14 @@ def _noise_adaptive_refit(model: MotionModel, src: np.ndarray, dst: np.ndarray, 
         m = np.asarray(again.matrix, float)
         tight_set = np.asarray(again.inliers, bool)
         rounds += int(again.rounds)
-    err = transfer_error(m, src, dst)
+        err = None
+    if err is None:
+        err = transfer_error(m, src, dst)
     full = err < kw["inlier_px"]
     if full.sum() < 0.9 * fit.inliers.sum():
-        return fit
+        return fit, (err if m is fit.matrix else transfer_error(fit.matrix, src, dst))
     return FrameFit(m, full, float(np.sqrt(np.mean(err[full] ** 2))), rounds, True, fit.weak,
-                    tight_set)
+                    tight_set), err
 
 
 def corner_shift(a: np.ndarray, b: np.ndarray, frame_size: tuple[int, int]) -> float:

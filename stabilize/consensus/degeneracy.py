@@ -20,7 +20,8 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import NDArray
 
-__all__ = ["MotionBounds", "Frame", "frame_box", "plausible", "point_set_problem", "weakness"]
+__all__ = ["MotionBounds", "Frame", "cell_index", "count_cells", "frame_box", "occupied_cells",
+           "plausible", "point_set_problem", "weakness"]
 
 #: A fit is weak below this many inliers ...
 WEAK_MIN_INLIERS = 12
@@ -106,6 +107,10 @@ class Frame:
         return math.hypot(self.width, self.height)
 
 
+# Frames of the sizes seen lately (a frozen record each; building one costs a few µs).
+_FRAMES: dict[tuple[float, float], Frame] = {}
+
+
 def frame_box(frame_size: tuple[float, float] | None, pts: NDArray[np.float64]) -> Frame:
     """The frame, or without ``frame_size`` the bounding box of the src points.
 
@@ -113,7 +118,13 @@ def frame_box(frame_size: tuple[float, float] | None, pts: NDArray[np.float64]) 
     ``[-0.5, w - 0.5] x [-0.5, h - 0.5]``. ``pts`` is (4, n) with src x, y in rows 0, 1.
     """
     if frame_size is not None:
-        return Frame(-0.5, -0.5, float(frame_size[0]), float(frame_size[1]))
+        w, h = frame_size
+        frame = _FRAMES.get((w, h))
+        if frame is None:
+            if len(_FRAMES) > 16:
+                _FRAMES.clear()
+            frame = _FRAMES[(w, h)] = Frame(-0.5, -0.5, float(w), float(h))
+        return frame
     x0, y0 = pts[:2].min(axis=1).tolist()
     x1, y1 = pts[:2].max(axis=1).tolist()
     return Frame(x0, y0, max(x1 - x0, 1.0), max(y1 - y0, 1.0), known=False)
@@ -221,6 +232,20 @@ def point_set_problem(gram: NDArray[np.float64], n: int, spread_rank: int) -> st
     return ""
 
 
+def cell_index(xy: NDArray[np.float64], frame: Frame, grid: int = SPREAD_GRID) -> NDArray[np.intp]:
+    """Cell of a ``grid x grid`` partition of the frame holding each point, numbered row by
+    row from the top-left; shape (m,).
+
+    ``xy`` is (2, m): rows x and y in pixels. A point on the frame's edge or outside it
+    counts in the nearest cell.
+    """
+    g = (xy - np.array([[frame.x0], [frame.y0]])) * np.array([[grid / frame.width],
+                                                              [grid / frame.height]])
+    np.minimum(np.maximum(g, 0.0, out=g), grid - 0.5, out=g)
+    gi = g.astype(np.intp)
+    return gi[0] + grid * gi[1]
+
+
 def occupied_cells(xy: NDArray[np.float64], frame: Frame, grid: int = SPREAD_GRID) -> int:
     """Number of cells of a ``grid x grid`` partition of the frame holding a point.
 
@@ -228,13 +253,13 @@ def occupied_cells(xy: NDArray[np.float64], frame: Frame, grid: int = SPREAD_GRI
     """
     if xy.shape[1] == 0:
         return 0
-    # Cell coordinates of every point, clipped into the grid (a point on the frame's edge
-    # or outside it counts in the nearest cell).
-    g = (xy - np.array([[frame.x0], [frame.y0]])) * np.array([[grid / frame.width],
-                                                              [grid / frame.height]])
-    np.minimum(np.maximum(g, 0.0, out=g), grid - 0.5, out=g)
-    gi = g.astype(np.intp)
-    cells = gi[0] + grid * gi[1]
+    return count_cells(cell_index(xy, frame, grid), grid)
+
+
+def count_cells(cells: NDArray[np.intp], grid: int = SPREAD_GRID) -> int:
+    """Number of distinct cells among ``cells`` (from :func:`cell_index`)."""
+    if len(cells) == 0:
+        return 0
     return int(np.count_nonzero(np.bincount(cells, minlength=grid * grid)))
 
 

@@ -20,9 +20,11 @@ from numpy.typing import ArrayLike, NDArray
 
 from .degeneracy import (
     DEFAULT_BOUNDS,
+    Frame,
     MotionBounds,
+    cell_index,
+    count_cells,
     frame_box,
-    occupied_cells,
     plausible,
     point_set_problem,
     to_frame_centred,
@@ -222,7 +224,9 @@ class _Prepared(NamedTuple):
     their count, canonical order, the ordered points (4, n), the normalisation, the
     normalised points (5, n), why no model of the family fits them ("" when one may) and
     the model's features and those of an evenly spread subset of the points (None when
-    there are too few points for a preview)."""
+    there are too few points for a preview); then what later calls on the same points
+    reuse, made on first use (:func:`_memo`): the normalisation's 3x3 matrices and, per
+    frame rectangle, the spread grid's cell of every src point."""
 
     keep: NDArray[np.intp] | None
     n: int
@@ -233,25 +237,39 @@ class _Prepared(NamedTuple):
     problem: str
     feat: NDArray[np.float64] | None
     feat_sub: NDArray[np.float64] | None
+    memo: dict[str | Frame, NDArray] | None = None
 
 
-# The last few point sets made ready, with the arrays they came from: a frame's fit calls
-# the estimator several times on the same pairs (a consensus, then refits at other
-# thresholds), and getting them ready costs as much as a refit.
-_RECENT: list[tuple[Model, NDArray[np.float64], NDArray[np.float64], NDArray[np.float64],
-                    NDArray[np.float64], _Prepared]] = []
-_RECENT_SIZE = 2
+def _memo(ready: _Prepared, key: str | Frame) -> NDArray:
+    """``ready``'s normalisation matrix ``key`` ("t_src", "t_src_inv", "t_dst",
+    "t_dst_inv", see :class:`Normalisation`) or, for a :class:`Frame`, the spread grid's
+    cell of every src point (:func:`cell_index`); made on first use, read-only."""
+    got = ready.memo.get(key)
+    if got is None:
+        got = (cell_index(ready.pts[:2], key) if isinstance(key, Frame)
+               else getattr(ready.norm, key)())
+        got.flags.writeable = False
+        ready.memo[key] = got
+    return got
+
+
+# The last few point sets made ready, keyed by the bytes of the arrays they came from: a
+# frame's fit calls the estimator several times on the same pairs (a consensus, then refits
+# at other thresholds), often as fresh copies of them, and getting them ready costs as much
+# as a refit. Equal bytes give the same preparation bit for bit.
+_RECENT: list[tuple[Model, bytes, bytes, _Prepared]] = []
+_RECENT_SIZE = 4
 
 
 def _prepared(spec: Model, src: NDArray[np.float64], dst: NDArray[np.float64]) -> _Prepared:
-    """The point set made ready (:class:`_Prepared`), reused when the same arrays with the
-    same values were given for the same model lately (its arrays are read-only)."""
-    for m, s_ref, d_ref, s_copy, d_copy, ready in _RECENT:
-        if (m is spec and s_ref is src and d_ref is dst and np.array_equal(s_copy, src)
-                and np.array_equal(d_copy, dst)):
+    """The point set made ready (:class:`_Prepared`), reused when arrays with the same
+    values were given for the same model lately (its arrays are read-only)."""
+    s_key, d_key = src.tobytes(), dst.tobytes()
+    for m, s_ref, d_ref, ready in tuple(_RECENT):
+        if m is spec and s_ref == s_key and d_ref == d_key:
             return ready
     ready = _prepare(spec, src, dst)
-    _RECENT.insert(0, (spec, src, dst, src.copy(), dst.copy(), ready))
+    _RECENT.insert(0, (spec, s_key, d_key, ready))
     del _RECENT[_RECENT_SIZE:]
     return ready
 
@@ -287,7 +305,7 @@ def _prepare(spec: Model, src: NDArray[np.float64], dst: NDArray[np.float64]) ->
     for a in (keep, order, pts, z, feat, feat_sub):
         if a is not None:
             a.flags.writeable = False
-    return _Prepared(keep, n, order, pts, norm, z, problem, feat, feat_sub)
+    return _Prepared(keep, n, order, pts, norm, z, problem, feat, feat_sub, {})
 
 
 def _estimate(
@@ -299,7 +317,7 @@ def _estimate(
     n_all = len(src)
     s = spec.sample_size
     prepared = _prepared(spec, src, dst)
-    keep, n, order, pts, norm, z, problem, feat, feat_sub = prepared
+    keep, n, order, pts, norm, z, problem, feat, feat_sub = prepared[:9]
     if n < s:
         return _failure(n_all, 0, f"too few points ({n} < {s})", spec.name)
     if problem:
@@ -343,8 +361,8 @@ def _estimate(
     if prior is not None:
         rounds += 1
         hp = None
-        if np.isfinite(prior).all() and abs(_det3(prior)) > 1e-300:
-            hp = spec.project(norm.t_dst() @ prior @ norm.t_src_inv())
+        if all(map(math.isfinite, prior.ravel().tolist())) and abs(_det3(prior)) > 1e-300:
+            hp = spec.project(_memo(prepared, "t_dst") @ prior @ _memo(prepared, "t_src_inv"))
         if hp is not None and ok_motion(hp):
             n_valid += 1
             adopt(evaluate(spec, feat, hp, t2))
@@ -414,7 +432,7 @@ def _estimate(
 
     mask = inlier_mask(final.sq_res, t2)
     k = int(np.count_nonzero(mask))
-    h_px = norm.t_dst_inv() @ final.h @ norm.t_src()
+    h_px = _memo(prepared, "t_dst_inv") @ final.h @ _memo(prepared, "t_src")
     h_px /= h_px[2, 2]
     inl = np.empty(n, dtype=bool)
     inl[order] = mask
@@ -426,7 +444,7 @@ def _estimate(
     rms = float(np.sqrt((final.sq_res @ mask) / (k * scale2))) if k else float("nan")
     min_support = 2 * s + 2
     ok = k >= min_support
-    weak_reason = weakness(k, n, occupied_cells(np.compress(mask, pts[:2], axis=1), frame))
+    weak_reason = weakness(k, n, count_cells(np.compress(mask, _memo(prepared, frame))))
     reason = "" if ok else f"too few inliers ({k}, need {min_support})"
     reason = reason or weak_reason
     return Fit(h_px, inl, rounds, rms, final.cost / scale2, ok, bool(weak_reason) or not ok,

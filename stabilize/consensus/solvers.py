@@ -18,6 +18,8 @@ References
 
 from __future__ import annotations
 
+import math
+
 import cv2
 import numpy as np
 from numpy.typing import NDArray
@@ -367,40 +369,45 @@ def _unflat(x: Array) -> Array:
 # --------------------------------------------------------------------------- projections
 
 
+def _normalised(h: Array) -> list[float] | None:
+    """The nine entries of ``h`` (3, 3) divided by h33 (row-major), or None when one is not
+    finite or h33 is near 0."""
+    v = h.ravel().tolist()
+    if not all(map(math.isfinite, v)) or abs(v[8]) < 1e-12:
+        return None
+    k = v[8]
+    return [x / k for x in v]
+
+
 def normalise_h(h: Array) -> Array | None:
     """``h`` (3, 3) scaled to h33 = 1, or None when it is not finite or h33 is near 0."""
-    if not np.all(np.isfinite(h)) or abs(h[2, 2]) < 1e-12:
-        return None
-    return h / h[2, 2]
+    v = _normalised(h)
+    return None if v is None else np.array(v).reshape(3, 3)
 
 
 def translation_project(h: Array) -> Array | None:
     """The translation part of ``h`` (3, 3), or None for an unusable ``h``."""
-    h = normalise_h(h)
-    if h is None:
+    v = _normalised(h)
+    if v is None:
         return None
     # The image of the (normalised) centroid keeps the best translation locally.
-    out = np.eye(3)
-    out[:2, 2] = h[:2, 2]
-    return out
+    return np.array([[1.0, 0.0, v[2]], [0.0, 1.0, v[5]], [0.0, 0.0, 1.0]])
 
 
 def similarity_project(h: Array) -> Array | None:
     """The similarity nearest to ``h``'s linear part (its rotation-and-scale component),
     with ``h``'s translation; None for an unusable ``h``."""
-    h = normalise_h(h)
-    if h is None:
+    v = _normalised(h)
+    if v is None:
         return None
-    a = 0.5 * (h[0, 0] + h[1, 1])
-    b = 0.5 * (h[1, 0] - h[0, 1])
-    return np.array([[a, -b, h[0, 2]], [b, a, h[1, 2]], [0.0, 0.0, 1.0]])
+    a = 0.5 * (v[0] + v[4])
+    b = 0.5 * (v[3] - v[1])
+    return np.array([[a, -b, v[2]], [b, a, v[5]], [0.0, 0.0, 1.0]])
 
 
 def affine_project(h: Array) -> Array | None:
     """``h`` (3, 3) with its perspective row dropped; None for an unusable ``h``."""
-    h = normalise_h(h)
-    if h is None:
+    v = _normalised(h)
+    if v is None:
         return None
-    out = h.copy()
-    out[2] = (0.0, 0.0, 1.0)
-    return out
+    return np.array([v[:3], v[3:6], [0.0, 0.0, 1.0]])

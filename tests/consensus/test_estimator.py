@@ -219,3 +219,43 @@ def test_programming_errors_raise():
         estimate(pts, pts, confidence=0.0)
     with pytest.raises(ValueError):
         estimate(pts, pts, prior=np.eye(2))
+
+
+@pytest.mark.parametrize("model", NAMES)
+def test_point_sets_reused_by_value_only(model):
+    # A point set made ready once is reused for equal values (fresh copies included) and
+    # never for changed values, even when the same arrays were changed in place.
+    rng = np.random.default_rng(11)
+    _, src, dst, _ = make_matches(rng, model, n=200, outliers=0.3)
+    prior = estimate(src, dst, model=model, seed=1, frame_size=FRAME).matrix
+    kw = dict(model=model, seed=2, prior=prior, inlier_px=0.8, frame_size=FRAME)
+    a = estimate(src, dst, **kw)
+    b = estimate(src.copy(), dst.copy(), **kw)
+    assert a.matrix.tobytes() == b.matrix.tobytes()
+    np.testing.assert_array_equal(a.inliers, b.inliers)
+    moved = src.copy()
+    estimate(moved, dst, **kw)
+    moved += 3.0  # the same array, changed in place after it was seen
+    again = estimate(moved, dst, **kw)
+    fresh = estimate(src + 3.0, dst, **kw)
+    assert again.matrix.tobytes() == fresh.matrix.tobytes()
+    np.testing.assert_array_equal(again.inliers, fresh.inliers)
+    assert not np.array_equal(again.matrix, a.matrix)
+
+
+def test_spread_counted_on_the_inliers_of_each_call():
+    # The spread grid's cells are kept with the point set; each call counts the cells of
+    # its own inliers (here: a prior that fits only the left half, then the whole set).
+    rng = np.random.default_rng(12)
+    src = rng.uniform(0, [WIDTH, HEIGHT], (400, 2))
+    dst = src + (4.0, -1.0)
+    left = src[:, 0] < WIDTH / 4
+    dst[~left] += (0.0, 30.0)  # the rest moves away: only the left quarter fits
+    shift = np.array([[1.0, 0.0, 4.0], [0.0, 1.0, -1.0], [0.0, 0.0, 1.0]])
+    narrow = estimate(src, dst, model="translation", prior=shift, max_rounds=0,
+                      frame_size=FRAME)
+    assert narrow.ok and narrow.weak and "bunched" in narrow.reason
+    dst[~left] -= (0.0, 30.0)
+    wide = estimate(src, dst, model="translation", prior=shift, max_rounds=0,
+                    frame_size=FRAME)
+    assert wide.ok and not wide.weak

@@ -81,3 +81,26 @@ def test_coincident_sample_rejected():
     src = np.array([[100.0, 100.0], [100.0, 100.0]])
     _, valid = _solve_pixels("similarity", src, src + 1.0)
     assert not valid
+
+
+@pytest.mark.parametrize("model", NAMES)
+def test_projection_onto_each_family(model):
+    # A scaled general matrix is normalised (h33 = 1) and projected onto the family:
+    # translation keeps the shift, similarity the rotation-and-scale part of the linear
+    # block, affine drops the perspective row; non-finite or h33 ~ 0 gives None.
+    h = np.array([[1.02, -0.05, 3.0], [0.07, 0.98, -2.0], [1e-4, -2e-4, 1.0]])
+    got = MODELS[model].project(2.5 * h)
+    want = {
+        "translation": [[1.0, 0.0, 3.0], [0.0, 1.0, -2.0], [0.0, 0.0, 1.0]],
+        "similarity": [[1.0, -0.06, 3.0], [0.06, 1.0, -2.0], [0.0, 0.0, 1.0]],
+        "affine": [[1.02, -0.05, 3.0], [0.07, 0.98, -2.0], [0.0, 0.0, 1.0]],
+        "homography": h,
+    }[model]
+    np.testing.assert_allclose(got, want, rtol=0, atol=1e-12)
+    assert got[2, 2] == 1.0
+    bad = h.copy()
+    bad[0, 1] = np.nan
+    assert MODELS[model].project(bad) is None
+    flat = h.copy()
+    flat[2, 2] = 0.0
+    assert MODELS[model].project(flat) is None
