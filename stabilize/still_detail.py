@@ -35,9 +35,10 @@ from dataclasses import dataclass
 import cv2
 import numpy as np
 
-from .track import TrackSettings
+from .track import TrackSettings, strength_floor
 
-__all__ = ["StillDetail", "StillDetailSettings", "StillVotes", "find_detail", "judge"]
+__all__ = ["StillDetail", "StillDetailSettings", "StillVotes", "find_detail", "judge",
+           "spread_maxima"]
 
 
 @dataclass(frozen=True)
@@ -115,7 +116,7 @@ def find_detail(gray: np.ndarray, tracks: np.ndarray, usable: np.ndarray | None,
     no such corner.
     """
     h, w = gray.shape
-    mask = np.where(_beside(tracks, (w, h), track_settings.grid), 0, 255).astype(np.uint8)
+    mask = (~_beside(tracks, (w, h), track_settings.grid)).astype(np.uint8)
     if np.count_nonzero(mask) < settings.untracked_share * mask.size:
         return None
     if usable is not None:
@@ -125,31 +126,23 @@ def find_detail(gray: np.ndarray, tracks: np.ndarray, usable: np.ndarray | None,
     if not mask.any():
         return None
     strength = cv2.cornerMinEigenVal(gray, track_settings.block_size, ksize=3)
-    floor = max(track_settings.min_strength,
-                track_settings.noise_floor * float(np.median(strength)))
+    floor = strength_floor(strength, track_settings)
     strength[mask == 0] = 0.0
-    top = float(strength.max())
-    if top < floor:
+    pts = spread_maxima(strength, floor, max(3.0, settings.spacing_frac * w),
+                        settings.max_corners)
+    if not len(pts):
         return None
-    pts = cv2.goodFeaturesToTrack(gray, maxCorners=settings.max_corners,
-                                  qualityLevel=min(0.999, floor / top),
-                                  minDistance=max(3.0, settings.spacing_frac * w),
-                                  mask=mask, blockSize=track_settings.block_size)
-    if pts is None:
-        return None
-    pts = np.rint(pts.reshape(-1, 2)).astype(np.int64)
     # A corner, not a point on an edge: the smaller eigenvalue a fair share of the larger.
     isotropic = _isotropy(gray, pts, track_settings.block_size) >= track_settings.min_isotropy
     pts = pts[isotropic]
     if not len(pts):
         return None
     img = gray.astype(np.float32)
-    patches = _patches(img, pts.astype(np.float32), settings.half)
+    patches = _patches(img, pts, settings.half)
     # Faint detail only: no stronger than the typical texture of the tracks. Burnt-in text
     # and symbols, drawn to be read over any scene, outshine it and stay put as well.
     if len(tracks):
-        typical = float(np.median(_patches(img, tracks.astype(np.float32),
-                                           settings.half).std(axis=(1, 2))))
+        typical = float(np.median(_patches(img, tracks, settings.half).std(axis=(1, 2))))
         faint = patches.std(axis=(1, 2)) <= typical
         pts, patches = pts[faint], patches[faint]
     if not len(pts):
@@ -182,14 +175,14 @@ def judge(detail: StillDetail, gray: np.ndarray, motion: np.ndarray, tracks: np.
                                  ).reshape(-1, 2)
     m = settings.half + 1
     inside = (q[:, 0] >= m) & (q[:, 0] <= w - 1 - m) & (q[:, 1] >= m) & (q[:, 1] <= h - 1 - m)
-    covered = _beside(tracks, (w, h), grid)
-    inside &= ~_lookup(covered, p) & ~_lookup(covered, np.clip(q, 0, [w - 1, h - 1]))
+    covered = _beside_cells(tracks, (w, h), grid)
+    inside &= ~_beside_at(covered, p, (w, h)) & ~_beside_at(covered, q, (w, h))
     if not inside.any():
         return StillVotes(0, 0, False, False)
-    now = gray.astype(np.float32)
     base = detail.patches[inside]
-    at_rest = _patches(now, p[inside].astype(np.float32), settings.half)
-    carried = _patches(now, q[inside].astype(np.float32), settings.half)
+    now = gray.astype(np.float32)
+    at_rest = _patches(now, p[inside], settings.half)
+    carried = _patches(now, q[inside], settings.half)
     e_still = np.abs(at_rest - base).mean(axis=(1, 2))
     e_moved = np.abs(carried - base).mean(axis=(1, 2))
     # A patch found again matches to within a share of its own contrast; the other place
@@ -208,6 +201,52 @@ def judge(detail: StillDetail, gray: np.ndarray, motion: np.ndarray, tracks: np.
                       moved >= 2 and moved >= settings.ratio * max(still, 1))
 
 
+def spread_maxima(strength: np.ndarray, floor: float, spacing: float, count: int
+                  ) -> np.ndarray:
+    """Up to ``count`` strong points of ``strength`` (h, w) at least about ``spacing``
+    pixels apart, strongest first: (k, 2) int64 positions (x, y), pixel centres.
+
+    The strongest pixel of each square cell of side ``spacing``/√2 (two pixels of one cell are
+    closer than ``spacing``) is a candidate when it reaches ``floor`` (> 0); a candidate is
+    kept when no stronger candidate lies closer than ``spacing`` (ties: the earlier cell in
+    row-major order wins). This is one pass of non-maximum suppression over cells: it works
+    on a corner-strength map already at hand, where OpenCV's ``goodFeaturesToTrack`` would
+    work the map out again and then thin its candidates one by one (a candidate whose only
+    stronger neighbour was itself suppressed is dropped here, kept there).
+    """
+    h, w = strength.shape
+    c = max(1, int(spacing / np.sqrt(2.0)))
+    ch, cw = -(-h // c), -(-w // c)
+    pad = np.zeros((ch * c, cw * c), np.float32)
+    pad[:h, :w] = strength
+    blocks = pad.reshape(ch, c, cw, c).transpose(0, 2, 1, 3).reshape(ch, cw, c * c)
+    arg = blocks.argmax(axis=2)
+    val = np.take_along_axis(blocks, arg[..., None], axis=2)[..., 0].astype(np.float64)
+    val[val < max(floor, np.finfo(np.float32).tiny)] = 0.0
+    ys = (np.arange(ch)[:, None] * c + arg // c).astype(np.float64)
+    xs = (np.arange(cw)[None, :] * c + arg % c).astype(np.float64)
+    cand = np.flatnonzero(val > 0)
+    r = int(np.ceil(spacing / c))
+    # Padded by r cells so that every neighbour of a candidate is an index of the padded grid.
+    vp, xp, yp = (np.pad(a, r).reshape(-1) for a in (val, xs, ys))
+    at = (cand // cw + r) * (cw + 2 * r) + cand % cw + r
+    v, x, y = vp[at], xp[at], yp[at]
+    keep = np.ones(len(cand), bool)
+    for dy in range(-r, r + 1):
+        for dx in range(-r, r + 1):
+            if dx == 0 and dy == 0:
+                continue
+            nb = at + dy * (cw + 2 * r) + dx
+            nv = vp[nb]
+            near = (xp[nb] - x) ** 2 + (yp[nb] - y) ** 2 < spacing * spacing
+            # The earlier cell in row-major order wins a tie.
+            stronger = (nv > v) | ((nv == v) & ((dy < 0) | ((dy == 0) & (dx < 0))))
+            keep &= ~(near & stronger & (nv > 0))
+    sel = cand[keep]
+    sel = sel[np.argsort(-val.reshape(-1)[sel], kind="stable")][:count]
+    return np.stack([xs.reshape(-1)[sel], ys.reshape(-1)[sel]], axis=1).astype(np.int64)
+
+
 #: Cell size (analysis pixels) of the coarse mask of where the tracks are.
 _CELL = 4
 
@@ -215,8 +254,18 @@ _CELL = 4
 def _beside(tracks: np.ndarray, size: tuple[int, int], grid: tuple[int, int]) -> np.ndarray:
     """(h, w) bool of a ``size`` = (width, height) frame: inside the convex hull of
     ``tracks`` (k, 2) grown by half a ``grid`` cell, worked out on cells of :data:`_CELL`
-    pixels. The picture between an object's tracks and just past its outermost ones is
-    the object's own."""
+    pixels (:func:`_beside_cells`). The picture between an object's tracks and just past its
+    outermost ones is the object's own."""
+    w, h = size
+    coarse = _beside_cells(tracks, size, grid)
+    full = cv2.resize(coarse, (coarse.shape[1] * _CELL, coarse.shape[0] * _CELL),
+                      interpolation=cv2.INTER_NEAREST)
+    return full[:h, :w] > 0
+
+
+def _beside_cells(tracks: np.ndarray, size: tuple[int, int], grid: tuple[int, int]
+                  ) -> np.ndarray:
+    """The mask of :func:`_beside` on its cells: (⌈h/_CELL⌉, ⌈w/_CELL⌉) uint8, 1 inside."""
     w, h = size
     cw, ch = -(-w // _CELL), -(-h // _CELL)
     coarse = np.zeros((ch, cw), np.uint8)
@@ -226,22 +275,24 @@ def _beside(tracks: np.ndarray, size: tuple[int, int], grid: tuple[int, int]) ->
         r = int(np.ceil(0.5 * max(w / grid[0], h / grid[1]) / _CELL))
         coarse = cv2.dilate(coarse, cv2.getStructuringElement(cv2.MORPH_ELLIPSE,
                                                               (2 * r + 1,) * 2))
-    full = np.repeat(np.repeat(coarse, _CELL, axis=0), _CELL, axis=1)[:h, :w]
-    return full > 0
+    return coarse
 
 
-def _lookup(mask: np.ndarray, pts: np.ndarray) -> np.ndarray:
-    """``mask`` (h, w) bool at the nearest pixel of each point (k, 2)."""
-    xi = np.clip(np.rint(pts[:, 0]).astype(int), 0, mask.shape[1] - 1)
-    yi = np.clip(np.rint(pts[:, 1]).astype(int), 0, mask.shape[0] - 1)
-    return mask[yi, xi]
+def _beside_at(cells: np.ndarray, pts: np.ndarray, size: tuple[int, int]) -> np.ndarray:
+    """(k,) bool: the mask of :func:`_beside` (given as its ``cells``) at the nearest pixel
+    of each point (k, 2) of a ``size`` = (width, height) frame."""
+    w, h = size
+    xi = np.clip(np.rint(pts[:, 0]).astype(int), 0, w - 1) // _CELL
+    yi = np.clip(np.rint(pts[:, 1]).astype(int), 0, h - 1) // _CELL
+    return cells[yi, xi] > 0
 
 
 def _patches(img: np.ndarray, pts: np.ndarray, half: int) -> np.ndarray:
-    """(k, 2·half+1, 2·half+1) float32 patches of ``img`` centred on ``pts`` (k, 2), bilinear
-    (one remap for all of them)."""
+    """(k, 2·half+1, 2·half+1) float32 patches of ``img`` (h, w) float32 centred on ``pts``
+    (k, 2), bilinear (one remap for all of them)."""
     off = np.arange(-half, half + 1, dtype=np.float32)
     size = len(off)
+    pts = pts.astype(np.float32)
     mx = (pts[:, 0, None, None] + off[None, None, :]).repeat(size, axis=1)
     my = (pts[:, 1, None, None] + off[None, :, None]).repeat(size, axis=2)
     out = cv2.remap(img, mx.reshape(-1, size), my.reshape(-1, size), cv2.INTER_LINEAR,
@@ -254,15 +305,14 @@ def _isotropy(gray: np.ndarray, pts: np.ndarray, block: int) -> np.ndarray:
     differences) summed over a ``block``×``block`` window at each integer point (k, 2); 0
     where flat (Shi and Tomasi, "Good features to track", CVPR 1994, the eigenvalues of
     their matrix Z)."""
-    g = gray.astype(np.float32)
     r = block // 2 + 1
-    h, w = g.shape
+    h, w = gray.shape
     x0 = np.clip(pts[:, 0] - r - 1, 0, w - 1)
     y0 = np.clip(pts[:, 1] - r - 1, 0, h - 1)
     side = 2 * r + 3
     ys = np.clip(y0[:, None] + np.arange(side)[None, :], 0, h - 1)
     xs = np.clip(x0[:, None] + np.arange(side)[None, :], 0, w - 1)
-    win = g[ys[:, :, None], xs[:, None, :]]
+    win = gray[ys[:, :, None], xs[:, None, :]].astype(np.float32)
     gx = 0.5 * (win[:, 1:-1, 2:] - win[:, 1:-1, :-2])
     gy = 0.5 * (win[:, 2:, 1:-1] - win[:, :-2, 1:-1])
     c = slice(1, 1 + block)
