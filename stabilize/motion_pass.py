@@ -349,7 +349,7 @@ class AnalysisPass:
             return None
         if b.detail is False:
             b.detail = find_detail(b.image, b.tracks, self.overlays.mask(ctx.user_mask),
-                                   self.tracker.settings, cfg)
+                                   self.tracker.settings, cfg, self.tracker.floor)
         if b.detail is None or b.detail is False:
             return None
         return judge(b.detail, image, motion, tracks, self.tracker.settings.grid, cfg)

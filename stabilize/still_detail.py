@@ -35,7 +35,7 @@ from dataclasses import dataclass
 import cv2
 import numpy as np
 
-from .track import TrackSettings, strength_floor
+from .track import TrackSettings, corner_strength, strength_map
 
 __all__ = ["StillDetail", "StillDetailSettings", "StillVotes", "find_detail", "judge",
            "spread_maxima"]
@@ -95,7 +95,8 @@ class StillVotes:
 
 def find_detail(gray: np.ndarray, tracks: np.ndarray, usable: np.ndarray | None,
                 track_settings: TrackSettings,
-                settings: StillDetailSettings = StillDetailSettings()) -> StillDetail | None:
+                settings: StillDetailSettings = StillDetailSettings(),
+                floor: float | None = None) -> StillDetail | None:
     """The faint corners of ``gray`` away from the hull of ``tracks`` (grown by half a grid
     cell).
 
@@ -109,6 +110,10 @@ def find_detail(gray: np.ndarray, tracks: np.ndarray, usable: np.ndarray | None,
         the same standard as a tracked one, but judged against the strongest corner away
         from the tracks rather than the frame's.
     settings : this check's settings.
+    floor : the least corner strength above the picture's noise, when known (the tracker's
+        at its last detection, :attr:`stabilize.track.Tracker.floor`); None: worked out from
+        the whole of ``gray``. Given it, corner strength is worked out only on the tiles of
+        the picture away from the tracks.
 
     Returns
     -------
@@ -125,8 +130,10 @@ def find_detail(gray: np.ndarray, tracks: np.ndarray, usable: np.ndarray | None,
     mask[:m], mask[-m:], mask[:, :m], mask[:, -m:] = 0, 0, 0, 0
     if not mask.any():
         return None
-    strength = cv2.cornerMinEigenVal(gray, track_settings.block_size, ksize=3)
-    floor = strength_floor(strength, track_settings)
+    if floor is None:
+        strength, floor = corner_strength(gray, track_settings)
+    else:
+        strength = strength_map(gray, track_settings.block_size, mask)
     strength[mask == 0] = 0.0
     pts = spread_maxima(strength, floor, max(3.0, settings.spacing_frac * w),
                         settings.max_corners)
