@@ -30,6 +30,7 @@ from typing import Any
 import cv2
 
 from .errors import StabilizeError
+from .io.process import usable_cores
 
 __all__ = [
     "CONNECT_TIMEOUT_S",
@@ -51,10 +52,7 @@ def default_workers() -> int:
     int : the number of cores in this process's CPU affinity set (at least 1); where that
     cannot be asked, the machine's core count.
     """
-    try:
-        return max(1, len(os.sched_getaffinity(0)))
-    except AttributeError:  # not on Linux
-        return max(1, os.cpu_count() or 1)
+    return usable_cores()
 
 
 @contextmanager

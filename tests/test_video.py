@@ -21,7 +21,7 @@ from stabilize.io.colour import ColourTags, parse_colour
 from stabilize.io.decode import DecodeStats, analysis_size, looks_truncated
 from stabilize.io.encode import LARGE_FRAME_LOOKAHEAD, _encoder_env, output_colour, x264_options
 from stabilize.io.probing import constant_rate
-from stabilize.io.process import ffmpeg_exe
+from stabilize.io.process import ffmpeg_exe, usable_cores
 
 from .conftest import noise_frames, write_clip
 
@@ -293,10 +293,21 @@ def test_probe_reads_the_pixel_aspect_ratio_upright(tmp_path):
 def test_large_frames_get_a_shorter_encoder_look_ahead(tmp_path):
     """At 4K the encoder holds fewer frames ahead (its memory), below that x264's preset
     decides alone; the option reaches the encoder's command line."""
-    assert x264_options(1920, 1080) == [] and x264_options(2560, 1440) == []
-    big = x264_options(3840, 2160)
-    assert big == ["-x264-params", f"rc-lookahead={LARGE_FRAME_LOOKAHEAD}"]
+    assert x264_options(1920, 1080, 2) == ["-threads", "2"]
+    assert "-x264-params" not in x264_options(2560, 1440, 2)
+    big = x264_options(3840, 2160, 2)
+    assert big == ["-threads", "2", "-x264-params", f"rc-lookahead={LARGE_FRAME_LOOKAHEAD}"]
     cmd = VideoWriter(tmp_path / "big.mp4", 3840, 2160, 30.0)._command(tmp_path / "t.mp4")
     assert cmd[cmd.index("-x264-params") + 1] == f"rc-lookahead={LARGE_FRAME_LOOKAHEAD}"
     small = VideoWriter(tmp_path / "s.mp4", 1280, 720, 30.0)._command(tmp_path / "t.mp4")
     assert "-x264-params" not in small
+
+
+def test_the_encoder_starts_one_thread_per_usable_core(tmp_path):
+    """x264 encodes on as many threads as this process has cores (not one and a half per
+    core), never fewer than one; the option reaches the encoder's command line."""
+    assert x264_options(640, 360, 16)[:2] == ["-threads", "16"]
+    assert x264_options(640, 360, 0)[:2] == ["-threads", "1"]
+    cmd = VideoWriter(tmp_path / "s.mp4", 1280, 720, 30.0)._command(tmp_path / "t.mp4")
+    assert cmd[cmd.index("-threads") + 1] == str(usable_cores())
+    assert cmd.index("-threads") > cmd.index("-c:v")

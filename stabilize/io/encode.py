@@ -20,7 +20,7 @@ from .colour import ColourTags
 from .frames import YUV_FORMATS, PlanarImage
 from .messages import StderrReader
 from .probing import VideoInfo, fps_fraction
-from .process import ffmpeg_exe, ffmpeg_path, reap, spawn
+from .process import ffmpeg_exe, ffmpeg_path, reap, spawn, usable_cores
 from .publishing import discard, publish, temp_path_for
 
 __all__ = ["ENCODERS", "LARGE_FRAME_LOOKAHEAD", "LARGE_FRAME_PX", "MP4_AUDIO", "VideoWriter",
@@ -85,22 +85,31 @@ LARGE_FRAME_PX = 2 * 1920 * 1080
 LARGE_FRAME_LOOKAHEAD = 10
 
 
-def x264_options(width: int, height: int) -> list[str]:
-    """Extra ffmpeg options for libx264 at this frame size (width, height pixels): a shorter
-    look-ahead for large frames (:data:`LARGE_FRAME_PX`), so that the encoder's memory stays
-    bounded at 4K; none otherwise.
+def x264_options(width: int, height: int, cores: int | None = None) -> list[str]:
+    """Extra ffmpeg options for libx264 at this frame size (width, height pixels).
+
+    * One encoding thread per core this process may use (``cores``; None: those of
+      :func:`~stabilize.io.process.usable_cores`), where x264 would start one and a half
+      per core: the render's decoding, warps and checks share those cores, and every
+      further frame thread holds frames of its own (measured at 1080p, ``veryfast``, two
+      cores: the whole ``steady`` peaked at 477–478 MiB instead of 502–505, its wall time
+      within 2 %).
+    * A shorter look-ahead for large frames (:data:`LARGE_FRAME_PX`), so that the encoder's
+      memory stays bounded at 4K.
 
     Parameters
     ----------
     width, height : frame size, pixels.
+    cores : cores to encode on (None: those this process may use).
 
     Returns
     -------
-    list of ffmpeg command-line words (possibly empty).
+    list of ffmpeg command-line words.
     """
+    opts = ["-threads", str(max(1, usable_cores() if cores is None else int(cores)))]
     if width * height > LARGE_FRAME_PX:
-        return ["-x264-params", f"rc-lookahead={LARGE_FRAME_LOOKAHEAD}"]
-    return []
+        opts += ["-x264-params", f"rc-lookahead={LARGE_FRAME_LOOKAHEAD}"]
+    return opts
 
 
 def _encoder_env() -> dict[str, str]:

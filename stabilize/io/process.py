@@ -17,7 +17,17 @@ from pathlib import Path
 
 import imageio_ffmpeg
 
-__all__ = ["ffmpeg_exe", "ffmpeg_path", "read_exact", "reap", "spawn", "stop_children"]
+__all__ = ["ffmpeg_exe", "ffmpeg_path", "read_exact", "reap", "spawn", "stop_children",
+           "usable_cores"]
+
+
+def usable_cores() -> int:
+    """The cores this process may use: those of its CPU affinity set (at least 1); where
+    that cannot be asked (not on Linux), the machine's core count."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except AttributeError:
+        return max(1, os.cpu_count() or 1)
 
 
 def ffmpeg_exe() -> str:

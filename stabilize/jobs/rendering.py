@@ -31,6 +31,7 @@ from ..io import (
 from ..io.encode import output_colour, output_pix_fmt
 from ..io.motion_log_files import check_log_fits, read_log, save_log
 from ..io.probing import constant_rate
+from ..io.process import usable_cores
 from ..motion import measurable
 from ..motion_log import MotionLog
 from ..motion_track import LOG_COLUMNS
@@ -74,8 +75,7 @@ def render_decode_threads(cores: int | None = None) -> int:
     """Decoding threads of the render pass for ``cores`` cores (None: those this process may
     run on): :data:`RENDER_DECODE_THREADS` per six cores, at most four."""
     if cores is None:
-        cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") \
-            else (os.cpu_count() or 1)
+        cores = usable_cores()
     return min(_MAX_DECODE_THREADS,
                RENDER_DECODE_THREADS * max(1, -(-int(cores) // _CORES_PER_DECODE_THREAD)))
 
