@@ -183,8 +183,9 @@ def cell_keep(strength: np.ndarray, cells: np.ndarray, cell_max: np.ndarray,
 
 
 #: Step (pixels, both ways) of the regular sample of a corner-strength map whose median sets
-#: the noise floor: a sixteenth of the pixels gives the median to about 1 % (measured on the
-#: accuracy clips) at a twelfth of the cost of the whole map's.
+#: the noise floor: a sixteenth of the pixels gave the median to 1 % at a fourteenth of the
+#: cost of the whole map's (0.27 ms against 3.8 ms, a 960×540 frame of the 720p accuracy
+#: clip, measured).
 FLOOR_SAMPLE_STEP = 4
 
 

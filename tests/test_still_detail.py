@@ -10,8 +10,8 @@ import cv2
 import numpy as np
 import pytest
 
-from stabilize.still_detail import StillDetailSettings, find_detail, judge
-from stabilize.track import track_settings_for
+from stabilize.still_detail import StillDetailSettings, find_detail, judge, spread_maxima
+from stabilize.track import corner_strength, track_settings_for
 
 W, H = 640, 360
 MARKS = ((60, 40), (580, 50), (70, 320), (590, 300), (320, 30), (300, 335))
@@ -126,3 +126,34 @@ def test_overlay_cells_are_left_out(usable_blocks):
     detail = find_detail(img, tracks, usable, SETTINGS, StillDetailSettings())
     left = detail.points[:, 0] < W // 2
     assert (not left.any()) if usable_blocks else left.any()
+
+
+def test_spread_corners_are_the_strongest_apart_and_above_the_floor():
+    """The points picked from a strength map keep at least the spacing between them (less
+    the cell rounding), come strongest first, and none is under the floor; with a floor
+    above every value there are none."""
+    rng = np.random.default_rng(3)
+    strength = cv2.GaussianBlur(rng.random((200, 300)).astype(np.float32), (0, 0), 2.0)
+    floor = float(np.quantile(strength, 0.5))
+    pts = spread_maxima(strength, floor, 15.0, 40)
+    assert 0 < len(pts) <= 40
+    values = strength[pts[:, 1], pts[:, 0]]
+    assert np.all(values >= floor) and np.all(np.diff(values) <= 0)
+    gaps = np.linalg.norm(pts[:, None, :] - pts[None, :, :], axis=2)
+    assert gaps[~np.eye(len(pts), dtype=bool)].min() >= 15.0 - 1.0
+    assert spread_maxima(strength, float(strength.max()) * 2, 15.0, 40).shape == (0, 2)
+    # The strongest pixel of the whole map is always among them.
+    y, x = np.unravel_index(np.argmax(strength), strength.shape)
+    assert [x, y] in pts.tolist()
+
+
+def test_detail_found_with_a_known_floor_matches_the_whole_picture_floor():
+    """Given the tracker's noise floor, the strength is worked out only on the tiles away
+    from the tracks; with that same floor the faint corners are those of the whole-picture
+    computation."""
+    img, tracks = _frame(_wall(), BOARD[:2])
+    floor = corner_strength(img, SETTINGS)[1]
+    whole = find_detail(img, tracks, None, SETTINGS)
+    tiled = find_detail(img, tracks, None, SETTINGS, floor=floor)
+    assert whole is not None and tiled is not None
+    np.testing.assert_array_equal(whole.points, tiled.points)

@@ -16,6 +16,7 @@ from stabilize.track import (
     detect,
     global_shift,
     ignore_mask,
+    strength_map,
     to_full_resolution,
 )
 
@@ -217,3 +218,21 @@ def test_wrong_prediction_falls_back_to_the_pyramid():
     assert len(pairs) > 0.8 * tr.live
     d = pairs.dst - pairs.src
     assert np.median(np.abs(d[:, 0] - 3.25)) < 0.02 and np.median(np.abs(d[:, 1] + 1.5)) < 0.02
+
+
+@pytest.mark.parametrize("shape", [(540, 960), (37, 50), (130, 129)])
+def test_strength_map_on_tiles_is_the_whole_picture_map(shape):
+    """The corner strength worked out tile by tile (each with a margin) is OpenCV's map of
+    the whole picture to float rounding; given a region, only the tiles it reaches are
+    filled, the rest left at nought."""
+    img = _texture(*shape, seed=4)
+    full = cv2.cornerMinEigenVal(img, 7, ksize=3)
+    tiled = strength_map(img, 7)
+    np.testing.assert_allclose(tiled, full, rtol=0, atol=1e-6 * float(full.max()))
+    where = np.zeros(shape, np.uint8)
+    where[: shape[0] // 3, : shape[1] // 3] = 1
+    part = strength_map(img, 7, where)
+    sel = where > 0
+    np.testing.assert_allclose(part[sel], full[sel], rtol=0, atol=1e-6 * float(full.max()))
+    if shape[0] > 2 * track.STRENGTH_TILE and shape[1] > 2 * track.STRENGTH_TILE:
+        assert not part[-1, -1] and not part[-track.STRENGTH_TILE:].any()
