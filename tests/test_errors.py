@@ -939,12 +939,15 @@ def test_hostile_disk_full_names_the_file(clip_here, tmp_path, capsys, monkeypat
 def test_hostile_repeated_interrupt_prints_no_traceback(tmp_path):
     import signal
     import time
-    clip = lavfi_clip(tmp_path / "long.mp4", size="320x240", frames=600)
+    # Long enough (200 s of clip) that the run is still going when interrupted, however
+    # fast the machine: a run that has already ended cannot be interrupted.
+    clip = lavfi_clip(tmp_path / "long.mp4", size="320x240", frames=4800)
     proc = subprocess.Popen([sys.executable, "-m", "stabilize", "steady", "--quiet", clip.name],
                             cwd=tmp_path, stderr=subprocess.PIPE, text=True,
                             env={**os.environ,
                                  "PYTHONPATH": str(Path(cli.__file__).parents[1])})
     time.sleep(6)
+    assert proc.poll() is None, "finished before it could be interrupted"
     for _ in range(4):
         proc.send_signal(signal.SIGINT)
         time.sleep(0.05)
@@ -964,7 +967,9 @@ def test_hostile_interrupted_dask_run_says_one_line(tmp_path):
     import signal
     import time
     pytest.importorskip("distributed")
-    clip = lavfi_clip(tmp_path / "long.mp4", size="320x240", frames=2400)
+    # 400 s of clip: still running after the cluster's start and 12 s, however fast the
+    # machine.
+    clip = lavfi_clip(tmp_path / "long.mp4", size="320x240", frames=9600)
     proc = subprocess.Popen([sys.executable, "-m", "stabilize", "measure", "--quiet", clip.name,
                              "--scheduler", "local", "--workers", "2"], cwd=tmp_path,
                             stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True,
