@@ -26,12 +26,13 @@ __all__ = ["BACKGROUND_HISTORY", "REFIT_PASSES", "TIGHT_K", "FrameFit", "backgro
 BACKGROUND_HISTORY = 0.65
 
 
-# Passes of the noise-adaptive refit by analysis level: the first two settle the noise scale.
-# A third costs a twentieth of the analysis and changed little (measured at ``balanced``: the
-# 720p accuracy clip's median error 0.0154 px with three, 0.0153 with two; the steadied
-# jitter of the real bikes.mp4, x / y, 0.216 / 0.151 px with three, 0.215 / 0.161 with two,
-# from 0.82 / 1.01 px in); ``thorough`` keeps it.
-REFIT_PASSES = {"fast": 2, "balanced": 2, "thorough": 3}
+# Passes of the noise-adaptive refit by analysis level: the first two settle the noise scale
+# on clean footage (at ``balanced`` the 720p accuracy clip's median error is 0.0153 px with
+# two, 0.0154 with three, and bikes.mp4's steadied jitter about the same), but hard real
+# footage needs the third: on Megamind.avi (a figure before a defocused set, camera mostly
+# still, no reference) the logged path strayed up to 32.8 px with two passes and 12.9 px
+# with three (measured). It costs about a twentieth of the analysis.
+REFIT_PASSES = {"fast": 2, "balanced": 3, "thorough": 3}
 
 
 # Tight threshold in units of the tracking noise σ: sqrt(5.99), the 95% point of a χ² with
