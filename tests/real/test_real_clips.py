@@ -246,6 +246,35 @@ def test_megamind_is_called_unreliable(real_clip):
     assert log.summary["trust_reasons"]
 
 
+# --------------------------------------------------------------------- bigbuckbunny
+# One animated shot: a large character climbs out of a burrow and stretches in front of the
+# camera while the camera itself drifts. Two patches of the background (rocks, sky and
+# treetops on the right) give the camera's own shift from the first frame to the last.
+BUNNY_BACKGROUND = ((780, 220, 1280, 470), (900, 0, 1280, 300))
+
+
+def test_bigbuckbunny_camera_drift_is_logged_not_the_character(real_clip):
+    clip = real_clip("bigbuckbunny.mp4")
+    log = _measured(clip)
+    first = last = None
+    for frame in iter_frames(clip, gray=True):
+        last = frame.image.astype(np.float32)
+        first = last if first is None else first
+    shifts = []
+    for x0, y0, x1, y1 in BUNNY_BACKGROUND:
+        window = cv2.createHanningWindow((x1 - x0, y1 - y0), cv2.CV_32F)
+        (dx, dy), response = cv2.phaseCorrelate(first[y0:y1, x0:x1], last[y0:y1, x0:x1],
+                                                window)
+        assert response > 0.5, f"bigbuckbunny.mp4: background patch lost ({response:.2f})"
+        shifts.append((dx, dy))
+    background = np.mean(shifts, axis=0)
+    # The path is the camera's motion: the picture moves the other way.
+    logged = -log.readouts()["path"][-1, :2]
+    assert np.abs(logged - background).max() <= 3.0, (
+        f"bigbuckbunny.mp4: logged camera drift {logged.round(2).tolist()} px against the "
+        f"background's own {background.round(2).tolist()} px")
+
+
 # --------------------------------------------------------------------- tree
 def test_tree_irregular_timestamps_give_the_real_rate(real_clip):
     # The container says 15 fps; frames arrive 0.33–0.73 s apart. Time scales must follow
