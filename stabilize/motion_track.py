@@ -14,7 +14,8 @@ __all__ = ["LOG_COLUMNS", "MotionTrack", "REASONS", "fill_failed", "stand_ins"]
 #: Why a frame is weak or failed, as listed in the log's JSON (``frame_reasons``).
 REASONS = {
     "foreground": "the motion could not be told apart from an object moving in front of the "
-                  "scene; the frame's motion is a stand-in from its neighbours",
+                  "scene (rival groups of tracks, or a weak fit that most tracks moved "
+                  "against); the frame's motion is a stand-in from its neighbours",
     "held_still": "the tracks moved but faint detail away from them stayed put: they are "
                   "taken for an object in front of a still camera, and the frame's motion is "
                   "held at none",

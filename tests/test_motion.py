@@ -3,6 +3,7 @@
 import cv2
 import numpy as np
 
+from stabilize import motion_pass
 from stabilize.anchors import hull_share
 from stabilize.config import Settings
 from stabilize.cuts import CutSettings, aligned_correlation, collapsed, is_cut, is_textureless
@@ -10,6 +11,7 @@ from stabilize.frame_fit import fit_frame
 from stabilize.geometry import from_similarity, to_similarity
 from stabilize.io import VideoWriter, iter_frames, probe
 from stabilize.io.decode import analysis_size
+from stabilize.io.frames import Frame
 from stabilize.motion import fit_motion
 from stabilize.motion_models import SIMILARITY, transfer_error
 from stabilize.motion_track import LOG_COLUMNS, MotionTrack, fill_failed
@@ -165,6 +167,49 @@ def test_a_cut_is_found_though_an_object_stays_put_across_it(tmp_path):
                        full_size=(info.width, info.height), analysis_size=size,
                        settings=settings)
     assert np.flatnonzero(track.status == "cut").tolist() == np.flatnonzero(clip.cut).tolist()
+
+
+def _torn_frames(tear_at: int, n: int = 16) -> list[Frame]:
+    """A still camera over a textured picture; on frame ``tear_at`` the picture's 4×4 tiles
+    are each carried their own way (up to 7 px), three of them (19 % of it) the same way,
+    (6, −5) px; on the next frame they are back. Grey frames, W×H, 30 fps."""
+    rng = np.random.default_rng(4)
+    pad = 20
+    big = cv2.GaussianBlur(rng.uniform(0, 255, (H + 2 * pad, W + 2 * pad)).astype(np.float32),
+                           (0, 0), 2.0)
+    big = cv2.normalize(big, None, 20, 235, cv2.NORM_MINMAX)
+    frames = []
+    for t in range(n):
+        img = big[pad:pad + H, pad:pad + W].copy()
+        if t == tear_at:
+            for k in range(16):
+                i, j = divmod(k, 4)
+                dx, dy = (6, -5) if k in (1, 6, 11) else rng.integers(-7, 8, 2)
+                y0, y1, x0, x1 = i * H // 4, (i + 1) * H // 4, j * W // 4, (j + 1) * W // 4
+                img[y0:y1, x0:x1] = big[pad + y0 - dy:pad + y1 - dy, pad + x0 - dx:pad + x1 - dx]
+        img = np.clip(img + rng.normal(0, 1.0, img.shape), 0, 255).astype(np.uint8)
+        frames.append(Frame(t, t / 30.0, img))
+    return frames
+
+
+def test_a_fit_most_tracks_disagree_with_is_a_stand_in(monkeypatch):
+    # Most of the picture moved, each part its own way (a head turning in a close-up): the
+    # best consensus is a chance minority, and its motion is no measurement of the camera.
+    def run():
+        return fit_motion(iter(_torn_frames(10)), full_size=(W, H), analysis_size=(W, H),
+                          settings=Settings())
+
+    track = run()
+    for t in (10, 11):
+        assert track.inliers[t] < motion_pass.MINORITY_SHARE * track.tracked[t]
+        assert (track.status[t], track.reason[t]) == ("weak", "foreground")
+    # The stand-in comes from the still neighbours, not from the minority's (6, -5) px.
+    np.testing.assert_allclose(track.matrices[9:13], np.eye(3)[None].repeat(4, 0), atol=0.05)
+    # Without the rule the log follows one of the parts.
+    monkeypatch.setattr(motion_pass, "MINORITY_SHARE", 0.0)
+    track = run()
+    assert (track.reason[10:12] == "few_inliers").all()
+    assert np.abs(track.matrices[10:12, :2, 2]).max() > 2.0
 
 
 def test_failed_frames_get_interpolated_stand_ins():
