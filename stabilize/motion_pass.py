@@ -157,6 +157,9 @@ class AnalysisPass:
         self.still_base: list[_StillBase | None] = [None, None]
         # Until this time (s) the camera is held still unless detail moves with the fit.
         self.held_until = -math.inf
+        # The held frames since detail was first seen moving with the fit, in a row, with
+        # their fitted motion and whether the fit was weak (see _release_pending).
+        self.releasing: list[tuple[FrameRecord, np.ndarray, bool]] = []
 
     def begin(self, image: np.ndarray, time_s: float, index: int) -> None:
         """Take the first frame (grey analysis copy) of this pass, at ``time_s`` seconds."""
@@ -208,6 +211,7 @@ class AnalysisPass:
                 self.slot_s = [math.nan, math.nan]
                 self.still_base = [None, None]
                 self.held_until = -math.inf
+                self.releasing = []
                 return FrameRecord(np.eye(3), (len(pairs), 0, 0.0, 0.0, 0), "cut")
         if len(pairs) < tracker.settings.texture_check_share * tracker.settings.max_corners:
             strength = corner_strength(image) if strength is None else strength
@@ -268,10 +272,9 @@ class AnalysisPass:
                 memo = anchors.strike(memo, support, time_s)
                 self.held_until = time_s + StillDetailSettings().hold_s
                 self._hold_since(self._still_slot())
+                self.releasing = []
             elif time_s < self.held_until:
-                held = votes is None or not votes.supported
-                if not held:
-                    self.held_until = -math.inf
+                held = self._release_pending(votes)
         if grouping is not None and grouping.split:
             memo = anchors.strike(memo, grouping.moved, time_s)
             slot = self._older_slot()
@@ -312,6 +315,8 @@ class AnalysisPass:
             record = FrameRecord(np.eye(3), d, "weak", "held_still")
             self.recent.append(_Recent(index, time_s, src, dst, pairs.ids, pairs.background,
                                        use, record))
+            if self.releasing or (votes is not None and votes.supported):
+                self.releasing.append((record, fit.matrix, fit.weak))
             return record
         self.prior = fit.matrix
         tracker.update(support, memo)
@@ -364,6 +369,27 @@ class AnalysisPass:
         if b.detail is None or b.detail is False:
             return None
         return judge(b.detail, image, motion, tracks, self.tracker.settings.grid, cfg)
+
+    def _release_pending(self, votes: StillVotes | None) -> bool:
+        """Whether a frame inside a hold stays held, given its still-detail ``votes``.
+
+        The hold ends once detail is seen moving with the fit on
+        :attr:`StillDetailSettings.release_votes` frames in a row (frames with nothing to
+        judge neither count nor break the run): one frame's two or three corners at the edge
+        of an object can move with it by chance. The frames of the run held so far then
+        get their fitted motion back."""
+        run = self.releasing
+        if votes is not None and not votes.supported:
+            run.clear()
+            return True
+        if votes is None or len(run) + 1 < StillDetailSettings().release_votes:
+            return True
+        for record, matrix, weak in run:
+            record.matrix = matrix
+            record.status, record.reason = ("weak", "few_inliers") if weak else ("ok", "")
+        run.clear()
+        self.held_until = -math.inf
+        return False
 
     def _hold_since(self, b: _StillBase | None) -> None:
         """Hold still the frames after baseline ``b`` still open to revision: the detail

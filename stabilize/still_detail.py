@@ -55,9 +55,9 @@ class StillDetailSettings:
     at least half the patch's standard deviation (and *moved* the other way round);
     ``min_votes``: fewest *still* votes that contradict a fit, and they must be at least
     ``ratio`` times the *moved* votes; ``hold_s``: after a contradiction the camera is held
-    still this long (seconds) unless detail is seen moving with a fit. This project's own
-    values, tried on drawn walls and on the real clips of ``tests/real`` (common practice,
-    no source)."""
+    still this long (seconds) unless detail is seen moving with a fit on ``release_votes``
+    frames in a row. This project's own values, tried on drawn walls and on the real clips
+    of ``tests/real`` (common practice, no source)."""
 
     max_corners: int = 60
     spacing_frac: float = 1.0 / 64.0
@@ -70,6 +70,7 @@ class StillDetailSettings:
     margin: float = 2.0
     min_votes: int = 1
     hold_s: float = 3.0
+    release_votes: int = 3
 
 
 @dataclass(frozen=True)
