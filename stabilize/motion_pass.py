@@ -303,10 +303,7 @@ class AnalysisPass:
             self.prior = None
             tracker.update(None, memo)
             return FrameRecord(fit.matrix, d, "failed", "no_fit")
-        if ambiguous:
-            tracker.update(None, memo)
-            return FrameRecord(fit.matrix, d, "weak", "foreground")
-        if fit.weak and n_in < MINORITY_SHARE * len(src) and not held:
+        if ambiguous or (fit.weak and n_in < MINORITY_SHARE * len(src) and not held):
             tracker.update(None, memo)
             return FrameRecord(fit.matrix, d, "weak", "foreground")
         if held:
