@@ -286,6 +286,9 @@ def _lm_index() -> tuple[NDArray[np.intp], Array, NDArray[np.intp]]:
 
 
 _LM_IDX, _LM_SGN, _LM_GIDX = _lm_index()
+# Signs turning the gradient moments into -J^T r: the weight of the last two entries is
+# stored negated (see homography_polish).
+_LM_GSGN = np.array([-1.0] * 6 + [1.0] * 2)
 
 
 def homography_polish(z: Array, h: Array, mask: NDArray[np.bool_], iters: int = 3) -> Array:
@@ -297,44 +300,54 @@ def homography_polish(z: Array, h: Array, mask: NDArray[np.bool_], iters: int = 
     monomials ``(x^2, xy, y^2, x, y, 1)``, so each iteration is one 6 x m x 7 product
     instead of building the 2m x 8 Jacobian.
     """
-    zi = np.compress(mask, z, axis=1)
+    zi = np.compress(mask, z[:4], axis=1)
     m = zi.shape[1]
     if m < 5:
         return h
-    x, y, u, v = zi[0], zi[1], zi[2], zi[3]
+    x, y, uv = zi[0], zi[1], zi[2:4]
     mono = np.empty((6, m))
-    mono[0] = x * x
-    mono[1] = x * y
-    mono[2] = y * y
-    mono[3] = x
-    mono[4] = y
+    np.multiply(x, zi[:2], out=mono[:2])  # x^2, xy
+    np.multiply(y, y, out=mono[2])
+    mono[3:5] = zi[:2]
     mono[5] = 1.0
+    # Weights per point (rows): 1/w^2, px/w^2, py/w^2, |p|^2/w^2, rx/w, ry/w and
+    # (px rx + py ry)/w, the last with its sign left to _LM_GSGN.
     wts = np.empty((7, m))
+    tmp = np.empty((2, m))
     tab = np.zeros(43)  # the moment table, with a trailing 0 for the empty entries
     par = (h / h[2, 2]).ravel()[:8].copy()
 
-    def resid(p: Array) -> tuple[float, Array, Array, Array, Array, Array]:
-        iw = 1.0 / (x * p[6] + y * p[7] + 1.0)
-        px = (x * p[0] + y * p[1] + p[2]) * iw
-        py = (x * p[3] + y * p[4] + p[5]) * iw
-        rx = px - u
-        ry = py - v
-        return float(rx @ rx + ry @ ry), iw, px, py, rx, ry
+    def resid(p: Array) -> tuple[float, Array, Array, Array]:
+        # Projected points pp = (px, py) (2, m), their inverse depth iw (m,) and the
+        # residuals rr = pp - (u, v), row by row the same arithmetic as per coordinate.
+        pl = p.tolist()
+        iw = x * pl[6]
+        iw += y * pl[7]
+        iw += 1.0
+        np.divide(1.0, iw, out=iw)
+        pm = p[:6].reshape(2, 3)
+        pp = x * pm[:, :1]
+        pp += y * pm[:, 1:2]
+        pp += pm[:, 2:]
+        pp *= iw
+        rr = pp - uv
+        return float(rr[0] @ rr[0] + rr[1] @ rr[1]), iw, pp, rr
 
-    sse, iw, px, py, rx, ry = resid(par)
+    sse, iw, pp, rr = resid(par)
     mu = 1e-3
     for _ in range(iters):
-        a = iw * iw
-        wts[0] = a
-        wts[1] = px * a
-        wts[2] = py * a
-        wts[3] = (px * px + py * py) * a
-        wts[4] = rx * iw
-        wts[5] = ry * iw
-        wts[6] = -(px * rx + py * ry) * iw
+        a = np.multiply(iw, iw, out=wts[0])
+        np.multiply(pp, a, out=wts[1:3])
+        np.multiply(pp, pp, out=tmp)
+        np.add(tmp[0], tmp[1], out=wts[3])
+        wts[3] *= a
+        np.multiply(rr, iw, out=wts[4:6])
+        np.multiply(pp, rr, out=tmp)
+        np.add(tmp[0], tmp[1], out=wts[6])
+        wts[6] *= iw
         tab[:42] = (mono @ wts.T).ravel()
         jtj = np.take(tab, _LM_IDX) * _LM_SGN
-        neg_grad = -np.take(tab, _LM_GIDX)[:, None]
+        neg_grad = (np.take(tab, _LM_GIDX) * _LM_GSGN)[:, None]
         diag = jtj.diagonal().copy()
         converged = False
         while True:
@@ -344,14 +357,14 @@ def homography_polish(z: Array, h: Array, mask: NDArray[np.bool_], iters: int = 
             damped = jtj.copy()
             damped.flat[::9] += mu * diag
             ok, step = cv2.solve(damped, neg_grad, flags=cv2.DECOMP_CHOLESKY)
-            if not ok or not np.isfinite(step).all():
+            if not ok or not all(map(math.isfinite, step.ravel().tolist())):
                 return _unflat(par)
             cand = par + step.ravel()
             res = resid(cand)
             if res[0] < sse:
                 converged = sse - res[0] <= 1e-10 * sse
                 par = cand
-                sse, iw, px, py, rx, ry = res
+                sse, iw, pp, rr = res
                 mu = max(mu * 0.1, 1e-9)
                 break
             mu *= 10.0
