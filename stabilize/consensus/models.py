@@ -235,7 +235,16 @@ def _homography_sq_residuals(feat: Array, h: Array) -> Array:
 
 
 def _homography_sq_residuals_one(feat: Array, h: Array) -> Array:
-    return _homography_sq_residuals(feat, h[None])[0]
+    """Squared transfer errors of one homography (3, 3), shape (n,); the same products as
+    :func:`_homography_sq_residuals` on a batch of one."""
+    out = (h.reshape(1, 9) @ _HOM_SEL).reshape(3, 9) @ feat
+    nx, ny, w = out
+    nx *= nx
+    ny *= ny
+    nx += ny
+    w *= w
+    nx /= w
+    return nx
 
 
 def _similarity_features(z: Array) -> Array:

@@ -231,6 +231,24 @@ def affine_refit(feat: Array, z: Array, mask: NDArray[np.bool_]) -> Array | None
     return np.array([[a00, a01, tx], [a10, a11, ty], [0.0, 0.0, 1.0]])
 
 
+def _dlt_index() -> tuple[NDArray[np.intp], Array]:
+    """Where each entry of the DLT normal matrix ``A^T A`` (9x9) lives in the table of
+    :func:`homography_refit` (the 81 moments of g, the nine entries of the sum of its two
+    quadratic blocks, a 0) and with which sign."""
+    idx = np.full((9, 9), 90, dtype=np.intp)
+    sgn = np.ones((9, 9))
+    mom = np.arange(81).reshape(9, 9)
+    idx[:3, :3] = idx[3:6, 3:6] = mom[:3, :3]
+    idx[:3, 6:], idx[3:6, 6:] = mom[:3, 3:6], mom[:3, 6:]
+    idx[6:, :3], idx[6:, 3:6] = mom[3:6, :3], mom[6:, :3]
+    sgn[:3, 6:] = sgn[3:6, 6:] = sgn[6:, :3] = sgn[6:, 3:6] = -1.0
+    idx[6:, 6:] = 81 + np.arange(9).reshape(3, 3)
+    return idx, sgn
+
+
+_DLT_IDX, _DLT_SGN = _dlt_index()
+
+
 def homography_refit(feat: Array, z: Array, mask: NDArray[np.bool_]) -> Array | None:
     """Normalised DLT on the inliers (Hartley 1997), via the 9x9 normal matrix.
 
@@ -240,16 +258,12 @@ def homography_refit(feat: Array, z: Array, mask: NDArray[np.bool_]) -> Array | 
     if np.count_nonzero(mask) < 4:
         return None
     gm = feat * mask
-    m = gm @ feat.T
-    ata = np.zeros((9, 9))
-    zz = m[:3, :3]
-    ata[:3, :3] = zz
-    ata[3:6, 3:6] = zz
-    ata[:3, 6:] = -m[:3, 3:6]
-    ata[3:6, 6:] = -m[:3, 6:]
-    ata[6:, :3] = -m[3:6, :3]
-    ata[6:, 3:6] = -m[6:, :3]
-    ata[6:, 6:] = m[3:6, 3:6] + m[6:, 6:]
+    tab = np.empty(91)  # the moments g g^T, the last block's sum and a 0
+    m = tab[:81].reshape(9, 9)
+    np.matmul(gm, feat.T, out=m)
+    np.add(m[3:6, 3:6], m[6:, 6:], out=tab[81:90].reshape(3, 3))
+    tab[90] = 0.0
+    ata = np.take(tab, _DLT_IDX) * _DLT_SGN
     _, vec = np.linalg.eigh(ata)
     h = vec[:, 0].reshape(3, 3)
     if abs(h[2, 2]) < 1e-12:
