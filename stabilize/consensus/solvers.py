@@ -25,7 +25,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 __all__ = [
-    "EPS_AREA", "EPS_LEN", "MONOMIALS", "affine_project", "affine_refit", "affine_solve",
+    "EPS_AREA", "EPS_LEN", "LM_STOP", "MONOMIALS", "affine_project", "affine_refit", "affine_solve",
     "homography_polish", "homography_refit", "homography_solve", "normalise_h",
     "similarity_project", "similarity_refit", "similarity_solve", "translation_project",
     "translation_refit", "translation_solve",
@@ -300,6 +300,12 @@ def _lm_index() -> tuple[NDArray[np.intp], Array, NDArray[np.intp]]:
 
 
 _LM_IDX, _LM_SGN, _LM_GIDX = _lm_index()
+#: The polish stops after a step that lowers the sum of squared transfer errors by at most
+#: this share of it. Near the optimum the steps converge about quadratically: measured on
+#: synthetic sets (60 to 1000 points, noise 0.3 to 1 px), a first step from the DLT fit
+#: that gains 1e-6 to 1e-2 of the sum is followed by one gaining 1e-12 to 1e-7; so after a
+#: step below 1e-4 the next would move the RMS error by about 1e-8 of itself or less.
+LM_STOP = 1e-4
 # Signs turning the gradient moments into -J^T r: the weight of the last two entries is
 # stored negated (see homography_polish).
 _LM_GSGN = np.array([-1.0] * 6 + [1.0] * 2)
@@ -312,7 +318,8 @@ def homography_polish(z: Array, h: Array, mask: NDArray[np.bool_], iters: int = 
     estimate under Gaussian noise in dst (Hartley and Zisserman 2004, A6). The normal
     matrix ``J^T J`` and gradient ``J^T r`` are sums over points of weights times the
     monomials ``(x^2, xy, y^2, x, y, 1)``, so each iteration is one 6 x m x 7 product
-    instead of building the 2m x 8 Jacobian.
+    instead of building the 2m x 8 Jacobian. Steps stop early once one lowers the sum of
+    squares by no more than :data:`LM_STOP` of itself.
     """
     zi = np.compress(mask, z[:4], axis=1)
     m = zi.shape[1]
@@ -376,7 +383,7 @@ def homography_polish(z: Array, h: Array, mask: NDArray[np.bool_], iters: int = 
             cand = par + step.ravel()
             res = resid(cand)
             if res[0] < sse:
-                converged = sse - res[0] <= 1e-10 * sse
+                converged = sse - res[0] <= LM_STOP * sse
                 par = cand
                 sse, iw, pp, rr = res
                 mu = max(mu * 0.1, 1e-9)
