@@ -48,8 +48,8 @@ __all__ = ["Fit", "estimate"]
 PREVIEW_MIN_POINTS = 400
 PREVIEW_POINTS = 100
 PREVIEW_SHARE = 0.5
-#: Batches of at most this many hypotheses are verified on all points without a preview:
-#: for so few, the preview costs about as much as the full verification it saves
+#: Batches of at most this many samples are verified on all points without a preview: for
+#: so few hypotheses the preview costs about as much as the full verification it saves
 #: (measured with tests/benchmarks/bench_consensus.py on 1000 points).
 PREVIEW_MIN_BATCH = 16
 
@@ -415,7 +415,7 @@ def _estimate(
         n_valid += nv
         if nv < batch:
             hyp = hyp[valid]
-        if feat_sub is not None and len(hyp) > PREVIEW_MIN_BATCH:
+        if feat_sub is not None and batch > PREVIEW_MIN_BATCH and len(hyp) > 1:
             # Preview: support of every hypothesis on the subset; only those with at least
             # PREVIEW_SHARE of the best support seen there (the current best's included)
             # are verified on all points.
