@@ -337,19 +337,17 @@ def homography_polish(z: Array, h: Array, mask: NDArray[np.bool_], iters: int = 
     tmp = np.empty((2, m))
     tab = np.zeros(43)  # the moment table, with a trailing 0 for the empty entries
     par = (h / h[2, 2]).ravel()[:8].copy()
+    xy1 = mono[3:]  # rows x, y, 1
+    hm = np.empty(9)
+    hm[8] = 1.0
 
     def resid(p: Array) -> tuple[float, Array, Array, Array]:
         # Projected points pp = (px, py) (2, m), their inverse depth iw (m,) and the
-        # residuals rr = pp - (u, v), row by row the same arithmetic as per coordinate.
-        pl = p.tolist()
-        iw = x * pl[6]
-        iw += y * pl[7]
-        iw += 1.0
-        np.divide(1.0, iw, out=iw)
-        pm = p[:6].reshape(2, 3)
-        pp = x * pm[:, :1]
-        pp += y * pm[:, 1:2]
-        pp += pm[:, 2:]
+        # residuals rr = pp - (u, v).
+        hm[:8] = p
+        num = hm.reshape(3, 3) @ xy1
+        iw = np.divide(1.0, num[2], out=num[2])
+        pp = num[:2]
         pp *= iw
         rr = pp - uv
         return float(rr[0] @ rr[0] + rr[1] @ rr[1]), iw, pp, rr
