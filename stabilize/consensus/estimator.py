@@ -374,16 +374,12 @@ def _estimate(
     n_implausible = 0
     needed: int | float = max_rounds
 
-    best_sub = 0
-
     def adopt(c: Candidate) -> None:
-        nonlocal best, needed, best_sub
+        nonlocal best, needed
         lo = local_optimise(spec, feat, z, c, t2)
         if lo is not c and not ok_motion(lo.h):
             lo = c
         best = lo
-        if feat_sub is not None:
-            best_sub = int(np.count_nonzero(lo.sq_res[::n // PREVIEW_POINTS] < t2))
         w = np.count_nonzero(inlier_mask(lo.sq_res, t2)) / n
         needed = min(rounds_needed(1.0 - w, s, confidence), max_rounds)
 
@@ -419,10 +415,10 @@ def _estimate(
             # Preview: support of every hypothesis on the subset; only those with at least
             # PREVIEW_SHARE of the best support seen there (the current best's included)
             # are verified on all points.
-            support = np.count_nonzero(spec.sq_residuals(feat_sub, hyp) < t2, axis=1)
+            support = (spec.sq_residuals(feat_sub, hyp) < t2).sum(axis=1)
             top = int(support.max())
             if best is not None:
-                top = max(top, best_sub)
+                top = max(top, int(np.count_nonzero(best.sq_res[::n // PREVIEW_POINTS] < t2)))
             sel = np.flatnonzero(support >= PREVIEW_SHARE * top)
             if len(sel) == 0:
                 continue
