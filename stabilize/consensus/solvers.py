@@ -264,8 +264,10 @@ def homography_refit(feat: Array, z: Array, mask: NDArray[np.bool_]) -> Array | 
     np.add(m[3:6, 3:6], m[6:, 6:], out=tab[81:90].reshape(3, 3))
     tab[90] = 0.0
     ata = np.take(tab, _DLT_IDX) * _DLT_SGN
-    _, vec = np.linalg.eigh(ata)
-    h = vec[:, 0].reshape(3, 3)
+    # OpenCV's symmetric eigensolver (Jacobi): eigenvalues in descending order, unit
+    # eigenvectors as rows; the least one's vector minimises |A h| with |h| = 1.
+    _, _, vec = cv2.eigen(ata)
+    h = vec[8].reshape(3, 3)
     if abs(h[2, 2]) < 1e-12:
         return None
     return h / h[2, 2]
