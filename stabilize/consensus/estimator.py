@@ -270,10 +270,11 @@ def _spread(ready: _Prepared, frame: Frame, mask: NDArray[np.bool_],
     WEAK_MIN_CELLS when that many hold one: then the spread is no weakness and the exact
     count is not needed. ``mask`` marks the inliers in canonical order, ``inl`` the same
     in the order given."""
-    step = ready.n // PREVIEW_POINTS
-    if step > 1:
+    if ready.n >= PREVIEW_MIN_POINTS:
         # Every step-th point in canonical order is spread over the whole frame; enough
-        # cells among its inliers settle the check without the cell of every inlier.
+        # cells among its inliers settle the check without the cell of every inlier (for
+        # smaller sets the two passes cost more than they save).
+        step = ready.n // PREVIEW_POINTS
         cells = count_cells(np.compress(mask[::step], _memo(ready, (frame, step))))
         if cells >= WEAK_MIN_CELLS:
             return cells
@@ -321,7 +322,8 @@ def _prepare(spec: Model, src: NDArray[np.float64], dst: NDArray[np.float64]) ->
         return _Prepared(keep, n, None, pts, None, None, "", None, None)
     order = canonical_order(pts, key)
     z = np.empty((5, n))
-    np.take(pts, order, axis=1, out=z[:4])
+    # Indices are in range; "wrap" spares the buffered copy that "raise" makes with out=.
+    np.take(pts, order, axis=1, out=z[:4], mode="wrap")
     z[4] = 1.0
     norm, gram = normalise_in_place(z)
     problem = point_set_problem(gram, n, spec.spread_rank)
