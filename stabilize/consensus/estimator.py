@@ -243,7 +243,7 @@ class _Prepared(NamedTuple):
     problem: str
     feat: NDArray[np.float64] | None
     feat_sub: NDArray[np.float64] | None
-    memo: dict[str | Frame, NDArray] | None = None
+    memo: dict[str | Frame | tuple[Frame, int], NDArray] | None = None
 
 
 def _memo(ready: _Prepared, key: str | Frame | tuple[Frame, int]) -> NDArray:
