@@ -239,11 +239,29 @@ def cell_index(xy: NDArray[np.float64], frame: Frame, grid: int = SPREAD_GRID) -
     ``xy`` is (2, m): rows x and y in pixels. A point on the frame's edge or outside it
     counts in the nearest cell.
     """
-    g = (xy - np.array([[frame.x0], [frame.y0]])) * np.array([[grid / frame.width],
-                                                              [grid / frame.height]])
+    origin, per_px = _grid_map(frame, grid)
+    g = xy - origin
+    g *= per_px
     np.minimum(np.maximum(g, 0.0, out=g), grid - 0.5, out=g)
     gi = g.astype(np.intp)
     return gi[0] + grid * gi[1]
+
+
+# The frame's top-left corner and cells per pixel as (2, 1) columns, per frame and grid.
+_GRID_MAPS: dict[tuple[Frame, int], tuple[NDArray[np.float64], NDArray[np.float64]]] = {}
+
+
+def _grid_map(frame: Frame, grid: int) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    got = _GRID_MAPS.get((frame, grid))
+    if got is None:
+        if len(_GRID_MAPS) > 16:
+            _GRID_MAPS.clear()
+        got = (np.array([[frame.x0], [frame.y0]]),
+               np.array([[grid / frame.width], [grid / frame.height]]))
+        for a in got:
+            a.flags.writeable = False
+        _GRID_MAPS[(frame, grid)] = got
+    return got
 
 
 def occupied_cells(xy: NDArray[np.float64], frame: Frame, grid: int = SPREAD_GRID) -> int:

@@ -20,6 +20,7 @@ from numpy.typing import ArrayLike, NDArray
 
 from .degeneracy import (
     DEFAULT_BOUNDS,
+    WEAK_MIN_CELLS,
     Frame,
     MotionBounds,
     cell_index,
@@ -31,7 +32,7 @@ from .degeneracy import (
     weakness,
 )
 from .local_opt import Candidate, evaluate, local_optimise
-from .models import MODELS, Model, Normalisation, normalisation
+from .models import MODELS, Model, Normalisation, normalise_in_place
 from .sampling import canonical_order, draw_samples, sort_key
 from .scoring import inlier_mask, msac_costs
 from .termination import FIRST_GUESS_OUTLIERS, next_batch_size, rounds_needed
@@ -47,6 +48,10 @@ __all__ = ["Fit", "estimate"]
 PREVIEW_MIN_POINTS = 400
 PREVIEW_POINTS = 100
 PREVIEW_SHARE = 0.5
+#: Batches of at most this many samples are verified on all points without a preview: for
+#: so few hypotheses the preview costs about as much as the full verification it saves
+#: (measured with tests/benchmarks/bench_consensus.py on 1000 points).
+PREVIEW_MIN_BATCH = 16
 
 
 @dataclass(frozen=True, eq=False)
@@ -221,12 +226,13 @@ def estimate(
 
 class _Prepared(NamedTuple):
     """The point set of one call made ready for a model: the finite rows kept (None: all),
-    their count, canonical order, the ordered points (4, n), the normalisation, the
-    normalised points (5, n), why no model of the family fits them ("" when one may) and
-    the model's features and those of an evenly spread subset of the points (None when
-    there are too few points for a preview); then what later calls on the same points
-    reuse, made on first use (:func:`_memo`): the normalisation's 3x3 matrices and, per
-    frame rectangle, the spread grid's cell of every src point."""
+    their count, canonical order, the kept points in the order given (4, n), the
+    normalisation, the normalised points in canonical order (5, n), why no model of the
+    family fits them ("" when one may) and the model's features and those of an evenly
+    spread subset of the points (None when there are too few points for a preview); then
+    what later calls on the same points reuse, made on first use (:func:`_memo`): the
+    normalisation's 3x3 matrices and, per frame rectangle, the spread grid's cell of
+    every src point (in the order given) and of an evenly spread subset of them."""
 
     keep: NDArray[np.intp] | None
     n: int
@@ -237,20 +243,42 @@ class _Prepared(NamedTuple):
     problem: str
     feat: NDArray[np.float64] | None
     feat_sub: NDArray[np.float64] | None
-    memo: dict[str | Frame, NDArray] | None = None
+    memo: dict[str | Frame | tuple[Frame, int], NDArray] | None = None
 
 
-def _memo(ready: _Prepared, key: str | Frame) -> NDArray:
+def _memo(ready: _Prepared, key: str | Frame | tuple[Frame, int]) -> NDArray:
     """``ready``'s normalisation matrix ``key`` ("t_src", "t_src_inv", "t_dst",
-    "t_dst_inv", see :class:`Normalisation`) or, for a :class:`Frame`, the spread grid's
-    cell of every src point (:func:`cell_index`); made on first use, read-only."""
+    "t_dst_inv", see :class:`Normalisation`), for a :class:`Frame` the spread grid's cell
+    of every src point in the order given (:func:`cell_index`) and for ``(frame, step)``
+    that of every ``step``-th point in canonical order; made on first use, read-only."""
     got = ready.memo.get(key)
     if got is None:
-        got = (cell_index(ready.pts[:2], key) if isinstance(key, Frame)
-               else getattr(ready.norm, key)())
+        if isinstance(key, Frame):
+            got = cell_index(ready.pts[:2], key)
+        elif isinstance(key, tuple):
+            got = cell_index(np.take(ready.pts[:2], ready.order[::key[1]], axis=1), key[0])
+        else:
+            got = getattr(ready.norm, key)()
         got.flags.writeable = False
         ready.memo[key] = got
     return got
+
+
+def _spread(ready: _Prepared, frame: Frame, mask: NDArray[np.bool_],
+            inl: NDArray[np.bool_]) -> int:
+    """Grid cells holding an inlier (:func:`count_cells`), or any count of at least
+    WEAK_MIN_CELLS when that many hold one: then the spread is no weakness and the exact
+    count is not needed. ``mask`` marks the inliers in canonical order, ``inl`` the same
+    in the order given."""
+    if ready.n >= PREVIEW_MIN_POINTS:
+        # Every step-th point in canonical order is spread over the whole frame; enough
+        # cells among its inliers settle the check without the cell of every inlier (for
+        # smaller sets the two passes cost more than they save).
+        step = ready.n // PREVIEW_POINTS
+        cells = count_cells(np.compress(mask[::step], _memo(ready, (frame, step))))
+        if cells >= WEAK_MIN_CELLS:
+            return cells
+    return count_cells(np.compress(inl, _memo(ready, frame)))
 
 
 # The last few point sets made ready, keyed by the bytes of the arrays they came from: a
@@ -293,8 +321,11 @@ def _prepare(spec: Model, src: NDArray[np.float64], dst: NDArray[np.float64]) ->
     if n < spec.sample_size:
         return _Prepared(keep, n, None, pts, None, None, "", None, None)
     order = canonical_order(pts, key)
-    pts = np.take(pts, order, axis=1)
-    norm, z, gram = normalisation(pts[:2], pts[2:])
+    z = np.empty((5, n))
+    # Indices are in range; "wrap" spares the buffered copy that "raise" makes with out=.
+    np.take(pts, order, axis=1, out=z[:4], mode="wrap")
+    z[4] = 1.0
+    norm, gram = normalise_in_place(z)
     problem = point_set_problem(gram, n, spec.spread_rank)
     feat = None if problem else spec.features(z)
     feat_sub = None
@@ -345,16 +376,12 @@ def _estimate(
     n_implausible = 0
     needed: int | float = max_rounds
 
-    best_sub = 0
-
     def adopt(c: Candidate) -> None:
-        nonlocal best, needed, best_sub
+        nonlocal best, needed
         lo = local_optimise(spec, feat, z, c, t2)
         if lo is not c and not ok_motion(lo.h):
             lo = c
         best = lo
-        if feat_sub is not None:
-            best_sub = int(np.count_nonzero(lo.sq_res[::n // PREVIEW_POINTS] < t2))
         w = np.count_nonzero(inlier_mask(lo.sq_res, t2)) / n
         needed = min(rounds_needed(1.0 - w, s, confidence), max_rounds)
 
@@ -386,14 +413,14 @@ def _estimate(
         n_valid += nv
         if nv < batch:
             hyp = hyp[valid]
-        if feat_sub is not None and len(hyp) > 1:
+        if feat_sub is not None and batch > PREVIEW_MIN_BATCH and len(hyp) > 1:
             # Preview: support of every hypothesis on the subset; only those with at least
             # PREVIEW_SHARE of the best support seen there (the current best's included)
             # are verified on all points.
-            support = np.count_nonzero(spec.sq_residuals(feat_sub, hyp) < t2, axis=1)
+            support = (spec.sq_residuals(feat_sub, hyp) < t2).sum(axis=1)
             top = int(support.max())
             if best is not None:
-                top = max(top, best_sub)
+                top = max(top, int(np.count_nonzero(best.sq_res[::n // PREVIEW_POINTS] < t2)))
             sel = np.flatnonzero(support >= PREVIEW_SHARE * top)
             if len(sel) == 0:
                 continue
@@ -436,6 +463,7 @@ def _estimate(
     h_px /= h_px[2, 2]
     inl = np.empty(n, dtype=bool)
     inl[order] = mask
+    weak_reason = weakness(k, n, _spread(prepared, frame, mask, inl))
     if keep is not None:
         full = np.zeros(n_all, dtype=bool)
         full[keep] = inl
@@ -444,7 +472,6 @@ def _estimate(
     rms = float(np.sqrt((final.sq_res @ mask) / (k * scale2))) if k else float("nan")
     min_support = 2 * s + 2
     ok = k >= min_support
-    weak_reason = weakness(k, n, count_cells(np.compress(mask, _memo(prepared, frame))))
     reason = "" if ok else f"too few inliers ({k}, need {min_support})"
     reason = reason or weak_reason
     return Fit(h_px, inl, rounds, rms, final.cost / scale2, ok, bool(weak_reason) or not ok,

@@ -50,7 +50,7 @@ from .solvers import (
     translation_solve,
 )
 
-__all__ = ["Model", "MODELS", "Normalisation", "normalisation"]
+__all__ = ["Model", "MODELS", "Normalisation", "normalisation", "normalise_in_place"]
 
 Array = NDArray[np.float64]
 
@@ -133,11 +133,30 @@ def normalisation(src: Array, dst: Array) -> tuple[Normalisation, Array, Array]:
     ----------
     .. [1] R. I. Hartley, "In defense of the eight-point algorithm", IEEE TPAMI, 1997.
     """
-    n = src.shape[1]
-    z = np.empty((5, n))
+    z = np.empty((5, src.shape[1]))
     z[:2] = src
     z[2:4] = dst
     z[4] = 1.0
+    norm, gram = normalise_in_place(z)
+    return norm, z, gram
+
+
+def normalise_in_place(z: Array) -> tuple[Normalisation, Array]:
+    """:func:`normalisation` of the points already in ``z``.
+
+    Parameters
+    ----------
+    z : ndarray, shape (5, n)
+        Rows ``(x, y, u, v, 1)`` in pixels; rows 0 to 3 are overwritten with the
+        normalised coordinates.
+
+    Returns
+    -------
+    norm : Normalisation
+    gram : ndarray, shape (4, 4)
+        ``z[:4] @ z[:4].T`` after normalisation.
+    """
+    n = z.shape[1]
     mean = (z[:4] @ z[4]) / n
     np.subtract(z[:4], mean[:, None], out=z[:4])
     gram = z[:4] @ z[:4].T
@@ -148,7 +167,7 @@ def normalisation(src: Array, dst: Array) -> tuple[Normalisation, Array, Array]:
     if scale != 1.0:
         np.multiply(z[:4], scale, out=z[:4])
         gram *= scale * scale
-    return Normalisation((m[0], m[1]), (m[2], m[3]), scale), z, gram
+    return Normalisation((m[0], m[1]), (m[2], m[3]), scale), gram
 
 
 # --------------------------------------------------------------------------- features
@@ -216,7 +235,16 @@ def _homography_sq_residuals(feat: Array, h: Array) -> Array:
 
 
 def _homography_sq_residuals_one(feat: Array, h: Array) -> Array:
-    return _homography_sq_residuals(feat, h[None])[0]
+    """Squared transfer errors of one homography (3, 3), shape (n,); the same products as
+    :func:`_homography_sq_residuals` on a batch of one."""
+    out = (h.reshape(1, 9) @ _HOM_SEL).reshape(3, 9) @ feat
+    nx, ny, w = out
+    nx *= nx
+    ny *= ny
+    nx += ny
+    w *= w
+    nx /= w
+    return nx
 
 
 def _similarity_features(z: Array) -> Array:

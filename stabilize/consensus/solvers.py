@@ -25,7 +25,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 __all__ = [
-    "EPS_AREA", "EPS_LEN", "MONOMIALS", "affine_project", "affine_refit", "affine_solve",
+    "EPS_AREA", "EPS_LEN", "LM_STOP", "MONOMIALS", "affine_project", "affine_refit", "affine_solve",
     "homography_polish", "homography_refit", "homography_solve", "normalise_h",
     "similarity_project", "similarity_refit", "similarity_solve", "translation_project",
     "translation_refit", "translation_solve",
@@ -231,6 +231,24 @@ def affine_refit(feat: Array, z: Array, mask: NDArray[np.bool_]) -> Array | None
     return np.array([[a00, a01, tx], [a10, a11, ty], [0.0, 0.0, 1.0]])
 
 
+def _dlt_index() -> tuple[NDArray[np.intp], Array]:
+    """Where each entry of the DLT normal matrix ``A^T A`` (9x9) lives in the table of
+    :func:`homography_refit` (the 81 moments of g, the nine entries of the sum of its two
+    quadratic blocks, a 0) and with which sign."""
+    idx = np.full((9, 9), 90, dtype=np.intp)
+    sgn = np.ones((9, 9))
+    mom = np.arange(81).reshape(9, 9)
+    idx[:3, :3] = idx[3:6, 3:6] = mom[:3, :3]
+    idx[:3, 6:], idx[3:6, 6:] = mom[:3, 3:6], mom[:3, 6:]
+    idx[6:, :3], idx[6:, 3:6] = mom[3:6, :3], mom[6:, :3]
+    sgn[:3, 6:] = sgn[3:6, 6:] = sgn[6:, :3] = sgn[6:, 3:6] = -1.0
+    idx[6:, 6:] = 81 + np.arange(9).reshape(3, 3)
+    return idx, sgn
+
+
+_DLT_IDX, _DLT_SGN = _dlt_index()
+
+
 def homography_refit(feat: Array, z: Array, mask: NDArray[np.bool_]) -> Array | None:
     """Normalised DLT on the inliers (Hartley 1997), via the 9x9 normal matrix.
 
@@ -240,18 +258,16 @@ def homography_refit(feat: Array, z: Array, mask: NDArray[np.bool_]) -> Array | 
     if np.count_nonzero(mask) < 4:
         return None
     gm = feat * mask
-    m = gm @ feat.T
-    ata = np.zeros((9, 9))
-    zz = m[:3, :3]
-    ata[:3, :3] = zz
-    ata[3:6, 3:6] = zz
-    ata[:3, 6:] = -m[:3, 3:6]
-    ata[3:6, 6:] = -m[:3, 6:]
-    ata[6:, :3] = -m[3:6, :3]
-    ata[6:, 3:6] = -m[6:, :3]
-    ata[6:, 6:] = m[3:6, 3:6] + m[6:, 6:]
-    _, vec = np.linalg.eigh(ata)
-    h = vec[:, 0].reshape(3, 3)
+    tab = np.empty(91)  # the moments g g^T, the last block's sum and a 0
+    m = tab[:81].reshape(9, 9)
+    np.matmul(gm, feat.T, out=m)
+    np.add(m[3:6, 3:6], m[6:, 6:], out=tab[81:90].reshape(3, 3))
+    tab[90] = 0.0
+    ata = np.take(tab, _DLT_IDX) * _DLT_SGN
+    # OpenCV's symmetric eigensolver (Jacobi): eigenvalues in descending order, unit
+    # eigenvectors as rows; the least one's vector minimises |A h| with |h| = 1.
+    _, _, vec = cv2.eigen(ata)
+    h = vec[8].reshape(3, 3)
     if abs(h[2, 2]) < 1e-12:
         return None
     return h / h[2, 2]
@@ -286,6 +302,15 @@ def _lm_index() -> tuple[NDArray[np.intp], Array, NDArray[np.intp]]:
 
 
 _LM_IDX, _LM_SGN, _LM_GIDX = _lm_index()
+#: The polish stops after a step that lowers the sum of squared transfer errors by at most
+#: this share of it. Near the optimum the steps converge about quadratically: measured on
+#: synthetic sets (60 to 1000 points, noise 0.3 to 1 px), a first step from the DLT fit
+#: that gains 1e-6 to 1e-2 of the sum is followed by one gaining 1e-12 to 1e-7; so after a
+#: step below 1e-4 the next would move the RMS error by about 1e-8 of itself or less.
+LM_STOP = 1e-4
+# Signs turning the gradient moments into -J^T r: the weight of the last two entries is
+# stored negated (see homography_polish).
+_LM_GSGN = np.array([-1.0] * 6 + [1.0] * 2)
 
 
 def homography_polish(z: Array, h: Array, mask: NDArray[np.bool_], iters: int = 3) -> Array:
@@ -295,46 +320,55 @@ def homography_polish(z: Array, h: Array, mask: NDArray[np.bool_], iters: int = 
     estimate under Gaussian noise in dst (Hartley and Zisserman 2004, A6). The normal
     matrix ``J^T J`` and gradient ``J^T r`` are sums over points of weights times the
     monomials ``(x^2, xy, y^2, x, y, 1)``, so each iteration is one 6 x m x 7 product
-    instead of building the 2m x 8 Jacobian.
+    instead of building the 2m x 8 Jacobian. Steps stop early once one lowers the sum of
+    squares by no more than :data:`LM_STOP` of itself.
     """
-    zi = np.compress(mask, z, axis=1)
+    zi = np.compress(mask, z[:4], axis=1)
     m = zi.shape[1]
     if m < 5:
         return h
-    x, y, u, v = zi[0], zi[1], zi[2], zi[3]
+    x, y, uv = zi[0], zi[1], zi[2:4]
     mono = np.empty((6, m))
-    mono[0] = x * x
-    mono[1] = x * y
-    mono[2] = y * y
-    mono[3] = x
-    mono[4] = y
+    np.multiply(x, zi[:2], out=mono[:2])  # x^2, xy
+    np.multiply(y, y, out=mono[2])
+    mono[3:5] = zi[:2]
     mono[5] = 1.0
+    # Weights per point (rows): 1/w^2, px/w^2, py/w^2, |p|^2/w^2, rx/w, ry/w and
+    # (px rx + py ry)/w, the last with its sign left to _LM_GSGN.
     wts = np.empty((7, m))
+    tmp = np.empty((2, m))
     tab = np.zeros(43)  # the moment table, with a trailing 0 for the empty entries
     par = (h / h[2, 2]).ravel()[:8].copy()
+    xy1 = mono[3:]  # rows x, y, 1
+    hm = np.empty(9)
+    hm[8] = 1.0
 
-    def resid(p: Array) -> tuple[float, Array, Array, Array, Array, Array]:
-        iw = 1.0 / (x * p[6] + y * p[7] + 1.0)
-        px = (x * p[0] + y * p[1] + p[2]) * iw
-        py = (x * p[3] + y * p[4] + p[5]) * iw
-        rx = px - u
-        ry = py - v
-        return float(rx @ rx + ry @ ry), iw, px, py, rx, ry
+    def resid(p: Array) -> tuple[float, Array, Array, Array]:
+        # Projected points pp = (px, py) (2, m), their inverse depth iw (m,) and the
+        # residuals rr = pp - (u, v).
+        hm[:8] = p
+        num = hm.reshape(3, 3) @ xy1
+        iw = np.divide(1.0, num[2], out=num[2])
+        pp = num[:2]
+        pp *= iw
+        rr = pp - uv
+        return float(rr[0] @ rr[0] + rr[1] @ rr[1]), iw, pp, rr
 
-    sse, iw, px, py, rx, ry = resid(par)
+    sse, iw, pp, rr = resid(par)
     mu = 1e-3
     for _ in range(iters):
-        a = iw * iw
-        wts[0] = a
-        wts[1] = px * a
-        wts[2] = py * a
-        wts[3] = (px * px + py * py) * a
-        wts[4] = rx * iw
-        wts[5] = ry * iw
-        wts[6] = -(px * rx + py * ry) * iw
+        a = np.multiply(iw, iw, out=wts[0])
+        np.multiply(pp, a, out=wts[1:3])
+        np.multiply(pp, pp, out=tmp)
+        np.add(tmp[0], tmp[1], out=wts[3])
+        wts[3] *= a
+        np.multiply(rr, iw, out=wts[4:6])
+        np.multiply(pp, rr, out=tmp)
+        np.add(tmp[0], tmp[1], out=wts[6])
+        wts[6] *= iw
         tab[:42] = (mono @ wts.T).ravel()
         jtj = np.take(tab, _LM_IDX) * _LM_SGN
-        neg_grad = -np.take(tab, _LM_GIDX)[:, None]
+        neg_grad = (np.take(tab, _LM_GIDX) * _LM_GSGN)[:, None]
         diag = jtj.diagonal().copy()
         converged = False
         while True:
@@ -344,14 +378,14 @@ def homography_polish(z: Array, h: Array, mask: NDArray[np.bool_], iters: int = 
             damped = jtj.copy()
             damped.flat[::9] += mu * diag
             ok, step = cv2.solve(damped, neg_grad, flags=cv2.DECOMP_CHOLESKY)
-            if not ok or not np.isfinite(step).all():
+            if not ok or not all(map(math.isfinite, step.ravel().tolist())):
                 return _unflat(par)
             cand = par + step.ravel()
             res = resid(cand)
             if res[0] < sse:
-                converged = sse - res[0] <= 1e-10 * sse
+                converged = sse - res[0] <= LM_STOP * sse
                 par = cand
-                sse, iw, px, py, rx, ry = res
+                sse, iw, pp, rr = res
                 mu = max(mu * 0.1, 1e-9)
                 break
             mu *= 10.0
