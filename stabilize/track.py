@@ -130,9 +130,13 @@ def cell_index(pts: np.ndarray, size: tuple[int, int], grid: tuple[int, int]) ->
 
 def bucket(pts: np.ndarray, size: tuple[int, int], grid: tuple[int, int],
            per_cell: int) -> np.ndarray:
-    """Keep at most ``per_cell`` points in each grid cell, the first (strongest) ones.
+    """Keep at most ``per_cell`` points in each grid cell, the first (strongest) ones, every
+    cell's strongest first (in the order given), then the rest in the order given.
 
     ``pts`` must be sorted by decreasing corner quality, as goodFeaturesToTrack returns them.
+    A caller that keeps only the first few points so still has one in every cell that has
+    any: a busy object's corners, however strong and many, do not crowd the rest of the
+    picture out of the tracks.
     """
     if len(pts) == 0:
         return pts
@@ -142,7 +146,8 @@ def bucket(pts: np.ndarray, size: tuple[int, int], grid: tuple[int, int],
     starts = np.searchsorted(sorted_cells, sorted_cells, side="left")
     rank = np.empty(len(pts), int)
     rank[order] = np.arange(len(pts)) - starts
-    return pts[rank < per_cell]
+    kept = np.flatnonzero(rank < per_cell)
+    return pts[kept[np.argsort(rank[kept] > 0, kind="stable")]]
 
 
 def cell_maxima(strength: np.ndarray, grid: tuple[int, int]) -> np.ndarray:

@@ -39,11 +39,14 @@ def _shift(img, dx, dy):
     return np.clip(np.rint(out), 0, 255).astype(np.uint8)
 
 
-def test_bucketing_caps_each_cell():
-    pts = np.array([[1, 1], [2, 2], [3, 3], [60, 60], [61, 61]], float)
+def test_bucketing_caps_each_cell_and_puts_every_cells_strongest_first():
+    pts = np.array([[1, 1], [2, 2], [3, 3], [60, 60], [61, 61], [80, 10]], float)
     kept = bucket(pts, (100, 100), (2, 2), per_cell=2)
-    assert len(kept) == 4
-    assert list(cell_index(kept, (100, 100), (2, 2))) == [0, 0, 3, 3]
+    assert len(kept) == 5
+    # Each cell's strongest (the first given) before any cell's second, so that a caller
+    # keeping only the first few still has every cell with corners.
+    assert list(cell_index(kept, (100, 100), (2, 2))) == [0, 3, 1, 0, 3]
+    np.testing.assert_array_equal(kept[:3], pts[[0, 3, 5]])
 
 
 def test_corners_spread_over_a_frame_with_one_busy_object():
@@ -55,6 +58,24 @@ def test_corners_spread_over_a_frame_with_one_busy_object():
     pts = detect(img, TrackSettings(max_corners=600), None, 600)
     outside = ~((pts[:, 0] > 150) & (pts[:, 0] < 330) & (pts[:, 1] > 60) & (pts[:, 1] < 200))
     assert outside.sum() > 0.3 * len(pts)
+
+
+def test_a_few_corners_asked_for_still_reach_the_quiet_half_of_the_frame():
+    # A strongly textured board over half the frame, a softer wall beside it: the board's
+    # corners are the strongest of all, yet the first corners of the list reach every cell
+    # of the wall that has any.
+    img = (_texture(seed=1).astype(np.float32) * 0.3 + 90).astype(np.uint8)
+    busy = _texture(seed=2)
+    h, w = img.shape
+    img[:, : w // 2] = busy[:, : w // 2]
+    settings = TrackSettings(max_corners=600)
+    pts = detect(img, settings, None, 200)
+    every = detect(img, settings, None, 10_000)
+    quiet = every[:, 0] >= w // 2 + 8
+    size = (w, h)
+    want = set(cell_index(every[quiet], size, settings.grid).tolist())
+    got = set(cell_index(pts, size, settings.grid).tolist())
+    assert len(want) > 10 and want <= got
 
 
 def test_cell_maxima_use_the_cells_of_cell_index():
