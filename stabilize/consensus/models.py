@@ -224,21 +224,19 @@ def _homography_sq_residuals(feat: Array, h: Array) -> Array:
     """Squared transfer errors of homographies h (B, 3, 3) -> (B, n)."""
     b = h.shape[0]
     coef = (h.reshape(b, 9) @ _HOM_SEL).reshape(b, 3, 9).transpose(1, 0, 2).reshape(3 * b, 9)
-    out = (coef @ feat).reshape(3, b, -1)
-    nx, ny, w = out[0], out[1], out[2]
-    nx *= nx
-    ny *= ny
-    nx += ny
-    w *= w
-    nx /= w
-    return nx
+    return _sq_transfer((coef @ feat).reshape(3, b, -1))
 
 
 def _homography_sq_residuals_one(feat: Array, h: Array) -> Array:
     """Squared transfer errors of one homography (3, 3), shape (n,); the same products as
     :func:`_homography_sq_residuals` on a batch of one."""
-    out = (h.reshape(1, 9) @ _HOM_SEL).reshape(3, 9) @ feat
-    nx, ny, w = out
+    return _sq_transfer((h.reshape(1, 9) @ _HOM_SEL).reshape(3, 9) @ feat)
+
+
+def _sq_transfer(out: Array) -> Array:
+    """``(nx^2 + ny^2) / w^2`` from the rows ``(nx, ny, w)`` of ``out`` (3, ...): the
+    residual's numerators and the projection's depth; worked out in place, in ``out[0]``."""
+    nx, ny, w = out[0], out[1], out[2]
     nx *= nx
     ny *= ny
     nx += ny
