@@ -85,7 +85,8 @@ class FrameRecord:
 @dataclass
 class _Recent:
     """A recent frame's pairs, kept for a second (from the start of a pass, three) so its
-    fit can be revised when tracks it used turn out to have been moving on their own."""
+    fit can be revised when tracks it used turn out to have been moving on their own;
+    ``blind``: it was fitted before the pass had any baseline to group its tracks by."""
 
     index: int
     time_s: float
@@ -95,6 +96,7 @@ class _Recent:
     background: np.ndarray
     used: np.ndarray
     record: FrameRecord
+    blind: bool = False
     attempts: int = 0
 
 
@@ -311,7 +313,7 @@ class AnalysisPass:
             tracker.update(None, memo)
             record = FrameRecord(np.eye(3), d, "weak", "held_still")
             self.recent.append(_Recent(index, time_s, src, dst, pairs.ids, pairs.background,
-                                       use, record))
+                                       use, record, grouping is None))
             if self.releasing or (votes is not None and votes.supported):
                 self.releasing.append((record, fit.matrix, fit.weak))
             return record
@@ -327,7 +329,7 @@ class AnalysisPass:
             record.bands = track_band_shifts(src, dst, fit.matrix, fh, settings.inlier_px,
                                              ctx.bands)
         self.recent.append(_Recent(index, time_s, src, dst, pairs.ids, pairs.background,
-                                   use, record))
+                                   use, record, grouping is None))
         # The last second's fits are kept for revision; over the first three seconds of a
         # pass, all of them (its first frames have no baseline at all).
         if time_s - self.begin_s > 6.0 * base.baseline_s:
@@ -438,9 +440,12 @@ class AnalysisPass:
                         seed=[settings.seed, r.index, 1], prior=r.record.matrix,
                         frame_size=(fw, fh))
             # A slow object drags a fit by a fraction of the threshold; a faster one was
-            # parted from the scene by the frame's own consensus already.
+            # parted from the scene by the frame's own consensus already, unless the frame
+            # came before any baseline: then the consensus took whichever group was the
+            # larger, and the scene known since may lie anywhere.
             shift = corner_shift(fit.matrix, r.record.matrix, (fw, fh))
-            if not fit.ok or fit.weak or not REVISE_PX < shift <= 2.0 * settings.inlier_px:
+            reach = math.inf if r.blind else 2.0 * settings.inlier_px
+            if not fit.ok or fit.weak or not REVISE_PX < shift <= reach:
                 continue
             # The tracks kept must fit the revision clearly better than the first fit (which
             # a moving object dragged away from them); otherwise what is left is another

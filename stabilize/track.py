@@ -24,8 +24,8 @@ from .consensus.metrics import median
 
 __all__ = [
     "MEMO_WIDTH", "Pairs", "TrackSettings", "Tracker", "bucket", "cell_index", "cell_keep",
-    "cell_maxima", "corner_strength", "detect", "global_shift", "ignore_mask", "strength_floor",
-    "strength_map", "to_full_resolution", "track_settings_for",
+    "cell_maxima", "corner_strength", "detect", "global_shift", "ignore_mask", "isotropy_at",
+    "strength_floor", "strength_map", "to_full_resolution", "track_settings_for",
 ]
 
 
@@ -36,11 +36,11 @@ class TrackSettings:
     ``max_corners`` is the number of live tracks aimed for; ``grid`` the (columns, rows) of
     the bucketing grid; ``quality_floor`` the weakest corner considered, as a share of the
     strongest (each cell then keeps its own strongest); ``cell_quality``, ``noise_floor``,
-    ``min_strength``, ``min_isotropy``, ``sparse_share``: when the frame-wide rule finds
-    corners in fewer than ``sparse_share`` of the grid cells of the whole picture while more
-    than twice as many cells hold only weaker corners (strong corners crowding into a small
-    part of a picture textured elsewhere, such as burnt-in text over a hazy scene), a corner in
-    a cell the rule left sparse is also kept when it reaches ``cell_quality`` of its own
+    ``min_strength``, ``min_isotropy``: when the frame-wide rule leaves grid cells of the
+    picture without corners while they hold weaker ones above the floor (strong corners on
+    a part of a picture textured faintly elsewhere, such as burnt-in text over a hazy scene
+    or a textured object before a low-contrast wall), a corner in a cell the rule left
+    sparse is also kept when it reaches ``cell_quality`` of its own
     cell's strongest, ``noise_floor`` times the picture's median corner strength and
     ``min_strength`` (OpenCV's minimum-eigenvalue units for 8-bit images and this block size;
     about the strongest corner that Gaussian noise of 1.3 grey levels makes on a flat patch,
@@ -73,7 +73,6 @@ class TrackSettings:
     noise_floor: float = 10.0
     min_strength: float = 3e-5
     min_isotropy: float = 0.2
-    sparse_share: float = 0.5
     min_distance_frac: float = 1.0 / 240.0
     block_size: int = 7
     win_size: int = 21
@@ -193,15 +192,37 @@ def cell_keep(strength: np.ndarray, cells: np.ndarray, cell_max: np.ndarray,
 #: clip, measured).
 FLOOR_SAMPLE_STEP = 4
 
+#: Which quantile of the grid cells' median strengths stands for the quieter parts of a
+#: picture in :func:`strength_floor` (this project's choice: a quarter of the cells is
+#: enough background to track against).
+QUIET_CELLS_QUANTILE = 0.25
 
-def strength_floor(strength: np.ndarray, settings: TrackSettings) -> float:
+
+def strength_floor(strength: np.ndarray, settings: TrackSettings,
+                   grid: tuple[int, int] | None = None) -> float:
     """The least corner strength above the picture's noise and fine texture:
     ``noise_floor`` × the median of ``strength`` (OpenCV minimum-eigenvalue map, (h, w)),
     taken on a regular sample of every :data:`FLOOR_SAMPLE_STEP`-th row and column, and no
-    less than ``min_strength`` (flat pictures have a median of nought)."""
+    less than ``min_strength`` (flat pictures have a median of nought).
+
+    Given the bucketing ``grid`` (columns, rows), the median is that of the quieter parts:
+    the lower quartile of the cells' own medians when it is below the whole sample's. A
+    strongly textured object over half the picture otherwise raises the floor above every
+    corner of a low-contrast background (a drawn board over a wall of a third of its
+    contrast: the wall's strongest corner was 0.43 of the whole-picture floor, measured),
+    while on a picture textured alike all over the two agree."""
     s = FLOOR_SAMPLE_STEP
     sample = strength[s // 2::s, s // 2::s]
-    return max(settings.min_strength, settings.noise_floor * float(np.median(sample)))
+    level = float(np.median(sample))
+    if grid is not None:
+        gx, gy = grid
+        h, w = sample.shape
+        ch, cw = h // gy, w // gx
+        if ch > 0 and cw > 0:
+            cells = sample[:ch * gy, :cw * gx].reshape(gy, ch, gx, cw).swapaxes(1, 2)
+            per_cell = np.median(cells.reshape(gy * gx, ch * cw), axis=1)
+            level = min(level, float(np.quantile(per_cell, QUIET_CELLS_QUANTILE)))
+    return max(settings.min_strength, settings.noise_floor * level)
 
 
 #: Side (pixels) of the tiles of :func:`strength_map`.
@@ -243,7 +264,7 @@ def corner_strength(gray: np.ndarray, settings: TrackSettings) -> tuple[np.ndarr
     the gradient structure tensor over ``block_size`` windows, OpenCV units) and its
     :func:`strength_floor`."""
     strength = strength_map(gray, settings.block_size)
-    return strength, strength_floor(strength, settings)
+    return strength, strength_floor(strength, settings, settings.grid)
 
 
 def detect(gray: np.ndarray, settings: TrackSettings, mask: np.ndarray | None,
@@ -252,13 +273,12 @@ def detect(gray: np.ndarray, settings: TrackSettings, mask: np.ndarray | None,
 
     Corner strength is the smaller eigenvalue of the gradient structure tensor (Shi and
     Tomasi, CVPR 1994); each corner is judged against the frame's strongest and its own
-    grid cell's strongest (:func:`cell_keep`; the latter only when the former leaves most
-    cells empty, and then only in cells where it kept fewer than a quarter of the corners a
-    cell may hold), the absolute floor being
-    ``noise_floor`` × the frame's median strength, a measure of its noise and fine texture,
-    and no less than ``min_strength`` (flat pictures have a median of nought) (this project's
-    choice). ``strength``: the picture's :func:`corner_strength`, when already worked out (its
-    map is changed here).
+    grid cell's strongest (:func:`cell_keep`; the latter only when the former leaves cells
+    with corners above the floor empty, and then only in cells where it kept fewer than a
+    quarter of the corners a cell may hold), the absolute floor being :func:`strength_floor`,
+    a measure of the quieter parts' noise and fine texture (this project's choice).
+    ``strength``: the picture's :func:`corner_strength`, when already worked out (its map is
+    changed here).
     """
     if count <= 0:
         return np.empty((0, 2), np.float32)
@@ -267,12 +287,13 @@ def detect(gray: np.ndarray, settings: TrackSettings, mask: np.ndarray | None,
     n_cells = settings.grid[0] * settings.grid[1]
     per_cell = max(2, int(np.ceil(1.5 * settings.max_corners / n_cells)))
     strength, floor = strength or corner_strength(gray, settings)
-    # Whether the picture's strong corners crowd into a few cells, judged on the whole
-    # picture (not the mask, which at a re-seed hides the corners already tracked).
+    # Cells the frame-wide rule leaves without corners while they hold some above the floor
+    # (a low-contrast background beside a strongly textured object or burnt-in text), judged
+    # on the whole picture (not the mask, which at a re-seed hides the corners already
+    # tracked).
     whole = cell_maxima(strength, settings.grid)
     strong = whole >= settings.quality_floor * float(whole.max())
-    weak_only = ~strong & (whole >= floor)
-    crowded = strong.mean() < settings.sparse_share and weak_only.sum() > 2 * strong.sum()
+    quiet = bool(np.any(~strong & (whole >= floor)))
     if mask is not None:
         strength[mask == 0] = 0.0
     top = float(strength.max())
@@ -294,20 +315,47 @@ def detect(gray: np.ndarray, settings: TrackSettings, mask: np.ndarray | None,
     yi = np.clip(np.rint(pts[:, 1]).astype(int), 0, size[1] - 1)
     at = strength[yi, xi]
     cells = cell_index(pts, size, settings.grid)
-    if not crowded:
-        # The frame-wide rule reaches most of the frame: corners judged as usual.
+    if not quiet:
+        # The frame-wide rule reaches every cell with corners above the floor.
         return bucket(pts[at >= settings.quality_floor * top], size, settings.grid,
                       per_cell)[:count]
-    # Both eigenvalues only where the per-cell rule needs them (this costs five times the
-    # smaller eigenvalue alone).
-    eig = cv2.cornerEigenValsAndVecs(gray, settings.block_size, ksize=3)
-    larger = np.maximum(eig[..., 0], eig[..., 1])
+    # The isotropy only where the per-cell rule needs it.
+    usual = at >= settings.quality_floor * top
+    sparse = np.bincount(cells[usual], minlength=n_cells)[cells] < max(1, per_cell // 4)
+    ask = ~usual & sparse & (at >= floor) & (at >= settings.cell_quality * cell_max[cells])
+    isotropy = np.ones(len(pts))
+    isotropy[ask] = isotropy_at(gray, np.rint(pts[ask]).astype(int), settings.block_size)
     keep = cell_keep(at, cells, cell_max, top,
                      quality=settings.quality_floor, cell_quality=settings.cell_quality,
-                     floor=floor, isotropy=at / np.maximum(larger[yi, xi], 1e-12),
+                     floor=floor, isotropy=isotropy,
                      min_isotropy=settings.min_isotropy, sparse_below=max(1, per_cell // 4))
     pts = pts[keep]
     return bucket(pts, size, settings.grid, per_cell)[:count]
+
+
+def isotropy_at(gray: np.ndarray, pts: np.ndarray, block: int) -> np.ndarray:
+    """Smaller over larger eigenvalue of the gradient structure tensor (central
+    differences) summed over a ``block``×``block`` window at each integer point (k, 2) of
+    ``gray`` (h, w); 0 where flat (Shi and Tomasi, "Good features to track", CVPR 1994, the
+    eigenvalues of their matrix Z). A corner scores near 1, a point on a straight edge
+    near 0."""
+    r = block // 2 + 1
+    h, w = gray.shape
+    x0 = np.clip(pts[:, 0] - r - 1, 0, w - 1)
+    y0 = np.clip(pts[:, 1] - r - 1, 0, h - 1)
+    side = 2 * r + 3
+    ys = np.clip(y0[:, None] + np.arange(side)[None, :], 0, h - 1)
+    xs = np.clip(x0[:, None] + np.arange(side)[None, :], 0, w - 1)
+    win = gray[ys[:, :, None], xs[:, None, :]].astype(np.float32)
+    gx = 0.5 * (win[:, 1:-1, 2:] - win[:, 1:-1, :-2])
+    gy = 0.5 * (win[:, 2:, 1:-1] - win[:, :-2, 1:-1])
+    c = slice(1, 1 + block)
+    gx, gy = gx[:, c, c], gy[:, c, c]
+    a, b, d = (gx * gx).sum((1, 2)), (gx * gy).sum((1, 2)), (gy * gy).sum((1, 2))
+    tr, det = a + d, a * d - b * b
+    disc = np.sqrt(np.maximum(0.25 * tr * tr - det, 0.0))
+    big, small = 0.5 * tr + disc, 0.5 * tr - disc
+    return np.where(big > 1e-9, small / np.maximum(big, 1e-9), 0.0)
 
 
 @dataclass
@@ -414,7 +462,8 @@ class Tracker:
         With a predicted motion the tracks start close to where they end, so the flow is
         first solved on the full-resolution level alone (``predicted_levels``); when fewer
         than ``fallback_share`` of the tracks survive that (the motion changed more than
-        the prediction allowed for), the whole pyramid is used, as without a prediction.
+        the prediction allowed for), the whole pyramid is used, as without a prediction. The
+        tracks still lost are then tracked once more from no motion at all.
         """
         self._pending = None
         if self._prev_pyr is None or len(self._pts) == 0:
@@ -432,6 +481,16 @@ class Tracker:
             again = self._flow(src, guess, s.levels)
             if again[1].sum() > keep.sum():
                 dst, keep, _ = again
+        if guess is not None and not keep.all():
+            # Tracks the prediction lost are tried again from where they were: the prediction
+            # is the camera's motion as last fitted, and tracks that do not share it (the
+            # still background when the fit followed an object) would otherwise all be lost
+            # in the frame after, and the wrong fit would keep itself.
+            lost = np.flatnonzero(~keep)
+            found, ok, _ = self._flow(src[lost], None, s.levels)
+            dst, keep = dst.copy(), keep.copy()
+            dst[lost[ok]] = found[ok]
+            keep[lost[ok]] = True
         self._pending = (dst, keep)
         return Pairs(src[keep].astype(np.float64), dst[keep].astype(np.float64),
                      self._ids[keep], self._bg[keep], self._memo[keep].copy())
@@ -513,12 +572,16 @@ class Tracker:
         self._since_detect += 1
         live = len(self._pts)
         few = live < s.reseed_share * min(s.max_corners, max(self._reached, 1))
-        few |= live < s.max_corners and self._since_detect >= s.refresh_frames
+        due = self._since_detect >= s.refresh_frames
+        few |= live < s.max_corners and due
+        # Full, yet cells hold no track: an object crowding the tracks it carries into its
+        # own cells while the picture it uncovers goes untracked.
+        full = live >= s.max_corners and due and bool((counts == 0).any())
         gaps = False
         if self._had_cells is not None:
             lost = self._had_cells & (counts == 0)
             gaps = lost.sum() > s.empty_cells_share * max(1, self._had_cells.sum())
-        if not (few or gaps):
+        if not (few or gaps or full):
             return
         mask = np.full((h, w), 255, np.uint8) if self.mask is None else self.mask.copy()
         if len(self._pts):
@@ -531,6 +594,13 @@ class Tracker:
             disc = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * radius + 1,) * 2)
             mask[cv2.dilate(marks, disc) > 0] = 0
         count = s.max_corners - len(self._pts)
+        if count <= 0:
+            # One corner for each cell without a track, beyond max_corners: the tracks
+            # are fewer again once the object's are lost.
+            cx = np.minimum(np.arange(w) * s.grid[0] // w, s.grid[0] - 1)
+            cy = np.minimum(np.arange(h) * s.grid[1] // h, s.grid[1] - 1)
+            mask[counts[cy[:, None] * s.grid[0] + cx[None, :]] > 0] = 0
+            count = int((counts == 0).sum())
         strength = corner_strength(gray, s) if count > 0 else None
         if strength is not None:
             self.floor = strength[1]
