@@ -277,6 +277,12 @@ class AnalysisPass:
                 self.releasing = []
             elif time_s < self.held_until:
                 held = self._release_pending(votes)
+                if held and (votes is None or votes.still + votes.moved == 0):
+                    # Nothing on this frame can tell (no detail away from the tracks, or
+                    # too little motion): the hold goes on. Only detail seen moving with
+                    # the fits, or a frame where it could have been seen and was not for
+                    # the hold's length, ends it.
+                    self.held_until = time_s + StillDetailSettings().hold_s
         if grouping is not None and grouping.split:
             memo = anchors.strike(memo, grouping.moved, time_s)
             slot = self._older_slot()

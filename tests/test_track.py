@@ -16,6 +16,7 @@ from stabilize.track import (
     detect,
     global_shift,
     ignore_mask,
+    strength_floor,
     strength_map,
     to_full_resolution,
 )
@@ -76,6 +77,71 @@ def test_a_few_corners_asked_for_still_reach_the_quiet_half_of_the_frame():
     want = set(cell_index(every[quiet], size, settings.grid).tolist())
     got = set(cell_index(pts, size, settings.grid).tolist())
     assert len(want) > 10 and want <= got
+
+
+def _board_beside_faint_wall(contrast=0.3):
+    """A board of coarse random blocks over the left half of the picture beside a wall of
+    blurred texture at ``contrast`` of full range (grey, 270×480); and the half-width."""
+    rng = np.random.default_rng(5)
+    h, w = 270, 480
+    wall = cv2.GaussianBlur(rng.uniform(0, 255, (h, w)).astype(np.float32), (0, 0), 3.0)
+    wall = cv2.normalize(wall, None, 40, 210, cv2.NORM_MINMAX)
+    wall = 128 + contrast * (wall - 128)
+    board = cv2.resize(rng.integers(0, 255, (h // 6 + 1, w // 12 + 1)).astype(np.uint8),
+                       (w // 2, h), interpolation=cv2.INTER_CUBIC)
+    img = wall.copy()
+    img[:, : w // 2] = board
+    img = np.clip(img + rng.normal(0, 1.5, img.shape), 0, 255).astype(np.uint8)
+    return img, w // 2
+
+
+def test_the_noise_floor_is_judged_on_the_quieter_parts_of_the_picture():
+    # A strongly textured board over half the picture raises the whole picture's median
+    # strength above every corner of a faint wall beside it; the floor from the quieter
+    # cells is the wall's own. On a picture textured alike all over the two rules agree.
+    s = TrackSettings()
+    img, half = _board_beside_faint_wall()
+    strength = track.strength_map(img, s.block_size)
+    whole = strength_floor(strength, s)
+    quiet = strength_floor(strength, s, s.grid)
+    wall_best = float(strength[8:-8, half + 8:-8].max())
+    assert whole > wall_best and quiet < 0.2 * whole
+    even = track.strength_map(_texture(seed=3), s.block_size)
+    assert strength_floor(even, s, s.grid) == pytest.approx(strength_floor(even, s), rel=0.25)
+
+
+def test_tracks_the_prediction_loses_are_tried_from_no_motion():
+    # The prediction is an object's motion (12 px); the still wall's tracks do not share it
+    # and must not be lost for it, or a fit that followed the object keeps itself.
+    a = _texture()
+    tr = Tracker(track.track_settings_for("balanced"))
+    tr.step(a)
+    guess = np.array([[1.0, 0.0, 12.0], [0.0, 1.0, 0.0], [0.0, 0.0, 1.0]])
+    pairs = tr.step(a.copy(), guess)
+    assert len(pairs) > 0.9 * tr.live
+    assert np.abs(pairs.dst - pairs.src).max() < 0.05
+
+
+def test_a_full_tracker_still_seeds_the_cells_left_without_tracks():
+    # All tracks on the left half (the right was masked when they were seeded): once the
+    # right half may be used again, its cells get a corner each at the next refresh, even
+    # though the tracker already follows as many tracks as it aims for.
+    img = _texture(seed=6)
+    h, w = img.shape
+    s = TrackSettings(max_corners=60, refresh_frames=3, reseed_share=0.1)
+    left = np.zeros((h, w), np.uint8)
+    left[:, : w // 2] = 255
+    tr = Tracker(s, left)
+    tr.step(img)
+    assert tr.live == s.max_corners
+    tr.set_mask(None)
+    for _ in range(4):
+        tr.step(img)
+        tr.update(None)
+    right = cell_index(tr._pts[tr._pts[:, 0] >= w // 2], (w, h), s.grid)
+    want = {c for c in range(s.grid[0] * s.grid[1]) if c % s.grid[0] >= s.grid[0] // 2}
+    assert set(right.tolist()) == want
+    assert tr.live > s.max_corners
 
 
 def test_cell_maxima_use_the_cells_of_cell_index():
