@@ -35,7 +35,7 @@ from dataclasses import dataclass
 import cv2
 import numpy as np
 
-from .track import TrackSettings, corner_strength, isotropy_at, strength_map
+from .track import TrackSettings, corner_strength, strength_map
 
 __all__ = ["StillDetail", "StillDetailSettings", "StillVotes", "find_detail", "judge",
            "spread_maxima"]
@@ -141,7 +141,7 @@ def find_detail(gray: np.ndarray, tracks: np.ndarray, usable: np.ndarray | None,
     if not len(pts):
         return None
     # A corner, not a point on an edge: the smaller eigenvalue a fair share of the larger.
-    isotropic = isotropy_at(gray, pts, track_settings.block_size) >= track_settings.min_isotropy
+    isotropic = _isotropy(gray, pts, track_settings.block_size) >= track_settings.min_isotropy
     pts = pts[isotropic]
     if not len(pts):
         return None
@@ -306,3 +306,27 @@ def _patches(img: np.ndarray, pts: np.ndarray, half: int) -> np.ndarray:
     out = cv2.remap(img, mx.reshape(-1, size), my.reshape(-1, size), cv2.INTER_LINEAR,
                     borderMode=cv2.BORDER_REPLICATE)
     return out.reshape(len(pts), size, size)
+
+
+def _isotropy(gray: np.ndarray, pts: np.ndarray, block: int) -> np.ndarray:
+    """Smaller over larger eigenvalue of the gradient structure tensor (central
+    differences) summed over a ``block``×``block`` window at each integer point (k, 2); 0
+    where flat (Shi and Tomasi, "Good features to track", CVPR 1994, the eigenvalues of
+    their matrix Z)."""
+    r = block // 2 + 1
+    h, w = gray.shape
+    x0 = np.clip(pts[:, 0] - r - 1, 0, w - 1)
+    y0 = np.clip(pts[:, 1] - r - 1, 0, h - 1)
+    side = 2 * r + 3
+    ys = np.clip(y0[:, None] + np.arange(side)[None, :], 0, h - 1)
+    xs = np.clip(x0[:, None] + np.arange(side)[None, :], 0, w - 1)
+    win = gray[ys[:, :, None], xs[:, None, :]].astype(np.float32)
+    gx = 0.5 * (win[:, 1:-1, 2:] - win[:, 1:-1, :-2])
+    gy = 0.5 * (win[:, 2:, 1:-1] - win[:, :-2, 1:-1])
+    c = slice(1, 1 + block)
+    gx, gy = gx[:, c, c], gy[:, c, c]
+    a, b, d = (gx * gx).sum((1, 2)), (gx * gy).sum((1, 2)), (gy * gy).sum((1, 2))
+    tr, det = a + d, a * d - b * b
+    disc = np.sqrt(np.maximum(0.25 * tr * tr - det, 0.0))
+    big, small = 0.5 * tr + disc, 0.5 * tr - disc
+    return np.where(big > 1e-9, small / np.maximum(big, 1e-9), 0.0)

@@ -24,8 +24,8 @@ from .consensus.metrics import median
 
 __all__ = [
     "MEMO_WIDTH", "Pairs", "TrackSettings", "Tracker", "bucket", "cell_index", "cell_keep",
-    "cell_maxima", "corner_strength", "detect", "global_shift", "ignore_mask", "isotropy_at",
-    "strength_floor", "strength_map", "to_full_resolution", "track_settings_for",
+    "cell_maxima", "corner_strength", "detect", "global_shift", "ignore_mask", "strength_floor",
+    "strength_map", "to_full_resolution", "track_settings_for",
 ]
 
 
@@ -36,11 +36,11 @@ class TrackSettings:
     ``max_corners`` is the number of live tracks aimed for; ``grid`` the (columns, rows) of
     the bucketing grid; ``quality_floor`` the weakest corner considered, as a share of the
     strongest (each cell then keeps its own strongest); ``cell_quality``, ``noise_floor``,
-    ``min_strength``, ``min_isotropy``: when the frame-wide rule leaves grid cells of the
-    picture without corners while they hold weaker ones above the floor (strong corners on
-    a part of a picture textured faintly elsewhere, such as burnt-in text over a hazy scene
-    or a textured object before a low-contrast wall), a corner in a cell the rule left
-    sparse is also kept when it reaches ``cell_quality`` of its own
+    ``min_strength``, ``min_isotropy``, ``sparse_share``: when the frame-wide rule finds
+    corners in fewer than ``sparse_share`` of the grid cells of the whole picture while more
+    than twice as many cells hold only weaker corners (strong corners crowding into a small
+    part of a picture textured elsewhere, such as burnt-in text over a hazy scene), a corner in
+    a cell the rule left sparse is also kept when it reaches ``cell_quality`` of its own
     cell's strongest, ``noise_floor`` times the picture's median corner strength and
     ``min_strength`` (OpenCV's minimum-eigenvalue units for 8-bit images and this block size;
     about the strongest corner that Gaussian noise of 1.3 grey levels makes on a flat patch,
@@ -75,6 +75,7 @@ class TrackSettings:
     noise_floor: float = 10.0
     min_strength: float = 3e-5
     min_isotropy: float = 0.2
+    sparse_share: float = 0.5
     min_distance_frac: float = 1.0 / 240.0
     block_size: int = 7
     win_size: int = 21
@@ -276,10 +277,10 @@ def detect(gray: np.ndarray, settings: TrackSettings, mask: np.ndarray | None,
 
     Corner strength is the smaller eigenvalue of the gradient structure tensor (Shi and
     Tomasi, CVPR 1994); each corner is judged against the frame's strongest and its own
-    grid cell's strongest (:func:`cell_keep`; the latter only when the former leaves cells
-    with corners above the floor empty, and then only in cells where it kept fewer than a
-    quarter of the corners a cell may hold), the absolute floor being :func:`strength_floor`,
-    a measure of the quieter parts' noise and fine texture (this project's choice).
+    grid cell's strongest (:func:`cell_keep`; the latter only when the former leaves most
+    cells empty, and then only in cells where it kept fewer than a quarter of the corners a
+    cell may hold), the absolute floor being :func:`strength_floor`, a measure of the
+    quieter parts' noise and fine texture (this project's choice).
     ``strength``: the picture's :func:`corner_strength`, when already worked out (its map is
     changed here).
     """
@@ -290,13 +291,12 @@ def detect(gray: np.ndarray, settings: TrackSettings, mask: np.ndarray | None,
     n_cells = settings.grid[0] * settings.grid[1]
     per_cell = max(2, int(np.ceil(1.5 * settings.max_corners / n_cells)))
     strength, floor = strength or corner_strength(gray, settings)
-    # Cells the frame-wide rule leaves without corners while they hold some above the floor
-    # (a low-contrast background beside a strongly textured object or burnt-in text), judged
-    # on the whole picture (not the mask, which at a re-seed hides the corners already
-    # tracked).
+    # Whether the picture's strong corners crowd into a few cells, judged on the whole
+    # picture (not the mask, which at a re-seed hides the corners already tracked).
     whole = cell_maxima(strength, settings.grid)
     strong = whole >= settings.quality_floor * float(whole.max())
-    quiet = bool(np.any(~strong & (whole >= floor)))
+    weak_only = ~strong & (whole >= floor)
+    crowded = strong.mean() < settings.sparse_share and weak_only.sum() > 2 * strong.sum()
     if mask is not None:
         strength[mask == 0] = 0.0
     top = float(strength.max())
@@ -318,47 +318,20 @@ def detect(gray: np.ndarray, settings: TrackSettings, mask: np.ndarray | None,
     yi = np.clip(np.rint(pts[:, 1]).astype(int), 0, size[1] - 1)
     at = strength[yi, xi]
     cells = cell_index(pts, size, settings.grid)
-    if not quiet:
-        # The frame-wide rule reaches every cell with corners above the floor.
+    if not crowded:
+        # The frame-wide rule reaches most of the frame: corners judged as usual.
         return bucket(pts[at >= settings.quality_floor * top], size, settings.grid,
                       per_cell)[:count]
-    # The isotropy only where the per-cell rule needs it.
-    usual = at >= settings.quality_floor * top
-    sparse = np.bincount(cells[usual], minlength=n_cells)[cells] < max(1, per_cell // 4)
-    ask = ~usual & sparse & (at >= floor) & (at >= settings.cell_quality * cell_max[cells])
-    isotropy = np.ones(len(pts))
-    isotropy[ask] = isotropy_at(gray, np.rint(pts[ask]).astype(int), settings.block_size)
+    # Both eigenvalues only where the per-cell rule needs them (this costs five times the
+    # smaller eigenvalue alone).
+    eig = cv2.cornerEigenValsAndVecs(gray, settings.block_size, ksize=3)
+    larger = np.maximum(eig[..., 0], eig[..., 1])
     keep = cell_keep(at, cells, cell_max, top,
                      quality=settings.quality_floor, cell_quality=settings.cell_quality,
-                     floor=floor, isotropy=isotropy,
+                     floor=floor, isotropy=at / np.maximum(larger[yi, xi], 1e-12),
                      min_isotropy=settings.min_isotropy, sparse_below=max(1, per_cell // 4))
     pts = pts[keep]
     return bucket(pts, size, settings.grid, per_cell)[:count]
-
-
-def isotropy_at(gray: np.ndarray, pts: np.ndarray, block: int) -> np.ndarray:
-    """Smaller over larger eigenvalue of the gradient structure tensor (central
-    differences) summed over a ``block``×``block`` window at each integer point (k, 2) of
-    ``gray`` (h, w); 0 where flat (Shi and Tomasi, "Good features to track", CVPR 1994, the
-    eigenvalues of their matrix Z). A corner scores near 1, a point on a straight edge
-    near 0."""
-    r = block // 2 + 1
-    h, w = gray.shape
-    x0 = np.clip(pts[:, 0] - r - 1, 0, w - 1)
-    y0 = np.clip(pts[:, 1] - r - 1, 0, h - 1)
-    side = 2 * r + 3
-    ys = np.clip(y0[:, None] + np.arange(side)[None, :], 0, h - 1)
-    xs = np.clip(x0[:, None] + np.arange(side)[None, :], 0, w - 1)
-    win = gray[ys[:, :, None], xs[:, None, :]].astype(np.float32)
-    gx = 0.5 * (win[:, 1:-1, 2:] - win[:, 1:-1, :-2])
-    gy = 0.5 * (win[:, 2:, 1:-1] - win[:, :-2, 1:-1])
-    c = slice(1, 1 + block)
-    gx, gy = gx[:, c, c], gy[:, c, c]
-    a, b, d = (gx * gx).sum((1, 2)), (gx * gy).sum((1, 2)), (gy * gy).sum((1, 2))
-    tr, det = a + d, a * d - b * b
-    disc = np.sqrt(np.maximum(0.25 * tr * tr - det, 0.0))
-    big, small = 0.5 * tr + disc, 0.5 * tr - disc
-    return np.where(big > 1e-9, small / np.maximum(big, 1e-9), 0.0)
 
 
 @dataclass

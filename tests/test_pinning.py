@@ -17,7 +17,7 @@ import stabilize
 from stabilize.errors import StabilizeError
 from stabilize.io import PlanarImage, VideoWriter, iter_frames
 from stabilize.io.process import ffmpeg_exe
-from stabilize.jobs import rendering
+from stabilize.jobs import rendering, single_decode
 from stabilize.overlays import OverlaySettings
 from stabilize.pinning import PIN_ROOM_CELLS, pin, pin_regions, pinned_list
 from stabilize.render import compare_layout
@@ -242,7 +242,9 @@ def long_telemetry_clip(tmp_path_factory) -> Path:
 
 @pytest.mark.slow
 @pytest.mark.parametrize("options,route", [
-    # Overlay cells are still being found when the render starts: the single pass gives way.
+    # The single pass gives way (its plan is made to differ from the whole clip's, as when
+    # overlay cells are still being found when the render starts, which this clip no longer
+    # shows since the tracking changes that keep a background's tracks).
     ({}, "single decoding pass given up"),
     # The strip named and left out of tracking: nothing more is found, the single pass holds.
     ({"ignore": ["0,164,320,16"], "pin_overlays": "all"},
@@ -252,6 +254,8 @@ def test_one_decoding_pass_pins_what_two_passes_pin(long_telemetry_clip, tmp_pat
                                                     caplog, options, route):
     """The single pass gives the two-pass video and log bit for bit with the strip pinned,
     whether it is kept or given up."""
+    if "given up" in route:
+        monkeypatch.setattr(single_decode, "_verify", lambda *a, **k: None)
     got = {}
     for single in (True, False):
         monkeypatch.setattr(rendering, "SINGLE_DECODE", single)

@@ -101,10 +101,13 @@ def region_drift_px(clip: str | os.PathLike, box: tuple[int, int, int, int]) -> 
 
     The median (common practice) drops one- or two-frame glitches of the correlation on a
     weakly textured region (a frame of coding noise), and keeps any displacement that lasts
-    three frames or more, which is what drift is.
+    three frames or more, which is what drift is. At the clip's ends the window is mirrored,
+    not padded with the end frame: padding counted a glitch on the last frame three times
+    (``box.mp4`` steadied: a reading of 2.35 px at correlation response 0.32 on a last frame
+    whose region differs from three frames before by 0.09 grey levels on average, measured).
     """
     mag = np.hypot(*region_shifts_px(clip, box).T)
-    return float(median_filter(mag, size=5, mode="nearest").max())
+    return float(median_filter(mag, size=5, mode="mirror").max())
 
 
 def real_rate_hz(clip: str | os.PathLike) -> float:
