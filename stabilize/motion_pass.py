@@ -162,6 +162,9 @@ class AnalysisPass:
         # The held frames since detail was first seen moving with the fit, in a row, with
         # their fitted motion and whether the fit was weak (see _release_pending).
         self.releasing: list[tuple[FrameRecord, np.ndarray, bool]] = []
+        # Frames in a row (among those with detail to judge) whose detail contradicted the
+        # fit (see StillDetailSettings.start_votes).
+        self.contradicted = 0
 
     def begin(self, image: np.ndarray, time_s: float, index: int) -> None:
         """Take the first frame (grey analysis copy) of this pass, at ``time_s`` seconds."""
@@ -214,6 +217,7 @@ class AnalysisPass:
                 self.still_base = [None, None]
                 self.held_until = -math.inf
                 self.releasing = []
+                self.contradicted = 0
                 return FrameRecord(np.eye(3), (len(pairs), 0, 0.0, 0.0, 0), "cut")
         if len(pairs) < tracker.settings.texture_check_share * tracker.settings.max_corners:
             strength = corner_strength(image) if strength is None else strength
@@ -266,7 +270,11 @@ class AnalysisPass:
         held = False
         if fit.ok and not ambiguous:
             votes = self._still_votes(image, pairs.dst[with_fit])
-            if votes is not None and votes.contradicted:
+            if votes is not None:
+                self.contradicted = self.contradicted + 1 if votes.contradicted else 0
+            if votes is not None and votes.contradicted and (
+                    self.contradicted >= StillDetailSettings().start_votes
+                    or time_s < self.held_until):
                 # Faint detail away from the tracks stayed put while the fit moved them: they
                 # are on an object before a plain background, and the camera held still over
                 # the baseline. So it stays until detail moves with a fit again.

@@ -54,7 +54,10 @@ class StillDetailSettings:
     differs where the fit puts it, by ``ratio`` times and ``margin`` grey levels more and by
     at least half the patch's standard deviation (and *moved* the other way round);
     ``min_votes``: fewest *still* votes that contradict a fit, and they must be at least
-    ``ratio`` times the *moved* votes; ``hold_s``: after a contradiction the camera is held
+    ``ratio`` times the *moved* votes; ``start_votes``: a hold starts only when that happens
+    on this many frames in a row (frames with nothing to judge neither count nor break the
+    run: one faint corner of a drawn flat pattern, shaken by a moving camera, once voted it
+    still and held 63 frames, measured); ``hold_s``: after a contradiction the camera is held
     still this long (seconds) unless detail is seen moving with a fit on ``release_votes``
     frames in a row. This project's own values, tried on drawn walls and on the real clips
     of ``tests/real`` (common practice, no source)."""
@@ -69,6 +72,7 @@ class StillDetailSettings:
     ratio: float = 2.0
     margin: float = 2.0
     min_votes: int = 1
+    start_votes: int = 2
     hold_s: float = 3.0
     release_votes: int = 3
 

@@ -583,7 +583,10 @@ class Tracker:
             count = int((counts == 0).sum())
         strength = corner_strength(gray, s) if count > 0 else None
         if strength is not None:
-            self.floor = strength[1]
+            # The still-detail check's floor stays the whole picture's: judged on the
+            # quieter cells, it let faint corners of noise vote a moving camera still
+            # (drawn flat colour patterns, measured).
+            self.floor = strength_floor(strength[0], s)
         new = detect(gray, s, mask, count, strength)
         if len(new):
             self._pts = np.concatenate([self._pts, new]).astype(np.float32)
