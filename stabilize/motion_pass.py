@@ -287,9 +287,9 @@ class AnalysisPass:
                 held = self._release_pending(votes)
                 if held and (votes is None or votes.still + votes.moved == 0):
                     # Nothing on this frame can tell (no detail away from the tracks, or
-                    # too little motion): the hold goes on. Only detail seen moving with
-                    # the fits, or a frame where it could have been seen and was not for
-                    # the hold's length, ends it.
+                    # too little motion): the hold goes on. It ends when detail is seen
+                    # moving with the fits, or when for hold_s the frames show detail
+                    # that neither contradicts nor supports them.
                     self.held_until = time_s + StillDetailSettings().hold_s
         if grouping is not None and grouping.split:
             memo = anchors.strike(memo, grouping.moved, time_s)
