@@ -212,23 +212,19 @@ def test_a_fit_most_tracks_disagree_with_is_a_stand_in(monkeypatch):
     assert np.abs(track.matrices[10:12, :2, 2]).max() > 2.0
 
 
-def _board_frames(n: int = 90, contrast: float = 1.0) -> list[Frame]:
-    """A still camera over a softly textured wall (``contrast``: a share of its full
-    contrast); a board with coarse, strong texture over nearly half of the picture waved
-    sideways by hand (±120 px at 0.7 Hz, ±40 px at 1.1 Hz up and down). Grey frames, W×H,
-    30 fps."""
-    rng = np.random.default_rng(7)
-    wall = cv2.GaussianBlur(rng.uniform(0, 255, (H, W)).astype(np.float32), (0, 0), 3.0)
-    wall = cv2.normalize(wall, None, 40, 210, cv2.NORM_MINMAX)
-    wall = 128 + contrast * (wall - 128)
-    bw, bh = 362, 305
+def _board_before(wall: np.ndarray, size: tuple[int, int], centre, n: int,
+                  rng: np.random.Generator) -> list[Frame]:
+    """A still camera over ``wall`` (H×W float grey levels); a board of ``size`` = (width,
+    height) pixels with coarse, strong texture (drawn from ``rng``) centred at
+    ``centre(s)`` = (x, y) at time s. ``n`` grey frames, W×H, 30 fps, with noise of 1.5
+    grey levels."""
+    bw, bh = size
     board = cv2.resize(rng.integers(0, 255, (bh // 6 + 1, bw // 6 + 1)).astype(np.uint8),
                        (bw, bh), interpolation=cv2.INTER_CUBIC).astype(np.float32)
     frames = []
     for t in range(n):
         s = t / 30.0
-        cx = W / 2 + 120 * np.sin(2 * np.pi * 0.7 * s)
-        cy = H / 2 + 40 * np.sin(2 * np.pi * 1.1 * s + 1)
+        cx, cy = centre(s)
         m = np.float32([[1, 0, cx - bw / 2], [0, 1, cy - bh / 2]])
         warped = cv2.warpAffine(board, m, (W, H), flags=cv2.INTER_LINEAR)
         cover = cv2.warpAffine(np.ones_like(board), m, (W, H), flags=cv2.INTER_LINEAR)
@@ -236,6 +232,19 @@ def _board_frames(n: int = 90, contrast: float = 1.0) -> list[Frame]:
         img = np.clip(img + rng.normal(0, 1.5, img.shape), 0, 255).astype(np.uint8)
         frames.append(Frame(t, s, img))
     return frames
+
+
+def _board_frames(n: int = 90, contrast: float = 1.0) -> list[Frame]:
+    """A softly textured wall (``contrast``: a share of its full contrast); a board over
+    nearly half of the picture waved sideways by hand (±120 px at 0.7 Hz, ±40 px at 1.1 Hz
+    up and down) (:func:`_board_before`)."""
+    rng = np.random.default_rng(7)
+    wall = cv2.GaussianBlur(rng.uniform(0, 255, (H, W)).astype(np.float32), (0, 0), 3.0)
+    wall = cv2.normalize(wall, None, 40, 210, cv2.NORM_MINMAX)
+    wall = 128 + contrast * (wall - 128)
+    return _board_before(wall, (362, 305), lambda s: (
+        W / 2 + 120 * np.sin(2 * np.pi * 0.7 * s), H / 2 + 40 * np.sin(2 * np.pi * 1.1 * s + 1)),
+        n, rng)
 
 
 def test_a_board_waved_over_half_of_a_still_view_is_not_the_camera():
@@ -261,30 +270,18 @@ def test_a_board_waved_before_a_faint_wall_is_not_the_camera():
 
 
 def _slow_board_before_plain_wall(n: int = 150) -> list[Frame]:
-    """A still camera over a plain wall (a soft grey gradient and eight small dots); a
-    board with coarse, strong texture over a third of the picture drifting slowly (±60 px
-    at 0.1 Hz sideways, ±20 px at 0.13 Hz up and down). Grey frames, W×H, 30 fps."""
+    """A plain wall (a soft grey gradient and eight small dots); a board over a third of
+    the picture drifting slowly (±60 px at 0.1 Hz sideways, ±20 px at 0.13 Hz up and
+    down) (:func:`_board_before`)."""
     rng = np.random.default_rng(0)
     yy, xx = np.mgrid[0:H, 0:W].astype(np.float32)
     wall = 150 + 20 * xx / W - 10 * yy / H
     for _ in range(8):
         x, y = (int(v) for v in rng.integers(20, (W - 20, H - 20)))
         cv2.circle(wall, (x, y), int(rng.integers(2, 5)), 130.0, -1, cv2.LINE_AA)
-    bw, bh = 280, 236
-    board = cv2.resize(rng.integers(0, 255, (bh // 6 + 1, bw // 6 + 1)).astype(np.uint8),
-                       (bw, bh), interpolation=cv2.INTER_CUBIC).astype(np.float32)
-    frames = []
-    for t in range(n):
-        s = t / 30.0
-        cx = W / 2 + 60 * np.sin(2 * np.pi * 0.1 * s)
-        cy = H / 2 + 20 * np.sin(2 * np.pi * 0.13 * s)
-        m = np.float32([[1, 0, cx - bw / 2], [0, 1, cy - bh / 2]])
-        warped = cv2.warpAffine(board, m, (W, H), flags=cv2.INTER_LINEAR)
-        cover = cv2.warpAffine(np.ones_like(board), m, (W, H), flags=cv2.INTER_LINEAR)
-        img = wall * (1 - cover) + warped * cover
-        img = np.clip(img + rng.normal(0, 1.5, img.shape), 0, 255).astype(np.uint8)
-        frames.append(Frame(t, s, img))
-    return frames
+    return _board_before(wall, (280, 236), lambda s: (
+        W / 2 + 60 * np.sin(2 * np.pi * 0.1 * s), H / 2 + 20 * np.sin(2 * np.pi * 0.13 * s)),
+        n, rng)
 
 
 def test_a_hold_lasts_while_nothing_on_the_frames_can_end_it():
