@@ -21,7 +21,7 @@ from ..errors import StabilizeError
 from .frames import YUV_FORMATS, Frame, PlanarImage, frame_bytes
 from .messages import StderrReader, without_prefixes
 from .probing import VideoInfo, probe
-from .process import ffmpeg_exe, ffmpeg_path, read_exact, reap, spawn
+from .process import ffmpeg_exe, ffmpeg_path, read_exact, reap, spawn, widen_pipe
 
 __all__ = ["FRAME_TIMEOUT_S", "DecodeStats", "analysis_size", "iter_frames", "looks_truncated",
            "raw_frames"]
@@ -186,6 +186,7 @@ def raw_frames(
         cmd, stdin=subprocess.DEVNULL, stdout=subprocess.PIPE, stderr=subprocess.PIPE,
         bufsize=0,
     )
+    widen_pipe(proc.stdout, nbytes)
     reader = StderrReader(proc.stderr)
     reader.start()
     n = 0

@@ -17,10 +17,10 @@ import numpy as np
 
 from ..errors import StabilizeError
 from .colour import ColourTags
-from .frames import YUV_FORMATS, PlanarImage
+from .frames import YUV_FORMATS, PlanarImage, frame_bytes
 from .messages import StderrReader
 from .probing import VideoInfo, fps_fraction
-from .process import ffmpeg_exe, ffmpeg_path, reap, spawn, usable_cores
+from .process import ffmpeg_exe, ffmpeg_path, reap, spawn, usable_cores, widen_pipe
 from .publishing import discard, publish, temp_path_for
 
 __all__ = ["ENCODERS", "LARGE_FRAME_LOOKAHEAD", "LARGE_FRAME_PX", "MP4_AUDIO", "VideoWriter",
@@ -291,6 +291,9 @@ class VideoWriter:
             if self._script is not None:
                 discard(self._script)
             raise
+        # A frame goes into the pipe at once, not 64 KiB at a time with the encoder woken
+        # for each piece.
+        widen_pipe(self._proc.stdin, frame_bytes(self.input_pix_fmt, self.width, self.height))
         self._reader = StderrReader(self._proc.stderr)
         self._reader.start()
         return self

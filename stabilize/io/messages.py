@@ -8,6 +8,7 @@ stream's time base), how many complaints about damaged data were printed, and th
 
 from __future__ import annotations
 
+import io
 import re
 import threading
 from collections import deque
@@ -64,7 +65,26 @@ class StderrReader(threading.Thread):
 
     def run(self) -> None:
         """Read lines until the stream closes (the thread's body)."""
-        for raw in iter(self.stream.readline, b""):
+        # An unbuffered pipe's readline asks the system for one byte at a time (a decoder's
+        # two lines a frame cost 0.2 ms of processor time, measured); a buffered reader takes
+        # what the pipe holds at once, and returns a line as soon as it has arrived. It is
+        # detached at the end, so that the pipe is closed by its owner, not by the wrapper.
+        stream = self.stream if hasattr(self.stream, "peek") else io.BufferedReader(self.stream)
+        try:
+            self._read_lines(stream)
+        finally:
+            if stream is not self.stream:
+                try:
+                    stream.detach()
+                except ValueError:
+                    pass
+        with self.cond:
+            self.finished = True
+            self.cond.notify_all()
+
+    def _read_lines(self, stream) -> None:
+        """Take in every line of ``stream`` (a buffered binary pipe) until it closes."""
+        for raw in iter(stream.readline, b""):
             line = raw.decode("utf-8", "replace").rstrip()
             m = _SHOWINFO.search(line)
             if m:
@@ -83,9 +103,6 @@ class StderrReader(threading.Thread):
                 if "Parsed_showinfo" not in line and _DECODE_ERROR.search(line):
                     self.errors += 1
                     self.last_error = without_prefixes(line) or line
-        with self.cond:
-            self.finished = True
-            self.cond.notify_all()
 
     def time_of(self, n: int, fallback: float | None) -> float | None:
         """Presentation time of output frame ``n`` in seconds, once printed.

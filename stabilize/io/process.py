@@ -17,8 +17,13 @@ from pathlib import Path
 
 import imageio_ffmpeg
 
-__all__ = ["ffmpeg_exe", "ffmpeg_path", "read_exact", "reap", "spawn", "stop_children",
-           "usable_cores"]
+try:
+    import fcntl
+except ImportError:  # not a POSIX system: pipes keep their size
+    fcntl = None
+
+__all__ = ["PIPE_MAX_BYTES", "ffmpeg_exe", "ffmpeg_path", "read_exact", "reap", "spawn",
+           "stop_children", "usable_cores", "widen_pipe"]
 
 
 def usable_cores() -> int:
@@ -109,6 +114,32 @@ def stop_children() -> int:
         running += proc.poll() is None
         reap(proc)
     return running
+
+
+#: Largest pipe buffer asked for, bytes (Linux's default limit for a user without privileges).
+PIPE_MAX_BYTES = 1 << 20
+
+
+def widen_pipe(stream, nbytes: int) -> None:
+    """Ask the system to let the pipe behind ``stream`` hold ``nbytes`` (at most
+    :data:`PIPE_MAX_BYTES`); where it cannot (not Linux, or refused), it stays as it was.
+
+    A raw frame passes a pipe of the usual 64 KiB in pieces: a thread reading it takes the
+    interpreter's lock again for every piece (a 960×540 grey frame: eight pieces), and the
+    process at the other end is woken for each. What passes is the same either way.
+
+    Parameters
+    ----------
+    stream : the reading or writing end of a pipe (``fileno``).
+    nbytes : bytes wanted, e.g. one raw frame.
+    """
+    size = getattr(fcntl, "F_SETPIPE_SZ", None)
+    if size is None:
+        return
+    try:
+        fcntl.fcntl(stream.fileno(), size, min(int(nbytes), PIPE_MAX_BYTES))
+    except (OSError, ValueError):
+        pass
 
 
 def read_exact(stream, count: int, timeout_s: float | None = None) -> bytearray | None:

@@ -18,7 +18,7 @@ from .decode import DecodeStats, _raw_output
 from .frames import Frame
 from .messages import StderrReader, without_prefixes
 from .probing import VideoInfo
-from .process import ffmpeg_exe, ffmpeg_path, read_exact, reap, spawn
+from .process import ffmpeg_exe, ffmpeg_path, read_exact, reap, spawn, widen_pipe
 
 __all__ = ["TwinDecoder"]
 
@@ -77,6 +77,8 @@ class TwinDecoder:
         finally:
             os.close(write_fd)
         self._render_pipe = os.fdopen(read_fd, "rb", buffering=0)
+        widen_pipe(self._proc.stdout, self._a_bytes)
+        widen_pipe(self._render_pipe, self._r_bytes)
         self._reader = StderrReader(self._proc.stderr)
         self._reader.start()
         return self
