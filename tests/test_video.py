@@ -1,6 +1,7 @@
 """Streaming reader and writer over the bundled ffmpeg."""
 
 import ast
+import os
 import subprocess
 from contextlib import closing
 from pathlib import Path
@@ -20,8 +21,9 @@ from stabilize.io import (
 from stabilize.io.colour import ColourTags, parse_colour
 from stabilize.io.decode import DecodeStats, analysis_size, looks_truncated
 from stabilize.io.encode import LARGE_FRAME_LOOKAHEAD, _encoder_env, output_colour, x264_options
+from stabilize.io.messages import StderrReader
 from stabilize.io.probing import constant_rate
-from stabilize.io.process import ffmpeg_exe, usable_cores
+from stabilize.io.process import PIPE_MAX_BYTES, ffmpeg_exe, usable_cores, widen_pipe
 
 from .conftest import noise_frames, write_clip
 
@@ -311,3 +313,34 @@ def test_the_encoder_starts_one_thread_per_usable_core(tmp_path):
     cmd = VideoWriter(tmp_path / "s.mp4", 1280, 720, 30.0)._command(tmp_path / "t.mp4")
     assert cmd[cmd.index("-threads") + 1] == str(usable_cores())
     assert cmd.index("-threads") > cmd.index("-c:v")
+
+
+def test_a_widened_pipe_holds_a_frame_and_a_file_is_left_alone(tmp_path):
+    fcntl = pytest.importorskip("fcntl")
+    if not hasattr(fcntl, "F_GETPIPE_SZ"):
+        pytest.skip("pipe sizes cannot be set here")
+    r, w = os.pipe()
+    with os.fdopen(r, "rb", buffering=0) as rd, os.fdopen(w, "wb", buffering=0) as wr:
+        frame = 960 * 540
+        widen_pipe(rd, frame)
+        assert fcntl.fcntl(rd.fileno(), fcntl.F_GETPIPE_SZ) >= frame
+        widen_pipe(wr, 8 * PIPE_MAX_BYTES)  # capped, never an error
+        assert fcntl.fcntl(wr.fileno(), fcntl.F_GETPIPE_SZ) <= PIPE_MAX_BYTES
+    with open(tmp_path / "f", "wb") as f:
+        widen_pipe(f, frame)  # not a pipe: nothing happens
+
+
+def test_the_message_reader_takes_every_line_of_an_unbuffered_pipe():
+    r, w = os.pipe()
+    rd = os.fdopen(r, "rb", buffering=0)
+    reader = StderrReader(rd)
+    reader.start()
+    with os.fdopen(w, "wb", buffering=0) as wr:
+        for i in range(50):
+            wr.write(f"line {i}: Error while decoding stream\n".encode())
+    reader.join(5.0)
+    assert not reader.is_alive() and reader.finished
+    assert reader.errors == 50
+    assert not rd.closed  # the pipe is its owner's to close
+    rd.close()
+
