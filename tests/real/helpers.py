@@ -17,7 +17,7 @@ from stabilize.io import iter_frames
 from stabilize.motion_log import MotionLog
 
 __all__ = ["apply_homography", "path_excursion_px", "real_rate_hz", "reference_path_px",
-           "region_drift_px", "region_shifts_px"]
+           "region_drift_px", "region_moved_px", "region_shifts_px"]
 
 
 def apply_homography(matrices: np.ndarray, points: np.ndarray) -> np.ndarray:
@@ -71,6 +71,25 @@ def region_shifts_px(clip: str | os.PathLike, box: tuple[int, int, int, int], *,
             shifts.append((dx, dy, response))
     out = np.asarray(shifts)
     return out if with_response else out[:, :2]
+
+
+def region_moved_px(source: str | os.PathLike, output: str | os.PathLike,
+                    box: tuple[int, int, int, int]) -> np.ndarray:
+    """How far a fixed region of each output frame lies from the same region of the same
+    source frame, (n,) px: what a steadied video did to a still part of the picture,
+    measured on the pixels of both (phase correlation with a Hann window, as
+    :func:`region_shifts_px`). The two frames show the same content, so the readings are
+    sharp where a drift from frame 0 on a weakly textured region is not. ``box`` is (x0, y0,
+    x1, y1) in pixels of both clips (of equal size)."""
+    x0, y0, x1, y1 = box
+    window = cv2.createHanningWindow((x1 - x0, y1 - y0), cv2.CV_64F)
+    moved = []
+    with closing(iter_frames(source, gray=True)) as a, closing(iter_frames(output, gray=True)) as b:
+        for fa, fb in zip(a, b, strict=True):
+            (dx, dy), _ = cv2.phaseCorrelate(fa.image[y0:y1, x0:x1].astype(np.float64),
+                                             fb.image[y0:y1, x0:x1].astype(np.float64), window)
+            moved.append(np.hypot(dx, dy))
+    return np.asarray(moved)
 
 
 def reference_path_px(clip: str | os.PathLike, boxes: list[tuple[int, int, int, int]], *,

@@ -17,7 +17,13 @@ import stabilize
 from stabilize.io import iter_frames
 from stabilize.motion_log import MotionLog
 
-from .helpers import path_excursion_px, real_rate_hz, reference_path_px, region_drift_px
+from .helpers import (
+    path_excursion_px,
+    real_rate_hz,
+    reference_path_px,
+    region_drift_px,
+    region_moved_px,
+)
 
 pytestmark = pytest.mark.slow
 
@@ -79,21 +85,25 @@ def test_box_fixed_camera_path_stays_at_zero(real_clip):
 
 def test_box_table_drifts_no_more_after_steadying(real_clip, steadied):
     # The table does not move in the source. Steadying a fixed camera must not make it
-    # wander: its drift from frame 0 in the output may exceed the input's only by 0.5 px.
-    # Tolerance: in the source itself the readings on this weakly textured cloth sit near
-    # 0 px but jump to 0.6-1.6 px for runs of a few frames (measured: median 0.15 px, 95th
-    # percentile 0.87 px, 1.50 px after the 5-frame median), so the input's figure already
-    # carries that reading noise. The output is resampled once (bilinear warp) and encoded
-    # again, which moves such readings by a few tenths of a pixel; 0.5 px on top of the
-    # source's figure allows for that and is still far under the several pixels a camera
-    # path pulled along by the box gives.
+    # wander. Measured on the pixels: on every frame, where the table lies in the output
+    # against where it lies in the same source frame (:func:`region_moved_px`). The output's
+    # drift from frame 0 is at most the source's plus that, so a bound on it bounds what
+    # steadying added to the drift. 0.5 px allows for the resampling (bilinear warp) and the
+    # second encoding, and is far under the several pixels a camera path pulled along by the
+    # box gives.
+    # Why not the drift of each video from its own frame 0: on this weakly textured cloth
+    # those readings jump by 0.6-2.2 px for a few frames at a time, in the source (1.50 px
+    # after the 5-frame median) and in outputs alike, however small the correction. With
+    # a correction of at most 0.37 px over the whole clip, two outputs read 1.63 and 2.14 px,
+    # and the same-frame readings 0.29 and 0.23 px at the most (measured).
     src = real_clip("box.mp4")
     out, _ = steadied("box.mp4")
+    moved = region_moved_px(src, out, BOX_TABLE_REGION)
     drift_in = region_drift_px(src, BOX_TABLE_REGION)
-    drift_out = region_drift_px(out, BOX_TABLE_REGION)
-    assert drift_out <= drift_in + 0.5, (
-        f"box.mp4: table drifts {drift_out:.2f} px in the steadied video against "
-        f"{drift_in:.2f} px in the source (allowed: source + 0.5 px)")
+    assert moved.max() <= 0.5, (
+        f"box.mp4: steadying moved the table by up to {moved.max():.2f} px (frame "
+        f"{int(moved.argmax())}), beyond 0.5 px; its drift in the source reads "
+        f"{drift_in:.2f} px")
 
 
 # --------------------------------------------------------------------- carphone
