@@ -61,8 +61,8 @@ def test_bucketing_deals_the_first_turns_out_cell_by_cell():
 def test_a_board_beside_a_wall_does_not_take_most_of_the_tracks():
     # A strongly textured board over the left half, a wall of a third of its contrast on
     # the right, both with corners in every cell: the wall gets a fair part of the tracks
-    # asked for (dealt out each cell's strongest alone first, it got 14 %; now 43 %, measured), so it
-    # can still be told from the board as the board grows and hides some of it.
+    # asked for (with each cell's strongest alone dealt out first, it got 14 %; now 43 %,
+    # measured), so it can still be told from the board as the board grows over it.
     img = (_texture(seed=1).astype(np.float32) * 0.3 + 90).astype(np.uint8)
     busy = _texture(seed=2, blur=1.2)
     h, w = img.shape
