@@ -33,7 +33,7 @@ from .degeneracy import (
 )
 from .local_opt import Candidate, evaluate, local_optimise
 from .models import MODELS, Model, Normalisation, normalise_in_place
-from .sampling import canonical_order, draw_samples, sort_key
+from .sampling import canonical_order, draw_samples, generator, sort_key
 from .scoring import inlier_mask, msac_costs
 from .termination import FIRST_GUESS_OUTLIERS, next_batch_size, rounds_needed
 
@@ -256,10 +256,10 @@ def _memo(ready: _Prepared, key: str | Frame | tuple[Frame, int]) -> NDArray:
         if isinstance(key, Frame):
             got = cell_index(ready.pts[:2], key)
         elif isinstance(key, tuple):
-            got = cell_index(np.take(ready.pts[:2], ready.order[::key[1]], axis=1), key[0])
+            got = cell_index(ready.pts[:2].take(ready.order[::key[1]], axis=1), key[0])
         else:
             got = getattr(ready.norm, key)()
-        got.flags.writeable = False
+        got.setflags(write=False)
         ready.memo[key] = got
     return got
 
@@ -275,10 +275,10 @@ def _spread(ready: _Prepared, frame: Frame, mask: NDArray[np.bool_],
         # cells among its inliers settle the check without the cell of every inlier (for
         # smaller sets the two passes cost more than they save).
         step = ready.n // PREVIEW_POINTS
-        cells = count_cells(np.compress(mask[::step], _memo(ready, (frame, step))))
+        cells = count_cells(_memo(ready, (frame, step)).compress(mask[::step]))
         if cells >= WEAK_MIN_CELLS:
             return cells
-    return count_cells(np.compress(inl, _memo(ready, frame)))
+    return count_cells(_memo(ready, frame).compress(inl))
 
 
 # The last few point sets made ready, keyed by the bytes of the arrays they came from: a
@@ -311,7 +311,7 @@ def _prepare(spec: Model, src: NDArray[np.float64], dst: NDArray[np.float64]) ->
     keep = None
     # The key is a positive combination of the coordinates: finite for finite rows unless it
     # overflows, which only sends the check down the exact path.
-    if not math.isfinite(float(key.sum())):
+    if not math.isfinite(float(np.add.reduce(key))):
         fin = np.isfinite(pts).all(axis=0)
         if not fin.all():
             keep = np.flatnonzero(fin)
@@ -323,7 +323,7 @@ def _prepare(spec: Model, src: NDArray[np.float64], dst: NDArray[np.float64]) ->
     order = canonical_order(pts, key)
     z = np.empty((5, n))
     # Indices are in range; "wrap" spares the buffered copy that "raise" makes with out=.
-    np.take(pts, order, axis=1, out=z[:4], mode="wrap")
+    pts.take(order, axis=1, out=z[:4], mode="wrap")
     z[4] = 1.0
     norm, gram = normalise_in_place(z)
     problem = point_set_problem(gram, n, spec.spread_rank)
@@ -335,7 +335,7 @@ def _prepare(spec: Model, src: NDArray[np.float64], dst: NDArray[np.float64]) ->
         feat_sub = np.ascontiguousarray(feat[:, ::n // PREVIEW_POINTS])
     for a in (keep, order, pts, z, feat, feat_sub):
         if a is not None:
-            a.flags.writeable = False
+            a.setflags(write=False)
     return _Prepared(keep, n, order, pts, norm, z, problem, feat, feat_sub, {})
 
 
@@ -371,19 +371,23 @@ def _estimate(
     rng: np.random.Generator | None = None
 
     best: Candidate | None = None
+    # The inliers of the best model and their count, kept for the end.
+    best_mask: NDArray[np.bool_] | None = None
+    best_k = 0
     rounds = 0
     n_valid = 0
     n_implausible = 0
     needed: int | float = max_rounds
 
     def adopt(c: Candidate) -> None:
-        nonlocal best, needed
+        nonlocal best, best_mask, best_k, needed
         lo = local_optimise(spec, feat, z, c, t2)
         if lo is not c and not ok_motion(lo.h):
             lo = c
         best = lo
-        w = np.count_nonzero(inlier_mask(lo.sq_res, t2)) / n
-        needed = min(rounds_needed(1.0 - w, s, confidence), max_rounds)
+        best_mask = inlier_mask(lo.sq_res, t2)
+        best_k = np.count_nonzero(best_mask)
+        needed = min(rounds_needed(1.0 - best_k / n, s, confidence), max_rounds)
 
     if prior is not None:
         rounds += 1
@@ -403,10 +407,10 @@ def _estimate(
         if batch <= 0:
             break
         if rng is None:
-            rng = np.random.default_rng(seed)
+            rng = generator(seed)
         idx = draw_samples(rng, n, s, batch)
         rounds += batch
-        hyp, valid = spec.solve(np.take(zs, idx, axis=1))
+        hyp, valid = spec.solve(zs.take(idx, axis=1))
         nv = int(np.count_nonzero(valid))
         if nv == 0:
             continue
@@ -432,7 +436,7 @@ def _estimate(
         # Best first; a candidate is verified against the motion bounds only when it
         # would become the new best, which is equivalent to rejecting every
         # implausible hypothesis before scoring but far cheaper.
-        for j in np.argsort(costs).tolist():
+        for j in costs.argsort().tolist():
             cj = float(costs[j])
             if not cj < bound:
                 break
@@ -457,8 +461,11 @@ def _estimate(
         if cand.cost <= final.cost and ok_motion(hp):
             final = cand
 
-    mask = inlier_mask(final.sq_res, t2)
-    k = int(np.count_nonzero(mask))
+    if final is best:
+        mask, k = best_mask, int(best_k)
+    else:
+        mask = inlier_mask(final.sq_res, t2)
+        k = int(np.count_nonzero(mask))
     h_px = _memo(prepared, "t_dst_inv") @ final.h @ _memo(prepared, "t_src")
     h_px /= h_px[2, 2]
     inl = np.empty(n, dtype=bool)
@@ -469,7 +476,9 @@ def _estimate(
         full[keep] = inl
         inl = full
     scale2 = norm.scale * norm.scale
-    rms = float(np.sqrt((final.sq_res @ mask) / (k * scale2))) if k else float("nan")
+    # The quadratic-form residuals can come out a hair below zero: nan then, as numpy's sqrt.
+    ms = float(final.sq_res @ mask) / (k * scale2) if k else float("nan")
+    rms = math.sqrt(ms) if ms >= 0.0 else float("nan")
     min_support = 2 * s + 2
     ok = k >= min_support
     reason = "" if ok else f"too few inliers ({k}, need {min_support})"

@@ -298,7 +298,7 @@ _SIM_THETA = np.array([0, 3, 2, 5, 8])
 def _similarity_sq_residuals(feat: Array, h: Array) -> Array:
     """Squared transfer errors of similarities h (B, 3, 3) with ``h33 = 1`` -> (B, n)."""
     b = h.shape[0]
-    th = np.take(h.reshape(b, 9), _SIM_THETA, axis=1)
+    th = h.reshape(b, 9).take(_SIM_THETA, axis=1)
     outer = th[:, :, None] * th[:, None, :]
     return (outer.reshape(b, 25) @ _SIM_FORM) @ feat
 

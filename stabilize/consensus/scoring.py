@@ -17,6 +17,9 @@ from numpy.typing import NDArray
 
 __all__ = ["msac_costs", "inlier_mask"]
 
+# ndarray.sum without its Python wrapper (the same reduction).
+_sum = np.add.reduce
+
 
 def msac_costs(sq_res: NDArray[np.float64], t2: float) -> NDArray[np.float64]:
     """MSAC cost of each hypothesis.
@@ -37,8 +40,8 @@ def msac_costs(sq_res: NDArray[np.float64], t2: float) -> NDArray[np.float64]:
         # Same values; on large batches numpy (2.4) takes the minimum against a row of t2
         # broadcast down the batch up to twice as fast as against the scalar (on small
         # ones making the row costs more than it saves).
-        return np.minimum(sq_res, np.full(sq_res.shape[1], t2)).sum(axis=-1)
-    return np.minimum(sq_res, t2).sum(axis=-1)
+        return _sum(np.minimum(sq_res, np.full(sq_res.shape[1], t2)), axis=-1)
+    return _sum(np.minimum(sq_res, t2), axis=-1)
 
 
 def inlier_mask(sq_res: NDArray[np.float64], t2: float) -> NDArray[np.bool_]:
