@@ -267,9 +267,10 @@ class AnalysisPass:
         d = (len(src), n_in, n_in / len(src) if len(src) else 0.0,
              fit.rms_px if fit.ok else 0.0, fit.rounds)
         self._carry(fit.matrix if fit.ok else None)
-        held = False
+        held = unconfirmed = False
         if fit.ok and not ambiguous:
             votes = self._still_votes(image, pairs.dst[with_fit])
+            unconfirmed = self._unconfirmed(votes)
             if votes is not None:
                 self.contradicted = self.contradicted + 1 if votes.contradicted else 0
             if votes is not None and votes.contradicted and (
@@ -335,8 +336,14 @@ class AnalysisPass:
         tracker.update(support, memo)
         if self.overlays.observe(pairs.src, pairs.dst, rescale(fit.matrix, scale)):
             tracker.set_mask(self.overlays.mask(ctx.user_mask))
-        record = FrameRecord(fit.matrix, d, "weak" if fit.weak else "ok",
-                         "few_inliers" if fit.weak else "")
+        if fit.weak:
+            record = FrameRecord(fit.matrix, d, "weak", "few_inliers")
+        elif unconfirmed:
+            # The fit stands (a tower before a clear sky is measured so), but the frame
+            # says that nothing confirmed it as the camera's motion.
+            record = FrameRecord(fit.matrix, d, "weak", "unconfirmed")
+        else:
+            record = FrameRecord(fit.matrix, d, "ok")
         if ctx.bands is not None:
             # All pairs near the frame's fit: the grouping above reads rows that a rolling
             # shutter moved apart as objects of their own.
@@ -379,9 +386,27 @@ class AnalysisPass:
         if b.detail is False:
             b.detail = find_detail(b.image, b.tracks, self.overlays.mask(ctx.user_mask),
                                    self.tracker.settings, cfg, self.tracker.floor)
-        if b.detail is None or b.detail is False:
+        if b.detail is None or b.detail is False or not len(b.detail.points):
             return None
         return judge(b.detail, image, motion, tracks, self.tracker.settings.grid, cfg)
+
+    def _unconfirmed(self, votes: StillVotes | None) -> bool:
+        """Whether this frame's fit moved the frame since the older baseline (at least
+        :attr:`StillDetailSettings.min_shift_px` at its corners) while a fair share of the
+        picture lay away from the tracks (:attr:`StillDetailSettings.untracked_share`), and
+        nothing there could confirm or contradict the fit: no faint detail at all (a plain
+        wall, a clear sky), or detail of which none voted (``votes``, from
+        :meth:`_still_votes`). The tracks may then be a large object moving before a still
+        camera as well as the scene: nothing on the frame tells which."""
+        b = self._still_slot()
+        if b is None or b.motion is None or not isinstance(b.detail, StillDetail):
+            # No baseline, too little of the picture away from the tracks (None), or too
+            # little motion to look for detail yet (False).
+            return False
+        if corner_shift(rescale(b.motion, self.ctx.scale), np.eye(3),
+                        self.ctx.analysis_size) < StillDetailSettings().min_shift_px:
+            return False
+        return votes is None or votes.still + votes.moved == 0
 
     def _release_pending(self, votes: StillVotes | None) -> bool:
         """Whether a frame inside a hold stays held, given its still-detail ``votes``.
@@ -412,7 +437,8 @@ class AnalysisPass:
             return
         for r in self.recent:
             if r.index > b.index and r.index >= self.owned_from and (
-                    r.record.status == "ok" or r.record.reason == "few_inliers"):
+                    r.record.status == "ok" or r.record.reason in ("few_inliers",
+                                                                   "unconfirmed")):
                 r.record.matrix = np.eye(3)
                 r.record.status, r.record.reason = "weak", "held_still"
 
@@ -432,7 +458,8 @@ class AnalysisPass:
         settings = ctx.settings
         attempts = REVISE_ATTEMPTS[settings.analysis]
         open_ = [r for r in self.recent if r.index >= self.owned_from
-                 and r.record.status == "ok" and r.attempts < attempts]
+                 and (r.record.status == "ok" or r.record.reason == "unconfirmed")
+                 and r.attempts < attempts]
         if not open_:
             return
         # The tracks hit in every open frame at once (one membership test, one mask lookup).

@@ -122,8 +122,9 @@ def find_detail(gray: np.ndarray, tracks: np.ndarray, usable: np.ndarray | None,
 
     Returns
     -------
-    StillDetail, or None when too little of the frame lies away from the tracks or it has
-    no such corner.
+    StillDetail, or None when too little of the frame lies away from the tracks. When
+    enough of it does but it has no such corner (a plain wall, a clear sky), a StillDetail
+    with no points: nothing there can confirm or contradict the fit.
     """
     h, w = gray.shape
     mask = (~_beside(tracks, (w, h), track_settings.grid)).astype(np.uint8)
@@ -133,8 +134,11 @@ def find_detail(gray: np.ndarray, tracks: np.ndarray, usable: np.ndarray | None,
         mask[usable == 0] = 0
     m = settings.half + 1
     mask[:m], mask[-m:], mask[:, :m], mask[:, -m:] = 0, 0, 0, 0
+    half = settings.half
+    none = StillDetail(np.empty((0, 2), np.int64), np.empty((0, 2 * half + 1, 2 * half + 1),
+                                                            np.float32))
     if not mask.any():
-        return None
+        return none
     if floor is None:
         strength, floor = corner_strength(gray, track_settings)
     else:
@@ -143,12 +147,12 @@ def find_detail(gray: np.ndarray, tracks: np.ndarray, usable: np.ndarray | None,
     pts = spread_maxima(strength, floor, max(3.0, settings.spacing_frac * w),
                         settings.max_corners)
     if not len(pts):
-        return None
+        return none
     # A corner, not a point on an edge: the smaller eigenvalue a fair share of the larger.
     isotropic = _isotropy(gray, pts, track_settings.block_size) >= track_settings.min_isotropy
     pts = pts[isotropic]
     if not len(pts):
-        return None
+        return none
     img = gray.astype(np.float32)
     patches = _patches(img, pts, settings.half)
     # Faint detail only: no stronger than the typical texture of the tracks. Burnt-in text
@@ -158,7 +162,7 @@ def find_detail(gray: np.ndarray, tracks: np.ndarray, usable: np.ndarray | None,
         faint = patches.std(axis=(1, 2)) <= typical
         pts, patches = pts[faint], patches[faint]
     if not len(pts):
-        return None
+        return none
     return StillDetail(pts, patches)
 
 

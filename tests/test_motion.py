@@ -306,6 +306,38 @@ def test_a_hold_lasts_while_nothing_on_the_frames_can_end_it():
     assert (track.reason[1:] == "held_still").mean() > 0.9
 
 
+def test_a_board_before_a_bare_wall_is_not_called_a_measurement():
+    # Nothing off the board: a bare wall (a soft gradient, no marks) leaves no evidence of
+    # whether the board or the camera moved, so the fits (the board's) stand, but the
+    # frames are weak with their reason, never `ok`: before, every frame was `ok` while the
+    # log followed the board by 60 px.
+    rng = np.random.default_rng(3)
+    yy, xx = np.mgrid[0:H, 0:W].astype(np.float32)
+    wall = 150 + 20 * xx / W - 10 * yy / H
+    frames = _board_before(wall, (300, 200), lambda s: (
+        W / 2 + 60 * np.sin(2 * np.pi * 0.2 * s), H / 2 + 20 * np.sin(2 * np.pi * 0.26 * s)),
+        120, rng)
+    track = fit_motion(iter(frames), full_size=(W, H), analysis_size=(W, H),
+                       settings=Settings())
+    moved = np.abs(np.cumsum(track.matrices[:, :2, 2], axis=0)).max()
+    assert moved > 20  # the board's motion: nothing could tell
+    # Left `ok`: the first two frames (no baseline yet) and those where the board turned,
+    # moving the frame under 2 px since the baseline (8 frames, measured).
+    assert (track.reason[1:] == "unconfirmed").mean() > 0.85
+    assert (track.status[1:] == "ok").mean() < 0.15
+
+
+def test_a_moving_camera_over_a_textured_view_is_confirmed():
+    # A drone shaken before a bridge, its tracks all over the picture: no frame is called
+    # unconfirmed.
+    clip = SyntheticClip(SceneSpec(style="truss", width=W, height=H, duration_s=3.0, seed=4))
+    frames = (Frame(t, t / clip.fps, cv2.cvtColor(rgb, cv2.COLOR_RGB2GRAY))
+              for t, rgb in clip.frames())
+    track = fit_motion(frames, full_size=(W, H), analysis_size=(W, H), settings=Settings())
+    assert "unconfirmed" not in set(track.reason)
+    assert (track.status[1:] == "ok").mean() > 0.9
+
+
 def test_failed_frames_get_interpolated_stand_ins():
     centre = np.array([(W - 1) / 2, (H - 1) / 2])
     q = np.zeros((6, 4))

@@ -443,3 +443,25 @@ def test_frames_held_still_count_as_foreground_for_the_verdict():
     # 60 of 300 frames: over the 10 % share, under the 30 % one.
     assert n == 300 and s["trust"] == "rough"
     assert any("large moving object" in r for r in s["trust_reasons"])
+
+
+def test_unconfirmed_frames_make_the_figures_rough_never_unreliable():
+    """Frames fitted on tracks that nothing in a plain rest of the picture confirmed are
+    counted on their own; over a tenth of the clip they make the verdict rough with its
+    reason, however many (a structure before a clear sky filmed from a moving drone looks
+    the same), and they are not counted again as weak frames."""
+    p = _sine_path(3.5, 4.0)
+    n = len(p)
+    h = np.repeat(np.eye(3)[None], n, axis=0)
+    for share, trust in ((0.05, "sound"), (0.2, "rough"), (1.0, "rough")):
+        reasons = np.array([""] * n, dtype="<U12")
+        status = np.array(["ok"] * n, dtype="<U6")
+        k = int(share * n)
+        reasons[n - k:], status[n - k:] = "unconfirmed", "weak"
+        s = summarise(matrices=h, path=p, status=status, fps=30.0, width=640, height=360,
+                      above_hz=1.0, fov_deg=90.0, reasons=reasons)
+        assert s["frames_unconfirmed"] == k and s["frames_weak"] == k
+        assert s["trust"] == trust, (share, s["trust_reasons"])
+        said = [r for r in s["trust_reasons"] if "confirmed it as the still scene" in r]
+        assert len(said) == (share > 0.1)
+        assert not any("weak or failed" in r for r in s["trust_reasons"])

@@ -66,9 +66,19 @@ def test_the_wall_marks_are_found_and_not_the_board():
 
 def test_a_smooth_background_offers_no_detail():
     """A plain gradient (a sky, an evenly lit wall) under sensor noise has no corner that
-    could vote."""
+    could vote: the record is empty, not missing (the picture away from the tracks was
+    there to look at, and nothing in it can confirm the fit)."""
     img, tracks = _frame(_wall(marks=()), (200, 110))
-    assert find_detail(img, tracks, None, SETTINGS) is None
+    detail = find_detail(img, tracks, None, SETTINGS)
+    assert detail is not None and detail.points.shape == (0, 2)
+    assert detail.patches.shape == (0, 9, 9)
+
+
+def test_no_detail_is_looked_for_when_the_tracks_cover_the_picture():
+    img, _ = _frame(_wall(), (200, 110))
+    yy, xx = np.mgrid[10:img.shape[0] - 10:20, 10:img.shape[1] - 10:20]
+    everywhere = np.column_stack([xx.ravel(), yy.ravel()]).astype(np.float64)
+    assert find_detail(img, everywhere, None, SETTINGS) is None
 
 
 def test_a_board_moved_before_a_still_wall_is_contradicted():

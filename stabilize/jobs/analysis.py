@@ -230,7 +230,8 @@ def motion_from_track(clip: Path, info: VideoInfo, track: MotionTrack,
     reasons = track.reason if track.reason is not None else np.full(n, "", "<U12")
     n_fore = int(np.count_nonzero(reasons == "foreground"))
     n_held = int(np.count_nonzero(reasons == "held_still"))
-    n_weak = int(np.count_nonzero(status == "weak")) - n_fore - n_held
+    n_unconfirmed = int(np.count_nonzero(reasons == "unconfirmed"))
+    n_weak = int(np.count_nonzero(status == "weak")) - n_fore - n_held - n_unconfirmed
     if n_weak:
         _log.warning("%s: %d frames have weak fits (few or bunched inliers)", clip, n_weak)
     if n_fore:
@@ -241,6 +242,11 @@ def motion_from_track(clip: Path, info: VideoInfo, track: MotionTrack,
         _log.warning("%s: %d frames: the tracks moved but faint detail away from them stayed "
                      "put, so they were taken for an object in front of a still camera; "
                      "their motion is held at none (status weak)", clip, n_held)
+    if n_unconfirmed:
+        _log.warning("%s: %d frames: the tracks covered only part of the picture and "
+                     "nothing in the plain rest confirmed them as the still scene; their "
+                     "motion may be a large object's, not the camera's (status weak)",
+                     clip, n_unconfirmed)
     by_reason = frame_reasons(reasons)
     rolling = None
     if track.band_shift_px is not None and n >= 2:

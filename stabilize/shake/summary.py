@@ -63,8 +63,9 @@ def summarise(
         the measurement noise the stability score is judged against (:func:`motion_noise`).
     reasons : (n,) strings per frame from the analysis, '' when nothing to say, else a short
         code (``foreground``, ``textureless``, ``few_inliers`` …); counted into
-        ``frames_foreground`` (with the ``held_still`` ones), ``frames_held_still`` and
-        ``frames_textureless``. Without it those keys are left out.
+        ``frames_foreground`` (with the ``held_still`` ones), ``frames_held_still``,
+        ``frames_unconfirmed`` and ``frames_textureless``. Without it those keys are left
+        out.
     output_motion_readout : (n, 3) the written video's inter-frame motion as measured on
         its frames (dx, dy pixels, degrees; nan where not measured; see
         :mod:`stabilize.residual`). When given, the ``_out`` figures describe it, and the
@@ -105,6 +106,7 @@ def summarise(
         held = int(np.count_nonzero(codes == "held_still"))
         summary["frames_foreground"] = int(np.count_nonzero(codes == "foreground")) + held
         summary["frames_held_still"] = held
+        summary["frames_unconfirmed"] = int(np.count_nonzero(codes == "unconfirmed"))
         summary["frames_textureless"] = int(np.count_nonzero(codes == "textureless"))
     summary.update(path_figures(similarity_readout(path, centre), cuts, fps=rate,
                                 above_hz=above_hz, width=width, fov_deg=fov_deg, bands=True,
@@ -181,6 +183,9 @@ def trust_verdict(summary: dict) -> dict:
     - frames whose motion could not be told apart from a large moving object
       (``frames_foreground``), or with too little texture (``frames_textureless``), over
       the same shares;
+    - frames tracked on a part of the picture that nothing in the plain rest confirmed
+      (``frames_unconfirmed``, weak but left out of the share above) over
+      :data:`ROUGH_SHARE`: rough;
     - the steadied video measured no steadier than the input (``output_steadier`` false):
       rough;
     - irregular frame times (``timestamps_irregular``): rough, the path was resampled.
@@ -196,7 +201,8 @@ def trust_verdict(summary: dict) -> dict:
             reasons.append((1, f"{share:.0%} of frames {rough}"))
 
     weak, failed = int(summary.get("frames_weak") or 0), int(summary.get("frames_failed") or 0)
-    by_share(weak + failed,
+    unconfirmed = int(summary.get("frames_unconfirmed") or 0)
+    by_share(weak - unconfirmed + failed,
              "were weak or failed: treat these figures as rough estimates.",
              "were weak or failed: these figures are not reliable; check the per-frame strip "
              "and the original footage.")
@@ -205,6 +211,14 @@ def trust_verdict(summary: dict) -> dict:
              "figures may partly describe that object, not the camera.",
              "had motion that could not be told apart from a large moving object: these "
              "figures may describe that object, not the camera.")
+    if unconfirmed / n > ROUGH_SHARE:
+        # Rough, not unreliable, however many: a structure before a clear sky, filmed from a
+        # moving drone, looks the same to the tracks and is measured right.
+        reasons.append((1, f"{unconfirmed / n:.0%} of frames were tracked on detail covering "
+                           "only part of the picture, and nothing in the plain rest (a bare "
+                           "wall, a clear sky) confirmed it as the still scene: if a large "
+                           "object moved in front of a still camera, these figures describe "
+                           "that object."))
     by_share(int(summary.get("frames_textureless") or 0),
              "had too little texture to measure (plain sky, water, fog or blur).",
              "had too little texture to measure (plain sky, water, fog or blur): these "
