@@ -394,19 +394,20 @@ class AnalysisPass:
         """Whether this frame's fit moved the frame since the older baseline (at least
         :attr:`StillDetailSettings.min_shift_px` at its corners) while a fair share of the
         picture lay away from the tracks (:attr:`StillDetailSettings.untracked_share`), and
-        nothing there could confirm or contradict the fit: no faint detail at all (a plain
-        wall, a clear sky), or detail of which none voted (``votes``, from
-        :meth:`_still_votes`). The tracks may then be a large object moving before a still
-        camera as well as the scene: nothing on the frame tells which."""
+        that share was plain: not one faint corner to confirm or contradict the fit (a bare
+        wall, a clear sky). The tracks may then be a large object moving before a still
+        camera as well as the scene: nothing on the frame tells which. (Detail that was
+        there but could not vote, hidden or blurred by something passing, is another
+        matter: the frames before and after judge it.) ``votes``: from
+        :meth:`_still_votes`, None when there was nothing to judge."""
         b = self._still_slot()
-        if b is None or b.motion is None or not isinstance(b.detail, StillDetail):
-            # No baseline, too little of the picture away from the tracks (None), or too
-            # little motion to look for detail yet (False).
+        if votes is not None or b is None or b.motion is None or not isinstance(
+                b.detail, StillDetail) or len(b.detail.points):
+            # Detail to judge, no baseline, too little of the picture away from the tracks
+            # (None), too little motion to look for detail yet (False), or some detail.
             return False
-        if corner_shift(rescale(b.motion, self.ctx.scale), np.eye(3),
-                        self.ctx.analysis_size) < StillDetailSettings().min_shift_px:
-            return False
-        return votes is None or votes.still + votes.moved == 0
+        return corner_shift(rescale(b.motion, self.ctx.scale), np.eye(3),
+                            self.ctx.analysis_size) >= StillDetailSettings().min_shift_px
 
     def _release_pending(self, votes: StillVotes | None) -> bool:
         """Whether a frame inside a hold stays held, given its still-detail ``votes``.
