@@ -23,6 +23,7 @@ from .config import (
     MODELS,
     OPTION_NAMES,
     PIN_OVERLAYS,
+    PLAIN_SURROUND,
     SMOOTHERS,
     resolve_settings,
 )
@@ -84,6 +85,11 @@ _OPT: dict[str, tuple[tuple[str, ...], dict[str, Any]]] = {
     "readout_ms": (("--readout-ms",), dict(
         metavar="MS|auto", help="rolling-shutter readout time, first row to last, in ms: "
         "0 = global shutter (default), auto = estimate it from the footage")),
+    "plain_surround": (("--plain-surround",), dict(
+        choices=PLAIN_SURROUND, help="where the tracks cover only part of the picture and "
+        "the rest is plain (a bare wall, a clear sky): hold = log no motion (default: the "
+        "tracks may be an object before a still camera), follow = log the tracks' motion "
+        "(a moving camera before a clear sky)")),
     "fov_deg": (("--fov-deg",), dict(metavar="DEG",
                                      help="horizontal field of view in degrees")),
     "shake_above_hz": (("--shake-above-hz",), dict(
@@ -121,7 +127,8 @@ _OPT: dict[str, tuple[tuple[str, ...], dict[str, Any]]] = {
 }
 
 _ANALYSIS = ("model", "analysis", "analysis_width", "ignore", "inlier_px", "confidence",
-             "max_rounds", "seed", "readout_ms", "fov_deg", "shake_above_hz")
+             "max_rounds", "seed", "readout_ms", "plain_surround", "fov_deg",
+             "shake_above_hz")
 _SMOOTHING = ("smoother", "window_s", "margin", "fill", "pin_overlays")
 _ENCODING = ("crf", "preset", "codec", "compare")
 _RUN = ("settings", "force", "quiet", "debug")

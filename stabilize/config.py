@@ -23,6 +23,7 @@ from .errors import StabilizeError
 __all__ = [
     "ANALYSIS_LEVELS", "AUTO_MARGIN_CAP", "CODECS", "FILLS", "MAX_MARGIN", "MAX_PX",
     "MAX_READOUT_MS", "MAX_ROUNDS", "MAX_WINDOW_S", "MODELS", "OPTION_NAMES", "PIN_OVERLAYS",
+    "PLAIN_SURROUND",
     "PRESETS_X264", "SMOOTHERS", "Region", "Settings", "build_settings", "coerce",
     "logged_settings", "parse_region", "preset_dirs", "preset_names", "read_config",
     "resolve_config", "resolve_settings", "setting_label", "validate",
@@ -35,6 +36,12 @@ FILLS = ("black", "reflect", "replicate")
 #: :mod:`stabilize.pinning`): the static overlays the analysis found, those and the
 #: ``ignore`` regions, or none.
 PIN_OVERLAYS = ("found", "all", "off")
+#: What the analysis logs for a frame whose tracks cover only part of the picture, the rest
+#: of it plain (a bare wall, a clear sky), so that nothing tells a large object moving before
+#: a still camera from a structure seen by a moving one: no motion (``hold``, the default,
+#: never an object's motion as the camera's) or the tracks' motion (``follow``: a drone
+#: before a clear sky). Either way the frame is ``weak``, reason ``unconfirmed``.
+PLAIN_SURROUND = ("hold", "follow")
 #: How much work the analysis puts into each frame, quickest first (see
 #: :func:`stabilize.track.track_settings_for`).
 ANALYSIS_LEVELS = ("fast", "balanced", "thorough")
@@ -73,7 +80,9 @@ class Settings:
     is one of :data:`ANALYSIS_LEVELS`: the effort spent on tracking each frame, trading
     analysis time for accuracy. ``pin_overlays`` is one of :data:`PIN_OVERLAYS`: which
     regions are copied unwarped from the source frame into the steadied one (static overlays
-    found, those and the ``ignore`` regions, or none).
+    found, those and the ``ignore`` regions, or none). ``plain_surround`` is one of
+    :data:`PLAIN_SURROUND`: the motion logged where only part of the picture is tracked and
+    the rest is plain.
     """
 
     model: str = "similarity"
@@ -82,6 +91,7 @@ class Settings:
     margin: str | float = "auto"
     fill: str = "black"
     pin_overlays: str = "found"
+    plain_surround: str = "hold"
     analysis_width: int = 960
     analysis: str = "balanced"
     ignore: tuple[Region, ...] = field(default_factory=tuple)
@@ -152,6 +162,7 @@ def validate(s: Settings) -> None:
     choices = {
         "model": MODELS, "smoother": SMOOTHERS, "fill": FILLS, "codec": CODECS,
         "preset": PRESETS_X264, "analysis": ANALYSIS_LEVELS, "pin_overlays": PIN_OVERLAYS,
+        "plain_surround": PLAIN_SURROUND,
     }
     for name, allowed in choices.items():
         if getattr(s, name) not in allowed:
@@ -246,7 +257,8 @@ def coerce(values: dict[str, Any], where: str) -> dict[str, Any]:
             value = _to_number(name, value, float)
         elif name in _INTS:
             value = _to_number(name, value, int)
-        elif name in ("model", "smoother", "fill", "codec", "preset", "pin_overlays"):
+        elif name in ("model", "smoother", "fill", "codec", "preset", "pin_overlays",
+                      "plain_surround"):
             if not isinstance(value, str):
                 raise _bad(name, value, "a name in quotes")
         elif name in _BOOLS:

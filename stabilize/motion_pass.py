@@ -31,7 +31,14 @@ from .geometry import rescale
 from .motion_models import MotionModel, transfer_error
 from .overlays import OverlayFinder
 from .row_bands import BandSettings, BandShifts, track_band_shifts
-from .still_detail import StillDetail, StillDetailSettings, StillVotes, find_detail, judge
+from .still_detail import (
+    StillDetail,
+    StillDetailSettings,
+    StillVotes,
+    find_detail,
+    is_plain,
+    judge,
+)
 from .track import (
     Pairs,
     Tracker,
@@ -58,6 +65,12 @@ MINORITY_SHARE = 0.25
 # fitted on fewer tracks. This project's choice.
 REVISE_PX = 0.05
 
+
+# A board's own corners lie just past the hull of its tracks, where the still-detail check
+# looks for detail of the background: this many faint corners there, none of which could be
+# judged, are no background detail (this project's choice: a drawn board before a bare wall
+# offered one, its bottom-right corner, at every baseline; measured).
+OUTLINE_CORNERS = 2
 
 # ... and only when the tracks it keeps fit it with at most this share of the median
 # residual they had under the first fit (this project's choice).
@@ -104,14 +117,16 @@ class _Recent:
 class _StillBase:
     """A still-detail baseline: the frame ``index`` (its analysis copy ``image``), where the
     tracks that carried the next fit were in it (k, 2, analysis pixels), the fitted motion
-    since (full-resolution pixels; None after a frame with no fit), and its faint corners
-    (False: not looked for yet; None: none)."""
+    since (full-resolution pixels; None after a frame with no fit), its faint corners
+    (False: not looked for yet; None: too little of the picture away from the tracks) and
+    whether that picture is plain (None: not looked at yet)."""
 
     index: int
     image: np.ndarray
     tracks: np.ndarray
     motion: np.ndarray | None
     detail: StillDetail | None | bool = False
+    plain: bool | None = None
 
 
 @dataclass(frozen=True)
@@ -323,6 +338,17 @@ class AnalysisPass:
         if ambiguous or (fit.weak and n_in < MINORITY_SHARE * len(src) and not held):
             tracker.update(None, memo)
             return FrameRecord(fit.matrix, d, "weak", "foreground")
+        if unconfirmed and not held and not fit.weak and settings.plain_surround == "hold":
+            # Nothing tells a board moved before a bare wall from a structure before a clear
+            # sky: the camera is held still, never given the motion of what may be an object
+            # (the frames since the baseline too, as for a hold on still detail).
+            self.prior = fit.matrix
+            tracker.update(None, memo)
+            self._hold_since(self._still_slot(), "unconfirmed")
+            record = FrameRecord(np.eye(3), d, "weak", "unconfirmed")
+            self.recent.append(_Recent(index, time_s, src, dst, pairs.ids, pairs.background,
+                                       use, record, grouping is None))
+            return record
         if held:
             self.prior = fit.matrix
             tracker.update(None, memo)
@@ -339,8 +365,8 @@ class AnalysisPass:
         if fit.weak:
             record = FrameRecord(fit.matrix, d, "weak", "few_inliers")
         elif unconfirmed:
-            # The fit stands (a tower before a clear sky is measured so), but the frame
-            # says that nothing confirmed it as the camera's motion.
+            # Told to follow (a tower before a clear sky from a moving drone): the fit
+            # stands, and the frame says that nothing confirmed it as the camera's motion.
             record = FrameRecord(fit.matrix, d, "weak", "unconfirmed")
         else:
             record = FrameRecord(fit.matrix, d, "ok")
@@ -394,20 +420,28 @@ class AnalysisPass:
         """Whether this frame's fit moved the frame since the older baseline (at least
         :attr:`StillDetailSettings.min_shift_px` at its corners) while a fair share of the
         picture lay away from the tracks (:attr:`StillDetailSettings.untracked_share`), and
-        that share was plain: not one faint corner to confirm or contradict the fit (a bare
-        wall, a clear sky). The tracks may then be a large object moving before a still
-        camera as well as the scene: nothing on the frame tells which. (Detail that was
-        there but could not vote, hidden or blurred by something passing, is another
-        matter: the frames before and after judge it.) ``votes``: from
-        :meth:`_still_votes`, None when there was nothing to judge."""
+        that share was plain (:func:`stabilize.still_detail.is_plain`: a bare wall, a clear
+        sky) with at most :data:`OUTLINE_CORNERS` faint corners, none of which could be
+        judged. The tracks may then be a large object moving before a still camera as well
+        as the scene: nothing on the frame tells which. (A defocused post or a blurred car
+        also offers no corner, but it is no plain picture, and the frames before and after
+        judge it.) ``votes``: from :meth:`_still_votes`, None when there was nothing to
+        judge."""
         b = self._still_slot()
-        if votes is not None or b is None or b.motion is None or not isinstance(
-                b.detail, StillDetail) or len(b.detail.points):
-            # Detail to judge, no baseline, too little of the picture away from the tracks
-            # (None), too little motion to look for detail yet (False), or some detail.
+        if b is None or b.motion is None or not isinstance(b.detail, StillDetail):
+            # No baseline, too little of the picture away from the tracks (None), or too
+            # little motion to look for detail yet (False).
             return False
-        return corner_shift(rescale(b.motion, self.ctx.scale), np.eye(3),
-                            self.ctx.analysis_size) >= StillDetailSettings().min_shift_px
+        if len(b.detail.points) > OUTLINE_CORNERS or (
+                votes is not None and votes.still + votes.moved > 0):
+            return False
+        if corner_shift(rescale(b.motion, self.ctx.scale), np.eye(3),
+                        self.ctx.analysis_size) < StillDetailSettings().min_shift_px:
+            return False
+        if b.plain is None:
+            b.plain = is_plain(b.image, b.tracks, self.overlays.mask(self.ctx.user_mask),
+                               self.tracker.settings.grid)
+        return b.plain
 
     def _release_pending(self, votes: StillVotes | None) -> bool:
         """Whether a frame inside a hold stays held, given its still-detail ``votes``.
@@ -430,7 +464,7 @@ class AnalysisPass:
         self.held_until = -math.inf
         return False
 
-    def _hold_since(self, b: _StillBase | None) -> None:
+    def _hold_since(self, b: _StillBase | None, reason: str = "held_still") -> None:
         """Hold still the frames after baseline ``b`` still open to revision: the detail
         said the camera did not move over them (weak fits with few inliers too: the same
         tracks carried them)."""
@@ -441,7 +475,7 @@ class AnalysisPass:
                     r.record.status == "ok" or r.record.reason in ("few_inliers",
                                                                    "unconfirmed")):
                 r.record.matrix = np.eye(3)
-                r.record.status, r.record.reason = "weak", "held_still"
+                r.record.status, r.record.reason = "weak", reason
 
     def _hindsight(self, scene_ids: np.ndarray, moved_ids: np.ndarray,
                    region: np.ndarray) -> None:
@@ -458,8 +492,11 @@ class AnalysisPass:
         fw, fh = ctx.full_size
         settings = ctx.settings
         attempts = REVISE_ATTEMPTS[settings.analysis]
+        # Frames held still are not refitted; unconfirmed ones kept their fit only when told
+        # to follow.
+        follow = settings.plain_surround == "follow"
         open_ = [r for r in self.recent if r.index >= self.owned_from
-                 and (r.record.status == "ok" or r.record.reason == "unconfirmed")
+                 and (r.record.status == "ok" or (follow and r.record.reason == "unconfirmed"))
                  and r.attempts < attempts]
         if not open_:
             return

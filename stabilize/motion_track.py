@@ -20,10 +20,11 @@ REASONS = {
                   "taken for an object in front of a still camera, and the frame's motion is "
                   "held at none",
     "few_inliers": "few inliers, or inliers bunched in a small part of the frame",
-    "unconfirmed": "the tracks moved the frame but covered only part of it, and the plain "
-                   "rest (a bare wall, a clear sky) had no detail to confirm them as the "
-                   "still scene: the fit is kept, but it may be a large object's motion "
-                   "before a still camera",
+    "unconfirmed": "the tracks moved but covered only part of the picture, and nothing in "
+                   "the plain rest (a bare wall, a clear sky) told an object moving before "
+                   "a still camera from a moving camera; the frame's motion is held at none "
+                   "(setting plain_surround 'hold', the default) or is the tracks' "
+                   "('follow')",
     "textureless": "too little texture to measure motion (plain sky, water, fog, blur)",
     "no_fit": "no trustworthy motion fit",
     "unmeasurable": "the frame is too small to track",

@@ -19,6 +19,10 @@ place is now beside the tracks (an object in front may cover it). When corners s
 and clearly outnumber those that moved, the fit is contradicted: the tracks are on an
 object in front of a still camera (:mod:`stabilize.motion_pass` then holds the camera still).
 
+When the picture away from the tracks has no such detail and is plain (:func:`is_plain`),
+nothing tells the board from a tower before a clear sky; :mod:`stabilize.motion_pass` then
+marks the frame ``unconfirmed``.
+
 What it cannot tell: detail at a great distance (clouds, far hills) also stays put while a
 camera *translates* past a near structure, and dirt on the lens never moves at all; either
 can make a moving camera's frames read as held still (status ``weak``, so the figures say
@@ -37,8 +41,8 @@ import numpy as np
 
 from .track import TrackSettings, corner_strength, strength_map
 
-__all__ = ["StillDetail", "StillDetailSettings", "StillVotes", "find_detail", "judge",
-           "spread_maxima"]
+__all__ = ["StillDetail", "StillDetailSettings", "StillVotes", "find_detail", "is_plain",
+           "judge", "spread_maxima"]
 
 
 @dataclass(frozen=True)
@@ -59,8 +63,11 @@ class StillDetailSettings:
     run: one faint corner of a drawn flat pattern, shaken by a moving camera, once voted it
     still and held 63 frames, measured); ``hold_s``: after a contradiction the camera is held
     still this long (seconds) unless detail is seen moving with a fit on ``release_votes``
-    frames in a row. This project's own values, tried on drawn walls and on the real clips
-    of ``tests/real`` (common practice, no source)."""
+    frames in a row; ``plain_blur_px``, ``plain_grey_per_px``: the picture away from the
+    tracks is plain when, on a copy blurred by a Gaussian of that sigma (pixels), 99 % of
+    its pixels change by less than that many grey levels per pixel (:func:`is_plain`).
+    This project's own values, tried on drawn walls and on the real clips of
+    ``tests/real`` (common practice, no source)."""
 
     max_corners: int = 60
     spacing_frac: float = 1.0 / 64.0
@@ -75,6 +82,8 @@ class StillDetailSettings:
     start_votes: int = 2
     hold_s: float = 3.0
     release_votes: int = 3
+    plain_blur_px: float = 1.5
+    plain_grey_per_px: float = 1.0
 
 
 @dataclass(frozen=True)
@@ -164,6 +173,43 @@ def find_detail(gray: np.ndarray, tracks: np.ndarray, usable: np.ndarray | None,
     if not len(pts):
         return none
     return StillDetail(pts, patches)
+
+
+def is_plain(gray: np.ndarray, tracks: np.ndarray, usable: np.ndarray | None,
+             grid: tuple[int, int],
+             settings: StillDetailSettings = StillDetailSettings()) -> bool:
+    """Whether the picture away from the hull of ``tracks`` (grown by half a ``grid`` cell,
+    as in :func:`find_detail`) is plain: a bare wall or a clear sky, not a defocused post or
+    a blurred car, which offer no corner either but are no less a part of the picture.
+
+    Parameters
+    ----------
+    gray : (h, w) uint8 analysis frame.
+    tracks : (k, 2) positions of the tracks that moved with the fit, analysis pixels.
+    usable : (h, w) uint8 mask, 0 where overlays or ignored regions are; None: all usable.
+    grid : the tracker's grid (columns, rows).
+    settings : this check's settings (``plain_blur_px``, ``plain_grey_per_px``).
+
+    Returns
+    -------
+    True when the 99th percentile of the gradient magnitude (Sobel, grey levels per pixel)
+    of a blurred copy, over the pixels away from the tracks, is at most
+    ``plain_grey_per_px`` (a drawn wall of a soft gradient under noise of 1.5 grey levels:
+    0.4–0.5; the defocused foreground of a real street shot: 2.6; measured); False when
+    no pixel lies away from the tracks.
+    """
+    h, w = gray.shape
+    away = ~_beside(tracks, (w, h), grid)
+    if usable is not None:
+        away &= usable > 0
+    if not away.any():
+        return False
+    g = cv2.GaussianBlur(gray.astype(np.float32), (0, 0), settings.plain_blur_px)
+    # The 3×3 Sobel kernel weighs a one-pixel step by 8 (its central row 2, both sides).
+    gx = cv2.Sobel(g, cv2.CV_32F, 1, 0, ksize=3)
+    gy = cv2.Sobel(g, cv2.CV_32F, 0, 1, ksize=3)
+    mag = np.hypot(gx[away], gy[away]) / 8.0
+    return bool(np.percentile(mag, 99) <= settings.plain_grey_per_px)
 
 
 def judge(detail: StillDetail, gray: np.ndarray, motion: np.ndarray, tracks: np.ndarray,

@@ -83,3 +83,13 @@ def test_ignore_regions_parse():
     s = build_settings(None, {"ignore": ["0,980,1920,100", "10,10,50,40"]})
     assert s.ignore == ((0, 980, 1920, 100), (10, 10, 50, 40))
     assert s.to_dict()["ignore"] == [[0, 980, 1920, 100], [10, 10, 50, 40]]
+
+
+def test_plain_surround_defaults_to_hold_and_is_read_from_files_and_flags(tmp_path):
+    assert Settings().plain_surround == "hold" == build_settings("default").plain_surround
+    cfg = tmp_path / "s.toml"
+    cfg.write_text('plain-surround = "follow"\n')
+    assert build_settings(str(cfg)).plain_surround == "follow"
+    assert build_settings(str(cfg), {"plain_surround": "hold"}).plain_surround == "hold"
+    with pytest.raises(StabilizeError, match="plain_surround"):
+        Settings(plain_surround="guess")

@@ -10,7 +10,13 @@ import cv2
 import numpy as np
 import pytest
 
-from stabilize.still_detail import StillDetailSettings, find_detail, judge, spread_maxima
+from stabilize.still_detail import (
+    StillDetailSettings,
+    find_detail,
+    is_plain,
+    judge,
+    spread_maxima,
+)
 from stabilize.track import corner_strength, track_settings_for
 
 W, H = 640, 360
@@ -72,6 +78,23 @@ def test_a_smooth_background_offers_no_detail():
     detail = find_detail(img, tracks, None, SETTINGS)
     assert detail is not None and detail.points.shape == (0, 2)
     assert detail.patches.shape == (0, 9, 9)
+
+
+def test_a_bare_wall_is_plain_and_a_defocused_post_is_not():
+    """Neither offers a corner, but only the bare wall (a soft gradient under noise) is a
+    plain picture; a dark post out of focus before it is part of the scene."""
+    img, tracks = _frame(_wall(marks=()), (200, 110))
+    assert is_plain(img, tracks, None, SETTINGS.grid)
+    post = _wall(marks=())
+    post[:, 540:590] = 60.0
+    post = cv2.GaussianBlur(post, (0, 0), 6.0)
+    img, tracks = _frame(post, (200, 110))
+    assert find_detail(img, tracks, None, SETTINGS).points.shape == (0, 2)
+    assert not is_plain(img, tracks, None, SETTINGS.grid)
+    # Left out of the comparison (an overlay, an ignored region), the post does not count.
+    usable = np.full(img.shape, 255, np.uint8)
+    usable[:, 500:] = 0
+    assert is_plain(img, tracks, usable, SETTINGS.grid)
 
 
 def test_no_detail_is_looked_for_when_the_tracks_cover_the_picture():

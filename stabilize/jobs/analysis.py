@@ -243,10 +243,13 @@ def motion_from_track(clip: Path, info: VideoInfo, track: MotionTrack,
                      "put, so they were taken for an object in front of a still camera; "
                      "their motion is held at none (status weak)", clip, n_held)
     if n_unconfirmed:
-        _log.warning("%s: %d frames: the tracks covered only part of the picture and "
-                     "nothing in the plain rest confirmed them as the still scene; their "
-                     "motion may be a large object's, not the camera's (status weak)",
-                     clip, n_unconfirmed)
+        held = settings.plain_surround == "hold"
+        _log.warning("%s: %d frames: the tracks moved but covered only part of the picture, "
+                     "and nothing in the plain rest told an object moving before a still "
+                     "camera from a moving camera; %s (status weak)", clip, n_unconfirmed,
+                     "their motion is held at none (if the camera was moving, as before a "
+                     "clear sky, run again with plain_surround 'follow')" if held else
+                     "their motion is the tracks' (plain_surround 'follow')")
     by_reason = frame_reasons(reasons)
     rolling = None
     if track.band_shift_px is not None and n >= 2:

@@ -184,8 +184,7 @@ def trust_verdict(summary: dict) -> dict:
       (``frames_foreground``), or with too little texture (``frames_textureless``), over
       the same shares;
     - frames tracked on a part of the picture that nothing in the plain rest confirmed
-      (``frames_unconfirmed``, weak but left out of the share above) over
-      :data:`ROUGH_SHARE`: rough;
+      (``frames_unconfirmed``, weak but left out of the share above), over the same shares;
     - the steadied video measured no steadier than the input (``output_steadier`` false):
       rough;
     - irregular frame times (``timestamps_irregular``): rough, the path was resampled.
@@ -211,14 +210,14 @@ def trust_verdict(summary: dict) -> dict:
              "figures may partly describe that object, not the camera.",
              "had motion that could not be told apart from a large moving object: these "
              "figures may describe that object, not the camera.")
-    if unconfirmed / n > ROUGH_SHARE:
-        # Rough, not unreliable, however many: a structure before a clear sky, filmed from a
-        # moving drone, looks the same to the tracks and is measured right.
-        reasons.append((1, f"{unconfirmed / n:.0%} of frames were tracked on detail covering "
-                           "only part of the picture, and nothing in the plain rest (a bare "
-                           "wall, a clear sky) confirmed it as the still scene: if a large "
-                           "object moved in front of a still camera, these figures describe "
-                           "that object."))
+    by_share(unconfirmed,
+             "were tracked on detail covering only part of the picture, with nothing in the "
+             "plain rest (a bare wall, a clear sky) to tell a moving object before a still "
+             "camera from a moving camera: treat these figures as rough estimates.",
+             "were tracked on detail covering only part of the picture, with nothing in the "
+             "plain rest (a bare wall, a clear sky) to tell a moving object before a still "
+             "camera from a moving camera: these figures are not reliable (setting "
+             "plain_surround says which was assumed).")
     by_share(int(summary.get("frames_textureless") or 0),
              "had too little texture to measure (plain sky, water, fog or blur).",
              "had too little texture to measure (plain sky, water, fog or blur): these "
