@@ -72,6 +72,13 @@ REVISE_PX = 0.05
 # offered one, its bottom-right corner, at every baseline; measured).
 OUTLINE_CORNERS = 2
 
+# Tracks that moved with the fit with at most LONE_COMPANY others within LONE_CELLS grid
+# cells are detail of the background, not parts of one object: LONE_TRACKS of them
+# confirm a fit that a plain picture otherwise could not (a camera moving over a bare wall
+# with a board fixed to it: the wall's few marks are tracked and move with the board). This
+# project's choice (tests/test_tracking_accuracy.py, the plain-wall pair).
+LONE_CELLS, LONE_TRACKS, LONE_COMPANY = 1.0, 2, 3
+
 # ... and only when the tracks it keeps fit it with at most this share of the median
 # residual they had under the first fit (this project's choice).
 REVISE_GAIN = 0.7
@@ -285,7 +292,10 @@ class AnalysisPass:
         held = unconfirmed = False
         if fit.ok and not ambiguous:
             votes = self._still_votes(image, pairs.dst[with_fit])
-            unconfirmed = self._unconfirmed(votes)
+            cell = max(ctx.analysis_size[0] / tracker.settings.grid[0],
+                       ctx.analysis_size[1] / tracker.settings.grid[1])
+            unconfirmed = self._unconfirmed(votes) and lone_tracks(
+                pairs.dst[with_fit], LONE_CELLS * cell) < LONE_TRACKS
             if votes is not None:
                 self.contradicted = self.contradicted + 1 if votes.contradicted else 0
             if votes is not None and votes.contradicted and (
@@ -534,6 +544,15 @@ class AnalysisPass:
             if after <= REVISE_GAIN * before:
                 r.record.matrix = fit.matrix
                 r.used = keep
+
+
+def lone_tracks(pts: np.ndarray, radius: float, company: int = LONE_COMPANY) -> int:
+    """How many of the points ``pts`` (k, 2) have at most ``company`` other points within
+    ``radius`` (same units, pixels): a small mark on a wall gives a track or a few, a
+    textured object many close together."""
+    d2 = ((pts[:, None, :] - pts[None, :, :]) ** 2).sum(axis=2)
+    near = np.count_nonzero(d2 <= radius * radius, axis=1) - 1
+    return int(np.count_nonzero(near <= company))
 
 
 def _frame_distance(tracker: Tracker, cfg: CutSettings) -> float:
