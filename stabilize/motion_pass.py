@@ -32,9 +32,12 @@ from .motion_models import MotionModel, transfer_error
 from .overlays import OverlayFinder
 from .row_bands import BandSettings, BandShifts, track_band_shifts
 from .still_detail import (
+    LONE_CELLS,
+    LONE_COMPANY,
     StillDetail,
     StillDetailSettings,
     StillVotes,
+    crowded,
     find_detail,
     is_plain,
     judge,
@@ -72,12 +75,13 @@ REVISE_PX = 0.05
 # offered one, its bottom-right corner, at every baseline; measured).
 OUTLINE_CORNERS = 2
 
-# Tracks that moved with the fit with at most LONE_COMPANY others within LONE_CELLS grid
-# cells are detail of the background, not parts of one object: LONE_TRACKS of them
-# confirm a fit that a plain picture otherwise could not (a camera moving over a bare wall
-# with a board fixed to it: the wall's few marks are tracked and move with the board). This
-# project's choice (tests/test_tracking_accuracy.py, the plain-wall pair).
-LONE_CELLS, LONE_TRACKS, LONE_COMPANY = 1.0, 2, 3
+# Lone tracks that moved with the fit (:func:`stabilize.still_detail.crowded`: at most
+# LONE_COMPANY others within LONE_CELLS grid cells) are detail of the background, not parts
+# of one object: LONE_TRACKS of them confirm a fit that a plain picture otherwise could not
+# (a camera moving over a bare wall with a board fixed to it: the wall's few marks are
+# tracked and move with the board). This project's choice (tests/test_tracking_accuracy.py,
+# the plain-wall pair).
+LONE_TRACKS = 2
 
 # ... and only when the tracks it keeps fit it with at most this share of the median
 # residual they had under the first fit (this project's choice).
@@ -294,8 +298,12 @@ class AnalysisPass:
             votes = self._still_votes(image, pairs.dst[with_fit])
             cell = max(ctx.analysis_size[0] / tracker.settings.grid[0],
                        ctx.analysis_size[1] / tracker.settings.grid[1])
+            # Lone marks confirm the fit only when they moved with it over the grouping's
+            # baseline too: while an object stops and turns, a still wall's marks move "with"
+            # its fit for a frame or two.
+            steady = with_fit if grouping is None else with_fit & grouping.scene
             unconfirmed = self._unconfirmed(votes) and lone_tracks(
-                pairs.dst[with_fit], LONE_CELLS * cell) < LONE_TRACKS
+                pairs.dst[with_fit], LONE_CELLS * cell, among=steady[with_fit]) < LONE_TRACKS
             if votes is not None:
                 self.contradicted = self.contradicted + 1 if votes.contradicted else 0
             if votes is not None and votes.contradicted and (
@@ -546,13 +554,16 @@ class AnalysisPass:
                 r.used = keep
 
 
-def lone_tracks(pts: np.ndarray, radius: float, company: int = LONE_COMPANY) -> int:
+def lone_tracks(pts: np.ndarray, radius: float, company: int = LONE_COMPANY,
+                among: np.ndarray | None = None) -> int:
     """How many of the points ``pts`` (k, 2) have at most ``company`` other points within
     ``radius`` (same units, pixels): a small mark on a wall gives a track or a few, a
-    textured object many close together."""
-    d2 = ((pts[:, None, :] - pts[None, :, :]) ** 2).sum(axis=2)
-    near = np.count_nonzero(d2 <= radius * radius, axis=1) - 1
-    return int(np.count_nonzero(near <= company))
+    textured object many close together (:func:`stabilize.still_detail.crowded`). ``among``
+    (k,) bool: count only these (all points are still each other's company); None: all."""
+    lone = ~crowded(pts, radius, company)
+    if among is not None:
+        lone &= among
+    return int(np.count_nonzero(lone))
 
 
 def _frame_distance(tracker: Tracker, cfg: CutSettings) -> float:

@@ -41,8 +41,8 @@ import numpy as np
 
 from .track import TrackSettings, corner_strength, strength_map
 
-__all__ = ["StillDetail", "StillDetailSettings", "StillVotes", "find_detail", "is_plain",
-           "judge", "spread_maxima"]
+__all__ = ["LONE_CELLS", "LONE_COMPANY", "StillDetail", "StillDetailSettings", "StillVotes",
+           "crowded", "find_detail", "is_plain", "judge", "spread_maxima"]
 
 
 @dataclass(frozen=True)
@@ -313,11 +313,27 @@ def spread_maxima(strength: np.ndarray, floor: float, spacing: float, count: int
 _CELL = 4
 
 
+#: A track with at most LONE_COMPANY others within LONE_CELLS grid cells is a lone mark (a
+#: nail on a wall, a bolt on a sky-lit beam), not part of a textured object, whose tracks
+#: crowd together. This project's choice (tests/test_tracking_accuracy.py, the plain-wall
+#: pair; tests/test_still_detail.py).
+LONE_CELLS, LONE_COMPANY = 1.0, 3
+
+
+def crowded(pts: np.ndarray, radius: float, company: int = LONE_COMPANY) -> np.ndarray:
+    """(k,) bool: which of the points ``pts`` (k, 2) have more than ``company`` others within
+    ``radius`` (same units, pixels). A few hundred points cost well under a millisecond."""
+    p = np.asarray(pts, np.float32).reshape(-1, 2)
+    dx = p[:, 0, None] - p[None, :, 0]
+    dy = p[:, 1, None] - p[None, :, 1]
+    near = np.count_nonzero(dx * dx + dy * dy <= np.float32(radius * radius), axis=1) - 1
+    return near > company
+
+
 def _beside(tracks: np.ndarray, size: tuple[int, int], grid: tuple[int, int]) -> np.ndarray:
-    """(h, w) bool of a ``size`` = (width, height) frame: inside the convex hull of
-    ``tracks`` (k, 2) grown by half a ``grid`` cell, worked out on cells of :data:`_CELL`
-    pixels (:func:`_beside_cells`). The picture between an object's tracks and just past its
-    outermost ones is the object's own."""
+    """(h, w) bool of a ``size`` = (width, height) frame: beside the tracks (k, 2), worked out
+    on cells of :data:`_CELL` pixels (:func:`_beside_cells`). The picture between an object's
+    tracks and just past its outermost ones is the object's own."""
     w, h = size
     coarse = _beside_cells(tracks, size, grid)
     full = cv2.resize(coarse, (coarse.shape[1] * _CELL, coarse.shape[0] * _CELL),
@@ -327,14 +343,27 @@ def _beside(tracks: np.ndarray, size: tuple[int, int], grid: tuple[int, int]) ->
 
 def _beside_cells(tracks: np.ndarray, size: tuple[int, int], grid: tuple[int, int]
                   ) -> np.ndarray:
-    """The mask of :func:`_beside` on its cells: (⌈h/_CELL⌉, ⌈w/_CELL⌉) uint8, 1 inside."""
+    """The mask of :func:`_beside` on its cells: (⌈h/_CELL⌉, ⌈w/_CELL⌉) uint8, 1 inside.
+
+    Inside are the convex hull of the crowded tracks (:func:`crowded`) and every lone track,
+    both grown by half a ``grid`` cell; with fewer than three crowded tracks, the hull of
+    them all. A lone mark of the background that happens to move with an object for a frame
+    or two (while the object stops and turns) covers its own neighbourhood only, not the
+    whole stretch of picture between it and the object."""
     w, h = size
     cw, ch = -(-w // _CELL), -(-h // _CELL)
     coarse = np.zeros((ch, cw), np.uint8)
     if len(tracks) >= 3:
-        hull = cv2.convexHull(np.rint(tracks / _CELL).astype(np.int32).reshape(-1, 1, 2))
+        cell = max(w / grid[0], h / grid[1])
+        pts = np.asarray(tracks, np.float64).reshape(-1, 2)
+        dense = crowded(pts, LONE_CELLS * cell)
+        hull_pts = pts[dense] if np.count_nonzero(dense) >= 3 else pts
+        hull = cv2.convexHull(np.rint(hull_pts / _CELL).astype(np.int32).reshape(-1, 1, 2))
         cv2.fillConvexPoly(coarse, hull, 1)
-        r = int(np.ceil(0.5 * max(w / grid[0], h / grid[1]) / _CELL))
+        ij = np.rint(pts[~dense] / _CELL).astype(np.intp)
+        ij = ij[(ij[:, 0] >= 0) & (ij[:, 0] < cw) & (ij[:, 1] >= 0) & (ij[:, 1] < ch)]
+        coarse[ij[:, 1], ij[:, 0]] = 1
+        r = int(np.ceil(0.5 * cell / _CELL))
         coarse = cv2.dilate(coarse, cv2.getStructuringElement(cv2.MORPH_ELLIPSE,
                                                               (2 * r + 1,) * 2))
     return coarse

@@ -323,10 +323,11 @@ def test_a_board_before_a_bare_wall_is_held_still_and_says_why():
     # followed the board by 60 px.
     track = fit_motion(iter(_board_before_bare_wall()), full_size=(W, H),
                        analysis_size=(W, H), settings=Settings())
-    # Left `ok`: the first frame, before any baseline (2.5 px), and three where the board
-    # turned and some of its edge's tracks stood apart from the rest (6.7 px; measured).
-    assert np.abs(np.cumsum(track.matrices[:, :2, 2], axis=0)).max() < 10.0
-    assert (track.reason[1:] == "unconfirmed").mean() > 0.9
+    # Every frame after the first is held. Before, three frames where the board turned were
+    # left `ok` (6.7 px; measured): the wall's marks moved "with" the board's fit for a frame
+    # and were taken for the background's own detail confirming it.
+    assert np.abs(np.cumsum(track.matrices[:, :2, 2], axis=0)).max() < 0.5
+    assert (track.reason[1:] == "unconfirmed").all()
     assert ((track.status == "weak") == (track.reason == "unconfirmed")).all()
 
 

@@ -12,6 +12,7 @@ import pytest
 
 from stabilize.still_detail import (
     StillDetailSettings,
+    crowded,
     find_detail,
     is_plain,
     judge,
@@ -102,6 +103,33 @@ def test_no_detail_is_looked_for_when_the_tracks_cover_the_picture():
     yy, xx = np.mgrid[10:img.shape[0] - 10:20, 10:img.shape[1] - 10:20]
     everywhere = np.column_stack([xx.ravel(), yy.ravel()]).astype(np.float64)
     assert find_detail(img, everywhere, None, SETTINGS) is None
+
+
+def test_crowded_tracks_are_an_object_and_lone_ones_marks():
+    _, board = _frame(_wall(), (200, 110))   # a grid of 12 × 8 tracks, about 20 px apart
+    marks = np.array([[60.0, 40.0], [590.0, 300.0]])
+    pts = np.vstack([board, marks])
+    dense = crowded(pts, 40.0)
+    assert dense[:len(board)].all() and not dense[len(board):].any()
+    # "Others": a point is not its own company.
+    assert not crowded(np.zeros((4, 2)), 1.0, company=3).any()
+    assert crowded(np.zeros((5, 2)), 1.0, company=3).all()
+
+
+def test_wall_marks_moving_with_the_board_do_not_hide_the_wall():
+    """While a board stops and turns, the wall's marks move "with" its fit for a frame. Those
+    tracked cover their own neighbourhood, not the wall between them and the board: the other
+    marks are still looked at. Before, the hull of the board and the four corner marks covered
+    nearly the whole picture, and nothing was looked for."""
+    img, tracks = _frame(_wall(), (200, 110))
+    with_marks = np.vstack([tracks, MARKS[:4]]).astype(np.float64)
+    detail = find_detail(img, with_marks, None, SETTINGS)
+    assert detail is not None
+    found = detail.points.tolist()
+    for x, y in MARKS[4:]:
+        assert any(abs(x - fx) <= 3 and abs(y - fy) <= 3 for fx, fy in found), (x, y)
+    for x, y in MARKS[:4]:
+        assert not any(abs(x - fx) <= 8 and abs(y - fy) <= 8 for fx, fy in found), (x, y)
 
 
 def test_a_board_moved_before_a_still_wall_is_contradicted():
