@@ -439,8 +439,9 @@ class AnalysisPass:
         :attr:`StillDetailSettings.min_shift_px` at its corners) while a fair share of the
         picture lay away from the tracks (:attr:`StillDetailSettings.untracked_share`), and
         that share was plain (:func:`stabilize.still_detail.is_plain`: a bare wall, a clear
-        sky) with at most :data:`OUTLINE_CORNERS` faint corners, none of which could be
-        judged. The tracks may then be a large object moving before a still camera as well
+        sky) with at most :data:`OUTLINE_CORNERS` faint corners that could be compared
+        (others lie beside the tracks now: the object's own outline), none of which could
+        be judged. The tracks may then be a large object moving before a still camera as well
         as the scene: nothing on the frame tells which. (A defocused post or a blurred car
         also offers no corner, but it is no plain picture, and the frames before and after
         judge it.) ``votes``: from :meth:`_still_votes`, None when there was nothing to
@@ -450,8 +451,10 @@ class AnalysisPass:
             # No baseline, too little of the picture away from the tracks (None), or too
             # little motion to look for detail yet (False).
             return False
-        if len(b.detail.points) > OUTLINE_CORNERS or (
-                votes is not None and votes.still + votes.moved > 0):
+        # Corners the object now covers or borders (its own outline, most often) cannot be
+        # compared and are no detail of the rest.
+        detail = len(b.detail.points) if votes is None else votes.compared
+        if detail > OUTLINE_CORNERS or (votes is not None and votes.still + votes.moved > 0):
             return False
         if corner_shift(rescale(b.motion, self.ctx.scale), np.eye(3),
                         self.ctx.analysis_size) < StillDetailSettings().min_shift_px:

@@ -99,12 +99,15 @@ class StillDetail:
 class StillVotes:
     """How many faint corners stayed put (``still``) and how many moved with the fit
     (``moved``); ``contradicted``: the still ones clearly outnumber the moved ones;
-    ``supported``: at least two moved, and they clearly outnumber the still ones."""
+    ``supported``: at least two moved, and they clearly outnumber the still ones;
+    ``compared``: the corners that could be compared at all (both places inside the frame
+    and neither beside the tracks), voting or not."""
 
     still: int
     moved: int
     contradicted: bool
     supported: bool = False
+    compared: int = 0
 
 
 def find_detail(gray: np.ndarray, tracks: np.ndarray, usable: np.ndarray | None,
@@ -260,7 +263,8 @@ def judge(detail: StillDetail, gray: np.ndarray, motion: np.ndarray, tracks: np.
     still, moved = votes(e_still, e_moved), votes(e_moved, e_still)
     return StillVotes(still, moved,
                       still >= settings.min_votes and still >= settings.ratio * moved,
-                      moved >= 2 and moved >= settings.ratio * max(still, 1))
+                      moved >= 2 and moved >= settings.ratio * max(still, 1),
+                      int(np.count_nonzero(inside)))
 
 
 def spread_maxima(strength: np.ndarray, floor: float, spacing: float, count: int

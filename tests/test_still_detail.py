@@ -140,7 +140,7 @@ def test_a_board_moved_before_a_still_wall_is_contradicted():
     votes = judge(detail, after, _shift(60, 20), tracks_now, SETTINGS.grid)
     assert votes.contradicted and not votes.supported
     # Three marks stay in the frame where the fit would carry them; all three vote still.
-    assert votes.still == 3 and votes.moved == 0
+    assert votes.still == 3 and votes.moved == 0 and votes.compared == 3
 
 
 def test_a_camera_moved_over_the_wall_with_the_board_is_borne_out():
@@ -164,6 +164,8 @@ def test_detail_the_board_now_covers_does_not_vote():
     after, tracks_now = _frame(wall, (380, 110), seed=2)  # the board now over the mark
     votes = judge(detail, after, _shift(180, 0), tracks_now, SETTINGS.grid)
     assert votes.still == 0 and votes.moved == 0 and not votes.contradicted
+    # Nor could it be compared: it is no detail of the picture left bare.
+    assert votes.compared == 0
 
 
 def test_no_vote_when_both_places_differ():
