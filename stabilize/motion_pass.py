@@ -289,6 +289,9 @@ class AnalysisPass:
         # Every pair that moved with the fit, whether the fit could use it or not.
         with_fit = (transfer_error(fit.matrix, src, dst) < settings.inlier_px) if fit.ok \
             else np.zeros(len(src), bool)
+        with_scene = with_fit if grouping is None else with_fit & grouping.scene
+        if np.count_nonzero(with_scene) < base.min_group:
+            with_scene = with_fit
         n_in = int(np.count_nonzero(with_fit))
         d = (len(src), n_in, n_in / len(src) if len(src) else 0.0,
              fit.rms_px if fit.ok else 0.0, fit.rounds)
@@ -301,9 +304,8 @@ class AnalysisPass:
             # Lone marks confirm the fit only when they moved with it over the grouping's
             # baseline too: while an object stops and turns, a still wall's marks move "with"
             # its fit for a frame or two.
-            steady = with_fit if grouping is None else with_fit & grouping.scene
             unconfirmed = self._unconfirmed(votes) and lone_tracks(
-                pairs.dst[with_fit], LONE_CELLS * cell, among=steady[with_fit]) < LONE_TRACKS
+                pairs.dst[with_fit], LONE_CELLS * cell, among=with_scene[with_fit]) < LONE_TRACKS
             if votes is not None:
                 self.contradicted = self.contradicted + 1 if votes.contradicted else 0
             if votes is not None and votes.contradicted and (

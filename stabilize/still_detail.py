@@ -335,9 +335,10 @@ def crowded(pts: np.ndarray, radius: float, company: int = LONE_COMPANY) -> np.n
 
 
 def _beside(tracks: np.ndarray, size: tuple[int, int], grid: tuple[int, int]) -> np.ndarray:
-    """(h, w) bool of a ``size`` = (width, height) frame: beside the tracks (k, 2), worked out
-    on cells of :data:`_CELL` pixels (:func:`_beside_cells`). The picture between an object's
-    tracks and just past its outermost ones is the object's own."""
+    """(h, w) bool of a ``size`` = (width, height) frame: inside the convex hull of
+    ``tracks`` (k, 2) grown by half a ``grid`` cell, worked out on cells of :data:`_CELL`
+    pixels (:func:`_beside_cells`). The picture between an object's tracks and just past its
+    outermost ones is the object's own."""
     w, h = size
     coarse = _beside_cells(tracks, size, grid)
     full = cv2.resize(coarse, (coarse.shape[1] * _CELL, coarse.shape[0] * _CELL),
@@ -347,27 +348,14 @@ def _beside(tracks: np.ndarray, size: tuple[int, int], grid: tuple[int, int]) ->
 
 def _beside_cells(tracks: np.ndarray, size: tuple[int, int], grid: tuple[int, int]
                   ) -> np.ndarray:
-    """The mask of :func:`_beside` on its cells: (⌈h/_CELL⌉, ⌈w/_CELL⌉) uint8, 1 inside.
-
-    Inside are the convex hull of the crowded tracks (:func:`crowded`) and every lone track,
-    both grown by half a ``grid`` cell; with fewer than three crowded tracks, the hull of
-    them all. A lone mark of the background that happens to move with an object for a frame
-    or two (while the object stops and turns) covers its own neighbourhood only, not the
-    whole stretch of picture between it and the object."""
+    """The mask of :func:`_beside` on its cells: (⌈h/_CELL⌉, ⌈w/_CELL⌉) uint8, 1 inside."""
     w, h = size
     cw, ch = -(-w // _CELL), -(-h // _CELL)
     coarse = np.zeros((ch, cw), np.uint8)
     if len(tracks) >= 3:
-        cell = max(w / grid[0], h / grid[1])
-        pts = np.asarray(tracks, np.float64).reshape(-1, 2)
-        dense = crowded(pts, LONE_CELLS * cell)
-        hull_pts = pts[dense] if np.count_nonzero(dense) >= 3 else pts
-        hull = cv2.convexHull(np.rint(hull_pts / _CELL).astype(np.int32).reshape(-1, 1, 2))
+        hull = cv2.convexHull(np.rint(tracks / _CELL).astype(np.int32).reshape(-1, 1, 2))
         cv2.fillConvexPoly(coarse, hull, 1)
-        ij = np.rint(pts[~dense] / _CELL).astype(np.intp)
-        ij = ij[(ij[:, 0] >= 0) & (ij[:, 0] < cw) & (ij[:, 1] >= 0) & (ij[:, 1] < ch)]
-        coarse[ij[:, 1], ij[:, 0]] = 1
-        r = int(np.ceil(0.5 * cell / _CELL))
+        r = int(np.ceil(0.5 * max(w / grid[0], h / grid[1]) / _CELL))
         coarse = cv2.dilate(coarse, cv2.getStructuringElement(cv2.MORPH_ELLIPSE,
                                                               (2 * r + 1,) * 2))
     return coarse

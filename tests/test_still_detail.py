@@ -116,22 +116,6 @@ def test_crowded_tracks_are_an_object_and_lone_ones_marks():
     assert crowded(np.zeros((5, 2)), 1.0, company=3).all()
 
 
-def test_wall_marks_moving_with_the_board_do_not_hide_the_wall():
-    """While a board stops and turns, the wall's marks move "with" its fit for a frame. Those
-    tracked cover their own neighbourhood, not the wall between them and the board: the other
-    marks are still looked at. Before, the hull of the board and the four corner marks covered
-    nearly the whole picture, and nothing was looked for."""
-    img, tracks = _frame(_wall(), (200, 110))
-    with_marks = np.vstack([tracks, MARKS[:4]]).astype(np.float64)
-    detail = find_detail(img, with_marks, None, SETTINGS)
-    assert detail is not None
-    found = detail.points.tolist()
-    for x, y in MARKS[4:]:
-        assert any(abs(x - fx) <= 3 and abs(y - fy) <= 3 for fx, fy in found), (x, y)
-    for x, y in MARKS[:4]:
-        assert not any(abs(x - fx) <= 8 and abs(y - fy) <= 8 for fx, fy in found), (x, y)
-
-
 def test_a_board_moved_before_a_still_wall_is_contradicted():
     wall = _wall()
     before, tracks = _frame(wall, (200, 110), seed=1)
