@@ -32,12 +32,9 @@ from .motion_models import MotionModel, transfer_error
 from .overlays import OverlayFinder
 from .row_bands import BandSettings, BandShifts, track_band_shifts
 from .still_detail import (
-    LONE_CELLS,
-    LONE_COMPANY,
     StillDetail,
     StillDetailSettings,
     StillVotes,
-    crowded,
     find_detail,
     is_plain,
     judge,
@@ -75,13 +72,12 @@ REVISE_PX = 0.05
 # offered one, its bottom-right corner, at every baseline; measured).
 OUTLINE_CORNERS = 2
 
-# Lone tracks that moved with the fit (:func:`stabilize.still_detail.crowded`: at most
-# LONE_COMPANY others within LONE_CELLS grid cells) are detail of the background, not parts
-# of one object: LONE_TRACKS of them confirm a fit that a plain picture otherwise could not
-# (a camera moving over a bare wall with a board fixed to it: the wall's few marks are
-# tracked and move with the board). This project's choice (tests/test_tracking_accuracy.py,
-# the plain-wall pair).
-LONE_TRACKS = 2
+# Tracks that moved with the fit with at most LONE_COMPANY others within LONE_CELLS grid
+# cells are detail of the background, not parts of one object: LONE_TRACKS of them
+# confirm a fit that a plain picture otherwise could not (a camera moving over a bare wall
+# with a board fixed to it: the wall's few marks are tracked and move with the board). This
+# project's choice (tests/test_tracking_accuracy.py, the plain-wall pair).
+LONE_CELLS, LONE_TRACKS, LONE_COMPANY = 1.0, 2, 3
 
 # ... and only when the tracks it keeps fit it with at most this share of the median
 # residual they had under the first fit (this project's choice).
@@ -289,9 +285,6 @@ class AnalysisPass:
         # Every pair that moved with the fit, whether the fit could use it or not.
         with_fit = (transfer_error(fit.matrix, src, dst) < settings.inlier_px) if fit.ok \
             else np.zeros(len(src), bool)
-        with_scene = with_fit if grouping is None else with_fit & grouping.scene
-        if np.count_nonzero(with_scene) < base.min_group:
-            with_scene = with_fit
         n_in = int(np.count_nonzero(with_fit))
         d = (len(src), n_in, n_in / len(src) if len(src) else 0.0,
              fit.rms_px if fit.ok else 0.0, fit.rounds)
@@ -304,8 +297,11 @@ class AnalysisPass:
             # Lone marks confirm the fit only when they moved with it over the grouping's
             # baseline too: while an object stops and turns, a still wall's marks move "with"
             # its fit for a frame or two.
+            with_scene = None if grouping is None else grouping.scene[with_fit]
+            if with_scene is not None and np.count_nonzero(with_scene) < base.min_group:
+                with_scene = None
             unconfirmed = self._unconfirmed(votes) and lone_tracks(
-                pairs.dst[with_fit], LONE_CELLS * cell, among=with_scene[with_fit]) < LONE_TRACKS
+                pairs.dst[with_fit], LONE_CELLS * cell, among=with_scene) < LONE_TRACKS
             if votes is not None:
                 self.contradicted = self.contradicted + 1 if votes.contradicted else 0
             if votes is not None and votes.contradicted and (
@@ -563,9 +559,11 @@ def lone_tracks(pts: np.ndarray, radius: float, company: int = LONE_COMPANY,
                 among: np.ndarray | None = None) -> int:
     """How many of the points ``pts`` (k, 2) have at most ``company`` other points within
     ``radius`` (same units, pixels): a small mark on a wall gives a track or a few, a
-    textured object many close together (:func:`stabilize.still_detail.crowded`). ``among``
-    (k,) bool: count only these (all points are still each other's company); None: all."""
-    lone = ~crowded(pts, radius, company)
+    textured object many close together. ``among`` (k,) bool: count only these (all points
+    are still each other's company); None: all."""
+    d2 = ((pts[:, None, :] - pts[None, :, :]) ** 2).sum(axis=2)
+    near = np.count_nonzero(d2 <= radius * radius, axis=1) - 1
+    lone = near <= company
     if among is not None:
         lone &= among
     return int(np.count_nonzero(lone))

@@ -41,8 +41,8 @@ import numpy as np
 
 from .track import TrackSettings, corner_strength, strength_map
 
-__all__ = ["LONE_CELLS", "LONE_COMPANY", "StillDetail", "StillDetailSettings", "StillVotes",
-           "crowded", "find_detail", "is_plain", "judge", "spread_maxima"]
+__all__ = ["StillDetail", "StillDetailSettings", "StillVotes", "find_detail", "is_plain",
+           "judge", "spread_maxima"]
 
 
 @dataclass(frozen=True)
@@ -315,23 +315,6 @@ def spread_maxima(strength: np.ndarray, floor: float, spacing: float, count: int
 
 #: Cell size (analysis pixels) of the coarse mask of where the tracks are.
 _CELL = 4
-
-
-#: A track with at most LONE_COMPANY others within LONE_CELLS grid cells is a lone mark (a
-#: nail on a wall, a bolt on a sky-lit beam), not part of a textured object, whose tracks
-#: crowd together. This project's choice (tests/test_tracking_accuracy.py, the plain-wall
-#: pair; tests/test_still_detail.py).
-LONE_CELLS, LONE_COMPANY = 1.0, 3
-
-
-def crowded(pts: np.ndarray, radius: float, company: int = LONE_COMPANY) -> np.ndarray:
-    """(k,) bool: which of the points ``pts`` (k, 2) have more than ``company`` others within
-    ``radius`` (same units, pixels). A few hundred points cost well under a millisecond."""
-    p = np.asarray(pts, np.float32).reshape(-1, 2)
-    dx = p[:, 0, None] - p[None, :, 0]
-    dy = p[:, 1, None] - p[None, :, 1]
-    near = np.count_nonzero(dx * dx + dy * dy <= np.float32(radius * radius), axis=1) - 1
-    return near > company
 
 
 def _beside(tracks: np.ndarray, size: tuple[int, int], grid: tuple[int, int]) -> np.ndarray:

@@ -390,3 +390,7 @@ def test_lone_tracks_are_marks_apart_from_an_object():
     assert motion_pass.lone_tracks(board, 40.0) == 0
     assert motion_pass.lone_tracks(np.concatenate([board, marks]), 40.0) == 4
     assert motion_pass.lone_tracks(np.concatenate([board, marks]), 40.0, company=0) == 2
+    # Only the marks that moved with the scene over the baseline are counted; the others
+    # still keep each other company.
+    scene = np.r_[np.ones(len(board), bool), [True, False, False, True]]
+    assert motion_pass.lone_tracks(np.concatenate([board, marks]), 40.0, among=scene) == 2

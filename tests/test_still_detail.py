@@ -12,7 +12,6 @@ import pytest
 
 from stabilize.still_detail import (
     StillDetailSettings,
-    crowded,
     find_detail,
     is_plain,
     judge,
@@ -103,17 +102,6 @@ def test_no_detail_is_looked_for_when_the_tracks_cover_the_picture():
     yy, xx = np.mgrid[10:img.shape[0] - 10:20, 10:img.shape[1] - 10:20]
     everywhere = np.column_stack([xx.ravel(), yy.ravel()]).astype(np.float64)
     assert find_detail(img, everywhere, None, SETTINGS) is None
-
-
-def test_crowded_tracks_are_an_object_and_lone_ones_marks():
-    _, board = _frame(_wall(), (200, 110))   # a grid of 12 × 8 tracks, about 20 px apart
-    marks = np.array([[60.0, 40.0], [590.0, 300.0]])
-    pts = np.vstack([board, marks])
-    dense = crowded(pts, 40.0)
-    assert dense[:len(board)].all() and not dense[len(board):].any()
-    # "Others": a point is not its own company.
-    assert not crowded(np.zeros((4, 2)), 1.0, company=3).any()
-    assert crowded(np.zeros((5, 2)), 1.0, company=3).all()
 
 
 def test_a_board_moved_before_a_still_wall_is_contradicted():
