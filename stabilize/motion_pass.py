@@ -10,6 +10,7 @@ import math
 from collections import deque
 from dataclasses import dataclass
 
+import cv2
 import numpy as np
 
 from . import anchors
@@ -38,6 +39,7 @@ from .still_detail import (
     find_detail,
     is_plain,
     judge,
+    patch_agreement,
 )
 from .track import (
     Pairs,
@@ -79,6 +81,11 @@ OUTLINE_CORNERS = 2
 # project's choice (tests/test_tracking_accuracy.py, the plain-wall pair).
 LONE_CELLS, LONE_TRACKS, LONE_COMPANY = 1.0, 2, 3
 
+# ... and each one's patch in the two frames must agree to at least this normalised
+# correlation (this project's choice: points of noise on a drawn bare wall that the tracker
+# kept agreed to -0.02–0.37, measured; a mark, to about 1).
+LONE_AGREEMENT = 0.8
+
 # ... and only when the tracks it keeps fit it with at most this share of the median
 # residual they had under the first fit (this project's choice).
 REVISE_GAIN = 0.7
@@ -118,6 +125,7 @@ class _Recent:
     record: FrameRecord
     blind: bool = False
     attempts: int = 0
+    judged: bool = False
 
 
 @dataclass
@@ -187,6 +195,8 @@ class AnalysisPass:
         # Frames in a row (among those with detail to judge) whose detail contradicted the
         # fit (see StillDetailSettings.start_votes).
         self.contradicted = 0
+        # A frame was unconfirmed, and nothing since has confirmed a fit (see step).
+        self.doubt = False
 
     def begin(self, image: np.ndarray, time_s: float, index: int) -> None:
         """Take the first frame (grey analysis copy) of this pass, at ``time_s`` seconds."""
@@ -240,6 +250,7 @@ class AnalysisPass:
                 self.held_until = -math.inf
                 self.releasing = []
                 self.contradicted = 0
+                self.doubt = False
                 return FrameRecord(np.eye(3), (len(pairs), 0, 0.0, 0.0, 0), "cut")
         if len(pairs) < tracker.settings.texture_check_share * tracker.settings.max_corners:
             strength = corner_strength(image) if strength is None else strength
@@ -289,7 +300,7 @@ class AnalysisPass:
         d = (len(src), n_in, n_in / len(src) if len(src) else 0.0,
              fit.rms_px if fit.ok else 0.0, fit.rounds)
         self._carry(fit.matrix if fit.ok else None)
-        held = unconfirmed = False
+        held = unconfirmed = judged = False
         if fit.ok and not ambiguous:
             votes = self._still_votes(image, pairs.dst[with_fit])
             cell = max(ctx.analysis_size[0] / tracker.settings.grid[0],
@@ -300,8 +311,31 @@ class AnalysisPass:
             with_scene = None if grouping is None else grouping.scene[with_fit]
             if with_scene is not None and np.count_nonzero(with_scene) < base.min_group:
                 with_scene = None
-            unconfirmed = self._unconfirmed(votes) and lone_tracks(
-                pairs.dst[with_fit], LONE_CELLS * cell, among=with_scene) < LONE_TRACKS
+            surround = self._surround(votes)
+            lone = False
+            if surround in ("plain", "unknown"):
+                # ... and only when they are marks at all: on a bare wall the tracker also
+                # keeps a few points of noise, which land wherever the predicted motion
+                # puts them and so move "with" any fit.
+                at = np.flatnonzero(with_fit)
+                at = at[lone_tracks(pairs.dst[at], LONE_CELLS * cell, among=with_scene)]
+                if len(at) >= LONE_TRACKS:
+                    same = patch_agreement(tracker.frames[0], image, pairs.src[at],
+                                           pairs.dst[at])
+                    lone = np.count_nonzero(same >= LONE_AGREEMENT) >= LONE_TRACKS
+            # A picture that is not plain but offers no corner compared nothing either, nor
+            # do lone marks that no baseline has seen moving with the scene.
+            judged = (lone and with_scene is not None) or surround in ("plain", "detail")
+            # Once a frame is unconfirmed, the frames that nothing can judge (the object
+            # covers most of the picture, or stops) stay so until something confirms a fit:
+            # detail moving with it, lone marks, or a picture away from the tracks that is
+            # not plain.
+            unconfirmed = not lone and (surround == "plain"
+                                        or (self.doubt and surround == "unknown"))
+            if lone or surround == "textured" or (votes is not None and votes.supported):
+                self.doubt = False
+            elif unconfirmed:
+                self.doubt = True
             if votes is not None:
                 self.contradicted = self.contradicted + 1 if votes.contradicted else 0
             if votes is not None and votes.contradicted and (
@@ -354,7 +388,7 @@ class AnalysisPass:
         if ambiguous or (fit.weak and n_in < MINORITY_SHARE * len(src) and not held):
             tracker.update(None, memo)
             return FrameRecord(fit.matrix, d, "weak", "foreground")
-        if unconfirmed and not held and not fit.weak and settings.plain_surround == "hold":
+        if unconfirmed and not held and settings.plain_surround == "hold":
             # Nothing tells a board moved before a bare wall from a structure before a clear
             # sky: the camera is held still, never given the motion of what may be an object
             # (the frames since the baseline too, as for a hold on still detail).
@@ -363,14 +397,14 @@ class AnalysisPass:
             self._hold_since(self._still_slot(), "unconfirmed")
             record = FrameRecord(np.eye(3), d, "weak", "unconfirmed")
             self.recent.append(_Recent(index, time_s, src, dst, pairs.ids, pairs.background,
-                                       use, record, grouping is None))
+                                       use, record, grouping is None, judged=judged))
             return record
         if held:
             self.prior = fit.matrix
             tracker.update(None, memo)
             record = FrameRecord(np.eye(3), d, "weak", "held_still")
             self.recent.append(_Recent(index, time_s, src, dst, pairs.ids, pairs.background,
-                                       use, record, grouping is None))
+                                       use, record, grouping is None, judged=judged))
             if self.releasing or (votes is not None and votes.supported):
                 self.releasing.append((record, fit.matrix, fit.weak))
             return record
@@ -392,7 +426,7 @@ class AnalysisPass:
             record.bands = track_band_shifts(src, dst, fit.matrix, fh, settings.inlier_px,
                                              ctx.bands)
         self.recent.append(_Recent(index, time_s, src, dst, pairs.ids, pairs.background,
-                                   use, record, grouping is None))
+                                   use, record, grouping is None, judged=judged))
         # The last second's fits are kept for revision; over the first three seconds of a
         # pass, all of them (its first frames have no baseline at all).
         if time_s - self.begin_s > 6.0 * base.baseline_s:
@@ -432,35 +466,44 @@ class AnalysisPass:
             return None
         return judge(b.detail, image, motion, tracks, self.tracker.settings.grid, cfg)
 
-    def _unconfirmed(self, votes: StillVotes | None) -> bool:
-        """Whether this frame's fit moved the frame since the older baseline (at least
+    def _surround(self, votes: StillVotes | None) -> str:
+        """What the picture away from the tracks says of this frame's fit: ``"plain"``,
+        ``"detail"``, ``"textured"`` or ``"unknown"``. ``votes``: from :meth:`_still_votes`,
+        None when there was nothing to judge.
+
+        ``"plain"``: the fit moved the frame since the older baseline (at least
         :attr:`StillDetailSettings.min_shift_px` at its corners) while a fair share of the
         picture lay away from the tracks (:attr:`StillDetailSettings.untracked_share`), and
         that share was plain (:func:`stabilize.still_detail.is_plain`: a bare wall, a clear
         sky) with at most :data:`OUTLINE_CORNERS` faint corners that could be compared
         (others lie beside the tracks now: the object's own outline), none of which could
         be judged. The tracks may then be a large object moving before a still camera as well
-        as the scene: nothing on the frame tells which. (A defocused post or a blurred car
-        also offers no corner, but it is no plain picture, and the frames before and after
-        judge it.) ``votes``: from :meth:`_still_votes`, None when there was nothing to
-        judge."""
+        as the scene: nothing on the frame tells which.
+
+        ``"detail"``: faint corners there voted (``votes``); ``"textured"``: that picture is
+        no plain one, though it offers no corner (a defocused post or a blurred car is no
+        less a part of the picture, and the frames before and after judge it);
+        ``"unknown"``: no baseline, too little of the picture away from the tracks, too
+        little motion since the baseline, or faint corners none of which could be judged.
+        """
         b = self._still_slot()
         if b is None or b.motion is None or not isinstance(b.detail, StillDetail):
             # No baseline, too little of the picture away from the tracks (None), or too
             # little motion to look for detail yet (False).
-            return False
+            return "unknown"
+        if votes is not None and votes.still + votes.moved > 0:
+            return "detail"
         # Corners the object now covers or borders (its own outline, most often) cannot be
         # compared and are no detail of the rest.
-        detail = len(b.detail.points) if votes is None else votes.compared
-        if detail > OUTLINE_CORNERS or (votes is not None and votes.still + votes.moved > 0):
-            return False
+        if (len(b.detail.points) if votes is None else votes.compared) > OUTLINE_CORNERS:
+            return "unknown"
         if corner_shift(rescale(b.motion, self.ctx.scale), np.eye(3),
                         self.ctx.analysis_size) < StillDetailSettings().min_shift_px:
-            return False
+            return "unknown"
         if b.plain is None:
             b.plain = is_plain(b.image, b.tracks, self.overlays.mask(self.ctx.user_mask),
                                self.tracker.settings.grid)
-        return b.plain
+        return "plain" if b.plain else "textured"
 
     def _release_pending(self, votes: StillVotes | None) -> bool:
         """Whether a frame inside a hold stays held, given its still-detail ``votes``.
@@ -486,11 +529,18 @@ class AnalysisPass:
     def _hold_since(self, b: _StillBase | None, reason: str = "held_still") -> None:
         """Hold still the frames after baseline ``b`` still open to revision: the detail
         said the camera did not move over them (weak fits with few inliers too: the same
-        tracks carried them)."""
+        tracks carried them). So are the frames just before it that nothing judged (see
+        :attr:`_Recent.judged`): an object waved from the first frame moved them before
+        the pass had any baseline to judge it by."""
         if b is None:
             return
+        start = b.index
+        for r in reversed(self.recent):
+            if r.index <= b.index and (r.judged or r.record.status not in ("ok", "weak")):
+                break
+            start = min(start, r.index - 1)
         for r in self.recent:
-            if r.index > b.index and r.index >= self.owned_from and (
+            if r.index > start and r.index >= self.owned_from and (
                     r.record.status == "ok" or r.record.reason in ("few_inliers",
                                                                    "unconfirmed")):
                 r.record.matrix = np.eye(3)
@@ -556,17 +606,26 @@ class AnalysisPass:
 
 
 def lone_tracks(pts: np.ndarray, radius: float, company: int = LONE_COMPANY,
-                among: np.ndarray | None = None) -> int:
-    """How many of the points ``pts`` (k, 2) have at most ``company`` other points within
-    ``radius`` (same units, pixels): a small mark on a wall gives a track or a few, a
-    textured object many close together. ``among`` (k,) bool: count only these (all points
-    are still each other's company); None: all."""
+                among: np.ndarray | None = None) -> np.ndarray:
+    """Which of the points ``pts`` (k, 2) are lone, a (k,) bool mask: at most ``company``
+    other points within ``radius`` (same units, pixels), and farther than half ``radius``
+    outside the convex hull of the others (those with more company). A small mark on a
+    wall gives a track or a few, a textured object many close together, and the few tracks
+    along an object's outline (its corners against a plain wall) are still the object's.
+    ``among`` (k,) bool: only these can be lone (all points are still each other's
+    company); None: all."""
     d2 = ((pts[:, None, :] - pts[None, :, :]) ** 2).sum(axis=2)
     near = np.count_nonzero(d2 <= radius * radius, axis=1) - 1
     lone = near <= company
     if among is not None:
         lone &= among
-    return int(np.count_nonzero(lone))
+    crowded = pts[near > company]
+    if lone.any() and len(crowded) >= 3:
+        hull = cv2.convexHull(crowded.astype(np.float32).reshape(-1, 1, 2))
+        for i in np.flatnonzero(lone):
+            p = (float(pts[i, 0]), float(pts[i, 1]))
+            lone[i] = cv2.pointPolygonTest(hull, p, True) < -0.5 * radius
+    return lone
 
 
 def _frame_distance(tracker: Tracker, cfg: CutSettings) -> float:

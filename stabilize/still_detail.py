@@ -267,6 +267,21 @@ def judge(detail: StillDetail, gray: np.ndarray, motion: np.ndarray, tracks: np.
                       int(np.count_nonzero(inside)))
 
 
+def patch_agreement(before: np.ndarray, now: np.ndarray, src: np.ndarray, dst: np.ndarray,
+                    half: int = StillDetailSettings.half) -> np.ndarray:
+    """How well each point's patch agrees between two frames: (k,) normalised correlation
+    (Pearson's r over the pixels) of the (2·half+1)² patch of ``before`` (h, w) uint8 at
+    ``src`` (k, 2) and that of ``now`` at ``dst`` (k, 2), analysis pixels, bilinear.
+    About 1 for a mark found again; near 0 for a point of noise on a plain wall, whose
+    grain is drawn afresh each frame; 0 where either patch is flat."""
+    a = _patches(before.astype(np.float32), src, half)
+    b = _patches(now.astype(np.float32), dst, half)
+    a = a - a.mean(axis=(1, 2), keepdims=True)
+    b = b - b.mean(axis=(1, 2), keepdims=True)
+    norm = np.sqrt((a * a).sum(axis=(1, 2)) * (b * b).sum(axis=(1, 2)))
+    return np.where(norm > 1e-6, (a * b).sum(axis=(1, 2)) / np.maximum(norm, 1e-6), 0.0)
+
+
 def spread_maxima(strength: np.ndarray, floor: float, spacing: float, count: int
                   ) -> np.ndarray:
     """Up to ``count`` strong points of ``strength`` (h, w) at least about ``spacing``

@@ -15,6 +15,7 @@ from stabilize.still_detail import (
     find_detail,
     is_plain,
     judge,
+    patch_agreement,
     spread_maxima,
 )
 from stabilize.track import corner_strength, track_settings_for
@@ -192,3 +193,25 @@ def test_detail_found_with_a_known_floor_matches_the_whole_picture_floor():
     tiled = find_detail(img, tracks, None, SETTINGS, floor=floor)
     assert whole is not None and tiled is not None
     np.testing.assert_array_equal(whole.points, tiled.points)
+
+
+def test_patch_agreement_tells_a_mark_from_a_point_of_noise():
+    # A mark on a bare wall is found again where it moved; a point of the wall's grain is
+    # drawn afresh each frame and agrees with nothing; a flat patch gives 0, not NaN.
+    rng = np.random.default_rng(2)
+    yy, xx = np.mgrid[0:H, 0:W].astype(np.float32)
+    wall = 150 + 20 * xx / W - 10 * yy / H
+
+    def frame(mark_at):
+        img = wall.copy()
+        cv2.circle(img, mark_at, 3, 120, -1, lineType=cv2.LINE_AA)
+        return np.clip(img + rng.normal(0, 1.5, img.shape), 0, 255).astype(np.uint8)
+
+    before, now = frame((100, 80)), frame((107, 83))
+    r = patch_agreement(before, now, np.array([[100.0, 80.0], [400.0, 200.0]]),
+                        np.array([[107.0, 83.0], [407.0, 203.0]]))
+    assert r[0] > 0.9
+    assert abs(r[1]) < 0.5
+    flat = np.full((H, W), 128, np.uint8)
+    assert patch_agreement(flat, flat, np.array([[50.0, 50.0]]), np.array([[50.0, 50.0]])
+                           ).tolist() == [0.0]
