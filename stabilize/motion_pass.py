@@ -313,7 +313,8 @@ class AnalysisPass:
                 with_scene = None
             surround = self._surround(votes)
             lone = False
-            if surround in ("plain", "unknown"):
+            # Counted only where they can decide (the count is quadratic in the tracks).
+            if surround == "plain" or (self.doubt and surround == "unknown"):
                 # ... and only when they are marks at all: on a bare wall the tracker also
                 # keeps a few points of noise, which land wherever the predicted motion
                 # puts them and so move "with" any fit.
@@ -324,7 +325,8 @@ class AnalysisPass:
                                            pairs.dst[at])
                     lone = np.count_nonzero(same >= LONE_AGREEMENT) >= LONE_TRACKS
             # A picture that is not plain but offers no corner compared nothing either, nor
-            # do lone marks that no baseline has seen moving with the scene.
+            # do lone marks that no baseline has seen moving with the scene (nor, uncounted,
+            # those of a frame that nothing else judged).
             judged = (lone and with_scene is not None) or surround in ("plain", "detail")
             # Once a frame is unconfirmed, the frames that nothing can judge (the object
             # covers most of the picture, or stops) stay so until something confirms a fit:
