@@ -538,7 +538,7 @@ class AnalysisPass:
             return
         start = b.index
         for r in reversed(self.recent):
-            if r.index <= b.index and (r.judged or r.record.status not in ("ok", "weak")):
+            if r.index <= b.index and r.judged:
                 break
             start = min(start, r.index - 1)
         for r in self.recent:

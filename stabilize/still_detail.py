@@ -42,7 +42,7 @@ import numpy as np
 from .track import TrackSettings, corner_strength, strength_map
 
 __all__ = ["StillDetail", "StillDetailSettings", "StillVotes", "find_detail", "is_plain",
-           "judge", "spread_maxima"]
+           "judge", "patch_agreement", "spread_maxima"]
 
 
 @dataclass(frozen=True)

@@ -210,14 +210,12 @@ def trust_verdict(summary: dict) -> dict:
              "figures may partly describe that object, not the camera.",
              "had motion that could not be told apart from a large moving object: these "
              "figures may describe that object, not the camera.")
-    by_share(unconfirmed,
-             "were tracked on detail covering only part of the picture, with nothing in the "
+    plain = ("were tracked on detail covering only part of the picture, with nothing in the "
              "plain rest (a bare wall, a clear sky) to tell a moving object before a still "
-             "camera from a moving camera: treat these figures as rough estimates.",
-             "were tracked on detail covering only part of the picture, with nothing in the "
-             "plain rest (a bare wall, a clear sky) to tell a moving object before a still "
-             "camera from a moving camera: these figures are not reliable (setting "
-             "plain_surround says which was assumed).")
+             "camera from a moving camera")
+    by_share(unconfirmed, f"{plain}: treat these figures as rough estimates.",
+             f"{plain}: these figures are not reliable (setting plain_surround says which was "
+             "assumed).")
     by_share(int(summary.get("frames_textureless") or 0),
              "had too little texture to measure (plain sky, water, fog or blur).",
              "had too little texture to measure (plain sky, water, fog or blur): these "
