@@ -174,6 +174,8 @@ class AnalysisPass:
                                ctx.user_mask)
         self.overlays = OverlayFinder(ctx.analysis_size)
         self.overlays_grew = False
+        # Overlay cells were found since the recent frames were fitted (see _overlay_hindsight).
+        self.overlays_found = False
         self.prior: np.ndarray | None = None
         self.texture_ref: float | None = None
         self.steps = 0
@@ -226,6 +228,9 @@ class AnalysisPass:
         if self.overlays_grew:
             self.overlays_grew = False
             tracker.set_mask(self.overlays.mask(ctx.user_mask))
+        if self.overlays_found:
+            self.overlays_found = False
+            self._overlay_hindsight()
         pairs = tracker.step(image, predicted)
         offered = tracker.live
         strength = None
@@ -274,7 +279,10 @@ class AnalysisPass:
         if grouping is not None and grouping.split:
             slot = self._older_slot()
             band = band_overlay_tracks(grouping, memo[:, 2 * slot:2 * slot + 2], dst, (fw, fh))
-            self.overlays_grew |= self.overlays.observe_band(pairs.src[band])
+            if self.overlays.observe_band(pairs.src[band]):
+                self.overlays_grew = self.overlays_found = True
+                # This frame's tracks on the overlay are no longer the camera's either.
+                suspect |= self.overlays.covers(pairs.src)
         use = ~suspect
         if suspect.any():
             # Objects are about: tracks new to the picture wait until the scene's group
@@ -414,6 +422,7 @@ class AnalysisPass:
         tracker.update(support, memo)
         if self.overlays.observe(pairs.src, pairs.dst, rescale(fit.matrix, scale)):
             tracker.set_mask(self.overlays.mask(ctx.user_mask))
+            self.overlays_found = True
         if fit.weak:
             record = FrameRecord(fit.matrix, d, "weak", "few_inliers")
         elif unconfirmed:
@@ -547,6 +556,53 @@ class AnalysisPass:
                                                                    "unconfirmed")):
                 r.record.matrix = np.eye(3)
                 r.record.status, r.record.reason = "weak", reason
+
+    def _overlay_hindsight(self) -> None:
+        """Fit again, without the tracks on overlay cells found since, the recent frames
+        (ok, or weak for few inliers) whose fits used such tracks.
+
+        Before a burnt-in strip is known, the frames' fits may rest on it: over a hazy scene
+        it holds most of the strong corners, and the grouping may take it for the scene (its
+        tracks are the oldest, and the first fits moved with them) while the real scene is
+        suspect. Those frames are refitted on the other tracks: the ones they used, or all
+        of them when too few of those are left."""
+        ctx = self.ctx
+        fw, fh = ctx.full_size
+        sx, sy = ctx.scale
+        settings = ctx.settings
+        min_group = ctx.baseline.min_group
+        for r in self.recent:
+            rec = r.record
+            if r.index < self.owned_from or not (
+                    rec.status == "ok" or (rec.status == "weak" and rec.reason == "few_inliers")):
+                continue
+            on = self.overlays.covers(np.c_[(r.src[:, 0] + 0.5) * sx - 0.5,
+                                            (r.src[:, 1] + 0.5) * sy - 0.5])
+            hit = r.used & on
+            if hit.sum() < max(3, 0.05 * r.used.sum()):
+                continue
+            keep = r.used & ~on
+            if keep.sum() < min_group or hull_share(r.dst[keep], (fw, fh)) < 0.1:
+                keep = ~on
+            if keep.sum() < min_group or hull_share(r.dst[keep], (fw, fh)) < 0.02:
+                continue
+            fit = refit(r.src[keep], r.dst[keep], model=ctx.model, settings=settings,
+                        seed=[settings.seed, r.index, 3], prior=rec.matrix, frame_size=(fw, fh))
+            if not fit.ok or corner_shift(fit.matrix, rec.matrix, (fw, fh)) <= REVISE_PX:
+                continue
+            # The revision's own support must fit it clearly better than the first fit.
+            a, b = r.src[keep][fit.support], r.dst[keep][fit.support]
+            if median(transfer_error(fit.matrix, a, b)) > REVISE_GAIN * median(
+                    transfer_error(rec.matrix, a, b)):
+                continue
+            rec.matrix = fit.matrix
+            r.used = keep
+            n_in = int(np.count_nonzero(
+                transfer_error(fit.matrix, r.src, r.dst) < settings.inlier_px))
+            rec.diag = (len(r.src), n_in, n_in / len(r.src), fit.rms_px,
+                        rec.diag[4] + fit.rounds)
+            if rec.status == "weak" and not fit.weak:
+                rec.status, rec.reason = "ok", ""
 
     def _hindsight(self, scene_ids: np.ndarray, moved_ids: np.ndarray,
                    region: np.ndarray) -> None:

@@ -160,6 +160,12 @@ class OverlayFinder:
         self.cells |= new
         return bool(new.any())
 
+    def covers(self, pts: np.ndarray) -> np.ndarray:
+        """Whether each point (k, 2), analysis pixels, lies in an overlay cell: (k,) bool."""
+        if len(pts) == 0 or not self.cells.any():
+            return np.zeros(len(pts), bool)
+        return self.cells[cell_index(pts, self.size, self.settings.grid)]
+
     def mask(self, base: np.ndarray | None) -> np.ndarray:
         """uint8 mask (255 = usable) with the overlay cells (and ``base``'s zeros) cut out.
 

@@ -120,6 +120,11 @@ def test_band_votes_need_many_frames():
     mask = finder.mask(None)
     assert (mask[-10:, 10:-10] == 0).all() and (mask[: int(0.8 * H)] == 255).all()
     assert not finder.observe_band(strip[:0])
+    # The cells found cover the strip's points and nothing well above it.
+    above = np.c_[np.linspace(5, W - 5, 20), np.full(20, 0.5 * H)]
+    assert finder.covers(strip).all() and not finder.covers(above).any()
+    assert finder.covers(strip[:0]).shape == (0,)
+    assert not OverlayFinder((W, H)).covers(strip).any()
 
 
 def test_cut_and_texture_rules():

@@ -87,6 +87,28 @@ def test_hazy_scene_with_telemetry_holding_the_strong_corners(tmp_path, style, c
     assert found and all(y + rh > strip_top for _, y, _, rh in found)
 
 
+def test_frames_fitted_before_a_strip_is_found_are_refitted_without_it(tmp_path):
+    """A hazy truss scene whose tracked detail is patchy: for its first second the grouping
+    takes the telemetry strip (its tracks are the oldest, and the first fits moved with them)
+    for the scene and the real scene for an object, until enough of the scene moves together
+    to show the strip as a still band. Once the strip is known, the frames fitted on it are
+    fitted again without it (measured before: median error 1.28 px over the first 45 frames,
+    24 of them weak; after: 0.20 px, one weak)."""
+    w, h = 640, 360
+    spec = SceneSpec(style="truss", width=w, height=h, fps=30.0, duration_s=8.0, seed=1,
+                     noise_sigma=1.5, contrast=0.08, motion=MotionSpec(pan_px_s=12.0),
+                     shake=ShakeSpec.drone(), telemetry=True)
+    clip = SyntheticClip(spec)
+    log = stabilize.measure(_encode(clip, tmp_path / "haze.mp4"))
+    err = grid_transfer_error(clip.ground_truth()["inter_frame"][1:], log.matrices[1:], w, h)
+    early = err[:45]
+    print(f"first 45 frames: median {np.median(early):.4f} px, largest {early.max():.4f} px; "
+          f"all: median {np.median(err):.4f} px; weak {(log.status == 'weak').sum()}")
+    assert np.median(early) <= 0.3
+    assert (log.status[1:46] == "weak").sum() <= 3
+    assert np.median(err) <= 0.2
+
+
 def test_static_camera_with_a_large_object_in_front(tmp_path):
     """A still camera; a densely textured board covering about half of the frame moves in
     front of it for the whole 20 s. The logged camera path must stay within 2 px of zero."""
