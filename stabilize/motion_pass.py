@@ -46,6 +46,7 @@ from .track import (
     Tracker,
     TrackSettings,
     global_shift,
+    to_analysis_resolution,
     to_full_resolution,
     track_settings_for,
 )
@@ -568,7 +569,6 @@ class AnalysisPass:
         of them when too few of those are left."""
         ctx = self.ctx
         fw, fh = ctx.full_size
-        sx, sy = ctx.scale
         settings = ctx.settings
         min_group = ctx.baseline.min_group
         for r in self.recent:
@@ -576,8 +576,7 @@ class AnalysisPass:
             if r.index < self.owned_from or not (
                     rec.status == "ok" or (rec.status == "weak" and rec.reason == "few_inliers")):
                 continue
-            on = self.overlays.covers(np.c_[(r.src[:, 0] + 0.5) * sx - 0.5,
-                                            (r.src[:, 1] + 0.5) * sy - 0.5])
+            on = self.overlays.covers(to_analysis_resolution(r.src, ctx.scale))
             hit = r.used & on
             if hit.sum() < max(3, 0.05 * r.used.sum()):
                 continue

@@ -41,7 +41,7 @@ import numpy as np
 
 from .geometry import frame_centre, similarity_readout
 from .motion_models import SIMILARITY
-from .track import to_full_resolution
+from .track import to_analysis_resolution, to_full_resolution
 
 __all__ = [
     "CheckSettings",
@@ -236,11 +236,6 @@ def reduce_luma(luma: np.ndarray, min_width_px: int) -> tuple[np.ndarray, tuple[
         small = cv2.resize(small, (small.shape[1] // 2, small.shape[0] // 2),
                            interpolation=cv2.INTER_LINEAR)
     return small, (1.0 / k, 1.0 / k)
-
-
-def _to_reduced(pts: np.ndarray, scale: tuple[float, float]) -> np.ndarray:
-    sx, sy = scale
-    return np.stack([(pts[:, 0] + 0.5) * sx - 0.5, (pts[:, 1] + 0.5) * sy - 0.5], axis=1)
 
 
 @dataclass(frozen=True)
@@ -484,11 +479,11 @@ def _mask(shape: tuple[int, int], scale: tuple[float, float], region: Region,
     """uint8 mask (255 = usable) of the reduced frame: the region, less the excluded quads,
     drawn and then shrunk by ``edge_px`` so corners keep clear of every edge."""
     mask = np.zeros(shape[:2], np.uint8)
-    quad = _to_reduced(region.quad, scale)
+    quad = to_analysis_resolution(region.quad, scale)
     cv2.fillConvexPoly(mask, np.round(quad * 16).astype(np.int32), 255, cv2.LINE_8, 4)
     for q in region.excluded:
-        cv2.fillConvexPoly(mask, np.round(_to_reduced(q, scale) * 16).astype(np.int32), 0,
-                           cv2.LINE_8, 4)
+        reduced = np.round(to_analysis_resolution(q, scale) * 16).astype(np.int32)
+        cv2.fillConvexPoly(mask, reduced, 0, cv2.LINE_8, 4)
     k = 2 * int(math.ceil(edge_px)) + 1
     mask = cv2.erode(mask, cv2.getStructuringElement(cv2.MORPH_RECT, (k, k)),
                      borderType=cv2.BORDER_CONSTANT, borderValue=0)

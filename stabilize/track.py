@@ -25,7 +25,7 @@ from .consensus.metrics import median
 __all__ = [
     "MEMO_WIDTH", "Pairs", "TrackSettings", "Tracker", "bucket", "cell_index", "cell_keep",
     "cell_maxima", "corner_strength", "detect", "global_shift", "ignore_mask", "strength_floor",
-    "strength_map", "to_full_resolution", "track_settings_for",
+    "strength_map", "to_analysis_resolution", "to_full_resolution", "track_settings_for",
 ]
 
 
@@ -643,6 +643,13 @@ def to_full_resolution(pts: np.ndarray, scale: tuple[float, float]) -> np.ndarra
     out[:, 0] = (pts[:, 0] + 0.5) / sx - 0.5
     out[:, 1] = (pts[:, 1] + 0.5) / sy - 0.5
     return out
+
+
+def to_analysis_resolution(pts: np.ndarray, scale: tuple[float, float]) -> np.ndarray:
+    """Full-resolution points -> analysis-frame pixels (the inverse of
+    :func:`to_full_resolution`): x_a = (x + 0.5) · sx − 0.5."""
+    sx, sy = scale
+    return np.stack([(pts[:, 0] + 0.5) * sx - 0.5, (pts[:, 1] + 0.5) * sy - 0.5], axis=1)
 
 
 def global_shift(prev: np.ndarray, cur: np.ndarray, max_side: int = 320) -> tuple[float, float,

@@ -18,6 +18,7 @@ from stabilize.track import (
     ignore_mask,
     strength_floor,
     strength_map,
+    to_analysis_resolution,
     to_full_resolution,
 )
 
@@ -271,6 +272,7 @@ def test_subpixel_motion_maps_exactly_to_full_resolution(scale):
     pts_full = np.array([[0.0, 0.0], [1919.0, 1079.0], [640.25, 300.5]])
     pts_small = np.c_[(pts_full[:, 0] + 0.5) * sx - 0.5, (pts_full[:, 1] + 0.5) * sy - 0.5]
     np.testing.assert_allclose(to_full_resolution(pts_small, scale), pts_full, atol=1e-9)
+    np.testing.assert_allclose(to_analysis_resolution(pts_full, scale), pts_small, atol=1e-9)
     moved_small = cv2.perspectiveTransform(pts_small[None], small)[0]
     moved_full = cv2.perspectiveTransform(pts_full[None], full)[0]
     np.testing.assert_allclose(to_full_resolution(moved_small, scale), moved_full, atol=1e-9)
