@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import math
 from collections import deque
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import cv2
 import numpy as np
@@ -50,7 +50,7 @@ from .track import (
     to_full_resolution,
     track_settings_for,
 )
-from .track_groups import band_overlay_tracks, group_tracks, in_mask, object_mask
+from .track_groups import band_overlay_tracks, group_tracks, mask_cells, object_mask
 
 __all__ = ["MINORITY_SHARE", "REVISE_ATTEMPTS", "REVISE_GAIN", "REVISE_PX", "AnalysisPass",
            "FrameRecord", "PassContext"]
@@ -127,6 +127,14 @@ class _Recent:
     blind: bool = False
     attempts: int = 0
     judged: bool = False
+    _cells: np.ndarray | None = field(default=None, repr=False)
+
+    def cells(self, shape: tuple[int, int]) -> np.ndarray:
+        """The coarse-mask cell of each track's position in this frame
+        (:func:`mask_cells`), worked out once."""
+        if self._cells is None:
+            self._cells = mask_cells(self.dst, shape)
+        return self._cells
 
 
 @dataclass
@@ -623,20 +631,23 @@ class AnalysisPass:
         follow = settings.plain_surround == "follow"
         open_ = [r for r in self.recent if r.index >= self.owned_from
                  and (r.record.status == "ok" or (follow and r.record.reason == "unconfirmed"))
-                 and r.attempts < attempts]
+                 and r.attempts < attempts and len(r.ids)]
         if not open_:
             return
-        # The tracks hit in every open frame at once (one membership test, one mask lookup).
-        ends = np.cumsum([len(r.ids) for r in open_])
+        # The tracks hit in every open frame at once (one membership test, one mask lookup,
+        # one count per frame).
+        starts = np.cumsum([0] + [len(r.ids) for r in open_[:-1]])
         used = np.concatenate([r.used for r in open_])
+        cells = np.concatenate([r.cells(region.shape) for r in open_])
         hits = used & (np.isin(np.concatenate([r.ids for r in open_]), moved_ids)
-                       | in_mask(region, np.concatenate([r.dst for r in open_])))
-        for r, end in zip(open_, ends, strict=True):
-            hit = hits[end - len(r.ids):end]
-            # A few tracks more or less hardly move a fit; and a frame is refitted a few times
-            # at most while the same object goes on moving.
-            if hit.sum() < max(3, 0.05 * r.used.sum()):
-                continue
+                       | (region.ravel()[cells] > 0))
+        n_hit = np.add.reduceat(hits, starts)
+        # A few tracks more or less hardly move a fit; and a frame is refitted a few times
+        # at most while the same object goes on moving.
+        due = n_hit >= np.maximum(3, 0.05 * np.add.reduceat(used, starts))
+        for i in np.flatnonzero(due).tolist():
+            r = open_[i]
+            hit = hits[starts[i]:starts[i] + len(r.ids)]
             r.attempts += 1
             keep = r.used & ~hit & np.isin(r.ids, scene_ids)
             if keep.sum() < base.min_group or hull_share(r.dst[keep], (fw, fh)) < 0.02:

@@ -17,7 +17,7 @@ from .motion_models import MotionModel, transfer_error
 from .overlays import still_band
 
 __all__ = ["GROUP_SHARE", "MASK_CELL_PX", "SEPARATION", "band_overlay_tracks", "group_tracks",
-           "in_mask", "object_mask"]
+           "in_mask", "mask_cells", "object_mask"]
 
 # A second rigid group counts only when its motion over the baseline is at least this many
 # grouping thresholds away from the first (median over its tracks); this project's choice.
@@ -138,8 +138,16 @@ def object_mask(pts: np.ndarray, frame_size: tuple[int, int]) -> np.ndarray:
     return mask
 
 
+def mask_cells(pts: np.ndarray, shape: tuple[int, int]) -> np.ndarray:
+    """Flat index (k,) of the cell of a coarse mask of ``shape`` (rows, columns; cells of
+    :data:`MASK_CELL_PX`, as :func:`object_mask` makes them) that holds each point (k, 2),
+    full-resolution pixels; points off the mask take its nearest edge cell."""
+    rows, cols = shape
+    xi = np.clip((pts[:, 0] / MASK_CELL_PX).astype(int), 0, cols - 1)
+    yi = np.clip((pts[:, 1] / MASK_CELL_PX).astype(int), 0, rows - 1)
+    return yi * cols + xi
+
+
 def in_mask(mask: np.ndarray, pts: np.ndarray) -> np.ndarray:
     """Whether each point (k, 2) full-resolution pixels falls in a cell set in ``mask``."""
-    xi = np.clip((pts[:, 0] / MASK_CELL_PX).astype(int), 0, mask.shape[1] - 1)
-    yi = np.clip((pts[:, 1] / MASK_CELL_PX).astype(int), 0, mask.shape[0] - 1)
-    return mask[yi, xi] > 0
+    return mask.ravel()[mask_cells(pts, mask.shape)] > 0
