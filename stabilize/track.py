@@ -24,8 +24,9 @@ from .consensus.metrics import median
 
 __all__ = [
     "MEMO_WIDTH", "Pairs", "TrackSettings", "Tracker", "bucket", "cell_index", "cell_keep",
-    "cell_maxima", "corner_strength", "detect", "global_shift", "ignore_mask", "strength_floor",
-    "strength_map", "to_analysis_resolution", "to_full_resolution", "track_settings_for",
+    "cell_maxima", "corner_strength", "detect", "global_shift", "ignore_mask", "peak_corners",
+    "strength_floor", "strength_map", "to_analysis_resolution", "to_full_resolution",
+    "track_settings_for",
 ]
 
 
@@ -137,7 +138,7 @@ def bucket(pts: np.ndarray, size: tuple[int, int], grid: tuple[int, int],
     ``turns`` rounds over the cells first (every cell's strongest, then every cell's second,
     and so on), then the rest in the order given.
 
-    ``pts`` must be sorted by decreasing corner quality, as goodFeaturesToTrack returns them.
+    ``pts`` must be sorted by decreasing corner quality, as :func:`peak_corners` returns them.
     A caller that keeps only the first few points so still has some in every cell that has
     any: a busy object's corners, however strong and many, do not crowd the rest of the
     picture out of the tracks.
@@ -264,6 +265,59 @@ def strength_map(gray: np.ndarray, block: int, where: np.ndarray | None = None) 
     return out
 
 
+def peak_corners(strength: np.ndarray, threshold: float, min_dist: float,
+                 mask: np.ndarray | None = None) -> np.ndarray:
+    """The corners OpenCV's ``goodFeaturesToTrack`` (no cap on their number) picks, found on
+    a corner-strength map already at hand instead of working the map out again: (k, 2)
+    float32 positions (x, y), pixel centres, strongest first (ties: the earlier in row-major
+    order).
+
+    A corner is a pixel of ``strength`` (h, w) float32 above ``threshold``, off the map's
+    outermost rows and columns, where ``mask`` (h, w; None: everywhere) is nonzero, and no
+    weaker than its eight neighbours; corners closer than ``min_dist`` pixels to a stronger
+    corner that is kept are dropped. The greedy thinning, strongest first, is done in rounds:
+    each round keeps every corner whose stronger neighbours within ``min_dist`` were all
+    dropped and drops every corner with a kept stronger one, which gives the same set as one
+    corner at a time (checked against OpenCV on real clips in the tests).
+    """
+    h, w = strength.shape
+    peak = cv2.compare(strength, cv2.dilate(strength, None), cv2.CMP_EQ)
+    peak &= cv2.compare(strength, float(threshold), cv2.CMP_GT)
+    if mask is not None:
+        peak &= cv2.compare(mask, 0, cv2.CMP_NE)
+    peak[0, :] = peak[-1, :] = 0
+    peak[:, 0] = peak[:, -1] = 0
+    found = cv2.findNonZero(peak)
+    if found is None:
+        return np.empty((0, 2), np.float32)
+    found = found.reshape(-1, 2).astype(np.intp)
+    order = np.lexsort((found[:, 0], found[:, 1], -strength[found[:, 1], found[:, 0]]))
+    xs, ys = found[order, 0], found[order, 1]
+    k = len(xs)
+    # Each corner's stronger neighbours within min_dist, by rank (k: none), read off an image
+    # of ranks padded by the reach.
+    r = int(np.ceil(min_dist))
+    oy, ox = np.mgrid[-r:r + 1, -r:r + 1]
+    near = (ox * ox + oy * oy < min_dist * min_dist) & ((ox != 0) | (oy != 0))
+    rank = np.full((h + 2 * r, w + 2 * r), k, np.int32)
+    rank[ys + r, xs + r] = np.arange(k, dtype=np.int32)
+    nb = rank[(ys + r)[:, None] + oy[near], (xs + r)[:, None] + ox[near]]
+    nb[nb > np.arange(k)[:, None]] = k
+    # 1 kept, -1 dropped, 0 not yet decided; the extra last entry stands for no neighbour.
+    status = np.zeros(k + 1, np.int8)
+    status[k] = -1
+    todo = np.arange(k)
+    while len(todo):
+        st = status[nb[todo]]
+        beaten = (st == 1).any(axis=1)
+        free = ~beaten & (st == -1).all(axis=1)
+        status[todo[beaten]] = -1
+        status[todo[free]] = 1
+        todo = todo[~beaten & ~free]
+    kept = status[:k] == 1
+    return np.stack([xs[kept], ys[kept]], axis=1).astype(np.float32)
+
+
 def corner_strength(gray: np.ndarray, settings: TrackSettings) -> tuple[np.ndarray, float]:
     """The corner-strength map of ``gray`` (:func:`strength_map`: the smaller eigenvalue of
     the gradient structure tensor over ``block_size`` windows, OpenCV units) and its
@@ -306,7 +360,11 @@ def detect(gray: np.ndarray, settings: TrackSettings, mask: np.ndarray | None,
     strong = whole >= settings.quality_floor * float(whole.max())
     weak_only = ~strong & (whole >= floor)
     crowded = strong.mean() < settings.sparse_share and weak_only.sum() > 2 * strong.sum()
+    unmasked = strength
     if mask is not None:
+        # Corners are peaks of the whole picture's map (a masked stronger neighbour still
+        # counts), judged against the strongest corner left outside the mask.
+        unmasked = strength.copy()
         strength[mask == 0] = 0.0
     top = float(strength.max())
     if top <= 0.0:
@@ -316,13 +374,9 @@ def detect(gray: np.ndarray, settings: TrackSettings, mask: np.ndarray | None,
                  max(floor, settings.cell_quality * float(cell_max[cell_max > 0].min())))
     # No cap on the number here: a cap keeps the strongest corners of the whole frame, which
     # can all lie on one busy object; bucketing below spreads them instead.
-    pts = cv2.goodFeaturesToTrack(
-        gray, maxCorners=0, qualityLevel=max(lowest / top, 1e-6),
-        minDistance=min_dist, mask=mask, blockSize=settings.block_size,
-    )
-    if pts is None:
-        return np.empty((0, 2), np.float32)
-    pts = pts.reshape(-1, 2).astype(np.float32)
+    pts = peak_corners(unmasked, top * max(lowest / top, 1e-6), min_dist, mask)
+    if len(pts) == 0:
+        return pts
     xi = np.clip(np.rint(pts[:, 0]).astype(int), 0, size[0] - 1)
     yi = np.clip(np.rint(pts[:, 1]).astype(int), 0, size[1] - 1)
     at = strength[yi, xi]

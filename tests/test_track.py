@@ -16,6 +16,7 @@ from stabilize.track import (
     detect,
     global_shift,
     ignore_mask,
+    peak_corners,
     strength_floor,
     strength_map,
     to_analysis_resolution,
@@ -346,3 +347,45 @@ def test_strength_map_on_tiles_is_the_whole_picture_map(shape):
     np.testing.assert_allclose(part[sel], full[sel], rtol=0, atol=1e-6 * float(full.max()))
     if shape[0] > 2 * track.STRENGTH_TILE and shape[1] > 2 * track.STRENGTH_TILE:
         assert not part[-1, -1] and not part[-track.STRENGTH_TILE:].any()
+
+
+def _opencv_corners(img, quality, min_dist, mask=None):
+    pts = cv2.goodFeaturesToTrack(img, maxCorners=0, qualityLevel=quality,
+                                  minDistance=min_dist, mask=mask, blockSize=7)
+    return np.empty((0, 2), np.float32) if pts is None else pts.reshape(-1, 2)
+
+
+@pytest.mark.parametrize("quality, min_dist, masked", [
+    (0.003, 4.0, False), (0.01, 2.0, False), (0.05, 7.5, False), (0.003, 4.0, True),
+])
+def test_peak_corners_are_opencvs_corners(quality, min_dist, masked):
+    """On a map of the whole picture, the peaks thinned in rounds are exactly the corners
+    OpenCV's detector picks one at a time, in the same order (a random texture has no ties),
+    with a mask as well (a masked stronger neighbour still hides a corner beside it)."""
+    img = _texture(270, 480, seed=9, blur=1.5)
+    img[100:180, 200:330] = 128  # a flat patch: no corners inside, some along its edge
+    strength = cv2.cornerMinEigenVal(img, 7, ksize=3)
+    mask = None
+    if masked:
+        mask = np.full(img.shape, 255, np.uint8)
+        mask[40:120, 60:200] = 0
+    top = float(strength.max() if mask is None else strength[mask > 0].max())
+    ours = peak_corners(strength, top * quality, min_dist, mask)
+    cv = _opencv_corners(img, quality, min_dist, mask)
+    assert len(cv) > 100
+    np.testing.assert_array_equal(ours, cv)
+
+
+def test_peak_corners_break_ties_in_row_major_order():
+    """Two equal peaks closer than the spacing: the one earlier in row-major order is kept;
+    farther apart, both."""
+    strength = np.zeros((40, 60), np.float32)
+    strength[10, 20] = strength[10, 23] = strength[12, 21] = 1.0
+    strength[30, 40] = 0.5
+    assert peak_corners(strength, 0.1, 4.0).tolist() == [[20.0, 10.0], [40.0, 30.0]]
+    assert peak_corners(strength, 0.1, 2.5).tolist() == [[20.0, 10.0], [23.0, 10.0],
+                                                          [40.0, 30.0]]
+    assert peak_corners(strength, 0.1, 2.0).tolist() == [[20.0, 10.0], [23.0, 10.0],
+                                                          [21.0, 12.0], [40.0, 30.0]]
+    assert peak_corners(strength, 0.6, 4.0).tolist() == [[20.0, 10.0]]
+    assert peak_corners(np.zeros((20, 20), np.float32), 0.0, 4.0).shape == (0, 2)

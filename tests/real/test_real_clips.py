@@ -330,3 +330,32 @@ def test_real_clips_report_no_vibration_they_do_not_have(real_clip, name, readou
         f"{s.get('vibration_px')} px reported")
     if readout == "auto":
         assert s.get("readout_source") in ("estimated", "not_found"), s.get("readout_source")
+
+
+# --------------------------------------------------------------------- corner detection
+@pytest.mark.parametrize("name", ["box.mp4", "cup.mp4", "bikes.mp4", "bigbuckbunny.mp4",
+                                  "Megamind.avi", "carphone_pristine.mp4"])
+def test_corners_from_the_strength_map_are_opencvs_on_real_frames(real_clip, name):
+    # The tracker picks corners on the corner-strength map it already has
+    # (stabilize.track.peak_corners); on real pictures the corners must be those OpenCV's
+    # goodFeaturesToTrack picks from the same map, at the analysis width and spacing and at
+    # the lowest quality level the tracker uses. Real frames can hold equal strengths, which
+    # OpenCV orders as its sort leaves them: the sets are compared, and the order up to ties.
+    from stabilize.track import peak_corners
+
+    clip = real_clip(name)
+    for frame in iter_frames(clip, gray=True):
+        if frame.index not in (5, 60):
+            continue
+        h, w = frame.image.shape
+        img = cv2.resize(frame.image, (960, round(h * 960 / w)), interpolation=cv2.INTER_AREA) \
+            if w > 960 else frame.image
+        strength = cv2.cornerMinEigenVal(img, 7, ksize=3)
+        spacing = max(2.0, img.shape[1] / 240.0)
+        cv = cv2.goodFeaturesToTrack(img, 0, 0.003, spacing, blockSize=7).reshape(-1, 2)
+        ours = peak_corners(strength, float(strength.max()) * 0.003, spacing)
+        assert sorted(map(tuple, ours.tolist())) == sorted(map(tuple, cv.tolist())), (
+            f"{name} frame {frame.index}: {len(ours)} corners against OpenCV's {len(cv)}")
+        # Strongest first on both sides: the strengths read in order agree.
+        np.testing.assert_array_equal(strength[ours[:, 1].astype(int), ours[:, 0].astype(int)],
+                                      strength[cv[:, 1].astype(int), cv[:, 0].astype(int)])
