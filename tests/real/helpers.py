@@ -93,16 +93,25 @@ def region_moved_px(source: str | os.PathLike, output: str | os.PathLike,
 
 
 def reference_path_px(clip: str | os.PathLike, boxes: list[tuple[int, int, int, int]], *,
-                      agree_px: float = 1.5, min_response: float = 0.15
+                      agree_px: float = 1.5, min_response: float = 0.15,
+                      at: tuple[float, float] | None = None,
                       ) -> tuple[np.ndarray, np.ndarray]:
     """The camera's displacement from frame 0, measured independently of the tool on patches
     of static background: the mean of the phase-correlation shifts of ``boxes`` (each
     (x0, y0, x1, y1), full-resolution px, high-passed at 8 px), negated (a pan right moves
     the background left, and the log's path then grows).
 
+    ``at`` (x, y) px, with two boxes or more: the displacement of that point instead, read off
+    the similarity (shift, rotation, scale; least squares, to first order in the small
+    rotation and scale change) that the boxes' shifts at their centres give. The mean shift
+    is the displacement of the boxes' own middle; a point far from them (the frame centre
+    above a strip of wall) also moves with the rotation and scale times its distance, which
+    the mean alone leaves out.
+
     Returns
     -------
-    path : (n, 2) px, the path of the frame centre as the log states it (``path_x, path_y``).
+    path : (n, 2) px, the path of the frame centre (or of ``at``) as the log states it
+        (``path_x, path_y``).
     valid : (n,) bool, frames where every box correlates (response ≥ ``min_response``) and the
         boxes agree within ``agree_px``: elsewhere an object covers a box or the texture is
         too faint, and the reference says nothing.
@@ -111,7 +120,17 @@ def reference_path_px(clip: str | os.PathLike, boxes: list[tuple[int, int, int, 
                        for b in boxes])
     spread = np.linalg.norm(shifts[:, :, :2] - shifts[:, :, :2].mean(axis=0), axis=2).max(axis=0)
     valid = (shifts[:, :, 2] >= min_response).all(axis=0) & (spread <= agree_px)
-    return -shifts[:, :, :2].mean(axis=0), valid
+    if at is None or len(boxes) < 2:
+        return -shifts[:, :, :2].mean(axis=0), valid
+    # d(p) = t + [[a, -b], [b, a]] p at each box centre p = (x, y); unknowns (tx, ty, a, b).
+    centres = np.array([((x0 + x1 - 1) / 2.0, (y0 + y1 - 1) / 2.0) for x0, y0, x1, y1 in boxes])
+    rows = []
+    for x, y in centres:
+        rows += [(1.0, 0.0, x, -y), (0.0, 1.0, y, x)]
+    d = shifts[:, :, :2].transpose(0, 2, 1).reshape(2 * len(boxes), -1)  # (2k, n)
+    tx, ty, a, b = np.linalg.lstsq(np.array(rows), d, rcond=None)[0]
+    x, y = at
+    return -np.stack([tx + a * x - b * y, ty + b * x + a * y], axis=1), valid
 
 
 def region_drift_px(clip: str | os.PathLike, box: tuple[int, int, int, int]) -> float:

@@ -165,14 +165,18 @@ def test_moving_cameras_are_never_held_still(real_clip):
 # not fixed: an independent registration of two strips of bare wall (phase correlation,
 # :func:`reference_path_px`) has the camera drifting up to about 10 px. The log is checked
 # against that reference on the frames where both strips correlate and agree (129 of 217;
-# elsewhere the cup or the hand covers a strip).
+# elsewhere the cup or the hand covers a strip). The strips lie about 175 px below the frame
+# centre, where the log states the path; the reference is read there, from the similarity
+# that the two strips' shifts give (their mean alone is the motion of the strips' middle, and
+# left out the phone's rotation of up to 0.4 degrees, about 1 px at that distance).
 CUP_WALL = [(0, 360, 300, 470), (300, 360, 640, 470)]
+CUP_CENTRE = (319.5, 239.5)
 
 
 def _cup_errors(real_clip) -> tuple[MotionLog, np.ndarray, np.ndarray]:
     clip = real_clip("cup.mp4")
     log = _measured(clip)
-    ref, valid = reference_path_px(clip, CUP_WALL)
+    ref, valid = reference_path_px(clip, CUP_WALL, at=CUP_CENTRE)
     assert valid.sum() >= 100, f"cup.mp4: the wall reference holds on {valid.sum()} frames only"
     err = np.linalg.norm(log.readouts()["path"][:, :2] - ref, axis=1)
     return log, err, valid
@@ -188,7 +192,7 @@ def _cup_message(err: np.ndarray, valid: np.ndarray, limit: float) -> str:
     "known limit (DEVELOPERS.md, Known limits): the few faint marks of a plain wall lie in a "
     "band 160 px below the frame centre; the rotation and scale fitted on them scatter from "
     "frame to frame and, chained, wander, so the path at the centre strays from the wall's "
-    "own registration by up to about 3 px"))
+    "own registration by up to about 2.3 px"))
 def test_cup_plain_wall_follows_the_wall(real_clip):
     _, err, valid = _cup_errors(real_clip)
     assert err[valid].max() <= 2.0, _cup_message(err, valid, 2.0)
