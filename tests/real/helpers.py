@@ -102,8 +102,8 @@ def reference_path_px(clip: str | os.PathLike, boxes: list[tuple[int, int, int, 
     the background left, and the log's path then grows).
 
     ``at`` (x, y) px, with two boxes or more: the displacement of that point instead, read off
-    the similarity (shift, rotation, scale; least squares, to first order in the small
-    rotation and scale change) that the boxes' shifts at their centres give. The mean shift
+    the similarity (shift, rotation, scale; least squares) that the boxes' shifts at their
+    centres give. The mean shift
     is the displacement of the boxes' own middle; a point far from them (the frame centre
     above a strip of wall) also moves with the rotation and scale times its distance, which
     the mean alone leaves out.

@@ -29,9 +29,9 @@ def test_reference_at_a_point_reads_rotation_and_scale_off_the_boxes(monkeypatch
     centre = (319.5, 239.5)
     path, valid = helpers.reference_path_px("made-up.mp4", boxes, agree_px=10.0, at=centre)
     assert valid.all()
-    # First order in the rotation (0.4 degrees) and the scale change (0.5 %): the second-order
-    # terms at 180 px from the boxes are a few hundredths of a pixel.
-    np.testing.assert_allclose(path, -moved(np.array(centre)), atol=0.02)
+    # A similarity's displacement field is t + [[a, -b], [b, a]] p exactly, so two boxes give
+    # it back to rounding.
+    np.testing.assert_allclose(path, -moved(np.array(centre)), atol=1e-9)
     mean, _ = helpers.reference_path_px("made-up.mp4", boxes, agree_px=10.0)
     # The mean shift alone is the motion of the boxes' middle, not of the centre above it.
     assert np.abs(mean - path).max() > 1.0
