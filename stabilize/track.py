@@ -23,8 +23,9 @@ import numpy as np
 from .consensus.metrics import median
 
 __all__ = [
-    "MEMO_WIDTH", "Pairs", "TrackSettings", "Tracker", "bucket", "cell_index", "cell_keep",
-    "cell_maxima", "corner_strength", "detect", "global_shift", "ignore_mask", "peak_corners",
+    "FLOW_PARTS_MAX_POINTS", "FLOW_PARTS_MAX_SHARE", "FLOW_REACH_PX", "MEMO_WIDTH",
+    "Pairs", "TrackSettings", "Tracker", "bucket", "cell_index", "cell_keep", "cell_maxima",
+    "corner_strength", "detect", "flow_parts", "global_shift", "ignore_mask", "peak_corners",
     "strength_floor", "strength_map", "to_analysis_resolution", "to_full_resolution",
     "track_settings_for",
 ]
@@ -417,6 +418,63 @@ class Pairs:
         return len(self.src)
 
 
+#: How far (analysis pixels) the pyramidal flow from no motion is taken to carry a point, for
+#: the rectangles that :func:`flow_parts` cuts. The flow is retried from no motion for tracks
+#: that the predicted motion lost, to keep the still background when the fit followed an
+#: object (:meth:`Tracker.retry`), so it is set for slow motion; a point carried further can
+#: be lost at a rectangle's edge. This project's choice.
+FLOW_REACH_PX = 32
+#: Points are tracked on rectangles only while there are at most this many of them and the
+#: rectangles cover at most this share of the frame: past that, the gradients of the whole
+#: picture cost about as much as those of the rectangles and the calls' own overheads.
+FLOW_PARTS_MAX_POINTS = 48
+FLOW_PARTS_MAX_SHARE = 0.4
+
+
+def flow_parts(pts: np.ndarray, shape: tuple[int, ...], levels: int, win_size: int,
+               ) -> list[tuple[np.ndarray, tuple[int, int, int, int]]] | None:
+    """Rectangles of the frame, analysis pixels, that the pyramidal flow of ``pts`` (k, 2)
+    from no motion reads: a list of (indices into ``pts``, (x0, y0, x1, y1)), or None when
+    tracking on the whole frame is about as cheap (see :data:`FLOW_PARTS_MAX_POINTS`).
+
+    Around each point: its window on the coarsest level (``win_size // 2`` pixels there, so
+    ``2**levels`` times that here), four pixels more on each level for the pyramid's 5-tap
+    smoothing and the 3-tap gradients, and :data:`FLOW_REACH_PX` for the motion found;
+    overlapping rectangles are merged. Their corners lie on multiples of ``2**levels``, so
+    each pyramid level of a rectangle holds the same pixels as the whole frame's there:
+    inside it the flow is the whole frame's. ``shape`` is the frame's (height, width).
+    """
+    k = len(pts)
+    if k == 0 or k > FLOW_PARTS_MAX_POINTS:
+        return None
+    h, w = shape[:2]
+    step = 1 << levels
+    margin = (win_size // 2 + 4) * step + FLOW_REACH_PX
+    lo = np.floor(pts).astype(int) - margin
+    hi = np.ceil(pts).astype(int) + margin + 1
+    lo = np.maximum(lo, 0) // step * step
+    hi = np.minimum(hi, (w, h))
+    parts = [[lo[i].tolist(), hi[i].tolist(), [i]] for i in range(k)]
+    merged = True
+    while merged:
+        merged = False
+        for i in range(len(parts)):
+            for j in range(i + 1, len(parts)):
+                (a0, a1, ai), (b0, b1, bi) = parts[i], parts[j]
+                if a0[0] < b1[0] and b0[0] < a1[0] and a0[1] < b1[1] and b0[1] < a1[1]:
+                    parts[i] = [[min(a0[0], b0[0]), min(a0[1], b0[1])],
+                                [max(a1[0], b1[0]), max(a1[1], b1[1])], ai + bi]
+                    del parts[j]
+                    merged = True
+                    break
+            if merged:
+                break
+    area = sum((b[0] - a[0]) * (b[1] - a[1]) for a, b, _ in parts)
+    if area > FLOW_PARTS_MAX_SHARE * w * h:
+        return None
+    return [(np.array(sorted(ix), np.intp), (a[0], a[1], b[0], b[1])) for a, b, ix in parts]
+
+
 #: Columns of the per-track record a caller may keep in the tracker (see :class:`Pairs`).
 MEMO_WIDTH = 7
 
@@ -531,7 +589,9 @@ class Tracker:
             # keeping them strayed the path 0.3 and 2.4 px further, measured on an earlier
             # form of this change.)
             lost = np.flatnonzero(~keep)
-            found, ok, _ = self._flow(src[lost], None, s.levels)
+            found, ok, _ = self._flow(src[lost], None, s.levels,
+                                      flow_parts(src[lost], self._gray.shape, s.levels,
+                                                 s.win_size))
             dst, keep = dst.copy(), keep.copy()
             dst[lost[ok]] = found[ok]
             keep[lost[ok]] = True
@@ -539,14 +599,52 @@ class Tracker:
         return Pairs(src[keep].astype(np.float64), dst[keep].astype(np.float64),
                      self._ids[keep], self._bg[keep], self._memo[keep].copy())
 
-    def _flow(self, src: np.ndarray, guess: np.ndarray | None,
-              levels: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    def _flow(self, src: np.ndarray, guess: np.ndarray | None, levels: int,
+              parts: list[tuple[np.ndarray, tuple[int, int, int, int]]] | None = None,
+              ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Lucas–Kanade from the previous frame to this one, then the checks: returns the
-        tracked points (k, 2) float32, which passed (k,) bool, and the photometric error."""
+        tracked points (k, 2) float32, which passed (k,) bool, and the photometric error.
+
+        ``parts`` (:func:`flow_parts`): track each group of points on its rectangle of both
+        frames only; the flow computes image gradients over the whole picture it is given,
+        which for a handful of points costs far more than tracking them."""
+        if parts is None:
+            dst, keep, err = self._lk(src, guess, levels, None)
+        else:
+            dst = np.empty_like(src)
+            keep = np.empty(len(src), bool)
+            err = np.empty(len(src), np.float32)
+            for ix, rect in parts:
+                dst[ix], keep[ix], err[ix] = self._lk(
+                    src[ix], None if guess is None else guess[ix], levels, rect)
+        s = self.settings
+        h, w = self._gray.shape
+        keep &= (dst[:, 0] >= 0) & (dst[:, 0] <= w - 1) & (dst[:, 1] >= 0) & (dst[:, 1] <= h - 1)
+        if keep.any():
+            # Photometric check: a patch that changed much (occlusion, a reflection, a
+            # blinking light) is not a trustworthy match even when the flow converged.
+            med = median(err[keep])
+            mad = median(np.abs(err[keep] - med)) + 1e-6
+            keep &= err <= max(s.photo_max, med + 5.0 * 1.4826 * mad)
+        return dst, keep, err
+
+    def _lk(self, src: np.ndarray, guess: np.ndarray | None, levels: int,
+            rect: tuple[int, int, int, int] | None,
+            ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """The flow of ``src`` (k, 2) float32, on the rectangle ``rect`` (x0, y0, x1, y1) of
+        both frames or on the whole frames (None), and its backward check: the tracked
+        points (frame coordinates), which were found and came back (k,) bool, and the
+        photometric error (k,)."""
         s = self.settings
         criteria = (cv2.TERM_CRITERIA_EPS | cv2.TERM_CRITERIA_COUNT, s.lk_iterations,
                     s.lk_epsilon)
         prev, cur = self._prev_pyr, self._pyr
+        if rect is not None:
+            x0, y0, x1, y1 = rect
+            prev, cur = prev[y0:y1, x0:x1], cur[y0:y1, x0:x1]
+            origin = np.array([x0, y0], np.float32)
+            src = src - origin
+            guess = None if guess is None else guess - origin
         dst, st, err = cv2.calcOpticalFlowPyrLK(
             prev, cur, src, None if guess is None else guess.copy(),
             winSize=(s.win_size, s.win_size), maxLevel=levels, criteria=criteria,
@@ -556,8 +654,6 @@ class Tracker:
         # does not return there slid or jumped. Started at the origin, the check needs no
         # coarser levels; it keeps the forward window, since on sharp patterns another
         # window settles a few tenths of a pixel elsewhere and would read as a failure.
-        h, w = self._gray.shape
-        err = err.ravel()
         keep = st.ravel() == 1
         if s.backward_check:
             back, st_back, _ = cv2.calcOpticalFlowPyrLK(
@@ -566,14 +662,9 @@ class Tracker:
                 flags=cv2.OPTFLOW_USE_INITIAL_FLOW)
             fb = np.linalg.norm(back - src, axis=1)
             keep &= (st_back.ravel() == 1) & (fb < s.fb_max_px)
-        keep &= (dst[:, 0] >= 0) & (dst[:, 0] <= w - 1) & (dst[:, 1] >= 0) & (dst[:, 1] <= h - 1)
-        if keep.any():
-            # Photometric check: a patch that changed much (occlusion, a reflection, a
-            # blinking light) is not a trustworthy match even when the flow converged.
-            med = median(err[keep])
-            mad = median(np.abs(err[keep] - med)) + 1e-6
-            keep &= err <= max(s.photo_max, med + 5.0 * 1.4826 * mad)
-        return dst, keep, err
+        if rect is not None:
+            dst = dst + origin
+        return dst, keep, err.ravel()
 
     @property
     def live(self) -> int:

@@ -389,3 +389,76 @@ def test_peak_corners_break_ties_in_row_major_order():
                                                           [21.0, 12.0], [40.0, 30.0]]
     assert peak_corners(strength, 0.6, 4.0).tolist() == [[20.0, 10.0]]
     assert peak_corners(np.zeros((20, 20), np.float32), 0.0, 4.0).shape == (0, 2)
+
+
+def test_flow_parts_hold_each_point_with_its_margin_on_the_pyramid_grid():
+    pts = np.array([[100.3, 80.2], [130.7, 90.1], [600.5, 400.9]], np.float32)
+    parts = track.flow_parts(pts, (540, 960), levels=2, win_size=21)
+    # The two close points share a rectangle; the far one has its own.
+    assert sorted(ix.tolist() for ix, _ in parts) == [[0, 1], [2]]
+    margin = (21 // 2 + 4) * 4 + track.FLOW_REACH_PX
+    for ix, (x0, y0, x1, y1) in parts:
+        assert x0 % 4 == 0 and y0 % 4 == 0
+        assert 0 <= x0 and 0 <= y0 and x1 <= 960 and y1 <= 540
+        p = pts[ix]
+        assert (p[:, 0] - margin >= x0).all() or x0 == 0
+        assert (p[:, 1] - margin >= y0).all() or y0 == 0
+        assert (p[:, 0] + margin < x1).all() or x1 == 960
+        assert (p[:, 1] + margin < y1).all() or y1 == 540
+
+
+def test_flow_parts_give_way_to_the_whole_frame_when_they_would_cover_much_of_it():
+    rng = np.random.default_rng(3)
+    spread = rng.uniform(0, [960, 540], size=(12, 2)).astype(np.float32)
+    assert track.flow_parts(spread, (540, 960), 2, 21) is None
+    many = rng.uniform(400, 420, size=(track.FLOW_PARTS_MAX_POINTS + 1, 2)).astype(np.float32)
+    assert track.flow_parts(many, (540, 960), 2, 21) is None
+    assert track.flow_parts(np.zeros((0, 2), np.float32), (540, 960), 2, 21) is None
+
+
+def test_flow_on_parts_is_the_flow_on_the_whole_frame():
+    # Same pixels on every pyramid level inside a rectangle, so the same flow up to float32
+    # rounding of the coordinates (the rectangle's are smaller numbers).
+    a = _texture(h=540, w=960, seed=4)
+    b = _shift(a, 2.6, -1.3)
+    pts = np.array([[40.5, 30.25], [50.0, 60.0], [700.2, 500.7], [955.0, 270.0]], np.float32)
+    kw = dict(winSize=(21, 21), maxLevel=2, criteria=(3, 20, 0.01), minEigThreshold=1e-4)
+    whole, st, _ = cv2.calcOpticalFlowPyrLK(a, b, pts, None, **kw)
+    parts = track.flow_parts(pts, a.shape, 2, 21)
+    assert len(parts) == 3
+    for ix, (x0, y0, x1, y1) in parts:
+        o = np.array([x0, y0], np.float32)
+        got, st_p, _ = cv2.calcOpticalFlowPyrLK(a[y0:y1, x0:x1], b[y0:y1, x0:x1], pts[ix] - o,
+                                                None, **kw)
+        assert (st_p.ravel() == st.ravel()[ix]).all()
+        np.testing.assert_allclose(got + o, whole[ix], atol=2e-3)
+
+
+def test_the_few_tracks_a_prediction_loses_are_found_again_on_parts_of_the_frame(monkeypatch):
+    # The camera moved 6 px; a small still sign (a patch of its own texture) stays put. Its
+    # few tracks are lost under the prediction and found again from no motion, on a part of
+    # the frames only.
+    scene = _texture(h=540, w=960, seed=5)
+    a = scene.copy()
+    b = _shift(scene, 6.0, 0.0)
+    sign = _texture(h=60, w=80, seed=9, blur=1.5)
+    a[200:260, 400:480] = sign
+    b[200:260, 400:480] = sign
+    used = []
+    real = track.flow_parts
+
+    def spy(*args):
+        got = real(*args)
+        used.append(got)
+        return got
+
+    monkeypatch.setattr(track, "flow_parts", spy)
+    tr = Tracker(track.track_settings_for("balanced"))
+    tr.step(a)
+    guess = np.array([[1.0, 0.0, 6.0], [0.0, 1.0, 0.0], [0.0, 0.0, 1.0]])
+    pairs = tr.step(b, guess)
+    on_sign = (pairs.src[:, 0] > 412) & (pairs.src[:, 0] < 468) & (pairs.src[:, 1] > 212) & \
+        (pairs.src[:, 1] < 248)
+    assert used and used[0] is not None
+    assert on_sign.sum() >= 3
+    np.testing.assert_allclose(pairs.dst[on_sign], pairs.src[on_sign], atol=0.05)
