@@ -104,3 +104,33 @@ def test_projection_onto_each_family(model):
     flat = h.copy()
     flat[2, 2] = 0.0
     assert MODELS[model].project(flat) is None
+
+
+def test_homography_refit_is_the_least_squares_dlt_with_h33_one():
+    # Against the homogeneous DLT (the least singular vector of the stacked 2m x 9 system,
+    # Hartley and Zisserman 2004, algorithm 4.1, via numpy's SVD): the refit fixes h33 = 1
+    # and minimises the same algebraic error over the other eight entries, so it equals the
+    # minimiser of |A h|^2 over h with h33 = 1, which the SVD answer approaches for small
+    # noise; exact points give the exact homography.
+    from stabilize.consensus.solvers import homography_refit
+
+    rng = np.random.default_rng(11)
+    h = random_motion(rng, "homography")
+    src = rng.uniform(0, (WIDTH, HEIGHT), (200, 2))
+    for sigma, tol in ((0.0, 1e-9), (0.5, 1e-3)):
+        dst = apply(h, src) + rng.normal(0, sigma, src.shape)
+        norm, z, _ = normalisation(src.T, dst.T)
+        feat = MODELS["homography"].features(z)
+        got = homography_refit(feat, z, np.ones(len(src), bool))
+        x, y, u, v = z[:4]
+        one, nil = np.ones_like(x), np.zeros_like(x)
+        a = np.vstack([np.stack([x, y, one, nil, nil, nil, -u * x, -u * y, -u], 1),
+                       np.stack([nil, nil, nil, x, y, one, -v * x, -v * y, -v], 1)])
+        # Fixed h33 = 1: ordinary least squares on the other eight columns.
+        ls = np.linalg.lstsq(a[:, :8], -a[:, 8], rcond=None)[0]
+        np.testing.assert_allclose(got.ravel()[:8], ls, atol=1e-9)
+        svd = np.linalg.svd(a)[2][-1]
+        np.testing.assert_allclose(got, (svd / svd[8]).reshape(3, 3), atol=tol)
+        if sigma == 0.0:
+            want = norm.t_dst() @ h @ norm.t_src_inv()
+            np.testing.assert_allclose(got, want / want[2, 2], atol=1e-9)
