@@ -442,7 +442,8 @@ def flow_parts(pts: np.ndarray, shape: tuple[int, ...], levels: int, win_size: i
     smoothing and the 3-tap gradients, and :data:`FLOW_REACH_PX` for the motion found;
     overlapping rectangles are merged. Their corners lie on multiples of ``2**levels``, so
     each pyramid level of a rectangle holds the same pixels as the whole frame's there:
-    inside it the flow is the whole frame's. ``shape`` is the frame's (height, width).
+    inside it the flow is the whole frame's, up to float32 rounding of the coordinates
+    (smaller numbers in a rectangle). ``shape`` is the frame's (height, width).
     """
     k = len(pts)
     if k == 0 or k > FLOW_PARTS_MAX_POINTS:
