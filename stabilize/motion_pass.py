@@ -190,8 +190,10 @@ class AnalysisPass:
         self.steps = 0
         self.prev_s = 0.0
         self.started_at = 0
-        # Frames from this index on are this pass's own to revise (see _hindsight).
+        # Frames from this index on are this pass's own to revise (see _hindsight); up to
+        # ``owned_until`` (exclusive) once it has handed over at a keyframe and follows through.
         self.owned_from = 0
+        self.owned_until = math.inf
         self.recent: deque[_Recent] = deque()
         self.begin_s = 0.0
         # Baseline slot times (seconds; NaN: not based yet) and the slot to re-base next.

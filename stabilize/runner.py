@@ -138,15 +138,21 @@ class ProgressCounter:
     Parameters
     ----------
     skip : counts to leave out first (work a later run repeats and does not keep).
+    cap : most counts passed on after the skipped ones (work past it is not kept either);
+        None: no cap.
     """
 
-    def __init__(self, skip: int = 0) -> None:
+    def __init__(self, skip: int = 0, cap: int | None = None) -> None:
         self.skip, self.pending, self.sent_at = skip, 0, time.monotonic()
+        self.left = cap
 
     def __call__(self, n: int) -> None:
         if self.skip:
             used = min(self.skip, n)
             self.skip, n = self.skip - used, n - used
+        if self.left is not None:
+            n = min(n, self.left)
+            self.left -= n
         self.pending += n
         if time.monotonic() - self.sent_at >= PROGRESS_EVERY_S:
             self.flush()

@@ -10,9 +10,11 @@ frames before the frame before it, so that its tracks arrive with a history of w
 with the scene). A single pass runs that second analysis alongside over the lead-in and hands
 over at the keyframe (:func:`single_pass_options`); a segment simply starts there and drops
 the lead-in's frames. The motion from frame k−1 to keyframe k is still measured, and every
-keyframe interval depends on its own frames and its lead-in only. Any grouping of intervals
-into segments, analysed in any order on any worker, gives the same log; so does one process
-going through them in turn.
+keyframe interval depends on its own frames, its lead-in and the next interval's first
+:func:`stabilize.motion.follow_through_frames` frames only (the analysis that hands over at
+a keyframe runs on over them to revise its own last frames, in a single pass as in a
+segment). Any grouping of intervals into segments, analysed in any order on any worker,
+gives the same log; so does one process going through them in turn.
 
 Per-frame random seeds are ``[seed, frame index in the clip]``, so a segment draws what a
 single pass draws at the same frames.
@@ -38,7 +40,7 @@ from .config import Settings
 from .errors import StabilizeError
 from .io import VideoInfo, iter_frame_range
 from .io.decode import DecodeStats
-from .motion import fit_motion, warm_up_frames
+from .motion import fit_motion, follow_through_frames, warm_up_frames
 from .motion_track import MotionTrack, fill_failed, stand_ins
 from .runner import ProgressCounter, default_workers, opencv_threads, parallel_map
 
@@ -148,8 +150,11 @@ def _fit_segment_frames(task: SegmentTask, on_frame: Callable[[int], None] | Non
                    decode_threads: int | None) -> SegmentResult:
     info = task.info
     read_from = lead_in_start(task.start, task.keyframe_every)
+    # Past the end, the frames the last analysis follows through on (their records dropped).
+    read_to = None if task.stop is None else \
+        task.stop + follow_through_frames(task.keyframe_every)
     stats = DecodeStats()
-    frames = iter_frame_range(task.clip, read_from, task.stop, size=task.analysis_size,
+    frames = iter_frame_range(task.clip, read_from, read_to, size=task.analysis_size,
                               gray=True, info=info, decode_threads=decode_threads, stats=stats)
     common = dict(full_size=(info.width, info.height), analysis_size=task.analysis_size,
                   settings=task.settings)
@@ -163,8 +168,9 @@ def _fit_segment_frames(task: SegmentTask, on_frame: Callable[[int], None] | Non
             track = fit_motion(itertools.chain([first], frames), on_frame=on_frame,
                                keyframe_every=task.keyframe_every, first_index=read_from,
                                **common)
-            if task.start > read_from and len(track.time_s):
-                track = track.select(slice(task.start - read_from, None))
+            stop = None if task.stop is None else task.stop - read_from
+            if (task.start > read_from or stop is not None) and len(track.time_s):
+                track = track.select(slice(task.start - read_from, stop))
             parts.append(track)
             regions += track.excluded.get("static_overlay", [])
     finally:
@@ -303,9 +309,11 @@ def fit_in_segments(clip: str | os.PathLike, info: VideoInfo, analysis_size: tup
 
 
 def _fit_segment_in_worker(task: SegmentTask) -> SegmentResult:
-    # A run after the first re-reads the frames before it (the lead-in), which it does not
-    # keep and so does not count.
-    counter = ProgressCounter(skip=task.start - lead_in_start(task.start, task.keyframe_every))
+    # A run after the first re-reads the frames before it (the lead-in), and a run before
+    # the last reads on past its end (the follow-through), which it does not keep and so
+    # does not count.
+    counter = ProgressCounter(skip=task.start - lead_in_start(task.start, task.keyframe_every),
+                              cap=None if task.stop is None else task.stop - task.start)
     try:
         return fit_segment(task, counter, single_thread=True)
     finally:

@@ -119,6 +119,12 @@ def test_progress_counter_skips_and_sends_in_batches(monkeypatch):
     counter.flush()
     counter.flush()  # nothing more to send
     assert sent == [(7, 3)]
+    # A run that reads on past its end (the follow-through) counts only its own frames.
+    capped = runner.ProgressCounter(skip=2, cap=4)
+    for n in (1, 3, 2, 1):
+        capped(n)
+    capped.flush()
+    assert sent == [(7, 3), (7, 4)]
 
 
 def test_dask_local_cluster_gives_the_same_log(long_clip, one_worker):
