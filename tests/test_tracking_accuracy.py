@@ -25,8 +25,8 @@ from stabilize.synthetic import (
 pytestmark = pytest.mark.slow
 
 
-def _encode(clip: SyntheticClip, path):
-    with VideoWriter(path, clip.width, clip.height, clip.spec.fps, crf=18,
+def _encode(clip: SyntheticClip, path, crf: int = 18):
+    with VideoWriter(path, clip.width, clip.height, clip.spec.fps, crf=crf,
                      preset="medium") as w:
         for _, f in clip.frames():
             w.write(f)
@@ -63,25 +63,30 @@ def test_moving_objects_and_telemetry_at_720p(tmp_path, level, limit):
     assert found and all(y + rh > strip_top for _, y, _, rh in found)
 
 
-@pytest.mark.parametrize("style, contrast", [("field", 0.15), ("truss", 0.08)])
-def test_hazy_scene_with_telemetry_holding_the_strong_corners(tmp_path, style, contrast):
+@pytest.mark.parametrize("style, contrast, crf", [("field", 0.15, 18), ("truss", 0.08, 18),
+                                                  ("truss", 0.08, 10)])
+def test_hazy_scene_with_telemetry_holding_the_strong_corners(tmp_path, style, contrast, crf):
     """A hazy, low-contrast scene (blended toward grey) under drone shake and a slow pan,
     with a full-contrast telemetry strip that holds most of the strong corners of the frame.
 
     Judged against the frame's strongest corner alone, nearly every corner lies on the strip
     and the fit follows it (measured before corners were also judged per cell: a median
-    error of 1.33 px, the strip not found)."""
+    error of 1.33 px, the strip not found). At CRF 10 the sensor noise survives the
+    encoding and raises the picture's median corner strength: with the noise floor at 10×
+    that median only the strip's corners were left (median error 1.65 px, every frame weak,
+    the strip not found; 0.059 px with the floor at 5×, measured)."""
     w, h = 640, 360
     spec = SceneSpec(style=style, width=w, height=h, fps=30.0, duration_s=8.0, seed=3,
                      noise_sigma=1.5, contrast=contrast, motion=MotionSpec(pan_px_s=12.0),
                      shake=ShakeSpec.drone(), telemetry=True)
     clip = SyntheticClip(spec)
-    path = _encode(clip, tmp_path / "haze.mp4")
+    path = _encode(clip, tmp_path / "haze.mp4", crf)
     log = stabilize.measure(path)
     err = grid_transfer_error(clip.ground_truth()["inter_frame"][1:], log.matrices[1:], w, h)
     print(f"grid transfer error px: median {np.median(err):.4f}, "
           f"p95 {np.percentile(err, 95):.4f}")
     assert np.median(err) <= 0.15
+    assert (log.status[1:] == "ok").mean() >= 0.95
     strip_top = clip.ground_truth()["telemetry_box"][1]
     found = log.extra["excluded"]["static_overlay"]
     assert found and all(y + rh > strip_top for _, y, _, rh in found)
