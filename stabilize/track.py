@@ -81,8 +81,7 @@ class TrackSettings:
     clips. On the real clips of ``tests/real`` the median live track lies over 1e-4 (4e-4
     or more on nine pairs in ten; their tracking is unchanged) except on ``bikes.mp4``'s
     pairs 9–24, a plain white roof over grey asphalt at 7e-5 to 9e-5, followed with the
-    wider window (measured
-    2026-12-05; the value is this project's choice).
+    wider window (measured 2026-12-05; the value is this project's choice).
     The spacing, window and levels were chosen on
     the synthetic accuracy clips of ``tests/test_tracking_accuracy.py`` for the least error
     per unit of time.
@@ -657,6 +656,7 @@ class Tracker:
               ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Lucas–Kanade from the previous frame to this one, then the checks: returns the
         tracked points (k, 2) float32, which passed (k,) bool, and the photometric error.
+        ``win``: the forward and backward windows (pixels, :meth:`_windows`).
 
         ``parts`` (:func:`flow_parts`): track each group of points on its rectangle of both
         frames only; the flow computes image gradients over the whole picture it is given,
@@ -687,7 +687,7 @@ class Tracker:
         """The flow of ``src`` (k, 2) float32, on the rectangle ``rect`` (x0, y0, x1, y1) of
         both frames or on the whole frames (None), and its backward check: the tracked
         points (frame coordinates), which were found and came back (k,) bool, and the
-        photometric error (k,)."""
+        photometric error (k,). ``win``: the forward and backward windows (pixels)."""
         s = self.settings
         criteria = (cv2.TERM_CRITERIA_EPS | cv2.TERM_CRITERIA_COUNT, s.lk_iterations,
                     s.lk_epsilon)
