@@ -39,7 +39,9 @@ from .still_detail import (
     find_detail,
     is_plain,
     judge,
+    on_surround,
     patch_agreement,
+    surround_grey,
 )
 from .track import (
     Pairs,
@@ -339,6 +341,13 @@ class AnalysisPass:
                 # puts them and so move "with" any fit.
                 at = np.flatnonzero(with_fit)
                 at = at[lone_tracks(pairs.dst[at], LONE_CELLS * cell, among=with_scene)]
+                if len(at) >= LONE_TRACKS:
+                    # ... standing on the plain picture itself, not on an object's face.
+                    grey = surround_grey(image, pairs.dst[with_fit],
+                                         self.overlays.mask(ctx.user_mask),
+                                         tracker.settings.grid)
+                    if grey is not None:
+                        at = at[on_surround(image, pairs.dst[at], grey)]
                 if len(at) >= LONE_TRACKS:
                     same = patch_agreement(tracker.frames[0], image, pairs.src[at],
                                            pairs.dst[at])

@@ -42,7 +42,12 @@ import numpy as np
 from .track import TrackSettings, corner_strength, strength_map
 
 __all__ = ["StillDetail", "StillDetailSettings", "StillVotes", "find_detail", "is_plain",
-           "judge", "patch_agreement", "spread_maxima"]
+           "judge", "on_surround", "patch_agreement", "spread_maxima", "surround_grey"]
+
+
+# Points of a mark's ring that may fall outside the plain picture's grey range (a speck
+# of noise or a neighbouring mark's blur); this project's choice.
+RING_SLACK = 1
 
 
 @dataclass(frozen=True)
@@ -67,7 +72,10 @@ class StillDetailSettings:
     tracks is plain when, on a copy blurred by a Gaussian of that sigma (pixels), 99 % of
     its pixels change by less than that many grey levels per pixel (:func:`is_plain`).
     This project's own values, tried on drawn walls and on the real clips of
-    ``tests/real`` (common practice, no source)."""
+    ``tests/real`` (common practice, no source). ``surface_grey``: a lone mark stands on
+    the plain picture away from the tracks when the grey level of the ring around it, twice
+    ``half`` out, lies within that picture's own range widened by this many grey levels
+    (:func:`on_surround`)."""
 
     max_corners: int = 60
     spacing_frac: float = 1.0 / 64.0
@@ -84,6 +92,7 @@ class StillDetailSettings:
     release_votes: int = 3
     plain_blur_px: float = 1.5
     plain_grey_per_px: float = 1.0
+    surface_grey: float = 8.0
 
 
 @dataclass(frozen=True)
@@ -213,6 +222,61 @@ def is_plain(gray: np.ndarray, tracks: np.ndarray, usable: np.ndarray | None,
     gy = cv2.Sobel(g, cv2.CV_32F, 0, 1, ksize=3)
     mag = np.hypot(gx[away], gy[away]) / 8.0
     return bool(np.percentile(mag, 99) <= settings.plain_grey_per_px)
+
+
+def surround_grey(gray: np.ndarray, tracks: np.ndarray, usable: np.ndarray | None,
+                  grid: tuple[int, int],
+                  settings: StillDetailSettings = StillDetailSettings()
+                  ) -> tuple[float, float] | None:
+    """The range of grey levels of the picture away from the hull of ``tracks`` (as in
+    :func:`is_plain`, on the same blurred copy): Tukey's inner fences, the quartiles
+    widened by 1.5 times their distance (J. W. Tukey, Exploratory Data Analysis, 1977;
+    from memory), grey levels; None when no pixel lies away from the tracks.
+
+    A plain wall's range spans its lighting gradient (the fences take in the whole of an
+    even spread of levels); an object's plain face of another shade lies outside it, even
+    when part of that face lies away from the tracks too: with percentiles (5th and 95th)
+    the margin of a dark board past its sparse highlights stretched a bare wall's range
+    from 142–167 down to 40 on a drawn clip (measured)."""
+    h, w = gray.shape
+    away = ~_beside(tracks, (w, h), grid)
+    if usable is not None:
+        away &= usable > 0
+    if not away.any():
+        return None
+    g = cv2.GaussianBlur(gray.astype(np.float32), (0, 0), settings.plain_blur_px)
+    q1, q3 = np.percentile(g[away], [25.0, 75.0])
+    return float(q1 - 1.5 * (q3 - q1)), float(q3 + 1.5 * (q3 - q1))
+
+
+def on_surround(gray: np.ndarray, pts: np.ndarray, grey: tuple[float, float],
+                settings: StillDetailSettings = StillDetailSettings()) -> np.ndarray:
+    """Which marks ``pts`` (k, 2, analysis pixels) stand on the plain picture whose grey
+    range is ``grey`` (:func:`surround_grey`): (k,) bool, True when the grey levels of 16
+    points on a circle of radius 2·``half`` around the mark (blurred copy, as there) lie
+    within that range widened by ``surface_grey``, all but :data:`RING_SLACK` of them.
+
+    A mark of a bare wall is ringed by the wall all round. A bright spot on a dark object is
+    ringed by the object's face, which is no part of the wall even when it is plain too, and
+    an object's corner against the wall partly so: either speaks for the object's motion,
+    not for the wall's (a drawn dark board dotted with highlights, waved before a still
+    camera and a bare wall, otherwise confirmed its own motion as the camera's by its dots
+    and its corners, 40–120 px, measured). Points whose ring leaves the frame are judged on
+    the part inside."""
+    if not len(pts):
+        return np.zeros(0, bool)
+    h, w = gray.shape
+    g = cv2.GaussianBlur(gray.astype(np.float32), (0, 0), settings.plain_blur_px)
+    a = np.linspace(0.0, 2.0 * np.pi, 16, endpoint=False)
+    r = 2.0 * settings.half
+    xs = np.rint(pts[:, 0:1] + r * np.cos(a)).astype(int)
+    ys = np.rint(pts[:, 1:2] + r * np.sin(a)).astype(int)
+    inside = (xs >= 0) & (xs < w) & (ys >= 0) & (ys < h)
+    ring = g[np.clip(ys, 0, h - 1), np.clip(xs, 0, w - 1)]
+    lo, hi = grey
+    fits = (ring >= lo - settings.surface_grey) & (ring <= hi + settings.surface_grey)
+    n_in = np.count_nonzero(inside, axis=1)
+    return (n_in > 0) & (np.count_nonzero(fits & inside, axis=1) >= n_in - RING_SLACK)
 
 
 def judge(detail: StillDetail, gray: np.ndarray, motion: np.ndarray, tracks: np.ndarray,

@@ -15,8 +15,10 @@ from stabilize.still_detail import (
     find_detail,
     is_plain,
     judge,
+    on_surround,
     patch_agreement,
     spread_maxima,
+    surround_grey,
 )
 from stabilize.track import corner_strength, track_settings_for
 
@@ -96,6 +98,47 @@ def test_a_bare_wall_is_plain_and_a_defocused_post_is_not():
     usable = np.full(img.shape, 255, np.uint8)
     usable[:, 500:] = 0
     assert is_plain(img, tracks, usable, SETTINGS.grid)
+
+
+def _dark_board(wall: np.ndarray, at: tuple[int, int] = (200, 110)):
+    """A frame with a dark board (grey 40) dotted with bright spots in front of ``wall``:
+    the frame (uint8), the spots' centres and the board's four corners, pixels."""
+    bx, by, bw, bh = BOARD
+    img = wall.copy()
+    x0, y0 = at
+    img[y0:y0 + bh, x0:x0 + bw] = 40.0
+    spots = np.array([[x0 + 40, y0 + 30], [x0 + 170, y0 + 45], [x0 + 90, y0 + 100],
+                      [x0 + 200, y0 + 115]], float)
+    for x, y in spots:
+        cv2.circle(img, (int(x), int(y)), 4, 200.0, -1, cv2.LINE_AA)
+    corners = np.array([[x0, y0], [x0 + bw - 1, y0], [x0, y0 + bh - 1],
+                        [x0 + bw - 1, y0 + bh - 1]], float)
+    noise = np.random.default_rng(4).normal(0, 1.5, img.shape)
+    return np.clip(img + noise, 0, 255).astype(np.uint8), spots, corners
+
+
+def test_the_surround_range_is_the_walls_even_with_a_dark_margin_away_from_the_tracks():
+    """The grey range of the picture away from the tracks spans the wall's lighting
+    gradient (150–170 left to right, 10 levels top to bottom), not the margin of the
+    dark board that lies past its spots' hull."""
+    img, spots, _ = _dark_board(_wall(marks=()))
+    lo, hi = surround_grey(img, spots, None, SETTINGS.grid)
+    assert 100.0 < lo < 145.0 and 165.0 < hi < 200.0, (lo, hi)
+    assert surround_grey(img, np.array([[-1e4, -1e4], [1e4, -1e4], [0.0, 1e4]]), None,
+                         SETTINGS.grid) is None
+
+
+def test_marks_of_the_wall_stand_on_it_and_an_objects_spots_and_corners_do_not():
+    """A wall's own marks are ringed by the wall all round; a bright spot on a dark board
+    by the board's face, and the board's corner partly: neither stands on the wall."""
+    img, spots, corners = _dark_board(_wall())
+    grey = surround_grey(img, spots, None, SETTINGS.grid)
+    assert on_surround(img, np.asarray(MARKS, float), grey).all()
+    assert not on_surround(img, spots, grey).any()
+    assert not on_surround(img, corners, grey).any()
+    # A point of the wall at the frame's edge is judged on the part of its ring inside.
+    assert on_surround(img, np.array([[0.0, 200.0]]), grey).all()
+    assert on_surround(img, np.zeros((0, 2)), grey).shape == (0,)
 
 
 def test_no_detail_is_looked_for_when_the_tracks_cover_the_picture():

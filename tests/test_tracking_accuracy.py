@@ -250,10 +250,12 @@ def test_fast_pan_is_followed(tmp_path):
 
 
 def _plain_wall_clip(path, *, n: int = 240, seed: int = 0, cover: float = 0.45,
-                     amp_px: float = 120.0, camera_px: float = 0.0):
-    """A camera (640×360, 30 fps) facing a plain wall (a faint lighting gradient, six faint
-    marks, sensor noise σ 1.5) while a densely textured board covering ``cover`` of the
-    frame is waved in front of it (±``amp_px`` across, 0.7 Hz). With ``camera_px`` the
+                     amp_px: float = 120.0, camera_px: float = 0.0, marks: int = 6,
+                     board: str = "textured"):
+    """A camera (640×360, 30 fps) facing a plain wall (a faint lighting gradient, ``marks``
+    faint marks, sensor noise σ 1.5) while a board covering ``cover`` of the frame is
+    waved in front of it (±``amp_px`` across, 0.7 Hz): densely ``"textured"``, or
+    ``"dotted"`` (a dark face with 15 bright spots of 2–7 px radius). With ``camera_px`` the
     board is held still on the wall and the camera moves instead (±``camera_px`` across at
     0.6 Hz, a third of that up and down at 1.3 Hz, sub-pixel); the true inter-frame shifts
     (n, 2) are returned with the path, pixels. Procedurally drawn."""
@@ -261,12 +263,20 @@ def _plain_wall_clip(path, *, n: int = 240, seed: int = 0, cover: float = 0.45,
     w, h = 640, 360
     yy, xx = np.mgrid[0:h, 0:w].astype(np.float32)
     wall = np.repeat((150 + 20 * xx / w - 10 * yy / h)[..., None], 3, axis=2)
-    for _ in range(6):
+    for _ in range(marks):
         x, y = (int(v) for v in rng.integers(20, (w - 20, h - 20)))
         cv2.circle(wall, (x, y), int(rng.integers(2, 5)), (130, 130, 130), -1, cv2.LINE_AA)
     bw, bh = int(np.sqrt(cover) * w * 0.8), int(np.sqrt(cover) * h * 1.2)
-    board = cv2.resize(rng.integers(0, 255, (bh // 6 + 1, bw // 6 + 1, 3)).astype(np.uint8),
-                       (bw, bh), interpolation=cv2.INTER_CUBIC)
+    if board == "textured":
+        board = cv2.resize(rng.integers(0, 255, (bh // 6 + 1, bw // 6 + 1, 3)
+                                        ).astype(np.uint8), (bw, bh),
+                           interpolation=cv2.INTER_CUBIC)
+    else:
+        board = np.full((bh, bw, 3), 40, np.uint8)
+        for _ in range(15):
+            x, y = (int(v) for v in rng.integers(8, (bw - 8, bh - 8)))
+            cv2.circle(board, (x, y), int(rng.integers(2, 8)), (int(rng.integers(60, 200)),) * 3,
+                       -1, cv2.LINE_AA)
     amp = 0.0 if camera_px else amp_px
     t = np.arange(n) / 30.0
     cam = np.c_[camera_px * np.sin(2 * np.pi * 0.6 * t),
@@ -303,6 +313,30 @@ def test_still_camera_before_a_plain_wall_with_a_board_waved_in_front(tmp_path):
     held = log.extra["frame_reasons"].get("held_still", [])
     assert (log.status[held] == "weak").all()
     assert len(held) > 0.5 * len(log.status)
+
+
+@pytest.mark.parametrize("marks, seed, amp_px", [(0, 55, 40.0), (2, 54, 120.0)])
+def test_still_camera_before_a_bare_wall_with_a_dark_dotted_board_waved_in_front(
+        tmp_path, marks, seed, amp_px):
+    """A still camera, a wall with no marks or two, a dark board dotted with bright spots
+    (no texture between them) waved in front. Each spot is a mark apart from the others,
+    and the board's corners stand alone against the wall: marks apart from an object
+    confirm a fit as the camera's only when they stand on the plain wall itself. Nothing
+    else tells this board from a dark structure before a bare wall, so the camera path must
+    stay within 2 px of zero and the frames must say they could not be confirmed.
+
+    Before, the spots and corners confirmed the board's motion: the path followed it by 40
+    px (no marks, ±40 px waved, every frame ``ok``, trust ``sound``) and 120 px (two marks,
+    41 frames ``ok``)."""
+    clip, _ = _plain_wall_clip(tmp_path / "dotted board.mp4", seed=seed, marks=marks,
+                               amp_px=amp_px, board="dotted")
+    log = stabilize.measure(clip)
+    path = np.abs(log.readouts()["path"][:, :2]).max(axis=1)
+    print(f"largest camera path offset: {path.max():.4f} px; statuses "
+          f"{dict(zip(*np.unique(log.status, return_counts=True), strict=True))}")
+    assert path.max() < 2.0, f"path strays {path.max():.1f} px"
+    assert (log.status[1:] == "weak").mean() > 0.9
+    assert log.summary["trust"] == "unreliable"
 
 
 def test_camera_moving_over_a_plain_wall_with_a_board_fixed_to_it(tmp_path):
