@@ -335,7 +335,7 @@ class AnalysisPass:
             surround = self._surround(votes)
             lone = False
             # Counted only where they can decide (the count is quadratic in the tracks).
-            if surround == "plain" or (self.doubt and surround == "unknown"):
+            if surround == "plain" or (self.doubt and surround in ("unknown", "textured")):
                 # ... and only when they are marks at all: on a bare wall the tracker also
                 # keeps a few points of noise, which land wherever the predicted motion
                 # puts them and so move "with" any fit.
@@ -358,11 +358,13 @@ class AnalysisPass:
             judged = (lone and with_scene is not None) or surround in ("plain", "detail")
             # Once a frame is unconfirmed, the frames that nothing can judge (the object
             # covers most of the picture, or stops) stay so until something confirms a fit:
-            # detail moving with it, lone marks, or a picture away from the tracks that is
-            # not plain.
-            unconfirmed = not lone and (surround == "plain"
-                                        or (self.doubt and surround == "unknown"))
-            if lone or surround == "textured" or (votes is not None and votes.supported):
+            # detail moving with it, or lone marks. A rest that is not plain but offers no
+            # corner confirms nothing: it may be the object's own outline, run past its
+            # tracks to the frame's edge (a dark board dotted with highlights, before a bare
+            # wall: 6–25 frames at a time then followed the board, measured).
+            unconfirmed = not lone and (surround == "plain" or (
+                self.doubt and surround in ("unknown", "textured")))
+            if lone or (votes is not None and votes.supported):
                 self.doubt = False
             elif unconfirmed:
                 self.doubt = True

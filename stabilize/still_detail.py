@@ -92,7 +92,7 @@ class StillDetailSettings:
     release_votes: int = 3
     plain_blur_px: float = 1.5
     plain_grey_per_px: float = 1.0
-    surface_grey: float = 8.0
+    surface_grey: float = 3.0
 
 
 @dataclass(frozen=True)
