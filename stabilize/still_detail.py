@@ -210,13 +210,10 @@ def is_plain(gray: np.ndarray, tracks: np.ndarray, usable: np.ndarray | None,
     0.4–0.5; the defocused foreground of a real street shot: 2.6; measured); False when
     no pixel lies away from the tracks.
     """
-    h, w = gray.shape
-    away = ~_beside(tracks, (w, h), grid)
-    if usable is not None:
-        away &= usable > 0
-    if not away.any():
+    rest = _rest(gray, tracks, usable, grid, settings)
+    if rest is None:
         return False
-    g = cv2.GaussianBlur(gray.astype(np.float32), (0, 0), settings.plain_blur_px)
+    away, g = rest
     # The 3×3 Sobel kernel weighs a one-pixel step by 8 (its central row 2, both sides).
     gx = cv2.Sobel(g, cv2.CV_32F, 1, 0, ksize=3)
     gy = cv2.Sobel(g, cv2.CV_32F, 0, 1, ksize=3)
@@ -238,13 +235,10 @@ def surround_grey(gray: np.ndarray, tracks: np.ndarray, usable: np.ndarray | Non
     when part of that face lies away from the tracks too: with percentiles (5th and 95th)
     the margin of a dark board past its sparse highlights stretched a bare wall's range
     from 142–167 down to 40 on a drawn clip (measured)."""
-    h, w = gray.shape
-    away = ~_beside(tracks, (w, h), grid)
-    if usable is not None:
-        away &= usable > 0
-    if not away.any():
+    rest = _rest(gray, tracks, usable, grid, settings)
+    if rest is None:
         return None
-    g = cv2.GaussianBlur(gray.astype(np.float32), (0, 0), settings.plain_blur_px)
+    away, g = rest
     q1, q3 = np.percentile(g[away], [25.0, 75.0])
     return float(q1 - 1.5 * (q3 - q1)), float(q3 + 1.5 * (q3 - q1))
 
@@ -394,6 +388,21 @@ def spread_maxima(strength: np.ndarray, floor: float, spacing: float, count: int
 
 #: Cell size (analysis pixels) of the coarse mask of where the tracks are.
 _CELL = 4
+
+
+def _rest(gray: np.ndarray, tracks: np.ndarray, usable: np.ndarray | None,
+          grid: tuple[int, int], settings: StillDetailSettings
+          ) -> tuple[np.ndarray, np.ndarray] | None:
+    """The picture away from the hull of ``tracks`` (:func:`_beside`) and usable: its mask
+    (h, w) bool and the frame ``gray`` blurred by ``plain_blur_px`` (h, w) float32; None
+    when no pixel lies there."""
+    h, w = gray.shape
+    away = ~_beside(tracks, (w, h), grid)
+    if usable is not None:
+        away &= usable > 0
+    if not away.any():
+        return None
+    return away, cv2.GaussianBlur(gray.astype(np.float32), (0, 0), settings.plain_blur_px)
 
 
 def _beside(tracks: np.ndarray, size: tuple[int, int], grid: tuple[int, int]) -> np.ndarray:
