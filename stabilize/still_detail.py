@@ -73,8 +73,8 @@ class StillDetailSettings:
     its pixels change by less than that many grey levels per pixel (:func:`is_plain`).
     This project's own values, tried on drawn walls and on the real clips of
     ``tests/real`` (common practice, no source). ``surface_grey``: a lone mark stands on
-    the plain picture away from the tracks when the grey level of the ring around it, twice
-    ``half`` out, lies within that picture's own range widened by this many grey levels
+    the plain picture away from the tracks when the grey levels of a ring around it, twice
+    ``half`` out, lie within that picture's own range widened by this many grey levels
     (:func:`on_surround`)."""
 
     max_corners: int = 60
