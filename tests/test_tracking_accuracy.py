@@ -268,14 +268,14 @@ def _plain_wall_clip(path, *, n: int = 240, seed: int = 0, cover: float = 0.45,
         cv2.circle(wall, (x, y), int(rng.integers(2, 5)), (130, 130, 130), -1, cv2.LINE_AA)
     bw, bh = int(np.sqrt(cover) * w * 0.8), int(np.sqrt(cover) * h * 1.2)
     if board == "textured":
-        board = cv2.resize(rng.integers(0, 255, (bh // 6 + 1, bw // 6 + 1, 3)
+        face = cv2.resize(rng.integers(0, 255, (bh // 6 + 1, bw // 6 + 1, 3)
                                         ).astype(np.uint8), (bw, bh),
                            interpolation=cv2.INTER_CUBIC)
     else:
-        board = np.full((bh, bw, 3), 40, np.uint8)
+        face = np.full((bh, bw, 3), 40, np.uint8)
         for _ in range(15):
             x, y = (int(v) for v in rng.integers(8, (bw - 8, bh - 8)))
-            cv2.circle(board, (x, y), int(rng.integers(2, 8)), (int(rng.integers(60, 200)),) * 3,
+            cv2.circle(face, (x, y), int(rng.integers(2, 8)), (int(rng.integers(60, 200)),) * 3,
                        -1, cv2.LINE_AA)
     amp = 0.0 if camera_px else amp_px
     t = np.arange(n) / 30.0
@@ -287,7 +287,7 @@ def _plain_wall_clip(path, *, n: int = 240, seed: int = 0, cover: float = 0.45,
             x0 = int(w / 2 + amp * np.sin(2 * np.pi * 0.7 * t[i]) - bw / 2)
             y0 = int(h / 2 + 0.4 * amp * np.sin(2 * np.pi * 1.1 * t[i] + 1.0) - bh / 2)
             xs, ys, xe, ye = max(0, x0), max(0, y0), min(w, x0 + bw), min(h, y0 + bh)
-            img[ys:ye, xs:xe] = board[ys - y0:ye - y0, xs - x0:xe - x0]
+            img[ys:ye, xs:xe] = face[ys - y0:ye - y0, xs - x0:xe - x0]
             if camera_px:
                 m = np.float32([[1, 0, cam[i, 0]], [0, 1, cam[i, 1]]])
                 img = cv2.warpAffine(img, m, (w, h), flags=cv2.INTER_CUBIC,
