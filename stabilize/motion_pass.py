@@ -438,14 +438,14 @@ class AnalysisPass:
             self.recent.append(_Recent(index, time_s, src, dst, pairs.ids, pairs.background,
                                        use, record, grouping is None, judged=judged))
             if self.releasing or (votes is not None and votes.supported):
-                self.releasing.append((record, fit.matrix, fit.weak))
+                self.releasing.append((record, fit.matrix, fit.weak or fit.bunched))
             return record
         self.prior = fit.matrix
         tracker.update(support, memo)
         if self.overlays.observe(pairs.src, pairs.dst, rescale(fit.matrix, scale)):
             tracker.set_mask(self.overlays.mask(ctx.user_mask))
             self.overlays_found = True
-        if fit.weak:
+        if fit.weak or fit.bunched:
             record = FrameRecord(fit.matrix, d, "weak", "few_inliers")
         elif unconfirmed:
             # Told to follow (a tower before a clear sky from a moving drone): the fit
@@ -621,8 +621,10 @@ class AnalysisPass:
                 transfer_error(fit.matrix, r.src, r.dst) < settings.inlier_px))
             rec.diag = (len(r.src), n_in, n_in / len(r.src), fit.rms_px,
                         rec.diag[4] + fit.rounds)
-            if rec.status == "weak" and not fit.weak:
+            if rec.status == "weak" and not (fit.weak or fit.bunched):
                 rec.status, rec.reason = "ok", ""
+            elif rec.status == "ok" and fit.bunched:
+                rec.status, rec.reason = "weak", "few_inliers"
 
     def _hindsight(self, scene_ids: np.ndarray, moved_ids: np.ndarray,
                    region: np.ndarray) -> None:
@@ -684,6 +686,8 @@ class AnalysisPass:
             if after <= REVISE_GAIN * before:
                 r.record.matrix = fit.matrix
                 r.used = keep
+                if fit.bunched:
+                    r.record.status, r.record.reason = "weak", "few_inliers"
 
 
 def lone_tracks(pts: np.ndarray, radius: float, company: int = LONE_COMPANY,

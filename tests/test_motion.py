@@ -7,7 +7,7 @@ from stabilize import motion_pass
 from stabilize.anchors import hull_share
 from stabilize.config import Settings
 from stabilize.cuts import CutSettings, aligned_correlation, collapsed, is_cut, is_textureless
-from stabilize.frame_fit import fit_frame
+from stabilize.frame_fit import bunched, fit_frame
 from stabilize.geometry import from_similarity, to_similarity
 from stabilize.io import VideoWriter, iter_frames, probe
 from stabilize.io.decode import analysis_size
@@ -57,6 +57,32 @@ def test_history_keeps_the_background_when_spread_cannot_tell():
     fit = fit_frame(src, dst, history, model=SIMILARITY, settings=Settings(), seed=[0, 2],
                     prior=None, frame_size=(W, H))
     np.testing.assert_allclose(fit.matrix[:2, 2], 0.0, atol=0.02)
+
+
+def test_a_fit_that_rests_on_a_strip_of_its_inliers_is_bunched():
+    # A still strip along the bottom edge (a burnt-in caption) and tracks of noise over the
+    # rest, all within the 1.5 px threshold of no motion: the consensus's inliers spread over
+    # the frame, but the refit to the tracking noise keeps the strip alone.
+    rng = np.random.default_rng(3)
+    strip = np.c_[rng.uniform(0, W, 80), rng.uniform(H - 14, H - 4, 80)]
+    rest = np.c_[rng.uniform(0, W, 40), rng.uniform(0, H - 40, 40)]
+    src = np.concatenate([strip, rest])
+    dst = src + np.concatenate([rng.normal(0, 0.02, strip.shape), rng.normal(0, 0.4, rest.shape)])
+    fit = fit_frame(src, dst, np.full(len(src), 0.5), model=SIMILARITY, settings=Settings(),
+                    seed=[0, 4], prior=None, frame_size=(W, H))
+    assert fit.inliers[80:].mean() > 0.9 and not fit.weak
+    assert fit.support[:80].mean() > 0.9 and fit.support[80:].mean() < 0.2
+    assert fit.bunched
+    # The same rest moving with the strip as precisely spreads the fit's support again.
+    dst[80:] = src[80:] + rng.normal(0, 0.02, rest.shape)
+    fit = fit_frame(src, dst, np.full(len(src), 0.5), model=SIMILARITY, settings=Settings(),
+                    seed=[0, 4], prior=None, frame_size=(W, H))
+    assert not fit.bunched and not fit.weak
+    # Points in fewer than five of the 4 × 4 cells are bunched; in five, not.
+    assert bunched(np.array([[10.0, 350.0], [200.0, 350.0], [400.0, 350.0], [630.0, 350.0]]),
+                   (W, H))
+    assert not bunched(np.array([[10.0, 350.0], [200.0, 350.0], [400.0, 350.0],
+                                 [630.0, 350.0], [10.0, 10.0]]), (W, H))
 
 
 def test_transfer_error_and_hull_share():

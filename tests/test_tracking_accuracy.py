@@ -102,7 +102,10 @@ def test_hazy_scene_below_the_noise_is_called_unreliable(tmp_path):
     126 of 239 frames weak, measured 2026-12-05). With the faint picture's wider tracking
     window it reads 0.33 px (73 frames weak; the `ok` frames 0.25 px, a tenth of them over
     1.3 px). The run must not give those figures as a measurement: the clip's verdict is
-    `unreliable`, with its reasons."""
+    `unreliable`, with its reasons. Nor one by one: most of those wrong `ok` frames rested
+    on the strip's still tracks alone, which the consensus's spread test, made on looser
+    inliers, let pass; judged on the pairs the motion was fitted on, they are `weak`
+    (2 of the 145 `ok` frames over 1.3 px, 9 over 0.5 px; before, 17 of 166 and 30)."""
     w, h = 640, 360
     spec = SceneSpec(style="truss", width=w, height=h, fps=30.0, duration_s=8.0, seed=1,
                      noise_sigma=1.5, contrast=0.05, motion=MotionSpec(pan_px_s=12.0),
@@ -115,6 +118,8 @@ def test_hazy_scene_below_the_noise_is_called_unreliable(tmp_path):
     if np.median(err) > 0.15:
         assert log.summary["trust"] == "unreliable", log.summary["trust_reasons"]
         assert log.summary["trust_reasons"]
+    ok = log.status[1:] == "ok"
+    assert np.mean(err[ok] > 1.3) <= 0.03, f"{np.count_nonzero(err[ok] > 1.3)} of {ok.sum()}"
 
 
 def test_frames_fitted_before_a_strip_is_found_are_refitted_without_it(tmp_path):
