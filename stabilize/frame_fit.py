@@ -50,8 +50,8 @@ class FrameFit:
     ``inliers`` are the pairs within the user's threshold; ``tight`` those within the
     measured tracking noise, on which the matrix was finally fitted. ``weak`` is the
     consensus's judgement of its inliers (few, or bunched); ``bunched``: the pairs the matrix
-    was finally fitted on lie in a small part of the frame (:func:`bunched`), though the
-    inliers spread further.
+    was finally fitted on lie in a small part of the frame (:func:`bunched`), whether or not
+    the inliers spread further.
     """
 
     matrix: np.ndarray
