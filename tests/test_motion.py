@@ -15,7 +15,7 @@ from stabilize.io.frames import Frame
 from stabilize.motion import fit_motion
 from stabilize.motion_models import SIMILARITY, transfer_error
 from stabilize.motion_track import LOG_COLUMNS, MotionTrack, fill_failed
-from stabilize.overlays import OverlayFinder, still_band
+from stabilize.overlays import OverlayFinder, OverlaySettings, still_band
 from stabilize.synthetic import Mover, SceneSpec, SyntheticClip
 
 W, H = 640, 360
@@ -136,6 +136,31 @@ def test_still_band_along_an_edge_against_a_moving_scene_is_an_overlay():
     side = np.c_[rng.uniform(0, 0.1 * W, 60), rng.uniform(0, H, 60)]
     assert still_band(np.concatenate([scene, side]), np.concatenate([scene + 2.0, side]),
                       still, ~still, spread, (W, H))
+
+
+def test_a_still_line_beside_a_scene_spanning_the_frame_is_an_overlay():
+    # A hazy scene's few tracks along a girder across the middle: their hull covers a tenth
+    # of the frame, too little for a band, enough beside a thin line of burnt-in text.
+    rng = np.random.default_rng(6)
+    scene = np.c_[rng.uniform(10, W - 10, 50), rng.uniform(0.4 * H, 0.65 * H, 50)]
+    line = np.c_[rng.uniform(15, 0.6 * W, 50), rng.uniform(H - 13, H - 8, 50)]
+    start = np.concatenate([scene, line])
+    now = np.concatenate([scene + [2.0, 1.5], line + rng.normal(0, 0.005, (50, 2))])
+    still = np.r_[np.zeros(50, bool), np.ones(50, bool)]
+    spread = hull_share(now[~still], (W, H))
+    assert 0.1 <= spread < OverlaySettings().band_spread
+    assert still_band(start, now, still, ~still, spread, (W, H))
+    # Not beside an object that spans half the frame's width (a board held before a fixed
+    # camera whose only other detail is a skirting line), nor when the still group is a band
+    # a tenth of the frame thick, nor when the moving group's hull is smaller still.
+    narrow = np.c_[rng.uniform(0.25 * W, 0.75 * W, 50), rng.uniform(0.2 * H, 0.75 * H, 50)]
+    assert hull_share(narrow, (W, H)) < OverlaySettings().band_spread
+    assert not still_band(np.concatenate([narrow, line]), np.concatenate([narrow + 2.0, now[50:]]),
+                          still, ~still, hull_share(narrow, (W, H)), (W, H))
+    thick = np.c_[line[:, 0], rng.uniform(0.9 * H, H - 1, 50)]
+    assert not still_band(np.concatenate([scene, thick]), np.concatenate([now[:50], thick]),
+                          still, ~still, spread, (W, H))
+    assert not still_band(start, now, still, ~still, 0.05, (W, H))
 
 
 def test_band_votes_need_many_frames():

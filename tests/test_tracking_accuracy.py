@@ -95,17 +95,19 @@ def test_hazy_scene_with_telemetry_holding_the_strong_corners(tmp_path, style, c
     assert found and all(y + rh > strip_top for _, y, _, rh in found)
 
 
-def test_hazy_scene_below_the_noise_is_called_unreliable(tmp_path):
+def test_hazy_scene_at_the_noise_is_measured_roughly_and_called_so(tmp_path):
     """The hazy truss blended further toward grey (contrast 0.05): after H.264 at CRF 18 its
-    rows vary by about 1.5 grey levels, the size of the sensor noise, so its motion cannot
-    be measured and the log read the strip (median error 1.65 px, the strip not found,
-    126 of 239 frames weak, measured 2026-12-05). With the faint picture's wider tracking
-    window it reads 0.33 px (73 frames weak; the `ok` frames 0.25 px, a tenth of them over
-    1.3 px). The run must not give those figures as a measurement: the clip's verdict is
-    `unreliable`, with its reasons. Nor one by one: most of those wrong `ok` frames rested
-    on the strip's still tracks alone, which the consensus's spread test, made on looser
-    inliers, let pass; judged on the pairs the motion was fitted on, they are `weak`
-    (2 of the 145 `ok` frames over 1.3 px, 9 over 0.5 px; before, 17 of 166 and 30)."""
+    rows vary by about 1.5 grey levels, the size of the sensor noise. The log read the strip
+    (median error 1.65 px, the strip not found, 126 of 239 frames weak, measured 2026-12-05);
+    with the faint picture's wider tracking window 0.33 px (73 frames weak, verdict
+    `unreliable`); with the text found as a line beside the scene's thin spread of tracks
+    (``OverlaySettings.line_span``), 0.27 px, 48 frames weak (measured 2026-12-05). The run
+    must not give those figures as a sound measurement: the clip's verdict is at least
+    `rough` (20 % of frames weak), with its reasons. Nor one by one: most of the wrong `ok`
+    frames rested on the strip's still tracks alone, which the consensus's spread test, made
+    on looser inliers, let pass; judged on the pairs the motion was fitted on, they are
+    `weak` (2 of the 145 `ok` frames over 1.3 px, 9 over 0.5 px; before, 17 of 166 and 30;
+    with the line rule none of 191, and 10)."""
     w, h = 640, 360
     spec = SceneSpec(style="truss", width=w, height=h, fps=30.0, duration_s=8.0, seed=1,
                      noise_sigma=1.5, contrast=0.05, motion=MotionSpec(pan_px_s=12.0),
@@ -115,8 +117,9 @@ def test_hazy_scene_below_the_noise_is_called_unreliable(tmp_path):
     err = grid_transfer_error(clip.ground_truth()["inter_frame"][1:], log.matrices[1:], w, h)
     print(f"median {np.median(err):.4f} px; weak {(log.status == 'weak').sum()}; "
           f"trust {log.summary['trust']}: {log.summary['trust_reasons']}")
+    assert np.median(err) <= 0.3
     if np.median(err) > 0.15:
-        assert log.summary["trust"] == "unreliable", log.summary["trust_reasons"]
+        assert log.summary["trust"] in ("rough", "unreliable"), log.summary["trust_reasons"]
         assert log.summary["trust_reasons"]
     ok = log.status[1:] == "ok"
     assert np.mean(err[ok] > 1.3) <= 0.03, f"{np.count_nonzero(err[ok] > 1.3)} of {ok.sum()}"
