@@ -49,7 +49,8 @@ class OverlaySettings:
     its text line after 3.5 s, 17 frames of evidence in 239; with the line rule after 41
     frames, and its median error fell from 0.49 to 0.33 px, measured 2026-12-05). A real
     background that thin along an edge, with nothing else still in view, would be taken for
-    an overlay; a moving object must then also span three quarters of the frame.
+    an overlay; a moving object must then also span three quarters of the frame (a skirting
+    line below a board waved before a fixed camera: DEVELOPERS.md, Known limits).
 
     These values are this project's own choices (common practice, no source).
     """
