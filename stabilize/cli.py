@@ -8,7 +8,9 @@ print one line and exit with status 2; an interruption exits with 130.
 from __future__ import annotations
 
 import argparse
+import faulthandler
 import logging
+import os
 import re
 import signal
 import sys
@@ -33,8 +35,8 @@ from .jobs import measure_to_file, render, steady
 from .report_page import dominant_text, fmt_sig, hz_text
 from .version import __version__
 
-__all__ = ["EXIT_INTERRUPTED", "EXIT_OK", "EXIT_SOME_FAILED", "EXIT_USAGE", "build_parser",
-           "flag_wording", "main", "run"]
+__all__ = ["EXIT_INTERRUPTED", "EXIT_OK", "EXIT_SOME_FAILED", "EXIT_USAGE", "STOP_GRACE_S",
+           "build_parser", "flag_wording", "main", "run"]
 
 EXIT_OK, EXIT_USAGE, EXIT_SOME_FAILED, EXIT_INTERRUPTED = 0, 2, 3, 130
 
@@ -478,14 +480,66 @@ def _report_written(motion) -> None:
         print(f"{labels.get(key, key)}: {path}")
 
 
-def _on_signal(signum, frame) -> None:
-    # SIGINT and SIGTERM alike unwind the stack as an interruption, so every ``finally`` and
-    # context manager on the way out stops its ffmpeg and removes its temporaries. Further
-    # ones are ignored from here on (main puts the handlers back): a second Ctrl-C would cut
-    # that clean-up short and print a traceback.
-    for sig in (signal.SIGINT, signal.SIGTERM):
-        signal.signal(sig, signal.SIG_IGN)
-    raise KeyboardInterrupt
+#: Seconds an interrupted run may take to stop its ffmpeg children and remove its temporaries
+#: on the way out (normally well under one) before the process ends itself outright.
+STOP_GRACE_S = 10.0
+_INTERRUPTED_LINE = "stabilize: interrupted; no partial outputs were left"
+
+
+class _Interruption:
+    """The SIGINT and SIGTERM handler :func:`main` installs.
+
+    The first signal unwinds the stack as an interruption (``KeyboardInterrupt``), so every
+    ``finally`` and context manager on the way out stops its ffmpeg and removes its
+    temporaries. Further ones are ignored from here on (main puts the handlers back): a
+    second Ctrl-C would cut that clean-up short and print a traceback.
+
+    Run as the program (not :func:`main` called in-process), the first signal also starts a
+    deadline: should the unwinding not end within :data:`STOP_GRACE_S` seconds (a thread or
+    a child that no longer answers), a timer thread stops the children, removes the
+    temporaries, prints the usual line and ends the process with status 130 itself. With
+    ``debug`` it first prints every thread's stack, to show where the run was held up.
+    """
+
+    def __init__(self, *, program: bool, debug: bool) -> None:
+        self.program, self.debug = program, debug
+        self._said = threading.Lock()
+
+    def __call__(self, signum, frame) -> None:
+        for sig in (signal.SIGINT, signal.SIGTERM):
+            signal.signal(sig, signal.SIG_IGN)
+        if self.program:
+            timer = threading.Timer(STOP_GRACE_S, self._end_outright)
+            timer.daemon = True
+            timer.start()
+        raise KeyboardInterrupt
+
+    def report(self, *, raw: bool = False) -> None:
+        """Print the one line saying the run was interrupted (once, whoever asks first);
+        ``raw`` writes it straight to the descriptor, past ``sys.stderr``'s lock, which a
+        stuck main thread may hold."""
+        if not self._said.acquire(blocking=False):
+            return
+        if raw:
+            os.write(sys.stderr.fileno(), (_INTERRUPTED_LINE + "\n").encode())
+        else:
+            print(_INTERRUPTED_LINE, file=sys.stderr, flush=True)
+
+    def _end_outright(self) -> None:
+        if self.debug:
+            faulthandler.dump_traceback(file=sys.stderr.fileno(), all_threads=True)
+        # The clean-up runs in a thread of its own, so a lock a stuck thread holds cannot
+        # hold up the exit too.
+        last = threading.Thread(target=_stop_and_remove, daemon=True)
+        last.start()
+        last.join(timeout=5.0)
+        self.report(raw=True)
+        os._exit(EXIT_INTERRUPTED)
+
+
+def _stop_and_remove() -> None:
+    stop_children()
+    remove_temporaries()
 
 
 def _one_line(text: object) -> str:
@@ -502,8 +556,7 @@ def _clean_up() -> None:
     if threading.current_thread() is threading.main_thread():
         held = {sig: signal.signal(sig, signal.SIG_IGN) for sig in (signal.SIGINT, signal.SIGTERM)}
     try:
-        stop_children()
-        remove_temporaries()
+        _stop_and_remove()
     finally:
         for sig, handler in held.items():
             signal.signal(sig, handler)
@@ -523,8 +576,10 @@ def main(argv: list[str] | None = None) -> int:
     _setup_logging(bool(getattr(args, "quiet", False)))
     debug = bool(getattr(args, "debug", False))
     previous = {}
+    interruption = _Interruption(program=argv is None, debug=debug)
     if threading.current_thread() is threading.main_thread():  # only it may set handlers
-        previous = {sig: signal.signal(sig, _on_signal) for sig in (signal.SIGINT, signal.SIGTERM)}
+        previous = {sig: signal.signal(sig, interruption)
+                    for sig in (signal.SIGINT, signal.SIGTERM)}
     status = 1
     try:
         status = run(args)
@@ -536,7 +591,7 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         status = EXIT_INTERRUPTED
         _clean_up()
-        print("stabilize: interrupted; no partial outputs were left", file=sys.stderr)
+        interruption.report()
     except BrokenPipeError:  # stdout closed early (``| head``): not a failure of the work
         status = EXIT_OK
     except OSError as exc:  # the system refused a file operation: name the file, status 2

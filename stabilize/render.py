@@ -345,16 +345,22 @@ def render(
             n += 1
             if on_frame:
                 on_frame(1)
-    finally:
-        # Always drain the writers so an error in one surfaces and no thread is left behind.
-        errors = []
+    except BaseException:
+        # The output is dropped: what is still queued is not fed to the encoders (which may
+        # take nothing more; they are stopped by their own context managers).
         for q in (out_q, cmp_q):
-            if q is None:
-                continue
-            try:
-                q.close()
-            except BaseException as exc:
-                errors.append(exc)
+            if q is not None:
+                q.abort()
+        raise
+    # Drain the writers so an error in one surfaces and no thread is left behind.
+    errors = []
+    for q in (out_q, cmp_q):
+        if q is None:
+            continue
+        try:
+            q.close()
+        except BaseException as exc:
+            errors.append(exc)
     if errors:
         raise errors[0]
     return n

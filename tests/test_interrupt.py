@@ -115,3 +115,62 @@ def test_interrupted_steady_leaves_nothing(clip, tmp_path, sig, stage):
     assert sorted(p.name for p in work.iterdir()) == [src.name]
     assert src.read_bytes() == before
     assert seen and not [pid for pid in seen if _alive(pid)]
+
+
+_STUCK_RUN = r"""
+import sys, threading, os, signal
+from pathlib import Path
+import stabilize.cli as cli
+from stabilize.io.process import spawn
+from stabilize.io.publishing import temp_path_for
+
+cli.STOP_GRACE_S = 1.0
+
+def run(args):
+    work = Path(os.environ["STUCK_WORK"])
+    temp_path_for(work / "out.mp4")
+    spawn([sys.executable, "-c", "import time; time.sleep(120)"])
+    print("working", flush=True)
+    try:
+        threading.Event().wait()
+    finally:
+        threading.Event().wait()  # an unwinding that never ends
+
+cli.run = run
+sys.exit(cli.main())
+"""
+
+
+@pytest.mark.parametrize("debug", [False, True], ids=["plain", "debug"])
+def test_interrupted_run_that_cannot_unwind_still_ends(tmp_path, debug):
+    """Should the unwinding hang (a stuck thread or child), the process still ends a grace
+    period after the signal: status 130, the one line, children stopped, temporaries gone;
+    with --debug, every thread's stack is printed first."""
+    script = tmp_path / "stuck.py"
+    script.write_text(_STUCK_RUN)
+    work = tmp_path / "work"
+    work.mkdir()
+    args = [sys.executable, str(script), "steady", "in.mp4"]
+    proc = subprocess.Popen(args + (["--debug"] if debug else []), stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE, text=True,
+                            env=os.environ | {"STUCK_WORK": str(work)})
+    try:
+        assert proc.stdout.readline().strip() == "working"
+        kids = _children(proc.pid)
+        assert kids and [p.name for p in work.iterdir()]
+        started = time.monotonic()
+        proc.send_signal(signal.SIGINT)
+        out, err = proc.communicate(timeout=30)
+        took = time.monotonic() - started
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait()
+    assert proc.returncode == 130, err
+    assert 1.0 <= took < 15.0
+    lines = err.splitlines()
+    assert lines.count("stabilize: interrupted; no partial outputs were left") == 1
+    assert ("Thread 0x" in err and "stuck.py" in err) == debug, err
+    assert not debug or lines[-1] == "stabilize: interrupted; no partial outputs were left"
+    assert list(work.iterdir()) == []
+    assert not [pid for pid in kids if _alive(pid)]

@@ -64,3 +64,53 @@ def test_write_behind_writes_in_order_and_reports_errors():
         for i in range(100):
             w.put(i)
         w.close()
+
+
+def test_read_ahead_interrupted_while_starting_still_stops_its_producer(monkeypatch):
+    """An interruption that lands while the thread is being started (the thread runs, the
+    consumer never reached its loop) must still stop the producer and close the source
+    before the consumer unwinds, so the caller can close the source itself at once."""
+    import stabilize.prefetch as prefetch
+
+    class StartThenInterrupted(threading.Thread):
+        def start(self):
+            super().start()
+            raise KeyboardInterrupt
+
+    monkeypatch.setattr(prefetch.threading, "Thread", StartThenInterrupted)
+    closed = threading.Event()
+
+    def endless():
+        try:
+            i = 0
+            while True:
+                yield i
+                i += 1
+        finally:
+            closed.set()
+
+    source = endless()
+    it = read_ahead(source, depth=2)
+    with pytest.raises(KeyboardInterrupt):
+        next(it)
+    # Closed by the producer before the consumer returned, not left running in its thread.
+    assert closed.is_set()
+    source.close()  # would raise "generator already executing" if the producer still ran
+
+
+def test_write_behind_abort_drops_the_queue_without_waiting_on_a_stuck_sink():
+    release = threading.Event()
+    written = []
+
+    def sink(item):
+        release.wait(10.0)  # an encoder that takes nothing more
+        written.append(item)
+
+    w = WriteBehind(sink, depth=3)
+    for i in range(4):  # one being written, three queued
+        w.put(i)
+    w.abort(wait_s=0.2)  # returns although the sink is stuck
+    release.set()
+    w._thread.join(5.0)
+    assert not w._thread.is_alive()
+    assert written == [0]  # the queued items were dropped, not written
