@@ -7,6 +7,17 @@ import pytest
 from stabilize.prefetch import WriteBehind, read_ahead
 
 
+def _endless(closed: threading.Event):
+    """0, 1, 2, … for ever; sets ``closed`` when closed."""
+    try:
+        i = 0
+        while True:
+            yield i
+            i += 1
+    finally:
+        closed.set()
+
+
 def test_read_ahead_keeps_order_and_closes_its_source():
     closed = threading.Event()
 
@@ -32,16 +43,7 @@ def test_read_ahead_passes_errors_and_stops_early():
 
     closed = threading.Event()
 
-    def endless():
-        try:
-            i = 0
-            while True:
-                yield i
-                i += 1
-        finally:
-            closed.set()
-
-    it = read_ahead(endless(), depth=2)
+    it = read_ahead(_endless(closed), depth=2)
     assert [next(it) for _ in range(5)] == [0, 1, 2, 3, 4]
     it.close()
     assert closed.wait(1.0)
@@ -80,16 +82,7 @@ def test_read_ahead_interrupted_while_starting_still_stops_its_producer(monkeypa
     monkeypatch.setattr(prefetch.threading, "Thread", StartThenInterrupted)
     closed = threading.Event()
 
-    def endless():
-        try:
-            i = 0
-            while True:
-                yield i
-                i += 1
-        finally:
-            closed.set()
-
-    source = endless()
+    source = _endless(closed)
     it = read_ahead(source, depth=2)
     with pytest.raises(KeyboardInterrupt):
         next(it)
