@@ -337,6 +337,36 @@ def test_a_board_waved_before_a_faint_wall_is_not_the_camera():
     assert (track.status[1:] == "ok").mean() > 0.9
 
 
+def test_a_board_sweeping_across_a_faint_wall_leaves_the_wall_the_camera(tmp_path):
+    # A tall board (360×320 px, half the picture) comes in from the left, bobs over the
+    # middle for three seconds and then sweeps from side to side (±100 px): every track of
+    # the faint wall (a sixth of its contrast) but a strip along the top edge is covered at
+    # some point, and after H.264 the board's far stronger corners keep the wall's from being
+    # found again. The strip's tracks, proven the scene's long before, covering 3 % of the
+    # frame, must still stand for it against the board's new tracks. Before, they stood
+    # only when covering 10 %, and the log followed the board by 195 px, most frames `ok`
+    # (1.3 px since, 29 % of the frames weak; measured).
+    rng = np.random.default_rng(5)
+    wall = cv2.GaussianBlur(rng.uniform(0, 255, (H, W)).astype(np.float32), (0, 0), 3.0)
+    wall = 128 + 0.15 * (cv2.normalize(wall, None, 40, 210, cv2.NORM_MINMAX) - 128)
+
+    def centre(s: float) -> tuple[float, float]:
+        x = (-200 + (W / 2 + 200) * s / 2 if s < 2 else W / 2 if s < 5
+             else W / 2 + 100 * np.sin(2 * np.pi * 0.6 * (s - 5)))
+        return x, H / 2 + 10 * np.sin(3 * s)
+
+    path = tmp_path / "sweep.mp4"
+    with VideoWriter(path, W, H, 30.0, crf=20, preset="veryfast") as wr:
+        for f in _board_before(wall, (360, 320), centre, 240, rng):
+            wr.write(np.repeat(f.image[:, :, None], 3, axis=2))
+    info = probe(path)
+    track = fit_motion(iter_frames(path, gray=True, info=info), full_size=(W, H),
+                       analysis_size=(W, H), settings=Settings())
+    assert np.abs(np.cumsum(track.matrices[:, :2, 2], axis=0)).max() < 2.0
+    # The frames the strip alone carried say so.
+    assert (track.status[1:] == "weak").mean() > 0.1
+
+
 def _slow_board_before_plain_wall(n: int = 150) -> list[Frame]:
     """A plain wall (a soft grey gradient and eight small dots); a board over a third of
     the picture drifting slowly (±60 px at 0.1 Hz sideways, ±20 px at 0.13 Hz up and
