@@ -37,8 +37,10 @@ from .still_detail import (
     StillDetailSettings,
     StillVotes,
     find_detail,
+    find_texture,
     is_plain,
     judge,
+    judge_texture,
     on_surround,
     patch_agreement,
     surround_grey,
@@ -155,8 +157,9 @@ class _StillBase:
     """A still-detail baseline: the frame ``index`` (its analysis copy ``image``), where the
     tracks that carried the next fit were in it (k, 2, analysis pixels), the fitted motion
     since (full-resolution pixels; None after a frame with no fit), its faint corners
-    (False: not looked for yet; None: too little of the picture away from the tracks) and
-    whether that picture is plain (None: not looked at yet)."""
+    (False: not looked for yet; None: too little of the picture away from the tracks),
+    whether that picture is plain (None: not looked at yet) and, where it offers no faint
+    corner, its texture patches (as the corners)."""
 
     index: int
     image: np.ndarray
@@ -164,6 +167,7 @@ class _StillBase:
     motion: np.ndarray | None
     detail: StillDetail | None | bool = False
     plain: bool | None = None
+    texture: StillDetail | None | bool = False
 
 
 @dataclass(frozen=True)
@@ -491,10 +495,11 @@ class AnalysisPass:
 
     def _still_votes(self, image: np.ndarray, tracks: np.ndarray) -> StillVotes | None:
         """Whether the faint detail of the older baseline's picture away from its tracks
-        stayed where it was while the fits since then moved the frame
-        (:mod:`stabilize.still_detail`); None when there is nothing to judge (no baseline,
-        no detail, or too little motion). ``image`` is this frame's analysis copy, ``tracks``
-        (k, 2) the analysis positions of the tracks that carried this frame's fit."""
+        (its faint corners or, with none, its faint texture) stayed where it was while the
+        fits since then moved the frame (:mod:`stabilize.still_detail`); None when there is
+        nothing to judge (no baseline, no detail, or too little motion). ``image`` is this
+        frame's analysis copy, ``tracks`` (k, 2) the analysis positions of the tracks that
+        carried this frame's fit."""
         b = self._still_slot()
         if b is None or b.motion is None:
             return None
@@ -506,9 +511,18 @@ class AnalysisPass:
         if b.detail is False:
             b.detail = find_detail(b.image, b.tracks, self.overlays.mask(ctx.user_mask),
                                    self.tracker.settings, cfg, self.tracker.floor)
-        if b.detail is None or b.detail is False or not len(b.detail.points):
+        if b.detail is None or b.detail is False:
             return None
-        return judge(b.detail, image, motion, tracks, self.tracker.settings.grid, cfg)
+        grid = self.tracker.settings.grid
+        if len(b.detail.points):
+            return judge(b.detail, image, motion, tracks, grid, cfg)
+        # No faint corner: a faint wall textured all over still shows, patch by patch.
+        if b.texture is False:
+            b.texture = find_texture(b.image, b.tracks, self.overlays.mask(ctx.user_mask),
+                                     grid, cfg)
+        if b.texture is None or not len(b.texture.points):
+            return None
+        return judge_texture(b.texture, image, motion, tracks, grid, cfg)
 
     def _surround(self, votes: StillVotes | None) -> str:
         """What the picture away from the tracks says of this frame's fit: ``"plain"``,

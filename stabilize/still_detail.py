@@ -19,6 +19,15 @@ place is now beside the tracks (an object in front may cover it). When corners s
 and clearly outnumber those that moved, the fit is contradicted: the tracks are on an
 object in front of a still camera (:mod:`stabilize.motion_pass` then holds the camera still).
 
+A wall can be textured all over and still offer no such corner: a faint, fine-grained
+surface (rendered plaster, weathered concrete, a low-contrast print) whose corners lie
+at the noise of the corner rule and are each as likely noise as detail. Taken a patch at a
+time it is no less plain to see: when the picture away from the tracks offers no faint
+corner, patches of a band-passed copy on a regular lattice there (:func:`find_texture`)
+vote the same way, where that texture is far fainter than the tracks' own (a face as
+faint as the tracks' would have been tracked; patches near the noise are what an encoder
+leaves unchanged from frame to frame, and stay put whatever the camera did).
+
 When the picture away from the tracks has no such detail and is plain (:func:`is_plain`),
 nothing tells the board from a tower before a clear sky; :mod:`stabilize.motion_pass` then
 marks the frame ``unconfirmed``.
@@ -34,15 +43,16 @@ Points are in analysis-frame pixels (x right, y down, pixel centres at integers)
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import cv2
 import numpy as np
 
 from .track import TrackSettings, corner_strength, strength_map
 
-__all__ = ["StillDetail", "StillDetailSettings", "StillVotes", "find_detail", "is_plain",
-           "judge", "on_surround", "patch_agreement", "spread_maxima", "surround_grey"]
+__all__ = ["StillDetail", "StillDetailSettings", "StillVotes", "band_pass", "find_detail",
+           "find_texture", "is_plain", "judge", "judge_texture", "on_surround",
+           "patch_agreement", "spread_maxima", "surround_grey"]
 
 
 # Points of a mark's ring that may fall outside the plain picture's grey range (a speck
@@ -75,7 +85,22 @@ class StillDetailSettings:
     ``tests/real`` (common practice, no source). ``surface_grey``: a lone mark stands on
     the plain picture away from the tracks when the grey levels of a ring around it, twice
     ``half`` out, lie within that picture's own range widened by this many grey levels
-    (:func:`on_surround`)."""
+    (:func:`on_surround`).
+
+    Texture patches (:func:`find_texture`), where no faint corner is found:
+    ``texture_half`` half-size of a patch (a 17×17 patch) and ``texture_step`` the lattice
+    spacing, analysis pixels; ``texture_wide_px``: the band-pass copy is the picture
+    blurred by ``plain_blur_px`` less the picture blurred by this sigma (pixels), which
+    takes out lighting gradients and lens shading (they stay put in the frame whatever the
+    camera does); ``texture_min_std``: a patch votes only with at least this standard
+    deviation there, grey levels; ``texture_faint``: ... and at most 1/this of the tracks'
+    typical one; ``texture_votes``: fewest *still* patches that contradict a fit. This
+    project's choices, tried on drawn walls and hazy scenes (tests/test_still_detail.py,
+    tests/test_motion.py) and checked to leave the logs of the real clips of
+    ``tests/real`` unchanged: a faint wall of a sixth of a board's contrast (band-passed
+    standard deviation 1.2–2.1 grey levels) votes; a hazy truss after H.264 (1.1–1.3, the
+    encoder's own unchanged blocks among it) held every frame still at a ratio of 1 and
+    none at 4 (measured)."""
 
     max_corners: int = 60
     spacing_frac: float = 1.0 / 64.0
@@ -93,6 +118,12 @@ class StillDetailSettings:
     plain_blur_px: float = 1.5
     plain_grey_per_px: float = 1.0
     surface_grey: float = 3.0
+    texture_half: int = 8
+    texture_step: int = 16
+    texture_wide_px: float = 6.0
+    texture_min_std: float = 1.0
+    texture_faint: float = 4.0
+    texture_votes: int = 3
 
 
 @dataclass(frozen=True)
@@ -185,6 +216,76 @@ def find_detail(gray: np.ndarray, tracks: np.ndarray, usable: np.ndarray | None,
     if not len(pts):
         return none
     return StillDetail(pts, patches)
+
+
+def band_pass(gray: np.ndarray, settings: StillDetailSettings = StillDetailSettings()
+              ) -> np.ndarray:
+    """``gray`` (h, w) blurred by a Gaussian of ``plain_blur_px`` less ``gray`` blurred by
+    one of ``texture_wide_px``: (h, w) float32 grey levels about 0, the picture's fine
+    texture with the sensor noise and the slow shading taken out."""
+    f = gray.astype(np.float32)
+    return (cv2.GaussianBlur(f, (0, 0), settings.plain_blur_px)
+            - cv2.GaussianBlur(f, (0, 0), settings.texture_wide_px))
+
+
+def find_texture(gray: np.ndarray, tracks: np.ndarray, usable: np.ndarray | None,
+                 grid: tuple[int, int],
+                 settings: StillDetailSettings = StillDetailSettings()) -> StillDetail | None:
+    """Patches of faint texture wholly away from the hull of ``tracks`` (as in
+    :func:`find_detail`) on a lattice of ``texture_step`` pixels, from the band-passed copy
+    (:func:`band_pass`).
+
+    Parameters
+    ----------
+    gray : (h, w) uint8 analysis frame.
+    tracks : (k, 2) positions of the tracks that moved with the fit, analysis pixels.
+    usable : (h, w) uint8 mask, 0 where overlays or ignored regions are; None: all usable.
+    grid : the tracker's grid (columns, rows).
+    settings : this check's settings (the ``texture_*`` values).
+
+    Returns
+    -------
+    StillDetail of the patches whose standard deviation is at least ``texture_min_std``
+    and at most 1/``texture_faint`` of the tracks' median one (patches of the same copy);
+    None when too little of the frame lies away from the tracks (as :func:`find_detail`).
+    """
+    h, w = gray.shape
+    away = ~_beside(tracks, (w, h), grid)
+    if np.count_nonzero(away) < settings.untracked_share * away.size:
+        return None
+    if usable is not None:
+        away &= usable > 0
+    half = settings.texture_half
+    # Whole patches away from the tracks: none takes in an edge of the object's own face.
+    away = cv2.erode(away.astype(np.uint8), np.ones((2 * half + 1, 2 * half + 1), np.uint8)
+                     ) > 0
+    m = half + 1
+    ys, xs = np.mgrid[m:h - m:settings.texture_step, m:w - m:settings.texture_step]
+    pts = np.stack([xs.ravel(), ys.ravel()], axis=1)
+    pts = pts[away[pts[:, 1], pts[:, 0]]]
+    g = band_pass(gray, settings)
+    patches = _patches(g, pts, half)
+    spread = patches.std(axis=(1, 2))
+    keep = spread >= settings.texture_min_std
+    if len(tracks):
+        typical = float(np.median(_patches(g, tracks, half).std(axis=(1, 2))))
+        keep &= settings.texture_faint * spread <= typical
+    else:
+        keep[:] = False
+    return StillDetail(pts[keep].astype(np.int64), patches[keep])
+
+
+def judge_texture(texture: StillDetail, gray: np.ndarray, motion: np.ndarray,
+                  tracks: np.ndarray, grid: tuple[int, int],
+                  settings: StillDetailSettings = StillDetailSettings()) -> StillVotes:
+    """:func:`judge` for texture patches (:func:`find_texture`): each patch is compared on
+    the band-passed copy of ``gray`` (the frame now, (h, w) uint8) where it was and where
+    ``motion`` (3, 3, analysis pixels, baseline to now) puts it, and ``texture_votes``
+    still patches are the fewest that contradict the fit. ``compared`` is 0: patches are no
+    corners, and the count of compared corners tells an object's own outline, not this."""
+    cfg = replace(settings, half=settings.texture_half, min_votes=settings.texture_votes)
+    return replace(judge(texture, band_pass(gray, settings), motion, tracks, grid, cfg),
+                   compared=0)
 
 
 def is_plain(gray: np.ndarray, tracks: np.ndarray, usable: np.ndarray | None,

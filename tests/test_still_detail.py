@@ -13,8 +13,10 @@ import pytest
 from stabilize.still_detail import (
     StillDetailSettings,
     find_detail,
+    find_texture,
     is_plain,
     judge,
+    judge_texture,
     on_surround,
     patch_agreement,
     spread_maxima,
@@ -193,6 +195,58 @@ def test_no_vote_when_both_places_differ():
     after = (255 - before.astype(np.int16)).astype(np.uint8)
     votes = judge(detail, after, _shift(60, 20), tracks, SETTINGS.grid)
     assert votes.still == 0 and votes.moved == 0
+
+
+def _textured_wall(contrast: float, seed: int = 5) -> np.ndarray:
+    """A wall textured all over: a blurred random field spanning ``contrast`` × 170 grey
+    levels about 128 (fine-grained plaster or concrete, far fainter than the board)."""
+    rng = np.random.default_rng(seed)
+    field = cv2.GaussianBlur(rng.uniform(0, 255, (H, W)).astype(np.float32), (0, 0), 3.0)
+    return 128 + contrast * (cv2.normalize(field, None, 40, 210, cv2.NORM_MINMAX) - 128)
+
+
+def test_a_faint_textured_wall_offers_no_corner_but_votes_patch_by_patch():
+    """A sixth of the full contrast: after sensor noise no corner of the wall rises clear
+    of the noise, so the corner check has nothing to compare. Its texture patches, far
+    fainter than the board's, contradict the board's motion taken for the camera's, and
+    bear out a camera that moved wall and board together."""
+    wall = _textured_wall(0.15)
+    before, tracks = _frame(wall, (200, 110), seed=1)
+    detail = find_detail(before, tracks, None, SETTINGS)
+    assert detail is not None and len(detail.points) == 0
+    texture = find_texture(before, tracks, None, SETTINGS.grid)
+    assert texture is not None and len(texture.points) > 100
+    after, tracks_now = _frame(wall, (230, 120), seed=2)
+    votes = judge_texture(texture, after, _shift(30, 10), tracks_now, SETTINGS.grid)
+    assert votes.contradicted and not votes.supported and votes.still > 50 * max(votes.moved, 1)
+    moved, tracks_moved = _frame(wall, (200, 110), camera=(30, 10), seed=2)
+    votes = judge_texture(texture, moved, _shift(30, 10), tracks_moved, SETTINGS.grid)
+    assert votes.supported and not votes.contradicted and votes.moved > 50 * max(votes.still, 1)
+    assert votes.compared == 0
+
+
+def test_texture_as_strong_as_the_tracks_or_as_smooth_as_shading_offers_no_patch():
+    # Texture as strong as the tracks' own (here the tracks lie on the wall itself) would
+    # have been tracked: that it was not means it is no trustworthy detail (patches near
+    # the noise are what an encoder leaves unchanged from frame to frame). A lighting
+    # gradient is taken out by the band-pass, and a smooth wall offers nothing.
+    _, tracks = _frame(_wall(), (200, 110))
+    alike = np.clip(_textured_wall(0.5) + np.random.default_rng(3).normal(0, 1.5, (H, W)),
+                    0, 255).astype(np.uint8)
+    smooth, _ = _frame(_wall(marks=()), (200, 110))
+    for img in (alike, smooth):
+        texture = find_texture(img, tracks, None, SETTINGS.grid)
+        assert texture is not None and len(texture.points) == 0
+    # The same wall, at a sixth of that contrast behind the board, does offer patches.
+    faint, _ = _frame(_textured_wall(0.5 / 6), (200, 110))
+    assert len(find_texture(faint, tracks, None, SETTINGS.grid).points) > 100
+
+
+def test_texture_is_not_looked_for_when_the_tracks_cover_the_picture():
+    img, _ = _frame(_textured_wall(0.15), (200, 110))
+    yy, xx = np.mgrid[10:img.shape[0] - 10:20, 10:img.shape[1] - 10:20]
+    everywhere = np.column_stack([xx.ravel(), yy.ravel()]).astype(np.float64)
+    assert find_texture(img, everywhere, None, SETTINGS.grid) is None
 
 
 @pytest.mark.parametrize("usable_blocks", [True, False])
