@@ -29,7 +29,7 @@ from .cuts import CutSettings
 from .io import Frame
 from .motion_models import model_named
 from .motion_pass import AnalysisPass, FrameRecord, PassContext
-from .motion_track import MotionTrack, fill_failed, stand_ins
+from .motion_track import MotionTrack, anchor_frames, fill_failed, stand_ins
 from .prefetch import read_ahead
 from .row_bands import BandSettings
 from .track import TrackSettings, ignore_mask
@@ -215,7 +215,8 @@ def fit_motion(
         reason=why,
     )
     track.matrices = fill_failed(track.matrices, track.status, full_size,
-                                 stand_in=stand_ins(track.status, why))
+                                 stand_in=stand_ins(track.status, why),
+                                 anchor=anchor_frames(track.status, why))
     if ctx.bands is not None:
         track.band_shift_px, track.band_support = _band_arrays(records, ctx.bands.n_bands)
     return track

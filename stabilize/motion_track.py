@@ -9,7 +9,8 @@ import numpy as np
 
 from .geometry import frame_centre, from_similarity, to_similarity
 
-__all__ = ["LOG_COLUMNS", "MotionTrack", "REASONS", "fill_failed", "stand_ins"]
+__all__ = ["LOG_COLUMNS", "MotionTrack", "REASONS", "anchor_frames", "fill_failed",
+           "stand_ins"]
 
 #: Why a frame is weak or failed, as listed in the log's JSON (``frame_reasons``).
 REASONS = {
@@ -143,11 +144,35 @@ def stand_ins(status: np.ndarray, reason: np.ndarray | None) -> np.ndarray:
     return out
 
 
+def anchor_frames(status: np.ndarray, reason: np.ndarray | None) -> np.ndarray:
+    """Frames whose logged motion may anchor the stand-ins around them: neither stand-ins
+    (:func:`stand_ins`) nor cuts, nor weak fits on few or bunched tracks (reason
+    ``few_inliers``). Such a fit is a measurement, but a noisy one: as the end of a long
+    run of stand-ins, its error is repeated on every frame of the run (one fit 0.4 px off,
+    at the end of 30 stand-ins, once put 8 px into the path of a still camera, measured on
+    a drawn clip, tests/test_motion.py).
+
+    Parameters
+    ----------
+    status : (n,) per-frame status.
+    reason : (n,) per-frame reason codes, or None.
+
+    Returns
+    -------
+    (n,) bool.
+    """
+    out = ~stand_ins(status, reason) & (status != "cut")
+    if reason is not None:
+        out &= reason != "few_inliers"
+    return out
+
+
 def fill_failed(matrices: np.ndarray, status: np.ndarray, size: tuple[int, int],
-                stand_in: np.ndarray | None = None) -> np.ndarray:
+                stand_in: np.ndarray | None = None,
+                anchor: np.ndarray | None = None) -> np.ndarray:
     """Stand-ins for failed frames (or the frames marked in ``stand_in``): the similarity
-    motion interpolated linearly between the nearest trustworthy neighbours (or the identity
-    with none), never a wild jump.
+    motion interpolated linearly between the nearest trustworthy neighbours (those marked
+    in ``anchor``; or the identity with none), never a wild jump.
 
     Frame 0 is never replaced; cut frames are not used as neighbours. Beyond the last
     trustworthy neighbour the nearest one's motion is held.
@@ -159,6 +184,8 @@ def fill_failed(matrices: np.ndarray, status: np.ndarray, size: tuple[int, int],
     status : (n,) per-frame status.
     size : (width, height) of the frame, pixels.
     stand_in : (n,) bool, the frames to replace; None for the ``failed`` ones.
+    anchor : (n,) bool, the frames that may be neighbours (:func:`anchor_frames`); None:
+        every frame neither replaced nor a cut.
 
     Returns
     -------
@@ -169,7 +196,10 @@ def fill_failed(matrices: np.ndarray, status: np.ndarray, size: tuple[int, int],
     failed[0] = False
     if not failed.any():
         return matrices
-    good = np.flatnonzero(~failed & (status != "cut"))
+    good = ~failed & (status != "cut")
+    if anchor is not None:
+        good &= np.asarray(anchor, bool)
+    good = np.flatnonzero(good)
     good = good[good > 0]
     out = matrices.copy()
     idx = np.flatnonzero(failed)

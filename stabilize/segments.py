@@ -41,7 +41,7 @@ from .errors import StabilizeError
 from .io import VideoInfo, iter_frame_range
 from .io.decode import DecodeStats
 from .motion import fit_motion, follow_through_frames, warm_up_frames
-from .motion_track import MotionTrack, fill_failed, stand_ins
+from .motion_track import MotionTrack, anchor_frames, fill_failed, stand_ins
 from .runner import ProgressCounter, default_workers, opencv_threads, parallel_map
 
 __all__ = [
@@ -351,5 +351,6 @@ def merge(results: list[SegmentResult], settings: Settings,
     track.excluded["static_overlay"] = _unique(reg for r in results for reg in r.overlays)
     if len(track.status):
         track.matrices = fill_failed(track.matrices, track.status, full_size,
-                                     stand_in=stand_ins(track.status, track.reason))
+                                     stand_in=stand_ins(track.status, track.reason),
+                                     anchor=anchor_frames(track.status, track.reason))
     return track

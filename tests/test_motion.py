@@ -2,6 +2,7 @@
 
 import cv2
 import numpy as np
+import pytest
 
 from stabilize import motion_pass
 from stabilize.anchors import hull_share
@@ -14,7 +15,13 @@ from stabilize.io.decode import analysis_size
 from stabilize.io.frames import Frame
 from stabilize.motion import fit_motion
 from stabilize.motion_models import SIMILARITY, transfer_error
-from stabilize.motion_track import LOG_COLUMNS, MotionTrack, fill_failed
+from stabilize.motion_track import (
+    LOG_COLUMNS,
+    MotionTrack,
+    anchor_frames,
+    fill_failed,
+    stand_ins,
+)
 from stabilize.overlays import OverlayFinder, OverlaySettings, still_band
 from stabilize.synthetic import Mover, SceneSpec, SyntheticClip
 
@@ -510,6 +517,30 @@ def test_failed_frames_get_interpolated_stand_ins():
     out = to_similarity(fill_failed(m, status, (W, H)), centre)
     assert out[3, 0] == 3.0  # halfway between its neighbours, not the wild 99
     np.testing.assert_allclose(out[[1, 2, 4, 5], 0], q[[1, 2, 4, 5], 0])
+
+
+def test_a_weak_fit_on_few_tracks_does_not_anchor_a_run_of_stand_ins():
+    # A still camera: frames 2-9 are stand-ins and frame 5 a weak fit 0.4 px off. Anchored
+    # on it, the stand-ins on either side would ramp up to its 0.4 px and down again, 1.5 px
+    # of path over the run; anchored on the frames measured in full, they stay at 0.01 px
+    # a frame (the weak fit itself is kept as measured).
+    centre = np.array([(W - 1) / 2, (H - 1) / 2])
+    q = np.zeros((12, 4))
+    q[:, 0] = 0.01
+    q[5, 0] = 0.4
+    q[[2, 3, 4, 6, 7, 8, 9], 0] = 50.0
+    m = from_similarity(q, centre)
+    status = np.array(["first", "ok"] + ["weak"] * 8 + ["ok", "ok"])
+    reason = np.array(["", ""] + ["foreground"] * 3 + ["few_inliers"] + ["foreground"] * 4
+                      + ["", ""])
+    assert anchor_frames(status, reason).tolist() == [True, True] + [False] * 8 + [True, True]
+    out = to_similarity(fill_failed(m, status, (W, H), stand_in=stand_ins(status, reason),
+                                    anchor=anchor_frames(status, reason)), centre)
+    np.testing.assert_allclose(out[[2, 3, 4, 6, 7, 8, 9], 0], 0.01, atol=1e-9)
+    assert out[5, 0] == pytest.approx(0.4)
+    before = to_similarity(fill_failed(m, status, (W, H), stand_in=stand_ins(status, reason)),
+                           centre)
+    assert before[2:10, 0].sum() - 0.4 > 1.4
 
 
 def test_motion_track_select_and_concatenate_keep_every_column():

@@ -37,7 +37,7 @@ from ..io.probing import constant_rate
 from ..io.twin_decode import TwinDecoder
 from ..motion import fit_motion, measurable
 from ..motion_pass import FrameRecord
-from ..motion_track import fill_failed
+from ..motion_track import anchor_frames, fill_failed, stand_ins
 from ..pinning import pin_regions, pinned_list
 from ..render import compare_size
 from ..render import render as render_frames
@@ -170,6 +170,7 @@ class _Settler:
         self.matrices: list[np.ndarray] = []
         self.status: list[str] = []
         self.stand: list[bool] = []
+        self.anchor: list[bool] = []
         self.last_good = -1
         self.excluded: dict | None = None
 
@@ -181,12 +182,14 @@ class _Settler:
         for r in records[known:settled]:
             self.matrices.append(r.matrix)
             self.status.append(r.status)
-            self.stand.append(r.status == "failed" or r.reason == "foreground")
-        # A stand-in is interpolated between trustworthy neighbours (frame 0 and cuts are
-        # not among them): those after the last trustworthy frame wait for the next one.
+            self.stand.append(bool(stand_ins(np.array([r.status]), np.array([r.reason]))[0]))
+            self.anchor.append(bool(anchor_frames(np.array([r.status]),
+                                                  np.array([r.reason]))[0]))
+        # A stand-in is interpolated between trustworthy neighbours (frame 0, cuts and weak
+        # fits on few tracks are not among them, :func:`anchor_frames`): those after the
+        # last trustworthy frame wait for the next one.
         first, n, o = self.planner.frames, settled, self.base
-        good = [t for t in range(max(1, first), n)
-                if not self.stand[t - o] and self.status[t - o] != "cut"]
+        good = [t for t in range(max(1, first), n) if self.anchor[t - o]]
         if any(self.stand[first - o:n - o]):
             if not good:
                 return
@@ -196,12 +199,13 @@ class _Settler:
         b = max(0, self.last_good - 1)
         status = np.array(self.status[b - o:upto - o])
         filled = fill_failed(np.array(self.matrices[b - o:upto - o]), status, self.size,
-                             stand_in=np.array(self.stand[b - o:upto - o]))[first - b:]
+                             stand_in=np.array(self.stand[b - o:upto - o]),
+                             anchor=np.array(self.anchor[b - o:upto - o]))[first - b:]
         if good:
             self.last_good = good[-1]
         self._add(filled, status[first - b:] == "cut", excluded_now, final=False)
         drop = max(0, self.last_good - 1) - self.base
-        del self.matrices[:drop], self.status[:drop], self.stand[:drop]
+        del self.matrices[:drop], self.status[:drop], self.stand[:drop], self.anchor[:drop]
         self.base += drop
 
     def finish(self, matrices: np.ndarray, status: np.ndarray,
