@@ -54,7 +54,13 @@ from .track import (
     to_full_resolution,
     track_settings_for,
 )
-from .track_groups import band_overlay_tracks, group_tracks, mask_cells, object_mask
+from .track_groups import (
+    band_overlay_tracks,
+    group_tracks,
+    mask_cells,
+    object_mask,
+    outshone_band,
+)
 
 __all__ = ["MINORITY_SHARE", "REVISE_ATTEMPTS", "REVISE_GAIN", "REVISE_PX", "SCENE_HULL",
            "AnalysisPass", "FrameRecord", "PassContext"]
@@ -307,6 +313,8 @@ class AnalysisPass:
         if grouping is not None and grouping.split:
             slot = self._older_slot()
             band = band_overlay_tracks(grouping, memo[:, 2 * slot:2 * slot + 2], dst, (fw, fh))
+            if outshone_band(image, pairs.dst, band, grouping):
+                band = np.zeros_like(band)
             if self.overlays.observe_band(pairs.src[band]):
                 self.overlays_grew = self.overlays_found = True
                 # This frame's tracks on the overlay are no longer the camera's either.

@@ -52,6 +52,17 @@ class OverlaySettings:
     an overlay; a moving object must then also span three quarters of the frame (a skirting
     line below a board waved before a fixed camera: DEVELOPERS.md, Known limits).
 
+    Burnt-in text and symbols are drawn to be read over any scene: a still band is taken
+    for one only when its tracks' patches are at least ``band_contrast`` as contrasted as
+    the moving group's (median standard deviations of their patches,
+    :func:`stabilize.track_groups.outshone_band`). A strip of a faint wall along an edge
+    that a large textured object never covers is as still, but far fainter (a board
+    sweeping before a wall of a sixth of its contrast: the wall's strip along the right
+    edge was taken for an overlay, its tracks left out, and the log followed the board by
+    131 and 148 px at CRF 23; 3.8 and 0.9 px with the rule, measured 2026-12-05). An
+    overlay fainter than that beside a strongly textured scene is no longer found by this
+    rule (the per-frame evidence of :meth:`OverlayFinder.observe` still can find it).
+
     These values are this project's own choices (common practice, no source).
     """
 
@@ -65,6 +76,7 @@ class OverlaySettings:
     band_share: float = 0.15
     band_spread: float = 0.4
     band_frames: int = 15
+    band_contrast: float = 0.25
     line_spread: float = 0.1
     line_thickness: float = 0.05
     line_span: float = 0.75

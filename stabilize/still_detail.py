@@ -52,7 +52,7 @@ from .track import TrackSettings, corner_strength, strength_map
 
 __all__ = ["StillDetail", "StillDetailSettings", "StillVotes", "band_pass", "find_detail",
            "find_texture", "is_plain", "judge", "judge_texture", "on_surround",
-           "patch_agreement", "spread_maxima", "surround_grey"]
+           "patch_agreement", "patch_contrast", "spread_maxima", "surround_grey"]
 
 
 # Points of a mark's ring that may fall outside the plain picture's grey range (a speck
@@ -439,6 +439,13 @@ def patch_agreement(before: np.ndarray, now: np.ndarray, src: np.ndarray, dst: n
     b = b - b.mean(axis=(1, 2), keepdims=True)
     norm = np.sqrt((a * a).sum(axis=(1, 2)) * (b * b).sum(axis=(1, 2)))
     return np.where(norm > 1e-6, (a * b).sum(axis=(1, 2)) / np.maximum(norm, 1e-6), 0.0)
+
+
+def patch_contrast(gray: np.ndarray, pts: np.ndarray, half: int = StillDetailSettings.half
+                   ) -> np.ndarray:
+    """The standard deviation (grey levels) of the (2·half+1)² patch of ``gray`` (h, w)
+    around each point (k, 2), analysis pixels, bilinear: (k,)."""
+    return _patches(gray.astype(np.float32), pts, half).std(axis=(1, 2))
 
 
 def spread_maxima(strength: np.ndarray, floor: float, spacing: float, count: int

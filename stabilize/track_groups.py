@@ -14,10 +14,11 @@ from .config import Settings
 from .consensus.metrics import median, quantile
 from .frame_fit import TIGHT_K
 from .motion_models import MotionModel, transfer_error
-from .overlays import still_band
+from .overlays import OverlaySettings, still_band
+from .still_detail import patch_contrast
 
 __all__ = ["GROUP_SHARE", "MASK_CELL_PX", "SEPARATION", "band_overlay_tracks", "group_tracks",
-           "in_mask", "mask_cells", "object_mask"]
+           "in_mask", "mask_cells", "object_mask", "outshone_band"]
 
 # A second rigid group counts only when its motion over the baseline is at least this many
 # grouping thresholds away from the first (median over its tracks); this project's choice.
@@ -120,6 +121,21 @@ def band_overlay_tracks(grouping: Grouping, start: np.ndarray, now: np.ndarray,
         if still_band(start, now, still, moving, spread, frame_size):
             return still
     return np.zeros(len(now), bool)
+
+
+def outshone_band(gray: np.ndarray, pts: np.ndarray, band: np.ndarray,
+                  grouping: Grouping, settings: OverlaySettings | None = None) -> bool:
+    """Whether a still band (``band``, (k,) bool, from :func:`band_overlay_tracks`) is far
+    fainter than the group moving beside it, and so no burnt-in overlay but the scene: the
+    median standard deviation of the 9×9 patches of ``gray`` (the analysis frame, (h, w))
+    at its tracks ``pts`` (k, 2, analysis pixels) is under ``band_contrast`` times that of
+    the other group of ``grouping`` (:class:`stabilize.overlays.OverlaySettings`)."""
+    s = settings or OverlaySettings()
+    other = grouping.moved if (band & grouping.scene).any() else grouping.scene
+    if not band.any() or not other.any():
+        return False
+    return bool(median(patch_contrast(gray, pts[band]))
+                < s.band_contrast * median(patch_contrast(gray, pts[other])))
 
 
 #: Cell size (full-resolution pixels) of the coarse mask of where a moving group was.
