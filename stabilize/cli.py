@@ -372,6 +372,9 @@ def _print_summary(summary: dict) -> None:
         rate += f" on average, irregular times (container: {fmt_sig(nominal)} fps)"
     elif fps is not None and nominal and abs(nominal - fps) > 1e-3 * nominal:
         rate += f" (container: {fmt_sig(nominal)} fps)"
+    missing = summary.get("frames_missing") or 0
+    if missing:
+        rate += f", {missing} missing"
     share = "" if not n else f", {100.0 * (weak + failed) / n:.1f} % weak or failed"
     print(f"frames: {n}{rate} (weak {weak}, failed {failed}, cuts {summary.get('cuts', 0)}"
           f"{share})")

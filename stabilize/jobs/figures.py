@@ -68,15 +68,24 @@ def shake_summary(*, matrices: np.ndarray, status: np.ndarray, time_s: np.ndarra
 
 
 def warn_if_irregular(where: Any, summary: dict[str, Any], nominal_fps: float) -> None:
-    """Say so when the frame times are irregular (the figures use their real mean rate).
+    """Say so when the frame times are irregular (the figures use their real mean rate) or
+    frames are missing (gaps in the times).
 
     Parameters
     ----------
     where : what to name in the warning (the clip or log).
-    summary : the shake summary; ``timestamps_irregular`` and ``fps`` (Hz) are read.
+    summary : the shake summary; ``timestamps_irregular``, ``fps`` (Hz), ``frames_missing``
+        and ``gaps`` are read.
     nominal_fps : the container's frame rate, Hz.
     """
     if summary.get("timestamps_irregular"):
         _log.warning("%s: the frame times are irregular; the figures and the smoothing use "
                      "their real mean rate of %.3g fps, not the container's %.3g fps",
                      where, summary["fps"], nominal_fps)
+    gaps = summary.get("gaps") or []
+    if summary.get("frames_missing"):
+        listed = ", ".join(f"{length:.2g} s after {t:.3g} s" for t, length in gaps[:5])
+        more = f" and {len(gaps) - 5} more" if len(gaps) > 5 else ""
+        _log.warning("%s: about %d frame(s) are missing (%s%s); the shake figures read the "
+                     "path in real time, interpolated across the gaps", where,
+                     summary["frames_missing"], listed, more)

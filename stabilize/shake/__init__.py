@@ -8,7 +8,8 @@ function takes the frame rate explicitly (``fps``, frames per second).
 
 Time is real time: the rate the figures use is the mean rate of the frames' own timestamps
 (:func:`frame_rate`), not the container's nominal rate, and a clip whose frame intervals are
-irregular (:func:`timestamps_irregular`) has its path resampled onto an even grid at that
+irregular (:func:`timestamps_irregular`) or misses frames (:func:`frame_gaps`) has its path
+resampled onto an even grid at that
 rate before it is filtered or its spectrum taken (:func:`resample_even`).
 
 Vibration faster than half the frame rate (propellers, motors) cannot be resolved from video:
@@ -75,6 +76,8 @@ from .timebase import (
     GAP_FACTOR,
     IRREGULAR_SPREAD,
     RARE_GAPS,
+    after_gaps,
+    frame_gaps,
     frame_rate,
     resample_even,
     shake_component,
@@ -97,12 +100,14 @@ __all__ = [
     "SHAKE_BANDS_HZ",
     "TRUST_LEVELS",
     "UNRELIABLE_SHARE",
+    "after_gaps",
     "axis_shake",
     "axis_unit",
     "band_key",
     "band_powers",
     "correction_figures",
     "dominant_hz",
+    "frame_gaps",
     "frame_rate",
     "measured_frames",
     "motion_noise",

@@ -15,7 +15,7 @@ from .stability import (
     output_motion,
     stability_figures,
 )
-from .timebase import frame_rate, timestamps_irregular
+from .timebase import after_gaps, frame_gaps, frame_rate, timestamps_irregular
 
 __all__ = [
     "ROUGH_SHARE",
@@ -82,7 +82,10 @@ def summarise(
     motion = similarity_readout(matrices, centre)
     rate = frame_rate(time_s, fps) if time_s is not None else float(fps)
     irregular = timestamps_irregular(time_s)
-    uneven = np.asarray(time_s, dtype=np.float64) if irregular else None
+    gaps = frame_gaps(time_s)
+    # Frames the recorder dropped: the path is read in real time too, or the motion of the
+    # gap would count as one frame's shake and the spectrum's time axis would slip there.
+    uneven = np.asarray(time_s, dtype=np.float64) if irregular or gaps else None
     summary: dict = {
         "frames": int(len(status)),
         "frames_weak": int(np.count_nonzero(status == "weak")),
@@ -91,6 +94,8 @@ def summarise(
         "fps": float(rate),
         "fps_nominal": float(fps),
         "timestamps_irregular": irregular,
+        "frames_missing": int(sum(missing for _, _, missing in gaps)),
+        "gaps": [[round(t, 3), round(length, 3)] for t, length, _ in gaps],
         "shake_above_hz": float(above_hz),
         "nyquist_hz": 0.5 * float(rate),
     }
@@ -113,7 +118,8 @@ def summarise(
                                 time_s=uneven))
     noise = motion_noise(rms_px, inliers, status, width, height)
     summary["motion_noise_px"] = noise[0]
-    measured = measured_frames(status)
+    # The frame after a gap moved over all the frames missing before it: no one frame's.
+    measured = measured_frames(status) & ~after_gaps(time_s, len(status))
     has_out = corrections is not None
     summary.update(stability_figures(motion[measured], "_in" if has_out else "", noise))
     if has_out:
@@ -187,7 +193,9 @@ def trust_verdict(summary: dict) -> dict:
       (``frames_unconfirmed``, weak but left out of the share above), over the same shares;
     - the steadied video measured no steadier than the input (``output_steadier`` false):
       rough;
-    - irregular frame times (``timestamps_irregular``): rough, the path was resampled.
+    - irregular frame times (``timestamps_irregular``): rough, the path was resampled;
+    - frames missing (``frames_missing``, gaps in the frame times) over the same shares of
+      the frames there should have been.
     """
     reasons: list[tuple[int, str]] = []
     n = max(1, int(summary.get("frames") or 0))
@@ -230,6 +238,12 @@ def trust_verdict(summary: dict) -> dict:
         reasons.append((1, f"The frame times are irregular{said}: the path was resampled "
                            f"onto an even time grid at the real mean rate{real}; motion "
                            "between frames is interpolated, not measured."))
+    missing = int(summary.get("frames_missing") or 0)
+    if missing and missing / (n + missing) > ROUGH_SHARE:
+        share = missing / (n + missing)
+        reasons.append((2 if share > UNRELIABLE_SHARE else 1,
+                        f"{share:.0%} of the clip's frames are missing (gaps in its frame "
+                        "times): the motion across the gaps is interpolated, not measured."))
     level = max((lv for lv, _ in reasons), default=0)
     return {"trust": TRUST_LEVELS[level], "trust_reasons": [text for _, text in reasons]}
 
@@ -244,12 +258,19 @@ def uncertainty_notes(summary: dict) -> list[str]:
     Returns
     -------
     list of one-sentence notes (possibly empty): first the reasons of the verdict
-    (:func:`trust_verdict`), then frames with a stand-in motion, scene cuts, a frame rate
-    too low for the shake band, a shake peak close to the Nyquist frequency (possibly
-    aliased faster vibration), a clip too short to resolve frequency finely, no field of
-    view for figures in degrees.
+    (:func:`trust_verdict`), then frames missing from the clip, frames with a stand-in
+    motion, scene cuts, a frame rate too low for the shake band, a shake peak close to the
+    Nyquist frequency (possibly aliased faster vibration), a clip too short to resolve
+    frequency finely, no field of view for figures in degrees.
     """
     notes: list[str] = list(trust_verdict(summary)["trust_reasons"])
+    missing = int(summary.get("frames_missing") or 0)
+    n = int(summary.get("frames") or 0)
+    if missing and missing / max(1, n + missing) <= ROUGH_SHARE:
+        where = ", ".join(f"{length:.2g} s after {t:.3g} s"
+                          for t, length in (summary.get("gaps") or [])[:5])
+        notes.append(f"{missing} frame(s) are missing from the clip ({where}): the figures "
+                     "read the path in real time, interpolated across the gaps.")
     failed = int(summary.get("frames_failed") or 0)
     if failed:
         notes.append(f"{failed} frame(s) had no trustworthy motion fit; their motion is a "

@@ -2,9 +2,9 @@
 
 Time is real time: the rate the figures use is the mean rate of the frames' own timestamps
 (:func:`frame_rate`, the one place it is worked out), not the container's nominal rate, and a
-clip whose frame intervals are irregular (:func:`timestamps_irregular`) has its path
-resampled onto an even grid at that rate before it is filtered or its spectrum taken
-(:func:`resample_even`).
+clip whose frame intervals are irregular (:func:`timestamps_irregular`), or that misses
+frames (:func:`frame_gaps`: a recorder that dropped some), has its path resampled onto an
+even grid at that rate before it is filtered or its spectrum taken (:func:`resample_even`).
 
 Shake is the part of a series above ``shake_above_hz``: the series minus its zero-phase
 low-pass (4th-order Butterworth run forward and backward, as ``scipy.signal.sosfiltfilt``
@@ -22,6 +22,8 @@ __all__ = [
     "GAP_FACTOR",
     "IRREGULAR_SPREAD",
     "RARE_GAPS",
+    "after_gaps",
+    "frame_gaps",
     "frame_rate",
     "resample_even",
     "shake_component",
@@ -46,22 +48,84 @@ RARE_GAPS = 0.01
 IRREGULAR_SPREAD = 0.1
 
 
-def _rate_intervals(time_s: np.ndarray | None) -> np.ndarray | None:
-    """The frame intervals (s) that make up the frame rate: those of the times in order (a
-    step backwards, as when two frames' timestamps are swapped, then does not count), zero
-    steps left out, and rare gaps (:data:`GAP_FACTOR`) left out. None with fewer than two."""
+def _ordered_intervals(time_s: np.ndarray | None) -> tuple[np.ndarray, np.ndarray] | None:
+    """The finite times in order and their positive steps (s): (times before each step,
+    steps); None with fewer than two steps."""
     if time_s is None:
         return None
     t = np.asarray(time_s, dtype=np.float64)
     t = np.sort(t[np.isfinite(t)])
     dt = np.diff(t)
-    dt = dt[dt > 0]
-    if len(dt) < 2:
+    pos = dt > 0
+    if np.count_nonzero(pos) < 2:
         return None
+    return t[:-1][pos], dt[pos]
+
+
+def _rare_gaps(dt: np.ndarray) -> np.ndarray:
+    """Which of the intervals ``dt`` (s, positive) are rare gaps: over :data:`GAP_FACTOR`
+    times the median interval, in at most :data:`RARE_GAPS` of the intervals (or a single
+    one). All False when there are none or they are not rare (the intervals are then
+    irregular throughout)."""
     gaps = dt > GAP_FACTOR * float(np.median(dt))
     if 0 < np.count_nonzero(gaps) <= max(1, RARE_GAPS * len(dt)):
-        dt = dt[~gaps]
-    return dt
+        return gaps
+    return np.zeros(len(dt), bool)
+
+
+def frame_gaps(time_s: np.ndarray | None) -> list[tuple[float, float, int]]:
+    """Where a clip misses frames: its rare gaps (each over :data:`GAP_FACTOR` times the
+    median interval, in at most :data:`RARE_GAPS` of the intervals or a single one, as
+    :func:`frame_rate` leaves them out).
+
+    Parameters
+    ----------
+    time_s : (n,) frame times, seconds, or None.
+
+    Returns
+    -------
+    list of (time of the frame before the gap, s; length of the gap, s; frames missing, the
+    gap over the median interval, rounded, less one), in time order; empty for None, fewer
+    than three usable times, or gaps so common that the times are irregular throughout.
+
+    Examples
+    --------
+    >>> [(round(t, 3), round(d, 3), n)
+    ...  for t, d, n in frame_gaps(np.array([0.0, 0.1, 0.2, 0.8, 0.9, 1.0]))]
+    [(0.2, 0.6, 5)]
+    """
+    steps = _ordered_intervals(time_s)
+    if steps is None:
+        return []
+    t, dt = steps
+    med = float(np.median(dt))
+    return [(float(t[i]), float(dt[i]), int(round(dt[i] / med)) - 1)
+            for i in np.flatnonzero(_rare_gaps(dt))]
+
+
+def after_gaps(time_s: np.ndarray | None, n: int) -> np.ndarray:
+    """(n,) bool: the frames that come right after a gap of :func:`frame_gaps` (their motion
+    spans the frames missing before them). ``time_s``: (n,) frame times, seconds, or None
+    (no frame is)."""
+    out = np.zeros(n, bool)
+    gaps = frame_gaps(time_s)
+    if not gaps or time_s is None or len(time_s) != n:
+        return out
+    t = np.asarray(time_s, dtype=np.float64)
+    for start, length, _ in gaps:
+        out[np.isclose(t, start + length, rtol=0.0, atol=1e-9)] = True
+    return out
+
+
+def _rate_intervals(time_s: np.ndarray | None) -> np.ndarray | None:
+    """The frame intervals (s) that make up the frame rate: those of the times in order (a
+    step backwards, as when two frames' timestamps are swapped, then does not count), zero
+    steps left out, and rare gaps (:data:`GAP_FACTOR`) left out. None with fewer than two."""
+    steps = _ordered_intervals(time_s)
+    if steps is None:
+        return None
+    dt = steps[1]
+    return dt[~_rare_gaps(dt)]
 
 
 def frame_rate(time_s: np.ndarray | None, nominal_fps: float) -> float:
@@ -147,7 +211,15 @@ def resample_even(time_s: np.ndarray, values: np.ndarray,
         return t.copy(), v.copy()
     m = int(np.floor((t[-1] - t[0]) * fps + 1e-9)) + 1
     grid = t[0] + np.arange(m) / fps
-    return grid, CubicSpline(t, v, axis=0)(grid)
+    out = CubicSpline(t, v, axis=0)(grid)
+    if len(t) > 2:
+        # Across a gap (frames missing) the spline swings out between samples far apart; a
+        # straight line claims no motion that was not measured.
+        for i in np.flatnonzero(_rare_gaps(np.diff(t))):
+            inside = (grid > t[i]) & (grid < t[i + 1])
+            w = ((grid[inside] - t[i]) / (t[i + 1] - t[i])).reshape((-1,) + (1,) * (v.ndim - 1))
+            out[inside] = (1.0 - w) * v[i] + w * v[i + 1]
+    return grid, out
 
 
 def filterable(n: int, fps: float, above_hz: float) -> bool:
