@@ -21,7 +21,8 @@ STEADY_FLOOR_PX_PER_1000 = 0.25
 
 
 def steadiness(output_readout: np.ndarray | None, source_readout: np.ndarray | None, *,
-               cuts: np.ndarray, fps: float, above_hz: float, width: int, height: int) -> dict:
+               cuts: np.ndarray, fps: float, above_hz: float, width: int, height: int,
+               time_s: np.ndarray | None = None) -> dict:
     """Is the written video steadier than its source? Both measured on frames alike.
 
     Parameters
@@ -31,6 +32,9 @@ def steadiness(output_readout: np.ndarray | None, source_readout: np.ndarray | N
         :class:`RenderCheck`; None when not measured.
     cuts : (n,) bool scene cuts. fps : frame rate (Hz). above_hz : shake cut-off (Hz).
     width, height : frame size, pixels.
+    time_s : (n,) frame times, seconds, to read both in real time (irregular times, frames
+        missing: :func:`stabilize.shake.resample_even`); None takes the frames as evenly
+        spaced at ``fps``.
 
     Returns
     -------
@@ -53,7 +57,7 @@ def steadiness(output_readout: np.ndarray | None, source_readout: np.ndarray | N
         if p is None:  # too little measured to say
             return out
         figs = shake.path_figures(p, cuts, fps=fps, above_hz=above_hz, width=width,
-                                  fov_deg=None)
+                                  fov_deg=None, time_s=time_s)
         rms[name] = (figs["jitter_rms_x_px"], figs["jitter_rms_y_px"])
     if any(v is None for pair in rms.values() for v in pair):
         return out

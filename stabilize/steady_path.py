@@ -23,8 +23,8 @@ from .smoothers.kalman import kalman_smooth
 from .smoothers.lockoff import lockoff_path
 
 __all__ = [
-    "SMOOTHERS", "CorrectionPlan", "FixedLagPlanner", "look_ahead_frames", "plan_corrections",
-    "plan_path", "smooth_path", "unchanged_plan",
+    "SMOOTHERS", "CorrectionPlan", "FixedLagPlanner", "fill_missing", "look_ahead_frames",
+    "plan_corrections", "plan_path", "smooth_path", "unchanged_plan",
 ]
 
 _log = logging.getLogger("stabilize")
@@ -124,7 +124,7 @@ class CorrectionPlan:
 
 def plan_corrections(matrices: np.ndarray, cuts: np.ndarray, *, fps: float, window_s: float,
                      model: str, smoother: str, margin: str | float, width: int, height: int,
-                     auto_cap: float) -> CorrectionPlan:
+                     auto_cap: float, missing: np.ndarray | None = None) -> CorrectionPlan:
     """Smooth the path, settle the margin, and plan S_t and C_t.
 
     ``margin="auto"`` takes the smallest constant margin, up to ``auto_cap``, that the
@@ -142,6 +142,10 @@ def plan_corrections(matrices: np.ndarray, cuts: np.ndarray, *, fps: float, wind
     margin : ``"auto"`` or the fraction cut from each side.
     width, height : frame size, pixels.
     auto_cap : the largest margin ``"auto"`` may choose.
+    missing : (n,) int, frames missing right before each frame (a recorder that dropped
+        them; :func:`stabilize.shake.missing_before`), or None. The path is smoothed with
+        those frames put back (on a straight line between their neighbours), so the
+        smoothing runs in real time across a gap; their rows are then dropped.
 
     Returns
     -------
@@ -149,14 +153,47 @@ def plan_corrections(matrices: np.ndarray, cuts: np.ndarray, *, fps: float, wind
     """
     return plan_path(accumulate(matrices, cuts), cuts, fps=fps, window_s=window_s, model=model,
                      smoother=smoother, margin=margin, width=width, height=height,
-                     auto_cap=auto_cap)
+                     auto_cap=auto_cap, missing=missing)
+
+
+def fill_missing(p: np.ndarray, cuts: np.ndarray, missing: np.ndarray
+                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The raw path with the frames missing before each frame put back.
+
+    Parameters
+    ----------
+    p : (n, 3, 3) raw path P_t. cuts : (n,) bool, frames that start a new shot.
+    missing : (n,) int, frames missing right before each frame.
+
+    Returns
+    -------
+    (p, cuts, real) : the path with m frames inserted before each frame t that misses m
+    (P at a share j / (m + 1) of the way from P_{t−1} to P_t, entry by entry, normalised to
+    h33 = 1; none before a cut or the first frame), their cut flags (False), and which rows
+    are the clip's own frames ((n + inserted,) bool).
+    """
+    parts, flags, real = [], [], []
+    for t in range(len(p)):
+        m = int(missing[t]) if t > 0 and not cuts[t] else 0
+        for j in range(1, m + 1):
+            q = p[t - 1] + (j / (m + 1)) * (p[t] - p[t - 1])
+            parts.append(q / q[2, 2])
+            flags.append(False)
+            real.append(False)
+        parts.append(p[t])
+        flags.append(bool(cuts[t]))
+        real.append(True)
+    return np.array(parts), np.array(flags, bool), np.array(real, bool)
 
 
 def plan_path(p: np.ndarray, cuts: np.ndarray, *, fps: float, window_s: float, model: str,
               smoother: str, margin: str | float, width: int, height: int,
-              auto_cap: float) -> CorrectionPlan:
+              auto_cap: float, missing: np.ndarray | None = None) -> CorrectionPlan:
     """:func:`plan_corrections` from the raw path P_t (:func:`stabilize.raw_path.accumulate`)
     instead of the inter-frame transforms; the other parameters are the same."""
+    real = None
+    if missing is not None and np.any(np.asarray(missing) > 0):
+        p, cuts, real = fill_missing(p, cuts, np.asarray(missing))
     w, h = width, height
     common = dict(fps=fps, window_s=window_s, model=model, width=w, height=h, cuts=cuts)
     s = None
@@ -174,12 +211,15 @@ def plan_path(p: np.ndarray, cuts: np.ndarray, *, fps: float, window_s: float, m
     s, kept = framing.fit_to_margin(p, s, margin, model=model, width=w, height=h,
                                     fps=fps, window_s=window_s,
                                     min_distortion=framing.MIN_DISTORTION)
+    corrections = framing.corrections(p, s, margin, w, h)
+    smooth_values = similarity_readout(s, frame_centre(w, h))
+    if real is not None:
+        corrections, smooth_values, kept = corrections[real], smooth_values[real], kept[real]
     eased = int(np.count_nonzero(kept < 1.0))
-    if np.any(kept < 1.0):
+    if eased:
         _log.warning("margin %.3f too small for the full correction in %d frames; the "
                      "correction was eased there", margin, eased)
-    return CorrectionPlan(corrections=framing.corrections(p, s, margin, w, h),
-                          smooth_values=similarity_readout(s, frame_centre(w, h)),
+    return CorrectionPlan(corrections=corrections, smooth_values=smooth_values,
                           margin=margin, frames_eased=eased)
 
 

@@ -61,9 +61,12 @@ def shake_summary(*, matrices: np.ndarray, status: np.ndarray, time_s: np.ndarra
         inliers=inliers, reasons=reasons, output_motion_readout=output_check,
     )
     if steadiness:
+        # Read in real time where the summary's own figures were (irregular or missing
+        # frames), so the two streams compare as the figures beside them do.
+        real_time = summary["timestamps_irregular"] or summary["frames_missing"]
         summary |= output_against_source(output_check, source_check, cuts=cuts,
                                        fps=summary["fps"], above_hz=above_hz, width=width,
-                                       height=height)
+                                       height=height, time_s=time_s if real_time else None)
     return summary
 
 

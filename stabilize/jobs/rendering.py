@@ -215,7 +215,8 @@ def _correct_and_write(clip: Path, info: VideoInfo, motion: FrameMotion, setting
         plan = plan_corrections(motion.matrices, motion.cuts, fps=fps,
                                 window_s=settings.window_s, model=settings.model,
                                 smoother=settings.smoother, margin=settings.margin, width=w,
-                                height=h, auto_cap=AUTO_MARGIN_CAP)
+                                height=h, auto_cap=AUTO_MARGIN_CAP,
+                                missing=shake.missing_before(motion.time_s, motion.frames))
         checks, row_spread = _render_video(clip, info, motion, plan, settings, outputs, progress,
                                            excluded, pinned_list(pinned))
     summary = motion.figures(settings, info.fps, plan=plan, checks=checks) | row_spread

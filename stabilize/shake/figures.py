@@ -22,7 +22,7 @@ from .spectra import (
     dominant_hz,
     welch_segment,
 )
-from .timebase import filterable, resample_even, shake_component
+from .timebase import filterable, in_gaps, resample_even, shake_component
 
 __all__ = [
     "MIN_MEASURED_SHARE",
@@ -45,6 +45,15 @@ def _shots(values: np.ndarray, cuts: np.ndarray, fps: float, above_hz: float,
            time_s: np.ndarray | None) -> list[tuple[np.ndarray | None, np.ndarray]]:
     """Per shot between scene cuts: (sample times or None, shake series). With ``time_s``
     each shot is first resampled onto an even grid at ``fps`` (:func:`resample_even`)."""
+    return [(t, part) for t, part, _ in _shots_measured(values, cuts, fps, above_hz, time_s)]
+
+
+def _shots_measured(values: np.ndarray, cuts: np.ndarray, fps: float, above_hz: float,
+                    time_s: np.ndarray | None
+                    ) -> list[tuple[np.ndarray | None, np.ndarray, np.ndarray]]:
+    """:func:`_shots` with, per shot, which samples were measured ((m,) bool): all but
+    those of the even grid inside a gap of missing frames (:func:`in_gaps`), which the
+    resampling only bridges."""
     out = []
     for seg in segments(cuts):
         t, v = None, values[seg]
@@ -54,7 +63,8 @@ def _shots(values: np.ndarray, cuts: np.ndarray, fps: float, above_hz: float,
             t, v = resample_even(time_s[seg], v, fps)
         part = shake_component(v, fps, above_hz)
         if part is not None:
-            out.append((t, part))
+            measured = np.ones(len(part), bool) if t is None else ~in_gaps(time_s[seg], t)
+            out.append((t, part, measured))
     return out
 
 
@@ -122,10 +132,13 @@ def path_figures(path_xyd: np.ndarray, cuts: np.ndarray, *, fps: float, above_hz
     out: dict = {}
     n_total = 0
     for j, axis in enumerate(AXES):
-        shots = [s for _, s in _shots(path_xyd[:, j], cuts, fps, above_hz, time_s)]
-        shake = np.concatenate(shots) if shots else None
+        parts = _shots_measured(path_xyd[:, j], cuts, fps, above_hz, time_s)
+        shake = np.concatenate([s for _, s, _ in parts]) if parts else None
+        # The size of the shake is that of the samples measured: a gap of missing frames
+        # is bridged for the filter and the spectrum, but holds no shake anybody saw.
+        shots = [s[m] for _, s, m in parts]
         unit = axis_unit(axis)
-        rms = None if shake is None else float(np.sqrt(np.mean(shake**2)))
+        rms = None if shake is None else float(np.sqrt(np.mean(np.concatenate(shots)**2)))
         p2p = peak_to_peak(shots, fps, above_hz)
         out[f"jitter_rms_{axis}_{unit}{suffix}"] = rms
         out[f"jitter_p2p_{axis}_{unit}{suffix}"] = p2p

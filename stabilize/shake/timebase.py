@@ -25,6 +25,8 @@ __all__ = [
     "after_gaps",
     "frame_gaps",
     "frame_rate",
+    "in_gaps",
+    "missing_before",
     "resample_even",
     "shake_component",
     "shake_filter_gain",
@@ -107,13 +109,27 @@ def after_gaps(time_s: np.ndarray | None, n: int) -> np.ndarray:
     """(n,) bool: the frames that come right after a gap of :func:`frame_gaps` (their motion
     spans the frames missing before them). ``time_s``: (n,) frame times, seconds, or None
     (no frame is)."""
-    out = np.zeros(n, bool)
-    gaps = frame_gaps(time_s)
-    if not gaps or time_s is None or len(time_s) != n:
+    return missing_before(time_s, n) > 0
+
+
+def missing_before(time_s: np.ndarray | None, n: int) -> np.ndarray:
+    """(n,) int: how many frames are missing right before each frame (the gaps of
+    :func:`frame_gaps`; 0 elsewhere). ``time_s``: (n,) frame times, seconds, or None."""
+    out = np.zeros(n, int)
+    if time_s is None or len(time_s) != n:
         return out
     t = np.asarray(time_s, dtype=np.float64)
-    for start, length, _ in gaps:
-        out[np.isclose(t, start + length, rtol=0.0, atol=1e-9)] = True
+    for start, length, count in frame_gaps(t):
+        out[np.isclose(t, start + length, rtol=0.0, atol=1e-9)] = count
+    return out
+
+
+def in_gaps(time_s: np.ndarray, grid: np.ndarray) -> np.ndarray:
+    """(m,) bool: which of the times ``grid`` (s) fall inside a gap of :func:`frame_gaps` of
+    the frame times ``time_s`` (s), strictly between the frames on either side."""
+    out = np.zeros(len(grid), bool)
+    for start, length, _ in frame_gaps(time_s):
+        out |= (grid > start) & (grid < start + length)
     return out
 
 
