@@ -11,13 +11,13 @@ from stabilize.raw_path import accumulate
 from stabilize.shake import (
     NOISE_FLOOR_PX,
     SHAKE_BANDS_HZ,
-    after_gaps,
     band_key,
     band_powers,
     correction_figures,
     dominant_hz,
     frame_gaps,
     frame_rate,
+    missing_before,
     path_figures,
     peak_to_peak,
     resample_even,
@@ -262,9 +262,9 @@ def test_irregular_clip_is_measured_in_real_time():
 def test_frames_missing_are_found_as_gaps():
     gap = np.r_[np.arange(100) / 25.0, 6.0 + np.arange(100) / 25.0]
     assert [(t, round(d, 9), n) for t, d, n in frame_gaps(gap)] == [(3.96, 2.04, 50)]
-    after = after_gaps(gap, len(gap))
-    assert np.flatnonzero(after).tolist() == [100]
-    assert frame_gaps(np.arange(300) / 30.0) == [] and not after_gaps(None, 5).any()
+    missing = missing_before(gap, len(gap))
+    assert np.flatnonzero(missing).tolist() == [100] and missing[100] == 50
+    assert frame_gaps(np.arange(300) / 30.0) == [] and not missing_before(None, 5).any()
     # Intervals that vary throughout are irregular times, not gaps.
     assert frame_gaps(_irregular_times(68, 0.1, 0.73)) == []
 

@@ -15,7 +15,7 @@ from .stability import (
     output_motion,
     stability_figures,
 )
-from .timebase import after_gaps, frame_gaps, frame_rate, timestamps_irregular
+from .timebase import frame_gaps, frame_rate, missing_before, timestamps_irregular
 
 __all__ = [
     "ROUGH_SHARE",
@@ -119,7 +119,7 @@ def summarise(
     noise = motion_noise(rms_px, inliers, status, width, height)
     summary["motion_noise_px"] = noise[0]
     # The frame after a gap moved over all the frames missing before it: no one frame's.
-    measured = measured_frames(status) & ~after_gaps(time_s, len(status))
+    measured = measured_frames(status) & (missing_before(time_s, len(status)) == 0)
     has_out = corrections is not None
     summary.update(stability_figures(motion[measured], "_in" if has_out else "", noise))
     if has_out:

@@ -22,7 +22,6 @@ __all__ = [
     "GAP_FACTOR",
     "IRREGULAR_SPREAD",
     "RARE_GAPS",
-    "after_gaps",
     "frame_gaps",
     "frame_rate",
     "in_gaps",
@@ -103,13 +102,6 @@ def frame_gaps(time_s: np.ndarray | None) -> list[tuple[float, float, int]]:
     med = float(np.median(dt))
     return [(float(t[i]), float(dt[i]), int(round(dt[i] / med)) - 1)
             for i in np.flatnonzero(_rare_gaps(dt))]
-
-
-def after_gaps(time_s: np.ndarray | None, n: int) -> np.ndarray:
-    """(n,) bool: the frames that come right after a gap of :func:`frame_gaps` (their motion
-    spans the frames missing before them). ``time_s``: (n,) frame times, seconds, or None
-    (no frame is)."""
-    return missing_before(time_s, n) > 0
 
 
 def missing_before(time_s: np.ndarray | None, n: int) -> np.ndarray:
