@@ -94,7 +94,15 @@ class StillDetailSettings:
     takes out lighting gradients and lens shading (they stay put in the frame whatever the
     camera does); ``texture_min_std``: a patch votes only with at least this standard
     deviation there, grey levels; ``texture_faint``: ... and at most 1/this of the tracks'
-    typical one; ``texture_votes``: fewest *still* patches that contradict a fit. This
+    typical one; ``texture_isotropy``: ... and texture in two directions, the smaller
+    eigenvalue of its gradient structure tensor over the patch at least this share of the
+    larger (the tracker's own ``min_isotropy`` for corners): the faint fringe that the
+    band-pass leaves beside a long straight edge looks the same wherever along itself the
+    edge has slid, so an object sliding along its own edge left those patches "still"
+    while a shaking camera moved everything else (a drawn flat pattern: 79 of 120 frames
+    held still, the path 4.5 px off at the median; such fringes measured 0.00–0.09, a
+    faint wall's patches 0.29 at the tenth percentile); ``texture_votes``: fewest *still*
+    patches that contradict a fit. This
     project's choices, tried on drawn walls and hazy scenes (tests/test_still_detail.py,
     tests/test_motion.py) and checked to leave the logs of the real clips of
     ``tests/real`` unchanged: a faint wall of a sixth of a board's contrast (band-passed
@@ -123,6 +131,7 @@ class StillDetailSettings:
     texture_wide_px: float = 6.0
     texture_min_std: float = 1.0
     texture_faint: float = 4.0
+    texture_isotropy: float = 0.2
     texture_votes: int = 3
 
 
@@ -246,8 +255,9 @@ def find_texture(gray: np.ndarray, tracks: np.ndarray, usable: np.ndarray | None
     Returns
     -------
     StillDetail of the patches whose standard deviation is at least ``texture_min_std``
-    and at most 1/``texture_faint`` of the tracks' median one (patches of the same copy);
-    None when too little of the frame lies away from the tracks (as :func:`find_detail`).
+    and at most 1/``texture_faint`` of the tracks' median one (patches of the same copy),
+    textured in two directions (``texture_isotropy``); None when too little of the frame
+    lies away from the tracks (as :func:`find_detail`).
     """
     h, w = gray.shape
     away = ~_beside(tracks, (w, h), grid)
@@ -272,6 +282,8 @@ def find_texture(gray: np.ndarray, tracks: np.ndarray, usable: np.ndarray | None
         keep &= settings.texture_faint * spread <= typical
     else:
         keep[:] = False
+    if keep.any():
+        keep[keep] = _isotropy(g, pts[keep], 2 * half + 1) >= settings.texture_isotropy
     return StillDetail(pts[keep].astype(np.int64), patches[keep])
 
 

@@ -242,6 +242,39 @@ def test_texture_as_strong_as_the_tracks_or_as_smooth_as_shading_offers_no_patch
     assert len(find_texture(faint, tracks, None, SETTINGS.grid).points) > 100
 
 
+def _bar(img: np.ndarray) -> np.ndarray:
+    """``img`` with a flat dark bar (no texture of its own) across the bottom of the frame,
+    its long top edge level at row 300."""
+    out = img.copy()
+    out[300:] = 40
+    return out
+
+
+def test_the_fringe_of_a_straight_edge_is_no_texture():
+    """A flat bar slides along its own long edge while the camera moves wall and board: the
+    faint fringe the band-pass leaves beside that edge looks the same wherever along itself
+    the edge has slid, and would vote the camera still. Patches must be textured in two
+    directions, as a faint wall is."""
+    wall = _wall(marks=())
+    before, tracks = _frame(wall, (200, 110), seed=1)
+    before = _bar(before)
+    loose = StillDetailSettings(texture_isotropy=0.0)
+    fringe = find_texture(before, tracks, None, SETTINGS.grid, loose)
+    assert len(fringe.points) > 10 and (np.abs(fringe.points[:, 1] - 300) < 20).all()
+    texture = find_texture(before, tracks, None, SETTINGS.grid)
+    assert texture is not None and len(texture.points) == 0
+    # The camera moves 30 px across and 10 down; the bar keeps its place in the frame.
+    after, tracks_now = _frame(wall, (200, 110), camera=(30, 10), seed=2)
+    after = _bar(after)
+    votes = judge_texture(fringe, after, _shift(30, 10), tracks_now, SETTINGS.grid, loose)
+    assert votes.contradicted  # what the fringe alone would have said
+    # A faint textured wall keeps its patches under the same rule.
+    faint, _ = _frame(_textured_wall(0.15), (200, 110), seed=1)
+    kept = find_texture(faint, tracks, None, SETTINGS.grid)
+    assert len(kept.points) >= 0.95 * len(find_texture(faint, tracks, None, SETTINGS.grid,
+                                                        loose).points)
+
+
 def test_texture_is_not_looked_for_when_the_tracks_cover_the_picture():
     img, _ = _frame(_textured_wall(0.15), (200, 110))
     yy, xx = np.mgrid[10:img.shape[0] - 10:20, 10:img.shape[1] - 10:20]
