@@ -38,7 +38,9 @@ def steadiness(output_readout: np.ndarray | None, source_readout: np.ndarray | N
 
     Returns
     -------
-    dict with ``output_steadier`` (true, false, or None when not measured),
+    dict with ``output_steadier`` (true, false, or None when not measured: under
+    :data:`~stabilize.shake.OUTPUT_MIN_MEASURED_SHARE` of the output's frame pairs, or under
+    :data:`~stabilize.shake.MIN_MEASURED_SHARE` of the source's),
     ``shake_reduction_x``, ``shake_reduction_y`` (1 − output RMS / source RMS of the shake,
     both measured on the frames: 1 = all removed, 0 = none, negative = more shake than the
     source; None when the source has none to reduce), ``jitter_rms_x_px_src_check``,
@@ -52,8 +54,9 @@ def steadiness(output_readout: np.ndarray | None, source_readout: np.ndarray | N
         return out
     out["output_pairs_measured"] = measured_share(output_readout, cuts)
     rms = {}
-    for name, readout in (("out", output_readout), ("src", source_readout)):
-        p = shake.readout_path(readout, cuts, width, height)
+    for name, readout, least in (("out", output_readout, shake.OUTPUT_MIN_MEASURED_SHARE),
+                                 ("src", source_readout, shake.MIN_MEASURED_SHARE)):
+        p = shake.readout_path(readout, cuts, width, height, least)
         if p is None:  # too little measured to say
             return out
         figs = shake.path_figures(p, cuts, fps=fps, above_hz=above_hz, width=width,

@@ -235,10 +235,16 @@ def true_output_rms(log, cam: np.ndarray) -> tuple[float, float]:
     return true_rms(log, h)
 
 
-@pytest.mark.parametrize("mover_scale", [1.0, 2.5])
-def test_flat_colour_patterns_with_movers_are_steadied_or_said_not_to_be(tmp_path, caplog,
-                                                                         mover_scale):
-    frames, cam = flat_pattern(120, seed=1, mover_scale=mover_scale)
+@pytest.mark.parametrize("seed, mover_scale, movers, shake_px",
+                         [(1, 1.0, 3, 6.0), (1, 2.5, 3, 6.0), (15, 3.0, 2, 10.0)])
+def test_flat_colour_patterns_with_movers_are_steadied_or_said_not_to_be(
+        tmp_path, caplog, seed, mover_scale, movers, shake_px):
+    """Seed 15: two flat movers over a third of the frame each leave the output's check so
+    few corners that it measured 76 % of the pairs; a frame the log got 7 px wrong lay in
+    an unmeasured stretch, and the figures after steadying read 0.08 px against the
+    output's true 0.69 px (measured before the check had to cover 90 % of the pairs)."""
+    frames, cam = flat_pattern(120, seed=seed, mover_scale=mover_scale, movers=movers,
+                               shake_px=shake_px)
     clip = write_clip(tmp_path / "flat.mp4", frames, FPS)
     out = tmp_path / "flat.steady.mp4"
     with caplog.at_level("WARNING", logger="stabilize"):

@@ -32,6 +32,7 @@ Everything public is re-exported here, so callers write ``shake.summarise(...)``
 
 from .figures import (
     MIN_MEASURED_SHARE,
+    OUTPUT_MIN_MEASURED_SHARE,
     axis_shake,
     path_figures,
     peak_to_peak,
@@ -90,6 +91,7 @@ __all__ = [
     "GAP_FACTOR",
     "IRREGULAR_SPREAD",
     "MIN_MEASURED_SHARE",
+    "OUTPUT_MIN_MEASURED_SHARE",
     "NOISE_FACTOR",
     "NOISE_FLOOR_PX",
     "PEAK_BACKGROUND_BINS",

@@ -6,7 +6,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..geometry import frame_centre, similarity_readout
-from .figures import filled_motion, path_figures, readout_path
+from .figures import OUTPUT_MIN_MEASURED_SHARE, filled_motion, path_figures, readout_path
 from .spectra import AXES
 from .stability import (
     correction_figures,
@@ -145,9 +145,10 @@ def _measured_output_figures(readout: np.ndarray, cuts: np.ndarray, measured: np
                              fov_deg: float | None, time_s: np.ndarray | None,
                              noise: tuple[float, float]) -> dict:
     """The ``_out`` shake and stability figures of the output's measured motion (all null
-    when too little of it was measured). The stability score leaves out the frames the input's
-    leaves out (``measured``) and is judged against the same measurement noise."""
-    filled = filled_motion(readout, cuts)
+    when under :data:`~stabilize.shake.figures.OUTPUT_MIN_MEASURED_SHARE` of its pairs were
+    measured). The stability score leaves out the frames the input's leaves out
+    (``measured``) and is judged against the same measurement noise."""
+    filled = filled_motion(readout, cuts, OUTPUT_MIN_MEASURED_SHARE)
     dummy = np.zeros((len(cuts), 3))
     if filled is None:
         figs = path_figures(dummy, cuts, fps=fps, above_hz=above_hz, width=width,
