@@ -224,6 +224,21 @@ def test_damaged_rows_name_the_line(tmp_path, mutate, message):
         read_log(csv_path)
 
 
+def test_a_rare_step_back_in_the_times_is_read_and_more_are_refused(tmp_path):
+    """A container can time one frame before the one ahead of it (``box.mp4`` of tests/real
+    does so with its last frame); the tool logs the times it decoded and must read its own
+    log back. Times that go back or repeat on more frames than that are no clip's."""
+    log = _log(n=6, with_corrections=False)
+    log.time_s = log.time_s.copy()
+    log.time_s[-1] = log.time_s[-2] - 0.03
+    csv_path, _ = log.save(tmp_path / "glitch.motion.csv")
+    np.testing.assert_array_equal(read_log(csv_path).time_s, log.time_s)
+    log.time_s[2] = log.time_s[1]
+    csv_path, _ = log.save(tmp_path / "twice.motion.csv")
+    with pytest.raises(StabilizeError, match="line 4: time_s is not later"):
+        read_log(csv_path)
+
+
 def test_damaged_json_fields_are_refused(tmp_path):
     csv_path, json_path = _log().save(tmp_path / "m.motion.csv")
     doc = json.loads(json_path.read_text())

@@ -106,6 +106,21 @@ def test_box_table_drifts_no_more_after_steadying(real_clip, steadied):
         f"{drift_in:.2f} px")
 
 
+def test_box_logs_read_back_though_its_last_frame_steps_back_in_time(real_clip, steadied,
+                                                                    tmp_path):
+    # box.mp4's container times its last frame 0.03 s before the one ahead of it. The logs
+    # record the times as decoded, and the tool must read its own logs back (to render from
+    # one, to report on it): the reader refused them at that line before.
+    log = _measured(real_clip("box.mp4"))
+    assert (np.diff(log.time_s) <= 0).sum() == 1
+    _, steady_log = steadied("box.mp4")
+    for name, made in (("measured", log), ("steadied", steady_log)):
+        csv_path, _ = made.save(tmp_path / f"{name}.motion.csv")
+        back = stabilize.read_log(csv_path)
+        np.testing.assert_array_equal(back.time_s, made.time_s)
+        np.testing.assert_allclose(back.matrices, made.matrices, rtol=0, atol=1e-12)
+
+
 # --------------------------------------------------------------------- carphone
 def test_carphone_fixed_camera_path_stays_at_zero(real_clip):
     # Camera fixed in a car; a talking man fills much of the frame, landscape moves past the
