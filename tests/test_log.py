@@ -239,6 +239,27 @@ def test_a_rare_step_back_in_the_times_is_read_and_more_are_refused(tmp_path):
         read_log(csv_path)
 
 
+def test_a_log_fits_its_clip_of_irregular_times_and_not_a_longer_one():
+    """The header's frame count is duration × stated rate: a clip of irregular times (68
+    frames over 29.5 s at a stated 15 fps, as tree.avi of tests/real) has far fewer, and its
+    own log must fit it; a log covering half of another clip at the same rate must not."""
+    from stabilize.io.motion_log_files import check_log_fits
+    from stabilize.io.probing import VideoInfo
+
+    def info(duration_s: float, fps: float) -> VideoInfo:
+        return VideoInfo("c.avi", 640, 360, fps, f"{fps:g}", duration_s,
+                         int(round(duration_s * fps)), "h264", 0.0, None)
+
+    irregular = _log(n=6, with_corrections=False)
+    irregular.time_s = np.array([0.0, 5.9, 11.8, 17.7, 23.6, 29.5])
+    irregular.source = {**irregular.source, "fps": 15.0, "frames": 6}
+    check_log_fits(irregular, info(29.6, 15.0), "tree.motion.csv")
+    short = _log(n=6, with_corrections=False)
+    short.source = {**short.source, "fps": 29.97}
+    with pytest.raises(StabilizeError, match="has 6 frames"):
+        check_log_fits(short, info(4.0, 29.97), "short.motion.csv")
+
+
 def test_damaged_json_fields_are_refused(tmp_path):
     csv_path, json_path = _log().save(tmp_path / "m.motion.csv")
     doc = json.loads(json_path.read_text())

@@ -375,6 +375,19 @@ def test_tree_irregular_timestamps_give_the_real_rate(real_clip):
         f"tree.avi: timestamps_irregular is {log.summary.get('timestamps_irregular')!r}")
 
 
+def test_tree_renders_from_its_own_log(real_clip, tmp_path):
+    # A log is made to be rendered from later. tree.avi's header gives 29.6 s at 15 fps,
+    # "about 444 frames", against the 68 it has; its own log was refused as made from
+    # another clip. Rendered from the log, every frame is written at its own time.
+    clip = real_clip("tree.avi")
+    csv_path, _ = _measured(clip).save(tmp_path / "tree.motion.csv")
+    out = tmp_path / "tree.rendered.mp4"
+    log = stabilize.render(clip, csv_path, out)
+    assert log.frames == 68
+    times = [f.time_s for f in iter_frames(out, gray=True, size=(64, 48))]
+    np.testing.assert_allclose(times, log.time_s - log.time_s[0], atol=0.02)
+
+
 # ------------------------------------------------------------- rolling shutter
 @pytest.mark.parametrize(("name", "readout"), [
     ("vtest.avi", "auto"), ("box.mp4", "auto"), ("carphone_pristine.mp4", "auto"),
