@@ -29,6 +29,7 @@ from stabilize.shake import (
     timestamps_irregular,
     trust_verdict,
     uncertainty_notes,
+    unlogged_source_shake,
 )
 from stabilize.synthetic import MotionSpec, SceneSpec, ShakeSpec, Sinusoid, SyntheticClip
 
@@ -463,6 +464,28 @@ def test_verdict_levels_and_reasons():
                                  "timestamps_irregular": True, "fps": 2.3,
                                  "fps_nominal": 15.0})
     assert both["trust"] == "unreliable" and len(both["trust_reasons"]) == 3
+
+
+def test_a_check_reading_shake_the_log_has_not_says_either_may_be_wrong():
+    """A box slid across the table before a still camera: the log gives the source 0.01 px
+    of shake, the render's check of the frames read 1.15 px (it followed the box), and the
+    output was no steadier. The reason names both readings' possible faults; where the two
+    agree, the plain reason stands."""
+    base = {"frames": 100, "frames_weak": 0, "frames_failed": 0, "output_steadier": False,
+            "jitter_rms_x_px": 0.007, "jitter_rms_y_px": 0.010}
+    box = base | {"jitter_rms_x_px_src_check": 1.155, "jitter_rms_y_px_src_check": 1.06}
+    assert unlogged_source_shake(box)
+    verdict = trust_verdict(box)
+    assert verdict["trust"] == "rough"
+    assert "moving in front" in verdict["trust_reasons"][0]
+    assert "missed the camera's motion" in verdict["trust_reasons"][0]
+    agree = base | {"jitter_rms_x_px": 1.0, "jitter_rms_x_px_src_check": 1.155,
+                    "jitter_rms_y_px_src_check": 1.06}
+    assert not unlogged_source_shake(agree)
+    assert "moving in front" not in trust_verdict(agree)["trust_reasons"][0]
+    tiny = base | {"jitter_rms_x_px_src_check": 0.05, "jitter_rms_y_px_src_check": 0.04}
+    assert not unlogged_source_shake(tiny)  # within the check's noise
+    assert not unlogged_source_shake({"jitter_rms_x_px": 0.0})
 
 
 def test_reasons_are_counted_and_the_notes_repeat_the_verdict():

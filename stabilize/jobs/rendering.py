@@ -179,11 +179,18 @@ def _warn_if_not_steadier(clip: Path, summary: dict[str, Any]) -> None:
             v = s.get(key)
             return "?" if v is None else f"{v:.2f}"
 
+        if shake.unlogged_source_shake(s):
+            why = (f"; the motion log gives the source x {rms('jitter_rms_x_px')} px, "
+                   f"y {rms('jitter_rms_y_px')} px: either the log missed the camera's motion "
+                   "or the measurement on the frames followed something moving in front of "
+                   "a still camera; look at the footage")
+        else:
+            why = "; check the motion log and the settings"
         _log.warning("%s: the steadied video is not steadier than the source: shake RMS "
                      "measured on its frames x %s px, y %s px, against x %s px, y %s px on "
-                     "the source's; check the motion log and the settings", clip,
+                     "the source's%s", clip,
                      rms("jitter_rms_x_px_out"), rms("jitter_rms_y_px_out"),
-                     rms("jitter_rms_x_px_src_check"), rms("jitter_rms_y_px_src_check"))
+                     rms("jitter_rms_x_px_src_check"), rms("jitter_rms_y_px_src_check"), why)
 
 
 def _correct_and_write(clip: Path, info: VideoInfo, motion: FrameMotion, settings: Settings,

@@ -72,6 +72,7 @@ from .summary import (
     summarise,
     trust_verdict,
     uncertainty_notes,
+    unlogged_source_shake,
 )
 from .timebase import (
     GAP_FACTOR,
@@ -129,6 +130,7 @@ __all__ = [
     "summarise",
     "timestamps_irregular",
     "trust_verdict",
+    "unlogged_source_shake",
     "uncertainty_notes",
     "welch_dof",
     "welch_segment",

@@ -24,6 +24,7 @@ __all__ = [
     "summarise",
     "trust_verdict",
     "uncertainty_notes",
+    "unlogged_source_shake",
 ]
 
 
@@ -172,6 +173,28 @@ ROUGH_SHARE, UNRELIABLE_SHARE = 0.10, 0.30
 TRUST_LEVELS: tuple[str, ...] = ("sound", "rough", "unreliable")
 
 
+#: The render's check of the source frames reads "shake the log does not have" when its
+#: larger axis reads over this many times the log's larger axis and at least
+#: :data:`UNLOGGED_MIN_PX` more (this project's rule of thumb: within a factor of two the two
+#: measurements describe the same motion).
+UNLOGGED_RATIO = 2.0
+UNLOGGED_MIN_PX = 0.1
+
+
+def unlogged_source_shake(summary: dict) -> bool:
+    """Whether the render's check of the source frames read clearly more shake than the
+    motion log gives the source (``jitter_rms_*_px_src_check`` against ``jitter_rms_*_px``,
+    pixels): the log missed the camera's motion, or the check followed an object moving
+    before a still camera (a box slid across a table: 1.15 px read on the frames, 0.01 px in
+    the log, measured on ``box.mp4``). False when either was not measured."""
+    logged = [summary.get(f"jitter_rms_{a}_px") for a in ("x", "y")]
+    checked = [summary.get(f"jitter_rms_{a}_px_src_check") for a in ("x", "y")]
+    if any(v is None for v in (*logged, *checked)):
+        return False
+    lg, ck = max(logged), max(checked)
+    return bool(ck > UNLOGGED_RATIO * lg and ck - lg >= UNLOGGED_MIN_PX)
+
+
 def trust_verdict(summary: dict) -> dict:
     """A plain verdict on how far one clip's figures can be trusted.
 
@@ -193,7 +216,8 @@ def trust_verdict(summary: dict) -> dict:
     - frames tracked on a part of the picture that nothing in the plain rest confirmed
       (``frames_unconfirmed``, weak but left out of the share above), over the same shares;
     - the steadied video measured no steadier than the input (``output_steadier`` false):
-      rough;
+      rough (the reason says when the check also read shake the log does not have,
+      :func:`unlogged_source_shake`);
     - irregular frame times (``timestamps_irregular``): rough, the path was resampled;
     - frames missing (``frames_missing``, gaps in the frame times) over the same shares of
       the frames there should have been.
@@ -230,8 +254,15 @@ def trust_verdict(summary: dict) -> dict:
              "had too little texture to measure (plain sky, water, fog or blur): these "
              "figures are not reliable.")
     if summary.get("output_steadier") is False:
-        reasons.append((1, "The steadied video was measured no steadier than the input: "
-                           "check it against the original footage."))
+        if unlogged_source_shake(summary):
+            reasons.append((1, "The steadied video was measured no steadier than the input, "
+                               "and that measurement found shake in the input that the motion "
+                               "log does not have: either the log missed the camera's motion "
+                               "or the measurement followed something moving in front of a "
+                               "still camera; check it against the original footage."))
+        else:
+            reasons.append((1, "The steadied video was measured no steadier than the input: "
+                               "check it against the original footage."))
     if summary.get("timestamps_irregular"):
         nominal, rate = summary.get("fps_nominal"), summary.get("fps")
         said = f" (the container says {nominal:.3g} fps)" if nominal else ""
