@@ -65,16 +65,18 @@ def _telemetry(image: np.ndarray, index: int) -> None:
 
 def shaken_clip(source: Path, out: Path, *, amp_px: float, amp_deg: float, seed: int,
                 frames: int, haze: float | None = None, telemetry: bool = False,
-                crf: int = 18) -> np.ndarray:
-    """Write the first ``frames`` frames of ``source`` shaken (module docstring) to ``out``,
+                crf: int = 18, start: int = 0) -> np.ndarray:
+    """Write ``frames`` frames of ``source`` from frame ``start`` on, shaken (module
+    docstring), to ``out``,
     with ``haze`` (:func:`_hazy`) and a burnt-in ``telemetry`` line (:func:`_telemetry`)
     laid on after the shake, at ``crf``; return the scene's true inter-frame motion (frames,
     3, 3), pixels, identity first."""
     images = []
     for frame in iter_frames(source):
-        if frame.index >= frames:
+        if frame.index >= start + frames:
             break
-        images.append(frame.image)
+        if frame.index >= start:
+            images.append(frame.image)
     h, w = images[0].shape[:2]
     shake = _shake(len(images), amp_px, amp_deg, seed)
     zoom = 1.0 + 2.5 * (amp_px + np.radians(amp_deg) * w / 2) / min(w, h)
@@ -160,3 +162,22 @@ def test_carphone_shaken_follows_the_car_not_the_man(tmp_path, real_clip):
     log = stabilize.measure(tmp_path / "shaken carphone.mp4")
     _, path = _errors(log, truth)
     assert path <= 2.0, f"carphone shaken: path {path:.2f} px off the car's"
+
+
+@pytest.mark.xfail(strict=True, reason=(
+    "known limit (DEVELOPERS.md, Known limits): a head over most of the frame before a dark, "
+    "defocused room, the camera shaken 4 px; the room's smooth faint detail matches where it "
+    "was better than where the head's fits put it, the camera is held still and its shake "
+    "is lost from the log"))
+def test_megamind_last_shot_shaken_keeps_the_shake(tmp_path, real_clip):
+    """The last shot of ``Megamind.avi`` (frames 200–269, a still camera before a man whose
+    head and shoulders fill most of the frame) shaken ±4 px, ±0.3°. The log must keep the
+    camera's shake: a median error of at most 0.3 px a frame."""
+    clip = tmp_path / "shaken last shot.mp4"
+    truth = shaken_clip(real_clip("Megamind.avi"), clip, amp_px=4.0, amp_deg=0.3, seed=1,
+                        frames=70, start=200)
+    log = stabilize.measure(clip)
+    err, _ = _errors(log, truth)
+    held = log.extra["frame_reasons"].get("held_still", [])
+    print(f"median {np.median(err):.3f} px; {len(held)} frames held still")
+    assert np.median(err) <= 0.3
