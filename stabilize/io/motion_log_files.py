@@ -41,9 +41,8 @@ from .probing import VideoInfo
 from .publishing import all_or_nothing, write_text_atomic
 
 __all__ = ["MAX_FPS", "MAX_JSON_BYTES", "MAX_LINE_BYTES", "MAX_TIME_S", "TIME_GLITCH_SHARE",
-           "bands_csv",
-           "bands_path_for", "check_log_fits", "json_path_for", "jsonable", "log_csv",
-           "log_json", "read_bands", "read_log", "save_log"]
+           "bands_csv", "bands_path_for", "check_log_fits", "json_path_for", "jsonable",
+           "log_csv", "log_json", "read_bands", "read_log", "save_log"]
 
 
 # --------------------------------------------------------------------- writing
