@@ -10,6 +10,7 @@ import sys
 import time
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 from stabilize.jobs.batch import find_clips, output_names
@@ -109,6 +110,19 @@ def test_dask_local_cluster_gives_the_same_outputs(folder, tmp_path):
     for stem in ("a", "sub/a", "sub/B"):
         assert (tmp_path / "p" / f"{stem}.motion.csv").read_text() == \
             (tmp_path / "d" / f"{stem}.motion.csv").read_text()
+
+
+def test_each_warning_of_a_clip_is_printed_once(tmp_path):
+    """Run in the batch's own process (one worker), a clip's warnings reached the terminal
+    both as they happened and again from the batch's report of them."""
+    root = tmp_path / "in"
+    root.mkdir()
+    write_clip(root / "grey.mp4", [np.full((96, 128, 3), 120, np.uint8)] * 16, 24.0)
+    done = run("batch", str(root), "--out-dir", str(tmp_path / "out"), "--workers", "1",
+               "--quiet")
+    assert done.returncode == 0, done.stderr
+    lines = [ln for ln in done.stderr.splitlines() if "no trustworthy motion fit" in ln]
+    assert len(lines) == 1, done.stderr
 
 
 def test_no_videos_is_a_usage_error(tmp_path):

@@ -337,6 +337,11 @@ def process_clip(job: ClipJob) -> ClipResult:
     caller reports them (a worker process has no terminal of its own)."""
     logger = logging.getLogger("stabilize")
     collect = _Collect()
+    # Only the collector hears the clip's messages: the caller reports them once. (Run in
+    # the batch's own process, the command line's handler printed each one twice.)
+    printing = logger.handlers[:]
+    for handler in printing:
+        logger.removeHandler(handler)
     logger.addHandler(collect)
     old_propagate, old_level = logger.propagate, logger.level
     logger.propagate = False
@@ -366,6 +371,8 @@ def process_clip(job: ClipJob) -> ClipResult:
                           f"{exc}", warnings=collect.messages)
     finally:
         logger.removeHandler(collect)
+        for handler in printing:
+            logger.addHandler(handler)
         logger.propagate, logger.level = old_propagate, old_level
 
 
