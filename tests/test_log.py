@@ -11,6 +11,8 @@ import stabilize
 from stabilize import read_log
 from stabilize.errors import StabilizeError
 from stabilize.geometry import frame_centre, similarity_readout
+from stabilize.io.motion_log_files import check_log_fits
+from stabilize.io.probing import VideoInfo
 from stabilize.motion_log import BASE_COLUMNS, COLUMNS, MotionLog
 from stabilize.shake.stability import measured_frames
 
@@ -243,9 +245,6 @@ def test_a_log_fits_its_clip_of_irregular_times_and_not_a_longer_one():
     """The header's frame count is duration × stated rate: a clip of irregular times (68
     frames over 29.5 s at a stated 15 fps, as tree.avi of tests/real) has far fewer, and its
     own log must fit it; a log covering half of another clip at the same rate must not."""
-    from stabilize.io.motion_log_files import check_log_fits
-    from stabilize.io.probing import VideoInfo
-
     def info(duration_s: float, fps: float) -> VideoInfo:
         return VideoInfo("c.avi", 640, 360, fps, f"{fps:g}", duration_s,
                          int(round(duration_s * fps)), "h264", 0.0, None)
