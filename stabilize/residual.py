@@ -18,6 +18,15 @@ motion log (which may itself be wrong):
 4. a similarity is fitted robustly with the project's own estimator
    (:func:`stabilize.consensus.estimate`) in full-resolution pixels.
 
+Which corners are the scene, where groups move apart (a large object before a still camera),
+is the one thing the check takes from outside: on frames the log measured (status ``ok``, or
+``weak`` for few inliers; :func:`logged_scene`), the source stream fits the corners that bear
+out the log's motion, and the output stream those
+that bear out the source's measured motion carried through the correction. A log the frames
+do not bear out is not followed. The check thus measures, in the written video, the part of
+the picture the log took for the scene: it catches a plan or render that failed to steady
+it, not a log that followed an object with confidence.
+
 The result of a pair is read as a similarity about the frame centre (``dx``, ``dy`` pixels,
 degrees; :func:`stabilize.geometry.similarity_readout`): the motion from frame t−1 to frame t of
 that stream, in the direction of the log's ``H_t``. Pixel coordinates follow the convention of
@@ -50,6 +59,7 @@ __all__ = [
     "Region",
     "RenderCheck",
     "inherited_labels",
+    "logged_scene",
     "pair_motion",
     "reduce_luma",
     "usable",
@@ -74,7 +84,9 @@ class CheckSettings:
     measured; ``fb_max_px`` None leaves the backward check out; ``suspect_frames``: a corner
     that left a fit's consensus stays suspect for this many pairs spent among the inliers
     again; ``scene_px``: with an expected scene motion, corners within this of it are the
-    scene (both in :func:`pair_motion`). The values are this
+    scene (both in :func:`pair_motion`; 0.25 px, not the inlier threshold: on ``box.mp4`` a
+    box creeping 0.3 px a frame over half of a still view sat within 0.5 px of the scene,
+    and the fit on both read a blend of the two). The values are this
     project's own choices, for the least time at about the same error on a 1080p synthetic
     truss clip through H.264 (median 0.03 px, 95th percentile 0.09 px against the exact
     motion), checked on the pairs of ``tests/test_residual.py`` and the clips of
@@ -99,7 +111,7 @@ class CheckSettings:
     max_rounds: int = 300
     min_inliers: int = 8
     suspect_frames: int = 15
-    scene_px: float = 1.0
+    scene_px: float = 0.25
 
 
 @dataclass(frozen=True)
@@ -300,10 +312,13 @@ def pair_motion(
     seed : the estimator's seed (the project seeds per frame with ``[seed, frame]``).
     suspect : (k,) int labels of ``points`` (see :class:`PairMotion`); None: all trusted.
     scene : (3, 3) the motion, full-resolution pixels, that the scene is expected to have
-        here (the render's output check passes the source stream's measured motion carried
-        through the corrections); corners within ``settings.scene_px`` of it are the ones
-        fitted when there are at least ``min_inliers`` of them. The fit is still made on
-        this pair's own corners: the expectation only says which group is the scene.
+        here (the render's check passes the log's motion to the source stream on frames the
+        log measured, and the source stream's measured motion carried through the corrections
+        to the output stream); corners within ``settings.scene_px`` of it are the ones
+        fitted when there are at least ``min_inliers`` of them (trusted ones first) and at
+        least ``min_inliers`` of those agree on a fit; otherwise the pair is fitted as
+        without it. The fit is still made on this pair's own corners: the expectation only
+        says which group is the scene.
 
     Returns
     -------
@@ -344,14 +359,21 @@ def pair_motion(
     n_trusted = int(np.count_nonzero(trusted))
     use = trusted if n_trusted >= max(s.min_inliers, 0.25 * n) else np.ones(n, bool)
     inlier_px = s.inlier_px / min(scale)
+    fit = None
     if scene is not None:
         near = SIMILARITY.residuals(scene, a, b) < s.scene_px / min(scale)
-        if np.count_nonzero(near & trusted) >= s.min_inliers:
-            use = near & trusted
-        elif np.count_nonzero(near) >= s.min_inliers:
-            use = near
-    fit = SIMILARITY.estimate(a[use], b[use], inlier_px=inlier_px, max_rounds=s.max_rounds,
-                              seed=seed, frame_size=(float(w), float(h)))
+        expected = (near & trusted if np.count_nonzero(near & trusted) >= s.min_inliers
+                    else near)
+        if np.count_nonzero(expected) >= s.min_inliers:
+            fit = SIMILARITY.estimate(a[expected], b[expected], inlier_px=inlier_px,
+                                      max_rounds=s.max_rounds, seed=seed,
+                                      frame_size=(float(w), float(h)))
+            if not (fit.ok and fit.n_inliers >= s.min_inliers):
+                fit = None    # too few of them agree: the pair's own consensus decides
+    if fit is None:
+        fit = SIMILARITY.estimate(a[use], b[use], inlier_px=inlier_px,
+                                  max_rounds=s.max_rounds, seed=seed,
+                                  frame_size=(float(w), float(h)))
     ok = bool(fit.ok) and fit.n_inliers >= s.min_inliers
     if not ok:
         return PairMotion(np.eye(3), np.full(3, np.nan), False, n, fit.n_inliers, dst[keep],
@@ -517,18 +539,24 @@ class RenderCheck:
     full_size : (width, height), pixels.
     cuts : (frames,) bool, scene cuts.
     excluded : rectangles (x, y, w, h) left out, full-resolution pixels.
+    scene : (frames, 3, 3) the log's motion of each frame (frame t−1 to t, source pixels),
+        nan where the log did not measure it (:func:`logged_scene`); the source stream takes
+        it as the scene it expects (:func:`pair_motion`). None: the check chooses the scene
+        on its own.
     settings : :class:`CheckSettings`. seed : estimator seed.
     """
 
     def __init__(self, frames: int, full_size: tuple[int, int], *,
                  cuts: np.ndarray | None = None,
                  excluded: Sequence[Sequence[float]] = (),
+                 scene: np.ndarray | None = None,
                  settings: CheckSettings = CheckSettings(), seed: int = 0) -> None:
         self.frames = int(frames)
         self.full_size = (int(full_size[0]), int(full_size[1]))
         self.cuts = np.zeros(frames, bool) if cuts is None else np.asarray(cuts, bool)
         rects = np.array([_rect_quad(*map(float, r)) for r in excluded]).reshape(-1, 4, 2)
         self._source_region = Region.whole(*self.full_size, rects)
+        self.scene = scene
         self.source = np.full((self.frames, 3), np.nan)
         self.output = np.full((self.frames, 3), np.nan)
         self._src = MotionCheck(self.full_size, settings, seed)
@@ -546,7 +574,10 @@ class RenderCheck:
             self._src.reset()
             self._out.reset()
             self._correction = None
-        self.source[index] = self._src.step(index, _luma(source), self._source_region)
+        logged = None
+        if self.scene is not None and np.all(np.isfinite(self.scene[index])):
+            logged = self.scene[index]
+        self.source[index] = self._src.step(index, _luma(source), self._source_region, logged)
         # The scene is what the source stream measured, carried into the output by the
         # corrections actually applied: C_t · S_t · C_{t−1}⁻¹. It only picks which of the
         # output's corners are the scene; their motion is measured on the output.
@@ -559,3 +590,19 @@ class RenderCheck:
         self.seconds += time.perf_counter() - t0
         self.cpu_seconds += time.thread_time() - c0
         self.checked += 1
+
+
+def logged_scene(matrices: np.ndarray, status: np.ndarray,
+                 reasons: np.ndarray | None = None) -> np.ndarray:
+    """The log's motion as the scene the source stream expects: (frames, 3, 3), the log's
+    matrices (frame t−1 to t, source pixels) where the log measured the frame (status
+    ``ok``, or ``weak`` for its few or bunched inliers, reason ``few_inliers``), nan
+    elsewhere (frames held still or left unconfirmed, stand-ins, failed frames, cuts, the
+    first frame): there the check chooses the scene on its own."""
+    out = np.array(matrices, np.float64, copy=True).reshape(-1, 3, 3)
+    status = np.asarray(status)
+    measured = status == "ok"
+    if reasons is not None:
+        measured |= (status == "weak") & (np.asarray(reasons) == "few_inliers")
+    out[~measured] = np.nan
+    return out

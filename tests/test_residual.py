@@ -9,7 +9,7 @@ import cv2
 import numpy as np
 import pytest
 
-from stabilize import shake
+from stabilize import residual, shake
 from stabilize.geometry import frame_centre, similarity_readout
 from stabilize.residual import (
     CheckSettings,
@@ -168,7 +168,7 @@ def test_suspect_corners_do_not_decide_the_fit_even_when_they_are_the_most():
     np.testing.assert_allclose(labelled.readout[:2], [0.8, -0.4], atol=0.05)
     # An expected scene motion (what the render passes from the source stream) picks the
     # group the same way, and the motion is still measured on the corners themselves.
-    expected = _similarity(0.5, -0.2, 0.0, c)             # 0.3 px off the true motion
+    expected = _similarity(0.7, -0.3, 0.0, c)             # 0.14 px off the true motion
     guided = pair_motion(small_a, small_b, pts, scale=scale, full_size=(w, h),
                          region=region, scene=expected)
     np.testing.assert_allclose(guided.readout[:2], [0.8, -0.4], atol=0.05)
@@ -209,6 +209,65 @@ def test_render_check_carries_the_region_through_the_correction_and_restarts_at_
     np.testing.assert_allclose(rc.source[ok, :2], [[1.5, -0.5]] * len(ok), atol=0.03)
     np.testing.assert_allclose(rc.output[ok, :2], [[0.2, 0.0]] * len(ok), atol=0.05)
     assert rc.checked == n
+
+
+def _still_scene_with_a_large_patch(n: int, w: int, h: int):
+    """Frames of a still scene with a finer-textured patch over 60 % of the width that
+    drifts on its own, slowly at first (0.3 px a frame, within the check's inlier
+    threshold of the scene), then 1.5 px a frame; the scene has half the patch's contrast,
+    so the patch holds most of the corners."""
+    c = frame_centre(w, h)
+    scene, patch = _waves(3), _waves(4, count=40)
+    x0, x1 = 100, 500
+    pos = np.cumsum([0.0] + [0.3 if t < 4 else 1.5 for t in range(1, n)])
+    background = (64 + _render(scene, np.eye(3), w, h) // 2).astype(np.uint8)
+    for t in range(n):
+        frame = background.copy()
+        frame[:, x0:x1] = _render(patch, _similarity(pos[t], 0.5 * pos[t], 0.0, c),
+                                  w, h)[:, x0:x1]
+        yield frame
+
+
+def test_the_logs_scene_picks_the_sources_corners_and_a_log_the_frames_deny_does_not():
+    """A still camera before a large patch moving on its own: left to itself, the check's
+    first consensus takes the patch (or a blend of patch and scene while the patch creeps)
+    for the scene; told the log's motion (none) on frames the log trusts, it measures the
+    scene, and so does the output stream after it. A log the frames do not bear out (10 px
+    off every corner) is not followed: the check falls back on its own consensus."""
+    w, h, n = 640, 360, 10
+    frames = list(_still_scene_with_a_large_patch(n, w, h))
+    still = np.repeat(np.eye(3)[None], n, axis=0)
+    status = np.array(["first"] + ["ok"] * (n - 1))
+    runs = {}
+    for name, scene in (("blind", None),
+                        ("logged", residual.logged_scene(still, status)),
+                        ("denied", residual.logged_scene(
+                            still @ _similarity(10.0, -10.0, 0.0, np.zeros(2)), status))):
+        rc = RenderCheck(n, (w, h), scene=scene)
+        for t, frame in enumerate(frames):
+            rc(t, frame, frame, np.eye(3))
+        runs[name] = rc
+    blind = np.nanmax(np.abs(runs["blind"].source[1:, :2]))
+    assert blind > 0.2, blind                       # the patch's motion, read as the scene's
+    np.testing.assert_allclose(runs["logged"].source[1:, :2], 0.0, atol=0.03)
+    np.testing.assert_allclose(runs["logged"].output[1:, :2], 0.0, atol=0.03)
+    np.testing.assert_allclose(runs["denied"].source[1:], runs["blind"].source[1:],
+                               atol=1e-9)
+
+
+def test_only_frames_the_log_measured_are_taken_as_its_scene():
+    """Frames fitted in full, and weak fits on few inliers (measured, if noisily), give the
+    check the log's scene; frames held still, left unconfirmed or stood in for, failed
+    frames, cuts and the first frame do not: there the check chooses on its own."""
+    status = np.array(["first", "ok", "weak", "weak", "weak", "weak", "failed", "cut", "ok"])
+    reasons = np.array(["", "", "few_inliers", "held_still", "unconfirmed", "foreground",
+                        "no_tracks", "", ""])
+    m = np.repeat(np.eye(3)[None], len(status), axis=0)
+    m[:, 0, 2] = np.arange(len(status))
+    scene = residual.logged_scene(m, status, reasons)
+    np.testing.assert_array_equal(scene[[1, 2, 8]], m[[1, 2, 8]])
+    assert np.isnan(scene[[0, 3, 4, 5, 6, 7]]).all()
+    assert np.isnan(residual.logged_scene(m, status)[2]).all()    # no reasons: ok only
 
 
 def test_steadiness_compares_like_with_like():

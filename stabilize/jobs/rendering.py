@@ -112,8 +112,9 @@ def _render_video(clip: Path, info: VideoInfo, motion: FrameMotion, plan: Correc
                               time_base=info.time_base, **writer_args)
     # The written frames' own motion, and the source's measured alike, for the figures
     # after steadying (see stabilize.residual).
+    scene = residual.logged_scene(motion.matrices, motion.status, motion.reasons)
     check = residual.RenderCheck(motion.frames, (info.width, info.height), cuts=motion.cuts,
-                                 excluded=excluded, seed=settings.seed)
+                                 excluded=excluded, scene=scene, seed=settings.seed)
     # A rolling shutter: each frame's rows are put back where the middle row's instant saw
     # them, in the same resampling as the correction, and the row spread is measured as it goes.
     rows = None if motion.rolling is None else within_frame(motion.rolling)

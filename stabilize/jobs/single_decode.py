@@ -162,13 +162,15 @@ class _Settler:
     """Turns the analysis's settled records into corrections (analysis thread)."""
 
     def __init__(self, shared: _Shared, planner: FixedLagPlanner, full_size: tuple[int, int],
-                 cuts: np.ndarray) -> None:
+                 cuts: np.ndarray, scene: np.ndarray) -> None:
         self.shared, self.planner, self.size = shared, planner, full_size
         self.cuts = cuts                # the output check's cut flags, filled as frames settle
+        self.scene = scene              # and the log's motion it expects (nan: not trusted)
         # Settled frames from frame `base` on (older ones are no longer needed).
         self.base = 0
         self.matrices: list[np.ndarray] = []
         self.status: list[str] = []
+        self.reason: list[str] = []
         self.stand: list[bool] = []
         self.anchor: list[bool] = []
         self.last_good = -1
@@ -182,6 +184,7 @@ class _Settler:
         for r in records[known:settled]:
             self.matrices.append(r.matrix)
             self.status.append(r.status)
+            self.reason.append(r.reason)
             self.stand.append(bool(stand_ins(np.array([r.status]), np.array([r.reason]))[0]))
             self.anchor.append(bool(anchor_frames(np.array([r.status]),
                                                   np.array([r.reason]))[0]))
@@ -203,24 +206,28 @@ class _Settler:
                              anchor=np.array(self.anchor[b - o:upto - o]))[first - b:]
         if good:
             self.last_good = good[-1]
-        self._add(filled, status[first - b:] == "cut", excluded_now, final=False)
+        self._add(filled, status[first - b:], np.array(self.reason[first - o:upto - o]),
+                  excluded_now, final=False)
         drop = max(0, self.last_good - 1) - self.base
-        del self.matrices[:drop], self.status[:drop], self.stand[:drop], self.anchor[:drop]
+        del self.matrices[:drop], self.status[:drop], self.reason[:drop], self.stand[:drop]
+        del self.anchor[:drop]
         self.base += drop
 
-    def finish(self, matrices: np.ndarray, status: np.ndarray,
+    def finish(self, matrices: np.ndarray, status: np.ndarray, reasons: np.ndarray,
                excluded_now: Callable[[], dict]) -> None:
         """The analysis ended: plan every frame left, from its final transforms."""
         first = self.planner.frames
-        self._add(matrices[first:], status[first:] == "cut", excluded_now, final=True)
+        self._add(matrices[first:], status[first:], reasons[first:], excluded_now, final=True)
 
-    def _add(self, matrices: np.ndarray, cuts: np.ndarray, excluded_now: Callable[[], dict],
-             final: bool) -> None:
+    def _add(self, matrices: np.ndarray, status: np.ndarray, reasons: np.ndarray,
+             excluded_now: Callable[[], dict], final: bool) -> None:
         first = self.planner.frames
-        if first + len(cuts) > len(self.cuts):
+        if first + len(status) > len(self.cuts):
             self.shared.stop("more frames than the output check was sized for")
             return
+        cuts = status == "cut"
         self.cuts[first:first + len(cuts)] = cuts
+        self.scene[first:first + len(cuts)] = residual.logged_scene(matrices, status, reasons)
         self.planner.extend(matrices, cuts)
         new = self.planner.plan(len(self.shared.corrections), final=final)
         if self.planner.eased:
@@ -231,6 +238,13 @@ class _Settler:
         with self.shared.cond:
             self.shared.corrections.extend(new)
             self.shared.cond.notify_all()
+
+
+def _reasons(track: Any) -> np.ndarray:
+    """The track's per-frame reason codes ('' for none)."""
+    if track.reason is None:
+        return np.full(len(track.status), "", "<U12")
+    return np.asarray(track.reason)
 
 
 def _excluded_list(excluded: dict) -> list[list[float]]:
@@ -252,9 +266,10 @@ def steady_single_decode(clip: Path, info: VideoInfo, settings: Settings, output
     shared = _Shared(hold)
     bound = max(2 * int(info.frames_estimate) + 100, 1000)
     cuts = np.zeros(bound, bool)
+    scene = np.full((bound, 3, 3), np.nan)
     planner = FixedLagPlanner(fps=info.fps, window_s=settings.window_s, model=settings.model,
                               margin=float(settings.margin), width=w, height=h)
-    settler = _Settler(shared, planner, (w, h), cuts)
+    settler = _Settler(shared, planner, (w, h), cuts, scene)
     stats = DecodeStats()
     result: dict[str, Any] = {}
     abar = progress_bar(progress, "analyse", info.frames_estimate)
@@ -267,7 +282,8 @@ def steady_single_decode(clip: Path, info: VideoInfo, settings: Settings, output
                                **single_pass_options(info))
             result["track"] = track
             if shared.give_up is None:
-                settler.finish(track.matrices, track.status, lambda: track.excluded)
+                settler.finish(track.matrices, track.status, _reasons(track),
+                               lambda: track.excluded)
         except BaseException as exc:  # handed to the main thread
             result["error"] = exc
             shared.stop("the analysis stopped")
@@ -289,7 +305,7 @@ def steady_single_decode(clip: Path, info: VideoInfo, settings: Settings, output
         if not check:
             check.append(residual.RenderCheck(
                 bound, (w, h), cuts=cuts, excluded=_excluded_list(settler.excluded or {}),
-                seed=settings.seed))
+                scene=scene, seed=settings.seed))
         check[0](index, source, output, correction)
 
     writer_args = dict(codec=settings.codec, crf=settings.crf, preset=settings.preset,
@@ -375,6 +391,8 @@ def _verify(motion: FrameMotion, info: VideoInfo, settings: Settings, shared: _S
         return None
     rc = check[0]
     if (not np.array_equal(rc.cuts[:n], motion.cuts) or rc.cuts[n:].any()
+            or not np.array_equal(rc.scene[:n], residual.logged_scene(
+                motion.matrices, motion.status, motion.reasons), equal_nan=True)
             or _excluded_list(settler.excluded or {}) != _excluded_list(
                 motion.extra.get("excluded", {}))):
         return None
