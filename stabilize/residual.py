@@ -21,11 +21,11 @@ motion log (which may itself be wrong):
 Which corners are the scene, where groups move apart (a large object before a still camera),
 is the one thing the check takes from outside: on frames the log measured (status ``ok``, or
 ``weak`` for few inliers; :func:`logged_scene`), the source stream fits the corners that bear
-out the log's motion, and the output stream those
-that bear out the source's measured motion carried through the correction. A log the frames
-do not bear out is not followed. The check thus measures, in the written video, the part of
-the picture the log took for the scene: it catches a plan or render that failed to steady
-it, not a log that followed an object with confidence.
+out the log's motion, and the output stream those that bear out the source's measured motion
+carried through the correction. A log the frames do not bear out is not followed. The check
+thus measures, in the written video, the part of the picture the log took for the scene: it
+catches a plan or render that failed to steady it, not a log that followed an object with
+confidence.
 
 The result of a pair is read as a similarity about the frame centre (``dx``, ``dy`` pixels,
 degrees; :func:`stabilize.geometry.similarity_readout`): the motion from frame t−1 to frame t of

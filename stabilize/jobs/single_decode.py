@@ -165,7 +165,7 @@ class _Settler:
                  cuts: np.ndarray, scene: np.ndarray) -> None:
         self.shared, self.planner, self.size = shared, planner, full_size
         self.cuts = cuts                # the output check's cut flags, filled as frames settle
-        self.scene = scene              # and the log's motion it expects (nan: not trusted)
+        self.scene = scene              # and the log's motion it expects (nan: not measured)
         # Settled frames from frame `base` on (older ones are no longer needed).
         self.base = 0
         self.matrices: list[np.ndarray] = []
