@@ -172,6 +172,11 @@ def test_suspect_corners_do_not_decide_the_fit_even_when_they_are_the_most():
     guided = pair_motion(small_a, small_b, pts, scale=scale, full_size=(w, h),
                          region=region, scene=expected)
     np.testing.assert_allclose(guided.readout[:2], [0.8, -0.4], atol=0.05)
+    # An expectation further off than the close band (0.25 px) but within the wide one (1 px)
+    # still picks the scene's corners, not the patch's.
+    rough = pair_motion(small_a, small_b, pts, scale=scale, full_size=(w, h), region=region,
+                        scene=_similarity(0.3, -0.7, 0.0, c))      # 0.58 px off
+    np.testing.assert_allclose(rough.readout[:2], [0.8, -0.4], atol=0.05)
     # Scene corners stay trusted; the patch's are suspect for the full span again.
     assert len(labelled.points) >= len(pts) - 3    # a few may fail the backward check
     kept_on_patch = (labelled.points[:, 0] > x0) & (labelled.points[:, 0] < x1)
