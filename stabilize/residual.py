@@ -364,6 +364,12 @@ def pair_motion(
     n_trusted = int(np.count_nonzero(trusted))
     use = trusted if n_trusted >= max(s.min_inliers, 0.25 * n) else np.ones(n, bool)
     inlier_px = s.inlier_px / min(scale)
+
+    def fit_on(chosen: np.ndarray):
+        return SIMILARITY.estimate(a[chosen], b[chosen], inlier_px=inlier_px,
+                                   max_rounds=s.max_rounds, seed=seed,
+                                   frame_size=(float(w), float(h)))
+
     fit = None
     if scene is not None:
         off = SIMILARITY.residuals(scene, a, b)
@@ -373,16 +379,12 @@ def pair_motion(
                         else near)
             if np.count_nonzero(expected) < s.min_inliers:
                 continue
-            fit = SIMILARITY.estimate(a[expected], b[expected], inlier_px=inlier_px,
-                                      max_rounds=s.max_rounds, seed=seed,
-                                      frame_size=(float(w), float(h)))
+            fit = fit_on(expected)
             if fit.ok and fit.n_inliers >= s.min_inliers:
                 break
             fit = None    # too few of them agree: a wider band, then the pair's own consensus
     if fit is None:
-        fit = SIMILARITY.estimate(a[use], b[use], inlier_px=inlier_px,
-                                  max_rounds=s.max_rounds, seed=seed,
-                                  frame_size=(float(w), float(h)))
+        fit = fit_on(use)
     ok = bool(fit.ok) and fit.n_inliers >= s.min_inliers
     if not ok:
         return PairMotion(np.eye(3), np.full(3, np.nan), False, n, fit.n_inliers, dst[keep],
