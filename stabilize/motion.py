@@ -219,6 +219,8 @@ def fit_motion(
                                  anchor=anchor_frames(track.status, why))
     if ctx.bands is not None:
         track.band_shift_px, track.band_support = _band_arrays(records, ctx.bands.n_bands)
+    track.gain_shift_px = np.array([np.zeros(2) if r.gain_shift is None else r.gain_shift
+                                    for r in records], dtype=np.float64).reshape(n, 2)
     return track
 
 

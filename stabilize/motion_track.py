@@ -34,8 +34,9 @@ REASONS = {
 #: The per-frame arrays of :class:`MotionTrack` that the motion log takes over as they are.
 LOG_COLUMNS = ("time_s", "matrices", "tracked", "inliers", "inlier_ratio", "rms_px", "rounds",
                "status")
-# The optional row-band arrays (rolling shutter), carried along with the frames.
-_BANDS = ("band_shift_px", "band_support")
+# The optional per-frame arrays (row bands of a rolling shutter; the shift a change of
+# brightness put into each fit), carried along with the frames.
+_OPTIONAL = ("band_shift_px", "band_support", "gain_shift_px")
 # Shapes and dtypes of those arrays for no frames at all.
 _EMPTY = {"time_s": (0, float), "matrices": ((0, 3, 3), float), "tracked": (0, int),
           "inliers": (0, int), "inlier_ratio": (0, float), "rms_px": (0, float),
@@ -57,6 +58,8 @@ class MotionTrack:
     band_shift_px : (n, bands, 2) row-band shifts (dx, dy) px from the previous frame
         (:func:`stabilize.row_bands.track_band_shifts`; NaN where a frame has none), or None
         when the analysis did not measure them. band_support : (n, bands), or None.
+    gain_shift_px : (n, 2) how far the picture's change of brightness moved each frame's
+        fit (dx, dy px; :mod:`stabilize.brightness`), 0 where no fit stood; or None.
     """
 
     time_s: np.ndarray
@@ -71,6 +74,7 @@ class MotionTrack:
     reason: np.ndarray | None = None
     band_shift_px: np.ndarray | None = None
     band_support: np.ndarray | None = None
+    gain_shift_px: np.ndarray | None = None
 
     def log_columns(self) -> dict[str, np.ndarray]:
         """The per-frame arrays the motion log takes over as they are, by column name.
@@ -96,7 +100,7 @@ class MotionTrack:
                            excluded=self.excluded,
                            reason=None if self.reason is None else self.reason[frames],
                            **{k: None if getattr(self, k) is None else getattr(self, k)[frames]
-                              for k in _BANDS})
+                              for k in _OPTIONAL})
 
     @classmethod
     def concatenate(cls, parts: Sequence[MotionTrack],
@@ -117,7 +121,7 @@ class MotionTrack:
             return cls(**{k: np.empty(shape, dtype) for k, (shape, dtype) in _EMPTY.items()},
                        excluded=excluded, reason=np.empty(0, "<U12"))
         bands = {k: np.concatenate([getattr(p, k) for p in parts])
-                 if all(getattr(p, k) is not None for p in parts) else None for k in _BANDS}
+                 if all(getattr(p, k) is not None for p in parts) else None for k in _OPTIONAL}
         return cls(**{k: np.concatenate([getattr(p, k) for p in parts]) for k in LOG_COLUMNS},
                    excluded=excluded,
                    reason=np.concatenate([p.reason if p.reason is not None

@@ -522,7 +522,8 @@ class Tracker:
     Call :meth:`step` with each frame (and optionally a predicted motion for it) to get the
     pairs, then :meth:`update` with which of them moved with the camera. ``floor``: the
     corner-strength floor of the picture at the last detection (:func:`strength_floor`;
-    None before the first).
+    None before the first); ``window_px``: the forward Lucas–Kanade window (pixels) the last
+    pairs were followed with.
     """
 
     def __init__(self, settings: TrackSettings | None = None,
@@ -545,6 +546,7 @@ class Tracker:
         self._reached = 0
         self._since_detect = 0
         self.floor: float | None = None
+        self.window_px = self.settings.win_size
 
     def reset(self) -> None:
         """Forget every track (after a scene cut)."""
@@ -601,6 +603,7 @@ class Tracker:
         s = self.settings
         src = self._pts
         win = self._windows()
+        self.window_px = win[0]
         guess = None
         if predicted is not None:
             guess = cv2.perspectiveTransform(src.reshape(-1, 1, 2).astype(np.float64),

@@ -4,6 +4,7 @@ import cv2
 import numpy as np
 import pytest
 
+import stabilize
 from stabilize import motion_pass
 from stabilize.anchors import Grouping, hull_share
 from stabilize.config import Settings
@@ -490,6 +491,25 @@ def test_a_dark_board_crossing_a_still_view_of_a_faint_wall_is_not_the_camera(tm
     "the path of a still camera drifts by 0.7-1.6 px (seeds 1-3) with at most one frame weak"))
 def test_an_exposure_ramp_while_a_dark_board_crosses_leaves_a_still_camera_still(tmp_path):
     assert _encoded_path_px(_dark_board_crossing(3, exposure=True), tmp_path / "b.mp4") < 0.5
+
+
+def test_an_exposure_ramp_that_moves_a_still_cameras_path_is_said_to(tmp_path):
+    # The drift of the expected failure above cannot be told from the frames' motion, but
+    # the brightness change that causes it can: the log gives how far it may have moved the
+    # path (0.84 px for a path 1.4 px off, measured), and the verdict says so. At a fixed
+    # exposure the figure is nought and the verdict sound.
+    logs = {}
+    for exposure in (False, True):
+        path = tmp_path / f"board {exposure}.mp4"
+        with VideoWriter(path, W, H, 30.0, crf=23, preset="veryfast") as wr:
+            for f in _dark_board_crossing(3, exposure=exposure):
+                wr.write(np.repeat(f.image[:, :, None], 3, axis=2))
+        logs[exposure] = stabilize.measure(path).summary
+    assert logs[False]["brightness_drift_px"] < 0.05 and logs[False]["trust"] == "sound"
+    ramp = logs[True]
+    assert ramp["brightness_drift_px"] > 0.5
+    assert ramp["trust"] == "rough"
+    assert any("brightness changed" in r for r in ramp["trust_reasons"])
 
 
 def _slow_board_before_plain_wall(n: int = 150) -> list[Frame]:

@@ -466,6 +466,16 @@ def test_verdict_levels_and_reasons():
     assert both["trust"] == "unreliable" and len(both["trust_reasons"]) == 3
 
 
+def test_a_path_brightness_changes_may_have_moved_is_called_rough_then_unreliable():
+    base = {"frames": 100, "frames_weak": 0, "frames_failed": 0}
+    assert trust_verdict(base | {"brightness_drift_px": None})["trust"] == "sound"
+    assert trust_verdict(base | {"brightness_drift_px": 0.33})["trust"] == "sound"
+    rough = trust_verdict(base | {"brightness_drift_px": 0.8})
+    assert rough["trust"] == "rough"
+    assert "brightness" in rough["trust_reasons"][0] and "0.8 px" in rough["trust_reasons"][0]
+    assert trust_verdict(base | {"brightness_drift_px": 2.4})["trust"] == "unreliable"
+
+
 def test_a_check_reading_shake_the_log_has_not_says_either_may_be_wrong():
     """A box slid across the table before a still camera: the log gives the source 0.01 px
     of shake, the render's check of the frames read 1.15 px (it followed the box), and the

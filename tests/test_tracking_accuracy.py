@@ -26,18 +26,26 @@ pytestmark = pytest.mark.slow
 
 
 def _encode(clip: SyntheticClip, path, crf: int = 18):
+    # CRF 0 is lossless at any preset: the fastest one saves time.
     with VideoWriter(path, clip.width, clip.height, clip.spec.fps, crf=crf,
-                     preset="medium") as w:
+                     preset="ultrafast" if crf == 0 else "medium") as w:
         for _, f in clip.frames():
             w.write(f)
     return path
 
 
-@pytest.mark.parametrize("level, limit", [("balanced", 0.016), ("thorough", 0.015)])
-def test_moving_objects_and_telemetry_at_720p(tmp_path, level, limit):
+@pytest.mark.parametrize("level, crf, limit", [("balanced", 18, 0.016), ("thorough", 18, 0.015),
+                                              ("balanced", 0, 0.008)])
+def test_moving_objects_and_telemetry_at_720p(tmp_path, level, crf, limit):
     """1280×720, 240 frames, sensor noise, three moving patches over a fifth of the frame and
     a burnt-in telemetry strip, no --ignore, default analysis width; the default analysis
-    level (``balanced``) and the most accurate one.
+    level (``balanced``, whose limit of 0.016 px is the speed issue's) and the most accurate
+    one, at our default quality (CRF 18).
+
+    At CRF 18 the encoder, not the tracking, sets the floor (README, "Analysis speed": the
+    same clip at other qualities, and what was tried at ``balanced``). The third case, the
+    clip encoded losslessly (CRF 0), checks the tracking itself: 0.0060 px at ``balanced``
+    (measured 2026-12-05), where the encoder's loss would hide a worse tracker.
 
     For scale (figures given with the task, not measured here): a plain pipeline of 200
     corners and OpenCV's estimator gets about 0.17 / 1.9 / 4.0 px (median / 95th percentile /
@@ -48,7 +56,7 @@ def test_moving_objects_and_telemetry_at_720p(tmp_path, level, limit):
                      noise_sigma=2.0, model="similarity",
                      movers=movers_covering(0.2, w, h, count=3, seed=1), telemetry=True)
     clip = SyntheticClip(spec)
-    path = _encode(clip, tmp_path / "girder pass.mp4")
+    path = _encode(clip, tmp_path / "girder pass.mp4", crf)
     log = stabilize.measure(path, analysis=level)
     err = grid_transfer_error(clip.ground_truth()["inter_frame"][1:], log.matrices[1:], w, h)
     median, p95, worst = np.median(err), np.percentile(err, 95), err.max()

@@ -18,6 +18,7 @@ from typing import Any
 import numpy as np
 
 from .. import shake
+from ..brightness import drift_px
 from ..config import Settings, resolve_settings
 from ..io import VideoInfo, iter_frames, probe
 from ..io.decode import DecodeStats, analysis_size, looks_truncated
@@ -61,7 +62,9 @@ class FrameMotion:
     Arrays have one row per decoded frame (see :class:`stabilize.motion_log.MotionLog`);
     ``reasons`` holds each weak or failed frame's reason code ('' for none); ``source`` is the
     log's ``source`` block and ``extra`` its analysis keys (``excluded``, ``frame_reasons``);
-    ``rolling`` the rolling-shutter analysis (None for a global shutter, readout 0).
+    ``rolling`` the rolling-shutter analysis (None for a global shutter, readout 0);
+    ``brightness_drift_px`` how far changes of brightness alone may have moved the logged
+    path (:func:`stabilize.brightness.drift_px`; None when not known, as for a saved log).
     """
 
     time_s: np.ndarray
@@ -76,6 +79,7 @@ class FrameMotion:
     source: dict[str, Any]
     extra: dict[str, Any] = field(default_factory=dict)
     rolling: RollingShutter | None = None
+    brightness_drift_px: float | None = None
 
     @property
     def frames(self) -> int:
@@ -107,6 +111,7 @@ class FrameMotion:
             corrections=None if plan is None else plan.corrections,
             output_check=out_check, source_check=src_check, steadiness=plan is not None)
         summary = summary | ({} if plan is None else plan.figures())
+        summary["brightness_drift_px"] = self.brightness_drift_px
         if self.rolling is not None:
             summary.update(rolling_figures(self.rolling))
         summary.update(shake.trust_verdict(summary))
@@ -250,6 +255,15 @@ def motion_from_track(clip: Path, info: VideoInfo, track: MotionTrack,
                      "their motion is held at none (if the camera was moving, as before a "
                      "clear sky, run again with plain_surround 'follow')" if held else
                      "their motion is the tracks' (plain_surround 'follow')")
+    drift = None
+    if track.gain_shift_px is not None:
+        counted = (status == "ok") | (reasons == "few_inliers")
+        drift = round(drift_px(track.gain_shift_px, counted, status == "cut"), 3)
+        if drift > shake.BRIGHTNESS_DRIFT_PX[0]:
+            _log.warning("%s: the picture's brightness changed (automatic exposure, or the "
+                         "light) while the tracked detail was faint; tracking reads such a "
+                         "change as motion, and the logged path may be off by about %.1f px "
+                         "or more from that alone", clip, drift)
     by_reason = frame_reasons(reasons)
     rolling = None
     if track.band_shift_px is not None and n >= 2:
@@ -264,6 +278,7 @@ def motion_from_track(clip: Path, info: VideoInfo, track: MotionTrack,
         **{**track.log_columns(), "status": status}, reasons=reason_codes(by_reason, n),
         source=source_dict(info, n, track.time_s, truncated),
         extra={"excluded": track.excluded, "frame_reasons": by_reason}, rolling=rolling,
+        brightness_drift_px=drift,
     )
 
 

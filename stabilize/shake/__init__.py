@@ -66,6 +66,7 @@ from .stability import (
     stability_figures,
 )
 from .summary import (
+    BRIGHTNESS_DRIFT_PX,
     ROUGH_SHARE,
     TRUST_LEVELS,
     UNRELIABLE_SHARE,
@@ -89,6 +90,7 @@ from .timebase import (
 
 __all__ = [
     "AXES",
+    "BRIGHTNESS_DRIFT_PX",
     "GAP_FACTOR",
     "IRREGULAR_SPREAD",
     "MIN_MEASURED_SHARE",

@@ -18,6 +18,7 @@ from .stability import (
 from .timebase import frame_gaps, frame_rate, missing_before, timestamps_irregular
 
 __all__ = [
+    "BRIGHTNESS_DRIFT_PX",
     "ROUGH_SHARE",
     "TRUST_LEVELS",
     "UNRELIABLE_SHARE",
@@ -181,6 +182,15 @@ UNLOGGED_RATIO = 2.0
 UNLOGGED_MIN_PX = 0.1
 
 
+#: How far changes of brightness alone may have moved the logged path
+#: (``brightness_drift_px``, :func:`stabilize.brightness.drift_px`) before the figures are
+#: called rough, and unreliable, pixels. Rules of thumb of this project: that figure is a
+#: first-order estimate, which read 0.5–0.8 px where drawn exposure ramps moved a still
+#: camera's path by 0.5–1.4 px, and 1.3–2.5 px where they moved it by 1.0–3.4 px; the real
+#: clips of ``tests/real`` read 0.35 px at most (``cup.mp4``; measured 2026-12-05).
+BRIGHTNESS_DRIFT_PX = (0.5, 2.0)
+
+
 def unlogged_source_shake(summary: dict) -> bool:
     """Whether the render's check of the source frames read clearly more shake than the
     motion log gives the source (``jitter_rms_*_px_src_check`` against ``jitter_rms_*_px``,
@@ -218,6 +228,8 @@ def trust_verdict(summary: dict) -> dict:
     - the steadied video measured no steadier than the input (``output_steadier`` false):
       rough (the reason says when the check also read shake the log does not have,
       :func:`unlogged_source_shake`);
+    - changes of brightness that may alone have moved the logged path
+      (``brightness_drift_px``) by over :data:`BRIGHTNESS_DRIFT_PX` (rough, unreliable);
     - irregular frame times (``timestamps_irregular``): rough, the path was resampled;
     - frames missing (``frames_missing``, gaps in the frame times) over the same shares of
       the frames there should have been.
@@ -263,6 +275,13 @@ def trust_verdict(summary: dict) -> dict:
         else:
             reasons.append((1, "The steadied video was measured no steadier than the input: "
                                "check it against the original footage."))
+    drift = summary.get("brightness_drift_px")
+    if drift is not None and drift > BRIGHTNESS_DRIFT_PX[0]:
+        reasons.append((2 if drift > BRIGHTNESS_DRIFT_PX[1] else 1,
+                        f"The picture's brightness changed (automatic exposure, or the light) "
+                        f"while the tracked detail was faint: tracking reads such a change as "
+                        f"motion, and the logged path may be off by about {drift:.1f} px or "
+                        f"more from that alone."))
     if summary.get("timestamps_irregular"):
         nominal, rate = summary.get("fps_nominal"), summary.get("fps")
         said = f" (the container says {nominal:.3g} fps)" if nominal else ""
