@@ -30,7 +30,8 @@ LAYERS: dict[str, int] = {
     # 1: the edges
     "io": 1,
     # 2: stages (and the generic worker runner and prefetch threads they and the jobs use)
-    "anchors": 2, "camera_path": 2, "consensus": 2, "cuts": 2, "demo_scene": 2, "frame_fit": 2,
+    "anchors": 2, "brightness": 2, "camera_path": 2, "consensus": 2, "cuts": 2,
+    "demo_scene": 2, "frame_fit": 2,
     "framing": 2, "motion": 2, "motion_models": 2, "motion_pass": 2, "motion_track": 2,
     "overlays": 2, "pinning": 2, "prefetch": 2, "render": 2, "report_page": 2, "report_plots": 2,
     "residual": 2, "rolling": 2, "row_bands": 2, "row_check": 2, "row_motion": 2,
