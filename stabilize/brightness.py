@@ -17,7 +17,7 @@ for a second or two moves every faint window the same way on every frame, and th
 of a still camera drifts. On drawn fixed-camera scenes with a dark object crossing a faint
 wall under automatic exposure the path strayed 0.5–1.4 px (the board of
 ``tests/test_motion.py``, seeds 1–3) and 1.0–3.4 px (a fainter, larger wall at 960×540),
-against 0.5–0.8 and 1.3–2.5 px added up from this module's per-frame figures
+against 0.5–1.0 and 1.5–2.4 px added up from this module's per-frame figures
 (:func:`drift_px`); the same scenes at a fixed exposure read 0.01 px and nought. Track by
 track the prediction follows OpenCV's tracker (``tests/test_brightness.py``). Measured
 2026-12-05.
@@ -29,14 +29,16 @@ right, y down, pixel centres at integers); the caller scales the result.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
 from numpy.lib.stride_tricks import sliding_window_view
 
 __all__ = ["MIN_GAIN_CHANGE", "GainEffect", "drift_px", "gain_effect", "gain_sensitivity",
            "window_means"]
 
-#: Gains closer to 1 than this are taken as no change (a grey level in a thousand; the
-#: median ratio of window means moves by about that from the noise of 8-bit pictures alone).
+#: Gains closer to 1 than this are taken as no change (this project's choice: an eighth of
+#: what one grey level is at mid-grey).
 MIN_GAIN_CHANGE = 1e-3
 
 
@@ -98,6 +100,7 @@ def gain_sensitivity(image: np.ndarray, pts: np.ndarray, win: int) -> np.ndarray
     return np.stack([sx, sy], axis=1)
 
 
+@dataclass(frozen=True)
 class GainEffect:
     """One frame pair's brightness change and what it did to the tracks.
 
@@ -107,11 +110,8 @@ class GainEffect:
     changed by less than :data:`MIN_GAIN_CHANGE`.
     """
 
-    __slots__ = ("gain", "shift")
-
-    def __init__(self, gain: float, shift: np.ndarray) -> None:
-        self.gain = float(gain)
-        self.shift = np.asarray(shift, np.float64)
+    gain: float
+    shift: np.ndarray
 
 
 def gain_effect(before: np.ndarray, now: np.ndarray, src: np.ndarray, dst: np.ndarray,
@@ -142,7 +142,7 @@ def gain_effect(before: np.ndarray, now: np.ndarray, src: np.ndarray, dst: np.nd
     # for 1.03 on the drawn wall of the tests): read again where they should have landed.
     back = dst + ((gain - 1.0) / gain) * s
     gain = float(np.median(window_means(now, back[lit], win) / m0[lit]))
-    return GainEffect(gain, -((gain - 1.0) / gain) * np.median(s, axis=0))
+    return GainEffect(gain, -((gain - 1.0) / gain) * np.median(s, axis=0).astype(np.float64))
 
 
 def drift_px(shift: np.ndarray, counted: np.ndarray, cuts: np.ndarray) -> float:

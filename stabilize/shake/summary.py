@@ -185,9 +185,9 @@ UNLOGGED_MIN_PX = 0.1
 #: How far changes of brightness alone may have moved the logged path
 #: (``brightness_drift_px``, :func:`stabilize.brightness.drift_px`) before the figures are
 #: called rough, and unreliable, pixels. Rules of thumb of this project: that figure is a
-#: first-order estimate, which read 0.5–0.8 px where drawn exposure ramps moved a still
-#: camera's path by 0.5–1.4 px, and 1.3–2.5 px where they moved it by 1.0–3.4 px; the real
-#: clips of ``tests/real`` read 0.35 px at most (``cup.mp4``; measured 2026-12-05).
+#: first-order estimate, which read 0.5–1.0 px where drawn exposure ramps moved a still
+#: camera's path by 0.5–1.4 px, and 1.5–2.4 px where they moved it by 1.0–3.4 px; the real
+#: clips of ``tests/real`` read 0.38 px at most (``cup.mp4``; measured 2026-12-05).
 BRIGHTNESS_DRIFT_PX = (0.5, 2.0)
 
 
