@@ -124,9 +124,11 @@ def gain_effect(before: np.ndarray, now: np.ndarray, src: np.ndarray, dst: np.nd
     before, now : (h, w) uint8 frames the tracks were followed on.
     src, dst : (k, 2) the tracks' positions in ``before`` and in ``now``, pixels.
     win : the Lucas–Kanade window, pixels (odd).
-    min_points : fewer tracks read no gain.
+    min_points : fewer tracks read no gain (nor does a picture smaller than ``win`` + 2 on
+        a side).
     """
-    if len(src) < min_points:
+    if len(src) < min_points or min(before.shape) < win + 2:
+        # Too few tracks, or a picture smaller than a window and its border.
         return GainEffect(1.0, np.zeros(2))
     m0 = window_means(before, src, win)
     m1 = window_means(now, dst, win)

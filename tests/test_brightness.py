@@ -73,6 +73,9 @@ def test_crisp_detail_and_a_steady_exposure_predict_no_error():
     effect = gain_effect(a, b, pts, dst, 11)
     assert abs(effect.gain - 1.0) < 1e-3 and not effect.shift.any()
     assert not gain_effect(a, b, pts[:5], dst[:5], 11).shift.any()  # too few tracks
+    tiny = np.full((24, 40), 100, np.uint8)  # the least picture that is tracked at all
+    spots = np.array([[10.0, 10.0]] * 10)
+    assert gain_effect(tiny, tiny + 5, spots, spots, 31).gain == 1.0
 
 
 def test_sensitivity_follows_the_slope_and_vanishes_on_a_flat_window():
