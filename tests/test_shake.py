@@ -460,6 +460,14 @@ def test_verdict_levels_and_reasons():
     assert trust_verdict(base | {"output_steadier": True})["trust"] == "sound"
     out = trust_verdict(base | {"output_steadier": False})
     assert out["trust"] == "rough" and "no steadier" in out["trust_reasons"][0]
+    # After a render whose output could not be measured enough (output_pairs_measured
+    # given, output_steadier null), nothing vouches for the video; a measuring run that
+    # rendered nothing (neither key) says nothing of it.
+    unchecked = trust_verdict(base | {"output_steadier": None, "output_pairs_measured": 0.45})
+    assert unchecked["trust"] == "rough"
+    assert "could not be checked (45%" in unchecked["trust_reasons"][0]
+    assert trust_verdict(base | {"output_steadier": None,
+                                 "output_pairs_measured": None})["trust"] == "sound"
     both = trust_verdict(base | {"frames_failed": 40, "output_steadier": False,
                                  "timestamps_irregular": True, "fps": 2.3,
                                  "fps_nominal": 15.0})

@@ -173,7 +173,8 @@ def _warn_if_not_steadier(clip: Path, summary: dict[str, Any]) -> None:
     if s.get("output_steadier") is None:
         share = s.get("output_pairs_measured")
         _log.warning("%s: the steadied video could not be checked (%s of its frame pairs "
-                     "measured); its figures after steadying are not given", clip,
+                     "measured); its figures after steadying are not given, and it may not be "
+                     "steadier than the source: look at it", clip,
                      "none" if not share else f"{share:.0%}")
     elif not s["output_steadier"]:
         def rms(key: str) -> str:

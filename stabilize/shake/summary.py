@@ -228,6 +228,8 @@ def trust_verdict(summary: dict) -> dict:
     - the steadied video measured no steadier than the input (``output_steadier`` false):
       rough (the reason says when the check also read shake the log does not have,
       :func:`unlogged_source_shake`);
+    - the steadied video could not be measured well enough to say (``output_steadier`` null
+      after a render: ``output_pairs_measured`` given): rough, nothing then vouches for it;
     - changes of brightness that may alone have moved the logged path
       (``brightness_drift_px``) by over :data:`BRIGHTNESS_DRIFT_PX` (rough, unreliable);
     - irregular frame times (``timestamps_irregular``): rough, the path was resampled;
@@ -275,6 +277,13 @@ def trust_verdict(summary: dict) -> dict:
         else:
             reasons.append((1, "The steadied video was measured no steadier than the input: "
                                "check it against the original footage."))
+    elif summary.get("output_steadier") is None and summary.get("output_pairs_measured") \
+            is not None:
+        share = float(summary["output_pairs_measured"])
+        reasons.append((1, f"The steadied video could not be checked ({share:.0%} of its frame "
+                           "pairs could be measured): nothing says it is "
+                           "steadier than the input, and it may not be; look at it against the "
+                           "original footage."))
     drift = summary.get("brightness_drift_px")
     if drift is not None and drift > BRIGHTNESS_DRIFT_PX[0]:
         reasons.append((2 if drift > BRIGHTNESS_DRIFT_PX[1] else 1,
