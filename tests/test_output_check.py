@@ -236,13 +236,23 @@ def true_output_rms(log, cam: np.ndarray) -> tuple[float, float]:
 
 
 @pytest.mark.parametrize("seed, mover_scale, movers, shake_px",
-                         [(1, 1.0, 3, 6.0), (1, 2.5, 3, 6.0), (15, 3.0, 2, 10.0)])
+                         [(1, 1.0, 3, 6.0), (1, 2.5, 3, 6.0), (15, 3.0, 2, 10.0),
+                          (13, 3.0, 2, 12.0), (17, 2.8, 2, 14.0)])
 def test_flat_colour_patterns_with_movers_are_steadied_or_said_not_to_be(
         tmp_path, caplog, seed, mover_scale, movers, shake_px):
-    """Seed 15: two flat movers over a third of the frame each leave the output's check so
+    """Either the output is steady (a tenth of the input's shake or less, measured on its
+    frames) or the run says it is not; and the figures after steadying, where given, are
+    the written video's within 25 %.
+
+    Seed 15: two flat movers over a third of the frame each leave the output's check so
     few corners that it measured 76 % of the pairs; a frame the log got 7 px wrong lay in
     an unmeasured stretch, and the figures after steadying read 0.08 px against the
-    output's true 0.69 px (measured before the check had to cover 90 % of the pairs)."""
+    output's true 0.69 px (measured before the check had to cover 90 % of the pairs).
+    Seeds 13 and 17: 45 % and 81 % of the output's pairs measured, and no figures, before
+    the check looked for weaker corners in sparse pictures and took the source's measured
+    motion where the output's own corners were too few; seed 13 then read 1.35 / 0.74 px
+    against a true 1.36 / 0.65 px (weak frames at its start, 6–9 px off), steadier but not
+    steady, and said so (measured 2026-12-05)."""
     frames, cam = flat_pattern(120, seed=seed, mover_scale=mover_scale, movers=movers,
                                shake_px=shake_px)
     clip = write_clip(tmp_path / "flat.mp4", frames, FPS)
@@ -251,15 +261,20 @@ def test_flat_colour_patterns_with_movers_are_steadied_or_said_not_to_be(
         log = stabilize.steady(clip, out)
     s = log.summary
     said_not = any("not steadier" in r.message or "could not be checked" in r.message
-                   for r in caplog.records)
-    if s["output_steadier"]:
+                   or "not steady" in r.message for r in caplog.records)
+    if s["output_steadier"] and not s["output_keeps_shake"]:
         assert not said_not
         for axis in ("x", "y"):
-            # Residual at most a tenth of the input's, both measured on frames by the check.
-            assert s[f"jitter_rms_{axis}_px_out"] <= 0.1 * s[f"jitter_rms_{axis}_px_src_check"]
+            # Residual at most a tenth of the input's, both measured on frames by the check
+            # (or under the floor of 1 px per 1000 px of width).
+            assert s[f"jitter_rms_{axis}_px_out"] <= max(
+                0.1 * s[f"jitter_rms_{axis}_px_src_check"], 0.48)
     else:
         assert said_not
     truth = true_output_rms(log, cam)
+    print(f"seed {seed}: measured {s['output_pairs_measured']:.2f}, carried "
+          f"{s['output_pairs_carried']}; out {s['jitter_rms_x_px_out']} / "
+          f"{s['jitter_rms_y_px_out']} px, true {truth[0]:.3f} / {truth[1]:.3f} px")
     for j, axis in enumerate(("x", "y")):
         got = s[f"jitter_rms_{axis}_px_out"]
         if got is None:

@@ -20,7 +20,7 @@ from stabilize.residual import (
     pair_motion,
     reduce_luma,
 )
-from stabilize.steadiness import steadiness
+from stabilize.steadiness import carried_readout, steadiness, with_carried
 
 
 def _waves(seed: int, count: int = 24) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -49,11 +49,12 @@ def _render(waves, m: np.ndarray, width: int, height: int) -> np.ndarray:
     return np.clip(np.rint(128.0 + acc), 0, 255).astype(np.uint8)
 
 
-def _similarity(dx: float, dy: float, deg: float, centre: np.ndarray) -> np.ndarray:
-    """A similarity (scale 1) about ``centre`` that moves the centre by (dx, dy) and turns
-    by ``deg`` (the log's readout convention: atan2(m21 − m12, m11 + m22))."""
+def _similarity(dx: float, dy: float, deg: float, centre: np.ndarray,
+                scale: float = 1.0) -> np.ndarray:
+    """A similarity about ``centre`` that moves the centre by (dx, dy), turns by ``deg``
+    (the log's readout convention: atan2(m21 − m12, m11 + m22)) and scales by ``scale``."""
     t = math.radians(deg)
-    r = np.array([[math.cos(t), -math.sin(t)], [math.sin(t), math.cos(t)]])
+    r = scale * np.array([[math.cos(t), -math.sin(t)], [math.sin(t), math.cos(t)]])
     m = np.eye(3)
     m[:2, :2] = r
     m[:2, 2] = centre + (dx, dy) - r @ centre
@@ -301,6 +302,50 @@ def test_steadiness_compares_like_with_like():
     sparse[1::3] = np.nan
     res = steadiness(sparse, src, **common)
     assert res["output_steadier"] is None and res["output_pairs_measured"] < 0.5
+    # Steadier, but keeping over a tenth of the shake (and over 1 px per 1000 px): not
+    # steady, and said so; a tenth or less, or under the floor, is steady.
+    big = 3.0 * src                          # 6.4 px RMS on x; the floor is 1.92 px
+    assert steadiness(0.5 * big, big, **common)["output_keeps_shake"] is True
+    huge = 30.0 * src                        # 64 px RMS: 8 % of it is 5 px, over the floor
+    assert steadiness(0.08 * huge, huge, **common)["output_keeps_shake"] is False
+    assert half["output_keeps_shake"] is False   # 1.06 px: under the floor
+    assert steadiness(0.002 * src, 0.001 * src, **common)["output_keeps_shake"] is False
+    assert steadiness(None, src, **common)["output_keeps_shake"] is None
+
+
+def test_the_sources_motion_carried_through_the_corrections_is_the_outputs():
+    """Exact ground truth: the output frame t is the source frame t resampled by C_t, so its
+    motion is C_t·S_t·C_{t−1}⁻¹. Read about the centre, the carried motion must be that,
+    for corrections that rotate, zoom and shift."""
+    w, h, n = 640, 360, 6
+    c = frame_centre(w, h)
+    rng = np.random.default_rng(3)
+    source = np.stack([_similarity(*rng.uniform(-4, 4, 2), rng.uniform(-0.5, 0.5), c)
+                       for _ in range(n)])
+    corrections = np.stack([_similarity(*rng.uniform(-20, 20, 2), rng.uniform(-2, 2), c,
+                                        scale=rng.uniform(1.05, 1.15)) for _ in range(n)])
+    readout = similarity_readout(source, c)[:, :3]
+    readout[0] = np.nan
+    readout[3] = np.nan                      # a pair the source did not measure
+    cuts = np.zeros(n, bool)
+    cuts[5] = True                           # nor is motion across a cut carried
+    got = carried_readout(readout, corrections, cuts, w, h)
+    want = similarity_readout(corrections[1:] @ source[1:] @ np.linalg.inv(corrections[:-1]),
+                              c)[:, :3]
+    np.testing.assert_allclose(got[[1, 2, 4]], want[[0, 1, 3]], atol=1e-9)
+    assert np.isnan(got[[0, 3, 5]]).all()
+    # It fills only the output's gaps, and only when half the pairs or more were measured on
+    # the output itself.
+    out = np.full((n, 3), 0.5)
+    out[0] = np.nan
+    out[2] = np.nan
+    filled, from_source = with_carried(out, got, cuts)
+    np.testing.assert_array_equal(from_source, [False, False, True, False, False, False])
+    np.testing.assert_allclose(filled[2], got[2])
+    np.testing.assert_array_equal(filled[[1, 3, 4, 5]], out[[1, 3, 4, 5]])
+    out[[1, 3]] = np.nan                     # 1 of the 4 pairs measured on the output
+    filled, from_source = with_carried(out, got, cuts)
+    assert not from_source.any() and np.isnan(filled[2]).all()
 
 
 def test_summary_out_figures_come_from_the_measured_output():
@@ -336,3 +381,48 @@ def test_summary_out_figures_come_from_the_measured_output():
     s = shake.summarise(**common, output_motion_readout=blind)
     assert s["jitter_rms_x_px_out"] is None and s["stability_translation_out"] is None
     assert s["jitter_rms_x_px_planned"] is not None
+
+
+def test_a_gap_at_a_frame_the_log_found_weak_leaves_the_output_unvouched_for():
+    """An output pair nothing measured is bridged for the figures after steadying; at a
+    frame the log measured with confidence that is harmless, but at a weak one the log
+    itself may have put a jump there (a drawn flat pattern: a weak frame 7 px off, in an
+    unmeasured pair, and the figures read a tenth of the truth). Then no figure is given,
+    unless the source's measurement, carried through the corrections, fills the gap."""
+    from stabilize.jobs.figures import shake_summary
+
+    n, fps, w, h = 240, 30.0, 640, 360
+    c = frame_centre(w, h)
+    t = np.arange(n) / fps
+    sway = np.diff(2.0 * np.sin(2 * np.pi * 2.5 * t), prepend=0.0)
+    matrices = np.stack([_similarity(d, 0.0, 0.0, c) for d in sway])
+    corrections = np.repeat(np.eye(3)[None], n, axis=0)
+    source = np.column_stack([sway, np.zeros(n), np.zeros(n)])
+    source[0] = np.nan
+    output = np.zeros((n, 3))
+    output[0] = np.nan
+    output[120] = np.nan
+    status = np.full(n, "ok")
+    status[0] = "first"
+    common = dict(matrices=matrices, time_s=t, rms_px=np.full(n, 0.1),
+                  inliers=np.full(n, 200), reasons=np.full(n, ""), width=w, height=h,
+                  fps_nominal=fps, above_hz=1.0, fov_deg=None, corrections=corrections,
+                  steadiness=True)
+    no_source = source.copy()
+    no_source[120] = np.nan                 # nor did the source's check measure that pair
+    at_ok = shake_summary(status=status, output_check=output, source_check=no_source,
+                          **common)
+    assert at_ok["output_unchecked_weak_frames"] == 0
+    assert at_ok["jitter_rms_x_px_out"] is not None and at_ok["output_steadier"] is not None
+    weak = status.copy()
+    weak[120] = "weak"
+    at_weak = shake_summary(status=weak, output_check=output, source_check=no_source,
+                            **common)
+    assert at_weak["output_unchecked_weak_frames"] == 1
+    assert at_weak["jitter_rms_x_px_out"] is None and at_weak["output_steadier"] is None
+    assert at_weak["output_pairs_measured"] == pytest.approx(238 / 239)
+    filled = shake_summary(status=weak, output_check=output, source_check=source, **common)
+    assert filled["output_unchecked_weak_frames"] == 0
+    assert filled["output_pairs_carried"] == pytest.approx(1 / 239)
+    # The identity correction carries the source's sway into the output as it is.
+    assert filled["jitter_rms_x_px_out"] > 0.01

@@ -10,6 +10,7 @@ import numpy as np
 
 from .. import shake
 from ..raw_path import accumulate
+from ..steadiness import carried_readout, measured_share, with_carried
 from ..steadiness import steadiness as output_against_source
 
 __all__ = ["shake_summary", "warn_if_irregular"]
@@ -46,7 +47,9 @@ def shake_summary(*, matrices: np.ndarray, status: np.ndarray, time_s: np.ndarra
         smoothing.
     corrections : (n, 3, 3) C_t; None before smoothing.
     output_check, source_check : (n, 3) dx, dy (px) and degrees measured while rendering, on
-        the output and on the source; None before rendering.
+        the output and on the source; None before rendering. Output pairs that could not
+        be measured on the output take the source's measured motion carried through the
+        corrections (:func:`stabilize.steadiness.with_carried`; ``output_pairs_carried``).
     steadiness : whether to add the figures of the written video against its source.
 
     Returns
@@ -54,6 +57,22 @@ def shake_summary(*, matrices: np.ndarray, status: np.ndarray, time_s: np.ndarra
     dict : the summary keys (the verdict is added by the job, over every key it has).
     """
     cuts = status == "cut"
+    direct = output_check
+    carried = None
+    unchecked_weak = None
+    if output_check is not None and source_check is not None and corrections is not None:
+        output_check, carried = with_carried(
+            output_check, carried_readout(source_check, corrections, cuts, width, height), cuts)
+    if output_check is not None:
+        # A pair of the output that nothing measured, at a frame the log did not measure
+        # with confidence, may hold a jump that bridging it would hide: then no figure
+        # vouches for the video.
+        pairs = ~cuts
+        pairs[:1] = False
+        gaps = pairs & ~np.isfinite(output_check).all(axis=1) & (status != "ok")
+        unchecked_weak = int(np.count_nonzero(gaps))
+        if unchecked_weak:
+            output_check = np.full_like(output_check, np.nan)
     summary = shake.summarise(
         matrices=matrices, path=accumulate(matrices, cuts), status=status, fps=fps_nominal,
         width=width, height=height, above_hz=above_hz, fov_deg=fov_deg,
@@ -67,6 +86,12 @@ def shake_summary(*, matrices: np.ndarray, status: np.ndarray, time_s: np.ndarra
         summary |= output_against_source(output_check, source_check, cuts=cuts,
                                        fps=summary["fps"], above_hz=above_hz, width=width,
                                        height=height, time_s=time_s if real_time else None)
+        if direct is not None:
+            summary["output_pairs_measured"] = measured_share(direct, cuts)
+            pairs = max(1, int(np.count_nonzero(~cuts[1:])))
+            summary["output_pairs_carried"] = (None if carried is None else
+                                               float(np.count_nonzero(carried) / pairs))
+            summary["output_unchecked_weak_frames"] = unchecked_weak
     return summary
 
 

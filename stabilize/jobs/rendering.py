@@ -168,15 +168,28 @@ def _copy_unchanged(clip: Path, dest: Path) -> None:
 
 def _warn_if_not_steadier(clip: Path, summary: dict[str, Any]) -> None:
     """Say so on stderr when the written video, measured on its frames, is not steadier than
-    its source (or could not be measured)."""
+    its source, is steadier but keeps over a tenth of its shake (``output_keeps_shake``), or
+    could not be measured."""
     s = summary
     if s.get("output_steadier") is None:
         share = s.get("output_pairs_measured")
+        weak = s.get("output_unchecked_weak_frames")
+        gaps = (f"; {weak} frames the log found weak have an output pair that nothing "
+                "measured, where a jump could hide" if weak else "")
         _log.warning("%s: the steadied video could not be checked (%s of its frame pairs "
-                     "measured); its figures after steadying are not given, and it may not be "
-                     "steadier than the source: look at it", clip,
-                     "none" if not share else f"{share:.0%}")
-    elif not s["output_steadier"]:
+                     "measured%s); its figures after steadying are not given, and it may not "
+                     "be steadier than the source: look at it", clip,
+                     "none" if not share else f"{share:.0%}", gaps)
+    elif s["output_steadier"] and s.get("output_keeps_shake"):
+        kept = [f"{a} {1.0 - s[f'shake_reduction_{a}']:.0%}" for a in "xy"
+                if s.get(f"shake_reduction_{a}") is not None]
+        _log.warning("%s: the steadied video is steadier than the source but not steady: it "
+                     "keeps %s of the source's shake (measured on the frames of both: x %.2f "
+                     "px, y %.2f px against x %.2f px, y %.2f px); a light smoothing keeps "
+                     "shake, and so do frames the log got wrong: look at it", clip,
+                     ", ".join(kept) or "some", s["jitter_rms_x_px_out"], s["jitter_rms_y_px_out"],
+                     s["jitter_rms_x_px_src_check"], s["jitter_rms_y_px_src_check"])
+    if s.get("output_steadier") is False:
         def rms(key: str) -> str:
             v = s.get(key)
             return "?" if v is None else f"{v:.2f}"

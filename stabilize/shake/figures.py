@@ -216,7 +216,9 @@ MIN_MEASURED_SHARE = 0.5
 #: jump there. A drawn flat pattern whose output could be measured on 76 % of its pairs read
 #: 0.08 px of shake after steadying while it held a 6.7-px jump (true 0.69 px RMS) in an
 #: unmeasured stretch; the real clips of tests/real are measured on 94–100 % of theirs
-#: (measured). This project's choice.
+#: (measured). This project's choice. Pairs the output's own corners could not measure may
+#: be known from the source's measurement carried through the corrections
+#: (:func:`stabilize.steadiness.with_carried`); they count here.
 OUTPUT_MIN_MEASURED_SHARE = 0.9
 
 

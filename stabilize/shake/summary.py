@@ -229,7 +229,8 @@ def trust_verdict(summary: dict) -> dict:
       rough (the reason says when the check also read shake the log does not have,
       :func:`unlogged_source_shake`);
     - the steadied video could not be measured well enough to say (``output_steadier`` null
-      after a render: ``output_pairs_measured`` given): rough, nothing then vouches for it;
+      after a render: ``output_pairs_measured`` given; ``output_unchecked_weak_frames``
+      named): rough, nothing then vouches for it;
     - changes of brightness that may alone have moved the logged path
       (``brightness_drift_px``) by over :data:`BRIGHTNESS_DRIFT_PX` (rough, unreliable);
     - irregular frame times (``timestamps_irregular``): rough, the path was resampled;
@@ -280,8 +281,11 @@ def trust_verdict(summary: dict) -> dict:
     elif summary.get("output_steadier") is None and summary.get("output_pairs_measured") \
             is not None:
         share = float(summary["output_pairs_measured"])
+        weak = int(summary.get("output_unchecked_weak_frames") or 0)
+        gaps = (f", and {weak} frames the log found weak have an output pair that nothing "
+                "measured" if weak else "")
         reasons.append((1, f"The steadied video could not be checked ({share:.0%} of its frame "
-                           "pairs could be measured): nothing says it is "
+                           f"pairs could be measured{gaps}): nothing says it is "
                            "steadier than the input, and it may not be; look at it against the "
                            "original footage."))
     drift = summary.get("brightness_drift_px")
