@@ -346,8 +346,15 @@ def _steady_section(s: dict[str, Any]) -> str:
     ]
     if "output_steadier" in s:
         verdict = {True: "yes", False: "NO: check the log and the settings",
-                   None: "not measured"}[s.get("output_steadier")]
+                   None: "could not be checked"}[s.get("output_steadier")]
+        if s.get("output_steadier") and s.get("output_keeps_shake"):
+            verdict = "yes, but not steady: it keeps over a tenth of the shake"
         extra.append(["steadier than the source (both measured on frames)", verdict])
+        measured = s.get("output_pairs_measured")
+        if measured is not None:
+            carried = s.get("output_pairs_carried") or 0.0
+            extra.append(["frame pairs measured on the output / carried from the source",
+                          f"{_percent(measured)} / {_percent(carried)}"])
         extra.append(["shake removed, x / y (100 % = all)",
                       f"{_percent(s.get('shake_reduction_x'))} / "
                       f"{_percent(s.get('shake_reduction_y'))}"])

@@ -430,3 +430,25 @@ def test_one_mark_for_a_missing_figure_and_a_unit_on_every_figure():
     certainty = dict(r for r in _cells(html, "certainty"))
     assert certainty["median inlier share"].endswith("%")
     assert certainty["median fit residual"].endswith("px")
+
+
+def test_the_steadied_table_says_whether_the_output_was_checked_and_how():
+    """The page says plainly when the written video kept shake or could not be checked,
+    and how many of its frame pairs were measured on it or carried from the source."""
+    from stabilize.report_page import _steady_section
+
+    base = {"cropping_ratio": 0.9, "distortion": 1.0, "margin": 0.05,
+            "frames_correction_eased": 0, "shake_reduction_x": 0.86,
+            "shake_reduction_y": 0.91}
+    kept = _steady_section(base | {"output_steadier": True, "output_keeps_shake": True,
+                                   "output_pairs_measured": 0.98,
+                                   "output_pairs_carried": 0.017})
+    assert "not steady: it keeps over a tenth of the shake" in kept
+    assert "carried from the source</td><td>98.0\u00a0% / 1.70\u00a0%" in kept
+    unchecked = _steady_section(base | {"output_steadier": None,
+                                        "output_pairs_measured": 0.45,
+                                        "output_pairs_carried": 0.0})
+    assert "could not be checked" in unchecked
+    plain = _steady_section(base | {"output_steadier": True, "output_keeps_shake": False,
+                                    "output_pairs_measured": 1.0, "output_pairs_carried": 0.0})
+    assert ">yes<" in plain
