@@ -171,6 +171,11 @@ def _warn_if_not_steadier(clip: Path, summary: dict[str, Any]) -> None:
     its source, is steadier but keeps over a tenth of its shake (``output_keeps_shake``), or
     could not be measured."""
     s = summary
+
+    def rms(key: str) -> str:
+        v = s.get(key)
+        return "?" if v is None else f"{v:.2f}"
+
     if s.get("output_steadier") is None:
         share = s.get("output_pairs_measured")
         weak = s.get("output_unchecked_weak_frames")
@@ -184,16 +189,13 @@ def _warn_if_not_steadier(clip: Path, summary: dict[str, Any]) -> None:
         kept = [f"{a} {1.0 - s[f'shake_reduction_{a}']:.0%}" for a in "xy"
                 if s.get(f"shake_reduction_{a}") is not None]
         _log.warning("%s: the steadied video is steadier than the source but not steady: it "
-                     "keeps %s of the source's shake (measured on the frames of both: x %.2f "
-                     "px, y %.2f px against x %.2f px, y %.2f px); a light smoothing keeps "
-                     "shake, and so do frames the log got wrong: look at it", clip,
-                     ", ".join(kept) or "some", s["jitter_rms_x_px_out"], s["jitter_rms_y_px_out"],
-                     s["jitter_rms_x_px_src_check"], s["jitter_rms_y_px_src_check"])
+                     "keeps %s of the source's shake (measured on the frames of both: x %s "
+                     "px, y %s px against x %s px, y %s px); a light smoothing keeps shake, "
+                     "and so do frames the log got wrong: look at it", clip,
+                     ", ".join(kept) or "some", rms("jitter_rms_x_px_out"),
+                     rms("jitter_rms_y_px_out"), rms("jitter_rms_x_px_src_check"),
+                     rms("jitter_rms_y_px_src_check"))
     if s.get("output_steadier") is False:
-        def rms(key: str) -> str:
-            v = s.get(key)
-            return "?" if v is None else f"{v:.2f}"
-
         if shake.unlogged_source_shake(s):
             why = (f"; the motion log gives the source x {rms('jitter_rms_x_px')} px, "
                    f"y {rms('jitter_rms_y_px')} px: either the log missed the camera's motion "
