@@ -9,8 +9,8 @@ from . import shake
 from .geometry import frame_centre, from_similarity, similarity_readout
 
 __all__ = ["KEPT_FLOOR_PX_PER_1000", "KEPT_SHARE", "MIN_DIRECT_SHARE", "STEADIER_RATIO",
-           "STEADY_FLOOR_PX_PER_1000", "carried_readout", "measured_share", "steadiness",
-           "with_carried"]
+           "STEADY_FLOOR_PX_PER_1000", "carried_readout", "measured_share", "pair_frames",
+           "steadiness", "with_carried"]
 
 
 #: The output counts as steadier than the source when its measured shake RMS, on the axis
@@ -175,9 +175,15 @@ def measured_share(readout: np.ndarray, cuts: np.ndarray) -> float:
     float : share of pairs with all three values finite; 0 when there is no pair.
     """
     readout = np.asarray(readout, np.float64)
-    pairs = np.ones(len(readout), bool)
-    pairs[0] = False
-    pairs &= ~np.asarray(cuts, bool)
+    pairs = pair_frames(cuts)
     if not pairs.any():
         return 0.0
     return float(np.mean(np.isfinite(readout[pairs]).all(axis=1)))
+
+
+def pair_frames(cuts: np.ndarray) -> np.ndarray:
+    """(n,) bool: the frames that end a pair of consecutive frames of one shot (not the
+    first frame, not a cut), given the (n,) bool scene cuts."""
+    pairs = ~np.asarray(cuts, bool)
+    pairs[:1] = False
+    return pairs

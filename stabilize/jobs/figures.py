@@ -10,7 +10,7 @@ import numpy as np
 
 from .. import shake
 from ..raw_path import accumulate
-from ..steadiness import carried_readout, measured_share, with_carried
+from ..steadiness import carried_readout, measured_share, pair_frames, with_carried
 from ..steadiness import steadiness as output_against_source
 
 __all__ = ["shake_summary", "warn_if_irregular"]
@@ -67,9 +67,7 @@ def shake_summary(*, matrices: np.ndarray, status: np.ndarray, time_s: np.ndarra
         # A pair of the output that nothing measured, at a frame the log did not measure
         # with confidence, may hold a jump that bridging it would hide: then no figure
         # vouches for the video.
-        pairs = ~cuts
-        pairs[:1] = False
-        gaps = pairs & ~np.isfinite(output_check).all(axis=1) & (status != "ok")
+        gaps = pair_frames(cuts) & ~np.isfinite(output_check).all(axis=1) & (status != "ok")
         unchecked_weak = int(np.count_nonzero(gaps))
         if unchecked_weak:
             output_check = np.full_like(output_check, np.nan)
@@ -88,7 +86,7 @@ def shake_summary(*, matrices: np.ndarray, status: np.ndarray, time_s: np.ndarra
                                        height=height, time_s=time_s if real_time else None)
         if direct is not None:
             summary["output_pairs_measured"] = measured_share(direct, cuts)
-            pairs = max(1, int(np.count_nonzero(~cuts[1:])))
+            pairs = max(1, int(np.count_nonzero(pair_frames(cuts))))
             summary["output_pairs_carried"] = (None if carried is None else
                                                float(np.count_nonzero(carried) / pairs))
             summary["output_unchecked_weak_frames"] = unchecked_weak
